@@ -1,0 +1,258 @@
+"""Section budgets as linear functionals of the unknowns.
+
+Every reported number is ``value = initial + G x``, where ``x`` stacks the
+unknowns of the inverse (reference-velocity adjustments of every pair, the
+diapycnal transfers, the fractional Ekman adjustments). This module builds
+``initial`` and ``G`` for each section's class transports, net transport,
+heat (potential enthalpy) transport, freshwater transport and overturning, so
+a posterior covariance ``P`` gives every error exactly as ``G P G^T``.
+
+Reporting units: Sv (10^6 m^3 s^-1) for volume, mass (divided by rho0) and
+freshwater; PW (10^15 W) for heat; Sv g/kg for salt.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from sectionkit.operator import QUANTITIES, SectionOperator
+
+SV = 1e6  # m^3 s^-1 per Sverdrup (common practice)
+PW = 1e15  # W per petawatt
+QUANTITY_SCALE = {"volume": SV, "mass": SV, "salt": SV, "heat": PW}
+Q = {name: n for n, name in enumerate(QUANTITIES)}
+
+
+@dataclass
+class UnknownLayout:
+    """Where each unknown sits in the state vector ``x``.
+
+    Attributes
+    ----------
+    pair_slices : dict of str -> slice
+        Reference-velocity adjustments (m s^-1) of each section's pairs.
+    diapycnal : dict of (str, int) -> int
+        Index of the transfer across interface ``n`` of box ``name`` (Sv).
+    ekman : dict of str -> int
+        Index of the fractional Ekman adjustment of a section (1).
+    size : int
+        Length of ``x``.
+    labels : list of str
+        Name of every unknown.
+    """
+
+    pair_slices: dict[str, slice]
+    diapycnal: dict[tuple[str, int], int]
+    ekman: dict[str, int]
+    size: int
+    labels: list[str]
+
+
+def make_layout(
+    operators: dict[str, SectionOperator],
+    diapycnal_boxes: list[str] | None = None,
+    n_interfaces: int = 0,
+    ekman_sections: list[str] | None = None,
+) -> UnknownLayout:
+    """Lay out the unknowns: pairs of each section, then transfers, then Ekman factors.
+
+    Parameters
+    ----------
+    operators : dict of str -> SectionOperator
+        Section operators in configuration order.
+    diapycnal_boxes : list of str, optional
+        Boxes that get one transfer unknown per interface.
+    n_interfaces : int
+        Number of class interfaces.
+    ekman_sections : list of str, optional
+        Sections that get a fractional Ekman adjustment.
+    """
+    slices: dict[str, slice] = {}
+    labels: list[str] = []
+    start = 0
+    for name, op in operators.items():
+        slices[name] = slice(start, start + op.n_pair)
+        labels += op.pair_labels
+        start += op.n_pair
+    dia: dict[tuple[str, int], int] = {}
+    for box in diapycnal_boxes or []:
+        for n in range(n_interfaces):
+            dia[(box, n)] = start
+            labels.append(f"{box}:W{n}")
+            start += 1
+    ek: dict[str, int] = {}
+    for name in ekman_sections or []:
+        ek[name] = start
+        labels.append(f"{name}:ekman")
+        start += 1
+    return UnknownLayout(slices, dia, ek, start, labels)
+
+
+@dataclass
+class LinearOutputs:
+    """Named outputs ``initial + gradient @ x`` in reporting units.
+
+    Attributes
+    ----------
+    names : list of str
+        One per output.
+    initial : ndarray (output,)
+        Value for x = 0.
+    gradient : ndarray (output, unknown)
+        Derivative with respect to every unknown.
+    units : list of str
+        Unit of each output.
+    """
+
+    names: list[str]
+    initial: np.ndarray
+    gradient: np.ndarray
+    units: list[str]
+
+    def value(self, x: np.ndarray | None = None) -> np.ndarray:
+        """Outputs for unknowns ``x`` (x = 0 when None)."""
+        return self.initial if x is None else self.initial + self.gradient @ x
+
+    def std(self, covariance: np.ndarray | None) -> np.ndarray:
+        """Standard deviation of each output, sqrt(diag(G P G^T)); NaN without P."""
+        if covariance is None:
+            return np.full(len(self.names), np.nan)
+        g = self.gradient
+        return np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", g, covariance, g), 0.0))
+
+    def index(self, name: str) -> int:
+        """Position of a named output."""
+        return self.names.index(name)
+
+
+def class_transport_gradient(
+    op: SectionOperator, quantity: str, layout: UnknownLayout, ekman: np.ndarray
+) -> np.ndarray:
+    """d(class transport)/dx of one quantity, in reporting units per unknown.
+
+    Parameters
+    ----------
+    op : SectionOperator
+        The section.
+    quantity : str
+        One of ``QUANTITIES``.
+    layout : UnknownLayout
+        Unknown layout.
+    ekman : ndarray (pair,)
+        Ekman volume transport of each pair, m^3 s^-1.
+
+    Returns
+    -------
+    ndarray (class, unknown)
+    """
+    q = Q[quantity]
+    scale = QUANTITY_SCALE[quantity]
+    g = np.zeros((len(op.layer_names), layout.size))
+    g[:, layout.pair_slices[op.name]] = op.area[q].T / scale
+    if op.name in layout.ekman:
+        g[:, layout.ekman[op.name]] = (ekman[:, None] * op.ekman_share[q]).sum(axis=0) / scale
+    return g
+
+
+def section_outputs(
+    op: SectionOperator,
+    offset: np.ndarray,
+    ekman: np.ndarray,
+    layout: UnknownLayout,
+    reference_salinity: float | None = None,
+    x_for_maximum: np.ndarray | None = None,
+) -> LinearOutputs:
+    """Every reported number of one section as a linear functional of ``x``.
+
+    Parameters
+    ----------
+    op : SectionOperator
+        The section (no leading dimensions).
+    offset : ndarray (pair,)
+        Reference offsets of the chosen references, m s^-1.
+    ekman : ndarray (pair,)
+        Ekman volume transport per pair, m^3 s^-1.
+    layout : UnknownLayout
+        Unknown layout.
+    reference_salinity : float, optional
+        Salinity the freshwater transport is relative to, g/kg; the
+        section's area-mean Absolute Salinity when None.
+    x_for_maximum : ndarray (unknown,), optional
+        State at which the overturning maxima are located (the adjusted
+        state); the initial state when None.
+
+    Returns
+    -------
+    LinearOutputs
+        Names ``volume:<class>``, ``mass:<class>``, ``salt:<class>``,
+        ``heat:<class>``, ``net``, ``net_mass``, ``heat``, ``freshwater``,
+        ``overturning`` (depth space), ``overturning_density``, and
+        ``psi_depth:<k>`` / ``psi_density:<n>`` streamfunction values.
+    """
+    t0 = op.transports(offset, 0.0, ekman, 1.0)  # (quantity, pair, class)
+    names: list[str] = []
+    initial: list[np.ndarray] = []
+    grads: list[np.ndarray] = []
+    units: list[str] = []
+    per_q: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+    for quantity in QUANTITIES:
+        value = t0[Q[quantity]].sum(axis=0) / QUANTITY_SCALE[quantity]
+        grad = class_transport_gradient(op, quantity, layout, ekman)
+        per_q[quantity] = (value, grad)
+        unit = {"volume": "Sv", "mass": "Sv", "salt": "Sv g/kg", "heat": "PW"}[quantity]
+        for i, layer in enumerate(op.layer_names):
+            names.append(f"{quantity}:{layer}")
+            initial.append(value[i : i + 1])
+            grads.append(grad[i : i + 1])
+            units.append(unit)
+
+    def add(name: str, value: np.ndarray, grad: np.ndarray, unit: str) -> None:
+        names.append(name)
+        initial.append(np.atleast_1d(value))
+        grads.append(np.atleast_2d(grad))
+        units.append(unit)
+
+    vol, gvol = per_q["volume"]
+    mass, gmass = per_q["mass"]
+    salt, gsalt = per_q["salt"]
+    heat, gheat = per_q["heat"]
+    add("net", vol.sum(), gvol.sum(axis=0), "Sv")
+    add("net_mass", mass.sum(), gmass.sum(axis=0), "Sv")
+    add("heat", heat.sum(), gheat.sum(axis=0), "PW")
+    s_ref = float(op.mean_salinity) if reference_salinity is None else reference_salinity
+    add("freshwater", mass.sum() - salt.sum() / s_ref,
+        gmass.sum(axis=0) - gsalt.sum(axis=0) / s_ref, "Sv")
+
+    # overturning in density classes: cumulative from the light side at each interface
+    psi_rho = np.cumsum(vol)[:-1]
+    gpsi_rho = np.cumsum(gvol, axis=0)[:-1]
+    # overturning in depth: cumulative transport from the surface down
+    level = op.level_relative + op.level_area.T @ offset + ekman @ op.level_ekman
+    glevel = np.zeros((op.pressure.size, layout.size))
+    glevel[:, layout.pair_slices[op.name]] = op.level_area.T
+    if op.name in layout.ekman:
+        glevel[:, layout.ekman[op.name]] = ekman @ op.level_ekman
+    psi_z = np.cumsum(level) / SV
+    gpsi_z = np.cumsum(glevel, axis=0) / SV
+    x_at = np.zeros(layout.size) if x_for_maximum is None else x_for_maximum
+    kz = int(np.argmax(np.abs(psi_z + gpsi_z @ x_at)))
+    add("overturning", psi_z[kz], gpsi_z[kz], "Sv")
+    if psi_rho.size:
+        kr = int(np.argmax(np.abs(psi_rho + gpsi_rho @ x_at)))
+        add("overturning_density", psi_rho[kr], gpsi_rho[kr], "Sv")
+    else:
+        add("overturning_density", np.nan, np.zeros(layout.size), "Sv")
+    for n in range(psi_rho.size):
+        add(f"psi_density:{n}", psi_rho[n], gpsi_rho[n], "Sv")
+    for k in range(op.pressure.size):
+        add(f"psi_depth:{k}", psi_z[k], gpsi_z[k], "Sv")
+    return LinearOutputs(names, np.concatenate(initial), np.vstack(grads), units)
+
+
+def overturning_pressure(op: SectionOperator, outputs: LinearOutputs, x=None) -> float:
+    """Pressure (dbar) of the depth-space overturning maximum."""
+    psi = np.array([outputs.value(x)[outputs.index(f"psi_depth:{k}")]
+                    for k in range(op.pressure.size)])
+    return float(op.pressure[int(np.argmax(np.abs(psi)))])

@@ -1,0 +1,192 @@
+"""Command line: ``sectionkit check | budget | demo | lab | ensemble``.
+
+Errors of sectionkit's own kind are printed as one readable message without a
+traceback, with exit status 1 (2 for usage errors, from argparse).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Sequence
+from pathlib import Path
+
+from sectionkit.errors import SectionkitError
+
+DEMO_DIR = Path(__file__).resolve().parent.parent / "demo_sections"
+
+
+def _progress(message: str) -> None:
+    print(f"  .. {message}", file=sys.stderr, flush=True)
+
+
+def _extras():
+    """Writers beyond the CSV tables, when their modules are present."""
+    writers = []
+    try:
+        from sectionkit.paper import write_paper_tables
+
+        writers.append(write_paper_tables)
+    except ImportError:
+        pass
+    try:
+        from sectionkit.figures import write_figures
+
+        writers.append(write_figures)
+    except ImportError:
+        pass
+    return writers
+
+
+def run_budget(config_path: Path, out_dir: Path, *, figures: bool = True,
+               quiet: bool = False) -> int:
+    """Run the whole chain of one configuration and write its outputs."""
+    from sectionkit.config import load_config
+    from sectionkit.report import write_outputs
+    from sectionkit.study import Study
+
+    progress = None if quiet else _progress
+    config = load_config(config_path)
+    study = Study.from_config(config, progress=progress)
+    if progress:
+        progress("budgets" + (" and inverse" if config.inverse else ""))
+    results = study.solve()
+    extras = _extras() if figures else []
+    if progress and extras:
+        progress("tables and figures")
+    written = write_outputs(study, results, out_dir, extras)
+    print(f"{config.title}: wrote {len(written)} files to {out_dir}")
+    for name in study.operators:
+        line = (f"  {name}: net {results.value(name, 'net'):+.2f} Sv, "
+                f"heat {results.value(name, 'heat'):+.3f} PW, "
+                f"overturning {results.value(name, 'overturning'):+.2f} Sv")
+        if results.inverse is not None:
+            line += f" (± {results.error(name, 'overturning'):.2f})"
+        print(line)
+    if results.cautions:
+        print("cautions:")
+        for c in results.cautions:
+            print(f"  - {c}")
+    return 0
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    from sectionkit.io.check import describe_section
+
+    for path in args.files:
+        print(describe_section(path, dp=args.dp, allow_equator=args.allow_equator))
+    return 0
+
+
+def _cmd_budget(args: argparse.Namespace) -> int:
+    return run_budget(Path(args.config), Path(args.out), figures=not args.no_figures,
+                      quiet=args.quiet)
+
+
+def demo_config_path() -> Path:
+    """The bundled demo configuration (regenerated into a cache if not shipped)."""
+    path = DEMO_DIR / "demo.toml"
+    if path.is_file():
+        return path
+    from sectionkit.demo import write_demo
+
+    cache = Path.home() / ".cache" / "sectionkit" / "demo_sections"
+    if not (cache / "demo.toml").is_file():
+        write_demo(cache)
+    return cache / "demo.toml"
+
+
+def _cmd_demo(args: argparse.Namespace) -> int:
+    return run_budget(demo_config_path(), Path(args.out), figures=not args.no_figures,
+                      quiet=args.quiet)
+
+
+def _cmd_lab(args: argparse.Namespace) -> int:
+    import subprocess
+
+    notebook = DEMO_DIR.parent / "notebooks" / "workbench.ipynb"
+    cmd = [sys.executable, "-m", "jupyterlab", str(notebook)]
+    if args.no_browser:
+        cmd.append("--no-browser")
+    if args.port:
+        cmd.append(f"--ServerApp.port={args.port}")
+    return subprocess.call(cmd)
+
+
+def _cmd_ensemble(args: argparse.Namespace) -> int:
+    from sectionkit.ensemble import ensemble_main
+
+    return ensemble_main(args)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of every command."""
+    parser = argparse.ArgumentParser(
+        prog="sectionkit",
+        description="Hydrographic sections to transport budgets: geostrophic velocities, "
+        "density-class transports, box inverses and paper-ready tables.",
+    )
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    p = sub.add_parser("check", help="validate section files and describe what was found",
+                       description="Read each section file, validate it and print what it holds "
+                       "(stations, positions, depths, spacing, grid, cautions).")
+    p.add_argument("files", nargs="+", help="CF-NetCDF or CSV section file(s)")
+    p.add_argument("--dp", type=float, default=2.0, help="grid step, dbar (default 2)")
+    p.add_argument("--allow-equator", action="store_true",
+                   help="accept pairs within 2 degrees of the equator (with a caution)")
+    p.set_defaults(func=_cmd_check)
+
+    p = sub.add_parser("budget", help="compute the budgets of a TOML configuration",
+                       description="Compute class transports, the box inverse (when [inverse] is "
+                       "configured) and write the tables, figures and provenance to --out.")
+    p.add_argument("config", help="configuration file (.toml)")
+    p.add_argument("--out", required=True, help="output folder")
+    p.add_argument("--no-figures", action="store_true", help="skip figures (faster)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages")
+    p.set_defaults(func=_cmd_budget)
+
+    p = sub.add_parser("demo", help="run the whole chain on the bundled invented-basin demo",
+                       description="Run the bundled demo box (two invented lines) through "
+                       "initial budgets, the inverse and the report.")
+    p.add_argument("--out", default="results", help="output folder (default: results)")
+    p.add_argument("--no-figures", action="store_true", help="skip figures (faster)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages")
+    p.set_defaults(func=_cmd_demo)
+
+    p = sub.add_parser("lab", help="open the workbench notebook in JupyterLab",
+                       description="Start JupyterLab on notebooks/workbench.ipynb.")
+    p.add_argument("--no-browser", action="store_true", help="do not open a browser")
+    p.add_argument("--port", type=int, default=0, help="server port (default: Jupyter's)")
+    p.set_defaults(func=_cmd_lab)
+
+    p = sub.add_parser("ensemble", help="Monte Carlo ensemble on dask.distributed",
+                       description="Perturb measurements, references and priors and run the "
+                       "chain per member on a dask.distributed cluster.")
+    p.add_argument("config", help="configuration file (.toml)")
+    p.add_argument("--members", type=int, default=100, help="ensemble size (default 100)")
+    p.add_argument("--out", required=True, help="output folder")
+    p.add_argument("--scheduler", default=None, help="address of an existing dask scheduler")
+    p.add_argument("--workers", type=int, default=2, help="local workers (default 2)")
+    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--serial", action="store_true", help="run without dask (same results)")
+    p.set_defaults(func=_cmd_ensemble)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``sectionkit`` command."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.func(args) or 0)
+    except SectionkitError as exc:
+        print(f"sectionkit {args.command}: error: {exc}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print("interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,169 @@
+"""Station-pair geometry: distance, mid-point, Coriolis parameter, line direction.
+
+Pair ``k`` lies between stations ``k`` and ``k + 1``. Distances follow
+gsw.distance (haversine on a sphere of radius 6371 km, at the sea surface), so
+velocities computed here equal gsw.geostrophic_velocity. Longitude differences
+are wrapped into [-180, 180) so a pair straddling the dateline is as short as
+it really is.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import xarray as xr
+
+EARTH_RADIUS = 6371e3  # m, the sphere used by gsw.distance
+OMEGA = 7.292115e-5  # s^-1, Earth's rotation rate as in gsw.f (TEOS-10)
+
+
+def wrap_longitude_difference(dlon: np.ndarray) -> np.ndarray:
+    """Wrap longitude differences into [-180, 180) degrees.
+
+    Parameters
+    ----------
+    dlon : ndarray
+        Longitude difference, degrees.
+
+    Returns
+    -------
+    ndarray
+        The same difference taken the short way round, degrees.
+    """
+    return (np.asarray(dlon, dtype=float) + 180.0) % 360.0 - 180.0
+
+
+def great_circle_distance(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
+    """Distance between neighbouring stations along the line.
+
+    Parameters
+    ----------
+    lon : ndarray (..., station)
+        Longitude, degrees_east.
+    lat : ndarray (..., station)
+        Latitude, degrees_north.
+
+    Returns
+    -------
+    ndarray (..., pair)
+        Great-circle distance, m (haversine, as gsw.distance at p = 0).
+    """
+    lon_r = np.radians(np.asarray(lon, dtype=float))
+    lat_r = np.radians(np.asarray(lat, dtype=float))
+    dlon = np.diff(lon_r, axis=-1)
+    dlat = np.diff(lat_r, axis=-1)
+    a = np.sin(dlat / 2) ** 2 + np.cos(lat_r[..., :-1]) * np.cos(lat_r[..., 1:]) * np.sin(
+        dlon / 2
+    ) ** 2
+    return EARTH_RADIUS * 2 * np.arctan2(np.sqrt(a), np.sqrt(1 - a))
+
+
+def pair_midpoints(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Mid-points of neighbouring stations.
+
+    Parameters
+    ----------
+    lon : ndarray (..., station)
+        Longitude, degrees_east.
+    lat : ndarray (..., station)
+        Latitude, degrees_north.
+
+    Returns
+    -------
+    mid_lon : ndarray (..., pair)
+        Longitude of the mid-point, degrees_east, in the range of the first
+        station of the pair (dateline-safe).
+    mid_lat : ndarray (..., pair)
+        Arithmetic mean latitude, degrees_north (as gsw.geostrophic_velocity,
+        which evaluates f there).
+    """
+    lon = np.asarray(lon, dtype=float)
+    lat = np.asarray(lat, dtype=float)
+    dlon = wrap_longitude_difference(np.diff(lon, axis=-1))
+    mid_lon = lon[..., :-1] + 0.5 * dlon
+    mid_lon = np.where(mid_lon > 360.0, mid_lon - 360.0, mid_lon)
+    mid_lon = np.where(mid_lon < -180.0, mid_lon + 360.0, mid_lon)
+    return mid_lon, 0.5 * (lat[..., :-1] + lat[..., 1:])
+
+
+def coriolis_parameter(lat: np.ndarray) -> np.ndarray:
+    """Coriolis parameter f = 2 Omega sin(lat).
+
+    Parameters
+    ----------
+    lat : ndarray
+        Latitude, degrees_north.
+
+    Returns
+    -------
+    ndarray
+        f, s^-1.
+    """
+    return 2.0 * OMEGA * np.sin(np.radians(np.asarray(lat, dtype=float)))
+
+
+def along_line_direction(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Unit vector along the line, from station k to k + 1, in local east/north.
+
+    Positive transport is to the left of this direction, i.e. along
+    (-t_north, t_east).
+
+    Parameters
+    ----------
+    lon : ndarray (..., station)
+        Longitude, degrees_east.
+    lat : ndarray (..., station)
+        Latitude, degrees_north.
+
+    Returns
+    -------
+    t_east, t_north : ndarray (..., pair)
+        Components of the unit along-line vector, dimensionless.
+    """
+    lon = np.asarray(lon, dtype=float)
+    lat = np.asarray(lat, dtype=float)
+    _, mid_lat = pair_midpoints(lon, lat)
+    dx = np.radians(wrap_longitude_difference(np.diff(lon, axis=-1))) * np.cos(
+        np.radians(mid_lat)
+    )
+    dy = np.radians(np.diff(lat, axis=-1))
+    norm = np.hypot(dx, dy)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return dx / norm, dy / norm
+
+
+def pair_geometry(section: xr.Dataset) -> xr.Dataset:
+    """Geometry of every station pair of a section.
+
+    Parameters
+    ----------
+    section : xr.Dataset
+        Canonical section with ``lon`` and ``lat`` (station), degrees.
+
+    Returns
+    -------
+    xr.Dataset
+        Dimension ``pair``; variables ``distance`` (m), ``lon``, ``lat``
+        (mid-point, degrees), ``f`` (s^-1), ``along_east``, ``along_north``
+        (unit vector, 1), and ``station_a``/``station_b`` (ids of the two
+        stations).
+    """
+    lon = section["lon"].values
+    lat = section["lat"].values
+    distance = great_circle_distance(lon, lat)
+    mid_lon, mid_lat = pair_midpoints(lon, lat)
+    t_east, t_north = along_line_direction(lon, lat)
+    stations = section["station"].values
+    pair = np.arange(len(distance))
+    return xr.Dataset(
+        {
+            "distance": ("pair", distance, {"units": "m", "long_name": "station spacing"}),
+            "lon": ("pair", mid_lon, {"units": "degrees_east", "long_name": "pair mid-point"}),
+            "lat": ("pair", mid_lat, {"units": "degrees_north", "long_name": "pair mid-point"}),
+            "f": ("pair", coriolis_parameter(mid_lat), {"units": "s-1"}),
+            "along_east": ("pair", t_east, {"units": "1"}),
+            "along_north": ("pair", t_north, {"units": "1"}),
+            "station_a": ("pair", stations[:-1]),
+            "station_b": ("pair", stations[1:]),
+        },
+        coords={"pair": pair},
+    )

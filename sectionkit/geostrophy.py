@@ -1,0 +1,415 @@
+"""Dynamic height, relative geostrophic velocity, bottom triangles, references.
+
+The chain is computed once per section: TEOS-10 dynamic height anomaly per
+station (gsw), velocity between neighbouring stations relative to the sea
+surface, and the profile extended into the bottom triangle below each pair's
+deepest common level. Any reference choice then only sets one constant per
+pair: the offset ``c = u_ref - v_rel(p_ref)`` added wherever the reference
+velocity reaches (``response = 1``). Nothing here is recomputed when a
+reference changes.
+
+All kernels take the vertical axis last and broadcast leading dimensions.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import gsw
+import numpy as np
+
+from sectionkit.errors import Cautions, ComputationError
+
+TRIANGLE_RULES = ("constant", "zero", "shear")
+SHEAR_FIT_SPAN = 100.0  # dbar above the deepest common level used to fit the extrapolated shear
+
+
+def dynamic_height(
+    sa: np.ndarray, ct: np.ndarray, p: np.ndarray, max_dp: float = 1.0
+) -> np.ndarray:
+    """TEOS-10 dynamic height anomaly relative to the sea surface.
+
+    Parameters
+    ----------
+    sa : ndarray (..., station, level)
+        Absolute Salinity, g/kg; NaN below the bottom.
+    ct : ndarray (..., station, level)
+        Conservative Temperature, degC; NaN below the bottom.
+    p : ndarray (level,)
+        Sea pressure, dbar, increasing.
+    max_dp : float
+        Finest spacing gsw integrates on (it interpolates when the grid is
+        coarser), dbar.
+
+    Returns
+    -------
+    ndarray (..., station, level)
+        Dynamic height anomaly Psi (gsw.geo_strf_dyn_height, p_ref = 0),
+        m^2 s^-2; NaN below the bottom.
+    """
+    sa = np.asarray(sa, dtype=float)
+    ct = np.asarray(ct, dtype=float)
+    shape = sa.shape
+    psi = gsw.geo_strf_dyn_height(
+        sa.reshape(-1, shape[-1]), ct.reshape(-1, shape[-1]), np.asarray(p, float),
+        p_ref=0.0, axis=1, max_dp=max_dp,
+    )
+    return np.asarray(psi, dtype=float).reshape(shape)
+
+
+def relative_velocity(psi: np.ndarray, distance: np.ndarray, f: np.ndarray) -> np.ndarray:
+    """Geostrophic velocity between neighbouring stations, relative to the surface.
+
+    Parameters
+    ----------
+    psi : ndarray (..., station, level)
+        Dynamic height anomaly, m^2 s^-2.
+    distance : ndarray (pair,)
+        Great-circle distance between neighbours, m.
+    f : ndarray (pair,)
+        Coriolis parameter at the pair mid-point, s^-1.
+
+    Returns
+    -------
+    ndarray (..., pair, level)
+        Velocity relative to the surface, m s^-1, positive to the left of
+        increasing station order; NaN below the deepest common level.
+    """
+    return np.diff(psi, axis=-2) / (np.asarray(distance) * np.asarray(f))[:, None]
+
+
+def last_valid_level(values: np.ndarray) -> np.ndarray:
+    """Index of the deepest finite value of each profile.
+
+    Parameters
+    ----------
+    values : ndarray (..., level)
+        Profiles, any unit; NaN below the bottom.
+
+    Returns
+    -------
+    ndarray (...,) of int
+        Index of the last finite level, -1 for an all-NaN profile.
+    """
+    finite = np.isfinite(values)
+    n = values.shape[-1]
+    idx = n - 1 - np.argmax(finite[..., ::-1], axis=-1)
+    return np.where(finite.any(axis=-1), idx, -1)
+
+
+def pair_level_limits(station_last: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Deepest common and deepest single-station level of each pair.
+
+    Parameters
+    ----------
+    station_last : ndarray (..., station) of int
+        Index of each station's last valid level.
+
+    Returns
+    -------
+    common : ndarray (..., pair) of int
+        Index of the deepest level both stations reach.
+    deepest : ndarray (..., pair) of int
+        Index of the deepest level either station reaches.
+    """
+    a = station_last[..., :-1]
+    b = station_last[..., 1:]
+    return np.minimum(a, b), np.maximum(a, b)
+
+
+def extend_into_bottom_triangle(
+    v_rel: np.ndarray,
+    p: np.ndarray,
+    common: np.ndarray,
+    deepest: np.ndarray,
+    rule: str = "constant",
+) -> tuple[np.ndarray, np.ndarray]:
+    """Velocity below each pair's deepest common level, and where a reference reaches.
+
+    Parameters
+    ----------
+    v_rel : ndarray (..., pair, level)
+        Velocity relative to the surface, m s^-1; NaN below the deepest
+        common level.
+    p : ndarray (level,)
+        Pressure grid, dbar.
+    common : ndarray (..., pair) of int
+        Index of the deepest common level.
+    deepest : ndarray (..., pair) of int
+        Index of the deepest level either station reaches.
+    rule : {"constant", "zero", "shear"}
+        ``constant``: the velocity at the deepest common level continues
+        down (common practice). ``zero``: no flow in the triangle, whatever
+        the reference. ``shear``: the shear of the deepest
+        ``SHEAR_FIT_SPAN`` dbar above the deepest common level continues
+        (least-squares slope).
+
+    Returns
+    -------
+    v_eff : ndarray (..., pair, level)
+        Velocity relative to the surface down to the deeper station's bottom,
+        m s^-1 (NaN below it).
+    response : ndarray (..., pair, level)
+        1 where an added reference velocity reaches, 0 where it does not
+        (the triangle under the ``zero`` rule), NaN below the bottom.
+    """
+    if rule not in TRIANGLE_RULES:
+        raise ComputationError(
+            f"bottom_triangle = {rule!r} is not known; use one of {', '.join(TRIANGLE_RULES)}"
+        )
+    p = np.asarray(p, dtype=float)
+    k = np.arange(p.size)
+    above = k <= common[..., None]
+    triangle = (k > common[..., None]) & (k <= deepest[..., None])
+    safe_common = np.clip(common, 0, None)[..., None]
+    v_common = np.take_along_axis(v_rel, safe_common, axis=-1)
+    if rule == "constant":
+        fill = np.broadcast_to(v_common, v_rel.shape)
+    elif rule == "zero":
+        fill = np.zeros_like(v_rel)
+    else:
+        p_common = p[safe_common]
+        window = above & (p >= p_common - SHEAR_FIT_SPAN)
+        pw = np.where(window, p, np.nan)
+        vw = np.where(window, v_rel, np.nan)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            pm = np.nanmean(pw, axis=-1, keepdims=True)
+            vm = np.nanmean(vw, axis=-1, keepdims=True)
+            slope = np.nansum((pw - pm) * (vw - vm), axis=-1, keepdims=True) / np.nansum(
+                (pw - pm) ** 2, axis=-1, keepdims=True
+            )
+        slope = np.where(np.isfinite(slope), slope, 0.0)
+        fill = v_common + slope * (p - p_common)
+    v_eff = np.where(above, v_rel, np.where(triangle, fill, np.nan))
+    reach = 0.0 if rule == "zero" else 1.0
+    response = np.where(above, 1.0, np.where(triangle, reach, np.nan))
+    return v_eff, response
+
+
+def pair_mean(station_values: np.ndarray) -> np.ndarray:
+    """Average of neighbouring stations; the deeper one alone where only it has data.
+
+    Parameters
+    ----------
+    station_values : ndarray (..., station, level)
+        Any property, any unit; NaN below the bottom.
+
+    Returns
+    -------
+    ndarray (..., pair, level)
+        Pair-mean property, same unit.
+    """
+    a = station_values[..., :-1, :]
+    b = station_values[..., 1:, :]
+    both = np.isfinite(a) & np.isfinite(b)
+    return np.where(both, 0.5 * (a + b), np.where(np.isfinite(a), a, b))
+
+
+def value_at_pressure(profile: np.ndarray, p: np.ndarray, p_at: np.ndarray) -> np.ndarray:
+    """Linear interpolation of each profile at its own pressure.
+
+    Parameters
+    ----------
+    profile : ndarray (..., pair, level)
+        Values on the grid, any unit.
+    p : ndarray (level,)
+        Pressure grid, dbar.
+    p_at : ndarray (..., pair)
+        Pressure to interpolate at, dbar, within the grid.
+
+    Returns
+    -------
+    ndarray (..., pair)
+        Interpolated values, same unit.
+    """
+    p = np.asarray(p, dtype=float)
+    p_at = np.asarray(p_at, dtype=float)
+    hi = np.clip(np.searchsorted(p, p_at, side="right"), 1, p.size - 1)
+    lo = hi - 1
+    w = np.clip((p_at - p[lo]) / (p[hi] - p[lo]), 0.0, 1.0)
+    v_lo = np.take_along_axis(profile, lo[..., None], axis=-1)[..., 0]
+    v_hi = np.take_along_axis(profile, hi[..., None], axis=-1)[..., 0]
+    return np.where(w == 0.0, v_lo, v_lo + w * (v_hi - v_lo))
+
+
+def isopycnal_pressure(
+    sigma: np.ndarray, p: np.ndarray, common: np.ndarray, value: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Pressure of an isopycnal in each pair-mean profile.
+
+    Parameters
+    ----------
+    sigma : ndarray (..., pair, level)
+        Pair-mean potential density anomaly at the isopycnal's reference
+        pressure, kg m^-3.
+    p : ndarray (level,)
+        Pressure grid, dbar.
+    common : ndarray (..., pair) of int
+        Index of the deepest common level.
+    value : float
+        Potential density anomaly of the isopycnal, kg m^-3.
+
+    Returns
+    -------
+    p_iso : ndarray (..., pair)
+        Pressure of the first crossing from the surface down, dbar; the
+        deepest common level where the pair does not reach the isopycnal,
+        0 where the whole column is denser.
+    status : ndarray (..., pair) of int
+        0 found, 1 not reached (fell back to the deepest common level),
+        2 outcropped (the surface is already denser; 0 dbar used).
+    """
+    p = np.asarray(p, dtype=float)
+    k = np.arange(p.size)
+    usable = k <= common[..., None]
+    denser = np.where(usable, sigma >= value, False)
+    any_denser = denser.any(axis=-1)
+    first = np.argmax(denser, axis=-1)
+    prev = np.clip(first - 1, 0, None)
+    s_hi = np.take_along_axis(sigma, first[..., None], axis=-1)[..., 0]
+    s_lo = np.take_along_axis(sigma, prev[..., None], axis=-1)[..., 0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frac = np.where(first > 0, (value - s_lo) / (s_hi - s_lo), 0.0)
+    frac = np.clip(np.nan_to_num(frac), 0.0, 1.0)
+    p_found = p[prev] + frac * (p[first] - p[prev])
+    p_common = p[np.clip(common, 0, None)]
+    outcrop = any_denser & (first == 0)
+    p_iso = np.where(any_denser, np.where(outcrop, 0.0, p_found), p_common)
+    status = np.where(any_denser, np.where(outcrop, 2, 0), 1)
+    return p_iso, status
+
+
+@dataclass(frozen=True)
+class ReferenceChoice:
+    """How one pair's reference velocity is set.
+
+    Parameters
+    ----------
+    kind : {"pressure", "bottom", "isopycnal", "velocity"}
+        Level of no motion at a pressure, at the deepest common level, on an
+        isopycnal, or a known velocity at a pressure (direct measurement).
+    pressure : float, optional
+        Reference pressure for ``pressure`` and ``velocity`` kinds, dbar.
+    sigma : float, optional
+        Isopycnal potential density anomaly, kg m^-3.
+    sigma_p_ref : float
+        Reference pressure of that potential density, dbar.
+    velocity : float
+        Known velocity at ``pressure`` (``velocity`` kind), m s^-1, positive
+        to the left of increasing station order.
+    velocity_error : float
+        One standard deviation of the known velocity, m s^-1.
+    """
+
+    kind: str = "pressure"
+    pressure: float | None = None
+    sigma: float | None = None
+    sigma_p_ref: float = 0.0
+    velocity: float = 0.0
+    velocity_error: float = 0.0
+
+    def describe(self) -> str:
+        """A short phrase for captions and tables."""
+        if self.kind == "pressure":
+            return f"level of no motion at {self.pressure:g} dbar"
+        if self.kind == "bottom":
+            return "level of no motion at the deepest common level"
+        if self.kind == "isopycnal":
+            return f"level of no motion on sigma_{self.sigma_p_ref / 1000:g} = {self.sigma:g}"
+        return (
+            f"known velocity {self.velocity:g} ± {self.velocity_error:g} m/s "
+            f"at {self.pressure:g} dbar"
+        )
+
+
+def resolve_references(
+    choices: list[ReferenceChoice],
+    v_eff: np.ndarray,
+    p: np.ndarray,
+    common: np.ndarray,
+    sigma_at: dict[float, np.ndarray] | None = None,
+    cautions: Cautions | None = None,
+    pair_labels: list[str] | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Reference pressure and velocity offset of every pair.
+
+    Parameters
+    ----------
+    choices : list of ReferenceChoice, one per pair
+        The reference of each pair.
+    v_eff : ndarray (..., pair, level)
+        Velocity relative to the surface, m s^-1.
+    p : ndarray (level,)
+        Pressure grid, dbar.
+    common : ndarray (..., pair) of int
+        Index of each pair's deepest common level.
+    sigma_at : dict of float -> ndarray (..., pair, level), optional
+        Pair-mean potential density anomaly (kg m^-3) keyed by its reference
+        pressure (dbar); needed for isopycnal references.
+    cautions : Cautions, optional
+        Collects fall-backs (reference deeper than the pair, isopycnal not
+        reached).
+    pair_labels : list of str, optional
+        Names of the pairs for messages, e.g. ``"south:14"``.
+
+    Returns
+    -------
+    p_used : ndarray (..., pair)
+        The pressure actually used, dbar.
+    offset : ndarray (..., pair)
+        Velocity to add to ``v_eff`` where the reference reaches,
+        ``u_ref - v_eff(p_used)``, m s^-1.
+    """
+    p = np.asarray(p, dtype=float)
+    n_pair = v_eff.shape[-2]
+    if len(choices) != n_pair:
+        raise ComputationError(f"{len(choices)} reference choices for {n_pair} pairs")
+    labels = pair_labels or [str(j) for j in range(n_pair)]
+    p_common = p[np.clip(common, 0, None)]
+    p_used = np.array(p_common, dtype=float, copy=True)
+    u_ref = np.zeros_like(p_used)
+    for j, choice in enumerate(choices):
+        pc = p_common[..., j]
+        if choice.kind == "bottom":
+            pj = pc
+        elif choice.kind in ("pressure", "velocity"):
+            if choice.pressure is None:
+                raise ComputationError(f"pair {labels[j]}: a {choice.kind} reference needs a pressure")
+            pj = np.minimum(choice.pressure, pc)
+            if cautions is not None and np.any(choice.pressure > pc):
+                cautions.add(
+                    "reference-below-pair",
+                    f"pair {labels[j]}: reference {choice.pressure:g} dbar is deeper than the "
+                    f"deepest common level ({float(np.min(pc)):g} dbar); that level is used",
+                )
+            if choice.kind == "velocity":
+                u_ref[..., j] = choice.velocity
+        elif choice.kind == "isopycnal":
+            if sigma_at is None or choice.sigma_p_ref not in sigma_at:
+                raise ComputationError(
+                    f"pair {labels[j]}: no potential density referenced to "
+                    f"{choice.sigma_p_ref:g} dbar was prepared for the isopycnal reference"
+                )
+            pj, status = isopycnal_pressure(
+                sigma_at[choice.sigma_p_ref][..., j : j + 1, :], p, common[..., j : j + 1],
+                choice.sigma,
+            )
+            pj, status = pj[..., 0], status[..., 0]
+            if cautions is not None and np.any(status == 1):
+                cautions.add(
+                    "isopycnal-not-reached",
+                    f"pair {labels[j]}: the isopycnal {choice.sigma:g} (p_ref "
+                    f"{choice.sigma_p_ref:g} dbar) lies below the pair's deepest common level; "
+                    "the deepest common level is used",
+                )
+            if cautions is not None and np.any(status == 2):
+                cautions.add(
+                    "isopycnal-outcrops",
+                    f"pair {labels[j]}: the isopycnal {choice.sigma:g} outcrops (the surface is "
+                    "denser); the sea surface is used as the reference",
+                )
+        else:
+            raise ComputationError(f"pair {labels[j]}: unknown reference kind {choice.kind!r}")
+        p_used[..., j] = pj
+    v_at_ref = value_at_pressure(v_eff, p, p_used)
+    return p_used, u_ref - v_at_ref

@@ -1,0 +1,307 @@
+"""Box inverse: conservation constraints assembled from the section operators.
+
+For each box and each constraint the net inflow is linear in the unknowns,
+``inflow = initial + E x``; conservation asks ``inflow + n = 0`` with noise
+``n``, i.e. ``E x + n = y`` with ``y = -initial``.
+
+Constraints (all in Sv, or Sv g/kg, or PW):
+- ``mass:<class>``: in-situ-density weighted inflow of the class divided by
+  rho0, plus transfers across its interfaces (W_n positive from class n to
+  class n + 1, i.e. light to dense), plus known transports of that class;
+- ``mass:total``: the sum over classes (transfers cancel);
+- ``salt:<class>``: salt inflow as an anomaly from the box-class mean
+  salinity, ``sum (salt - S_i mass)``, so it is not a copy of mass; a transfer
+  carries the mean salinity of the two classes it joins;
+- ``heat:<class>``: the same with potential enthalpy (rho0 c_p0 Theta_i).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from sectionkit.budget import PW, SV, UnknownLayout, class_transport_gradient
+from sectionkit.config import BoxSpec, InverseSpec, KnownTransport
+from sectionkit.errors import ConfigError
+from sectionkit.operator import CP0, RHO0, SectionOperator
+from sectionkit.solvers import make_solver
+
+SALT_NOISE_FLOOR = 0.005  # g/kg: smallest salinity spread used to scale salt-anomaly noise
+TEMPERATURE_NOISE_FLOOR = 0.05  # degC, the same for heat
+
+
+@dataclass
+class ConstraintSystem:
+    """The assembled system ``E x + n = y``.
+
+    Attributes
+    ----------
+    rows : list of (str, str)
+        (box, constraint) of each row, e.g. ("interior", "mass:deep").
+    matrix : ndarray (row, unknown)
+        E, in row units per unknown unit.
+    initial : ndarray (row,)
+        Net inflow before adjustment (x = 0), row units.
+    noise : ndarray (row,)
+        One standard deviation of each row's noise, row units.
+    prior : ndarray (unknown,)
+        One standard deviation of each unknown's prior.
+    units : list of str
+        Unit of each row.
+    """
+
+    rows: list[tuple[str, str]]
+    matrix: np.ndarray
+    initial: np.ndarray
+    noise: np.ndarray
+    prior: np.ndarray
+    units: list[str]
+
+    @property
+    def target(self) -> np.ndarray:
+        """y = -initial: the adjustment must cancel the initial imbalance."""
+        return -self.initial
+
+
+def _box_sign(box: BoxSpec, section: str) -> float:
+    return 1.0 if section in box.enters else -1.0
+
+
+def box_class_means(
+    box: BoxSpec, operators: dict[str, SectionOperator]
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Area-weighted mean and spread of SA and CT per class over a box's sections.
+
+    Returns
+    -------
+    sa_mean, sa_std, ct_mean, ct_std : ndarray (class,)
+        g/kg and degC.
+    """
+    sums = None
+    for name in box.enters + box.leaves:
+        op = operators[name]
+        length = op.pairs["distance"].values[:, None, None]
+        w = op.weights * length  # (pair, class, level) m^2
+        sa = np.nan_to_num(op.extra["sa_pair"])[:, None, :]
+        ct = np.nan_to_num(op.extra["ct_pair"])[:, None, :]
+        part = np.array([
+            w.sum(axis=(0, 2)), (w * sa).sum(axis=(0, 2)), (w * sa**2).sum(axis=(0, 2)),
+            (w * ct).sum(axis=(0, 2)), (w * ct**2).sum(axis=(0, 2)),
+        ])
+        sums = part if sums is None else sums + part
+    area = np.where(sums[0] > 0, sums[0], np.nan)
+    sa_mean = sums[1] / area
+    ct_mean = sums[3] / area
+    sa_std = np.sqrt(np.maximum(sums[2] / area - sa_mean**2, 0.0))
+    ct_std = np.sqrt(np.maximum(sums[4] / area - ct_mean**2, 0.0))
+    fill = np.nanmean
+    return (np.nan_to_num(sa_mean, nan=fill(sa_mean)), np.nan_to_num(sa_std),
+            np.nan_to_num(ct_mean, nan=fill(ct_mean)), np.nan_to_num(ct_std))
+
+
+def assemble(
+    operators: dict[str, SectionOperator],
+    offsets: dict[str, np.ndarray],
+    ekman: dict[str, np.ndarray],
+    boxes: list[BoxSpec],
+    spec: InverseSpec,
+    layout: UnknownLayout,
+    layer_names: list[str],
+    velocity_prior: np.ndarray | None = None,
+) -> ConstraintSystem:
+    """Build the conservation constraints of every box.
+
+    Parameters
+    ----------
+    operators : dict of str -> SectionOperator
+        Section operators by name.
+    offsets : dict of str -> ndarray (pair,)
+        Reference offsets of the chosen references, m s^-1.
+    ekman : dict of str -> ndarray (pair,)
+        Ekman volume transport per pair, m^3 s^-1.
+    boxes : list of BoxSpec
+        The boxes.
+    spec : InverseSpec
+        Constraints, priors and noise.
+    layout : UnknownLayout
+        Unknown layout (pairs, transfers, Ekman factors).
+    layer_names : list of str
+        Class names.
+    velocity_prior : ndarray (n_pairs_total,), optional
+        Prior standard deviation of each pair's adjustment (m s^-1); the
+        global ``prior_velocity`` where None.
+    """
+    n_class = len(layer_names)
+    rows: list[tuple[str, str]] = []
+    e_rows: list[np.ndarray] = []
+    initial: list[float] = []
+    noise: list[float] = []
+    units: list[str] = []
+    known_by_box: dict[str, list[KnownTransport]] = {}
+    for kt in spec.known:
+        known_by_box.setdefault(kt.box or boxes[0].name, []).append(kt)
+
+    for box in boxes:
+        sections = box.enters + box.leaves
+        per = {}
+        for name in sections:
+            op = operators[name]
+            t = op.transports(offsets[name], 0.0, ekman[name], 1.0).sum(axis=-2)  # (q, class)
+            per[name] = {
+                "mass": (t[1] / SV, class_transport_gradient(op, "mass", layout, ekman[name])),
+                "salt": (t[2] / SV, class_transport_gradient(op, "salt", layout, ekman[name])),
+                "heat": (t[3] / PW, class_transport_gradient(op, "heat", layout, ekman[name])),
+            }
+        sa_mean, sa_std, ct_mean, ct_std = box_class_means(box, operators)
+        known = known_by_box.get(box.name, [])
+
+        def net(kind: str, per=per, box=box, sections=sections):
+            value = sum(_box_sign(box, s) * per[s][kind][0] for s in sections)
+            grad = sum(_box_sign(box, s) * per[s][kind][1] for s in sections)
+            return np.asarray(value, float), np.asarray(grad, float)
+
+        mass_v, mass_g = net("mass")
+        dia = np.zeros((n_class, layout.size))
+        for n in range(n_class - 1):
+            idx = layout.diapycnal.get((box.name, n))
+            if idx is not None:
+                dia[n, idx] -= 1.0  # leaves the lighter class
+                dia[n + 1, idx] += 1.0  # enters the denser class
+        known_v = np.zeros(n_class)
+        known_var = np.zeros(n_class)
+        for kt in known:
+            i = layer_names.index(kt.layer)
+            known_v[i] += kt.transport
+            known_var[i] += kt.noise**2
+
+        if "mass" in spec.conserve:
+            for i, layer in enumerate(layer_names):
+                rows.append((box.name, f"mass:{layer}"))
+                e_rows.append(mass_g[i] + dia[i])
+                initial.append(float(mass_v[i] + known_v[i]))
+                noise.append(float(np.sqrt(spec.noise_layer[i] ** 2 + known_var[i])))
+                units.append("Sv")
+            rows.append((box.name, "mass:total"))
+            e_rows.append(mass_g.sum(axis=0))
+            initial.append(float(mass_v.sum() + known_v.sum()))
+            noise.append(float(np.sqrt(spec.noise_total**2 + known_var.sum())))
+            units.append("Sv")
+        if "salt" in spec.conserve:
+            salt_v, salt_g = net("salt")
+            dia_s = _transfer_anomaly(dia, sa_mean)
+            for i, layer in enumerate(layer_names):
+                rows.append((box.name, f"salt:{layer}"))
+                e_rows.append(salt_g[i] - sa_mean[i] * mass_g[i] + dia_s[i])
+                initial.append(float(salt_v[i] - sa_mean[i] * mass_v[i]))
+                spread = max(sa_std[i], SALT_NOISE_FLOOR)
+                noise.append(spec.noise_salt[i] if spec.noise_salt
+                             else spec.noise_layer[i] * spread)
+                units.append("Sv g/kg")
+        if "heat" in spec.conserve:
+            heat_v, heat_g = net("heat")
+            h = RHO0 * CP0 * SV / PW  # PW per (Sv degC)
+            dia_h = _transfer_anomaly(dia, ct_mean) * h
+            for i, layer in enumerate(layer_names):
+                rows.append((box.name, f"heat:{layer}"))
+                e_rows.append(heat_g[i] - h * ct_mean[i] * mass_g[i] + dia_h[i])
+                initial.append(float(heat_v[i] - h * ct_mean[i] * mass_v[i]))
+                spread = max(ct_std[i], TEMPERATURE_NOISE_FLOOR)
+                noise.append(spec.noise_heat[i] if spec.noise_heat
+                             else spec.noise_layer[i] * spread * h)
+                units.append("PW")
+    if not rows:
+        raise ConfigError("[inverse] conserve is empty: name at least one of mass, salt, heat")
+
+    prior = np.zeros(layout.size)
+    n_pairs = sum(op.n_pair for op in operators.values())
+    prior[:n_pairs] = spec.prior_velocity if velocity_prior is None else velocity_prior
+    for idx in layout.diapycnal.values():
+        prior[idx] = spec.prior_diapycnal
+    for idx in layout.ekman.values():
+        prior[idx] = spec.prior_ekman
+    return ConstraintSystem(rows, np.vstack(e_rows), np.asarray(initial), np.asarray(noise),
+                            prior, units)
+
+
+def _transfer_anomaly(dia: np.ndarray, class_mean: np.ndarray) -> np.ndarray:
+    """Property anomaly carried by the transfers, relative to each class mean.
+
+    A transfer across interface n carries the mean of classes n and n + 1.
+    """
+    out = np.zeros_like(dia)
+    n_class = dia.shape[0]
+    for n in range(n_class - 1):
+        carried = 0.5 * (class_mean[n] + class_mean[n + 1])
+        out[n] += dia[n] * (carried - class_mean[n])
+        out[n + 1] += dia[n + 1] * (carried - class_mean[n + 1])
+    return out
+
+
+@dataclass
+class InverseResult:
+    """The solved inverse.
+
+    Attributes
+    ----------
+    system : ConstraintSystem
+        What was solved.
+    estimate : ndarray (unknown,)
+        Adjusted unknowns.
+    covariance : ndarray (unknown, unknown)
+        Posterior covariance P.
+    solver : object
+        The fitted solver (singular values, resolution, ...).
+    """
+
+    system: ConstraintSystem
+    estimate: np.ndarray
+    covariance: np.ndarray
+    solver: object
+
+    @property
+    def adjusted(self) -> np.ndarray:
+        """Net inflow of every constraint after adjustment."""
+        return self.system.initial + self.system.matrix @ self.estimate
+
+    @property
+    def normalized_residuals(self) -> np.ndarray:
+        """Adjusted inflow divided by its noise (DESIGN.md §7)."""
+        return self.adjusted / self.system.noise
+
+
+def solve(
+    system: ConstraintSystem,
+    spec: InverseSpec,
+    lower: np.ndarray | None = None,
+    upper: np.ndarray | None = None,
+) -> InverseResult:
+    """Solve ``E x + n = y`` with the configured solver.
+
+    Parameters
+    ----------
+    system : ConstraintSystem
+        Assembled constraints.
+    spec : InverseSpec
+        Solver name and rank.
+    lower, upper : ndarray (unknown,), optional
+        Bounds for the bounded solver, unknown units.
+    """
+    active = system.prior > 0
+    e = system.matrix[:, active]
+    settings: dict = {
+        "prior_variance": system.prior[active] ** 2,
+        "noise_variance": system.noise**2,
+    }
+    if spec.solver == "svd":
+        settings["rank"] = spec.rank
+    if spec.solver == "bounded":
+        settings["lower"] = None if lower is None else lower[active]
+        settings["upper"] = None if upper is None else upper[active]
+    solver = make_solver(spec.solver, **settings)
+    solver.fit(e, system.target)
+    estimate = np.zeros(system.prior.size)
+    estimate[active] = solver.estimate
+    cov = np.zeros((system.prior.size, system.prior.size))
+    cov[np.ix_(active, active)] = solver.covariance
+    return InverseResult(system, estimate, cov, solver)

@@ -1,0 +1,416 @@
+"""The section operator: everything a budget needs, computed once per section.
+
+Building the operator runs the expensive chain (dynamic height, relative
+velocity, bottom triangles, class weights). Afterwards every transport is
+linear in the per-pair reference velocity: for each quantity ``q`` (volume,
+mass, salt, heat), pair ``j`` and class ``i``
+
+    T[q, i] = sum_j relative[q, j, i] + area[q, j, i] * (offset_j + b_j)
+              + ekman_j * (1 + e) * ekman_share[q, j, i]
+
+where ``offset`` comes from the reference choice, ``b`` is the inverse's
+adjustment and ``ekman_j`` the Ekman volume transport of the pair.
+Changing a reference only changes ``offset``: a small product, never a
+recomputation of dynamic height.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import gsw
+import numpy as np
+import xarray as xr
+
+from sectionkit.errors import SectionDataError
+from sectionkit.geometry import pair_geometry
+from sectionkit.geostrophy import (
+    dynamic_height,
+    extend_into_bottom_triangle,
+    last_valid_level,
+    pair_level_limits,
+    pair_mean,
+    relative_velocity,
+)
+from sectionkit.layers import (
+    Interface,
+    bottom_width_fraction,
+    cell_thickness,
+    check_interfaces,
+    class_weights,
+    potential_density_anomaly,
+)
+
+RHO0 = 1025.0  # kg m^-3, Boussinesq reference density of DESIGN.md §4 (common practice)
+CP0 = 3991.86795711963  # J kg^-1 K^-1, TEOS-10 c_p0 (IOC, SCOR and IAPSO 2010; gsw.cp0 in C)
+QUANTITIES = ("volume", "mass", "salt", "heat")
+QUANTITY_UNITS = {
+    "volume": "m3 s-1",
+    "mass": "m3 s-1",  # mass flux divided by RHO0
+    "salt": "g kg-1 m3 s-1",  # rho SA v / RHO0
+    "heat": "W",  # rho c_p0 CT v (potential enthalpy)
+}
+
+
+@dataclass
+class SectionOperator:
+    """Linear transport operator of one section.
+
+    Arrays may carry extra leading dimensions (time, member) before the
+    named trailing ones.
+
+    Attributes
+    ----------
+    name : str
+        Section name.
+    pressure : ndarray (level,)
+        Grid, dbar.
+    pairs : xr.Dataset
+        Pair geometry (see :func:`sectionkit.geometry.pair_geometry`).
+    layer_names : list of str
+        One per class, light to dense.
+    interfaces : list of Interface
+        Class boundaries, light to dense.
+    v_eff : ndarray (..., pair, level)
+        Velocity relative to the surface, extended into bottom triangles, m s^-1.
+    response : ndarray (..., pair, level)
+        1 where a reference velocity reaches, 0 where not, NaN below bottom.
+    common : ndarray (..., pair) of int
+        Index of the deepest common level.
+    weights : ndarray (..., pair, class, level)
+        Depth-integration weights of each class, m.
+    relative : ndarray (..., quantity, pair, class)
+        Transport for zero reference offset (velocity relative to the
+        surface); units per ``QUANTITY_UNITS``.
+    area : ndarray (..., quantity, pair, class)
+        Transport per m s^-1 of reference velocity (area for volume, m^2).
+    ekman_share : ndarray (..., quantity, pair, class)
+        Quantity carried per m^3 s^-1 of Ekman volume transport in each
+        class of the top ``ekman_depth`` metres.
+    level_relative : ndarray (..., level)
+        Volume transport per grid level summed over pairs, m^3 s^-1, for zero
+        offset (depth overturning).
+    level_area : ndarray (..., pair, level)
+        Volume transport per level per m s^-1 of pair reference velocity, m^2.
+    level_ekman : ndarray (pair, level)
+        Fraction of each pair's Ekman volume transport carried at each level.
+    sigma_pair : dict of float -> ndarray (..., pair, level)
+        Pair-mean potential density anomaly by reference pressure, kg m^-3.
+    class_salinity, class_temperature : ndarray (..., class)
+        Area-weighted mean SA (g/kg) and CT (degC) of each class.
+    """
+
+    name: str
+    pressure: np.ndarray
+    pairs: xr.Dataset
+    layer_names: list[str]
+    interfaces: list[Interface]
+    v_eff: np.ndarray
+    response: np.ndarray
+    common: np.ndarray
+    deepest: np.ndarray
+    weights: np.ndarray
+    relative: np.ndarray
+    area: np.ndarray
+    ekman_share: np.ndarray
+    level_relative: np.ndarray
+    level_area: np.ndarray
+    level_ekman: np.ndarray
+    sigma_pair: dict[float, np.ndarray]
+    class_salinity: np.ndarray
+    class_temperature: np.ndarray
+    mean_salinity: np.ndarray
+    ekman_depth: float
+    bottom_triangle: str
+    extra: dict = field(default_factory=dict)
+
+    @property
+    def n_pair(self) -> int:
+        """Number of station pairs."""
+        return int(self.pairs.sizes["pair"])
+
+    @property
+    def pair_labels(self) -> list[str]:
+        """Pair names as used in configuration overrides, ``"<section>:<k>"``."""
+        return [f"{self.name}:{k}" for k in range(self.n_pair)]
+
+    def ekman_volume(self, stress_east: float, stress_north: float) -> np.ndarray:
+        """Ekman volume transport across each pair for a uniform wind stress.
+
+        Parameters
+        ----------
+        stress_east, stress_north : float
+            Wind stress components, N m^-2.
+
+        Returns
+        -------
+        ndarray (pair,)
+            -(tau . t) L / (RHO0 f), m^3 s^-1, positive to the left of
+            increasing station order.
+        """
+        g = self.pairs
+        along = stress_east * g["along_east"].values + stress_north * g["along_north"].values
+        return -along * g["distance"].values / (RHO0 * g["f"].values)
+
+    def transports(
+        self,
+        offset: np.ndarray,
+        adjustment: np.ndarray | float = 0.0,
+        ekman: np.ndarray | float = 0.0,
+        ekman_factor: float | np.ndarray = 1.0,
+    ) -> np.ndarray:
+        """Class transports of every quantity and pair.
+
+        Parameters
+        ----------
+        offset : ndarray (..., pair)
+            Reference offset from the reference choice, m s^-1.
+        adjustment : ndarray (..., pair) or float
+            Reference-velocity adjustment b (the inverse's unknown), m s^-1.
+        ekman : ndarray (pair,) or float
+            Ekman volume transport per pair, m^3 s^-1.
+        ekman_factor : float
+            Multiplier (1 + e) of the Ekman transport, dimensionless.
+
+        Returns
+        -------
+        ndarray (..., quantity, pair, class)
+            Transports in ``QUANTITY_UNITS``.
+        """
+        ref = np.asarray(offset) + np.asarray(adjustment)
+        ek = np.broadcast_to(np.asarray(ekman, dtype=float), (self.n_pair,))
+        factor = np.asarray(ekman_factor, dtype=float)[..., None, None, None]
+        return (
+            self.relative
+            + self.area * ref[..., None, :, None]
+            + factor * ek[:, None] * self.ekman_share
+        )
+
+    def absolute_velocity(self, offset: np.ndarray, adjustment: np.ndarray | float = 0.0):
+        """Absolute velocity of each pair on the grid.
+
+        Parameters
+        ----------
+        offset : ndarray (..., pair)
+            Reference offset, m s^-1.
+        adjustment : ndarray (..., pair) or float
+            Reference-velocity adjustment, m s^-1.
+
+        Returns
+        -------
+        ndarray (..., pair, level)
+            m s^-1; NaN below the deeper station's bottom.
+        """
+        ref = np.asarray(offset) + np.asarray(adjustment)
+        return self.v_eff + self.response * ref[..., None]
+
+
+def _masked(a: np.ndarray) -> np.ndarray:
+    return np.nan_to_num(a, nan=0.0)
+
+
+def build_operator(
+    section: xr.Dataset,
+    interfaces: list[Interface],
+    layer_names: list[str] | None = None,
+    *,
+    bottom_triangle: str = "constant",
+    ekman_depth: float = 50.0,
+    bathymetry: list | None = None,
+    max_dp: float = 1.0,
+) -> SectionOperator:
+    """Build the linear transport operator of a section.
+
+    Parameters
+    ----------
+    section : xr.Dataset
+        Canonical gridded section (``SA``, ``CT`` on (..., station, pressure),
+        ``lon``, ``lat``, ``bottom_pressure`` per station).
+    interfaces : list of Interface
+        Class interfaces, light to dense.
+    layer_names : list of str, optional
+        One name per class.
+    bottom_triangle : {"constant", "zero", "shear"}
+        Velocity rule below each pair's deepest common level.
+    ekman_depth : float
+        Depth of the Ekman layer, m.
+    bathymetry : list, optional
+        Per pair, sampled sea-floor pressures along the pair (dbar), or None.
+    max_dp : float
+        Integration step of gsw's dynamic height, dbar.
+
+    Returns
+    -------
+    SectionOperator
+    """
+    names = check_interfaces(interfaces, layer_names)
+    name = str(section.attrs.get("section", "section"))
+    p = section["pressure"].values.astype(float)
+    sa = section["SA"].transpose(..., "station", "pressure").values
+    ct = section["CT"].transpose(..., "station", "pressure").values
+    geometry = pair_geometry(section)
+    distance = geometry["distance"].values
+    f = geometry["f"].values
+    if np.any(distance <= 0):
+        j = int(np.argmin(distance))
+        raise SectionDataError(
+            f"section {name}: stations {j} and {j + 1} are at the same position; "
+            "merge or drop one of them"
+        )
+
+    psi = dynamic_height(sa, ct, p, max_dp=max_dp)
+    v_rel = relative_velocity(psi, distance, f)
+    last = last_valid_level(sa + ct)
+    common, deepest = pair_level_limits(last)
+    v_rel = np.where(np.arange(p.size) <= common[..., None], v_rel, np.nan)
+    v_eff, response = extend_into_bottom_triangle(v_rel, p, common, deepest, bottom_triangle)
+
+    sa_pair = pair_mean(sa)
+    ct_pair = pair_mean(ct)
+    rho_pair = pair_mean(gsw.rho(sa, ct, p))
+    p_refs = sorted({face.p_ref for face in interfaces} | {0.0})
+    sigma_pair = {pr: pair_mean(potential_density_anomaly(sa, ct, pr)) for pr in p_refs}
+    if interfaces:
+        sigma_if = np.stack([sigma_pair[face.p_ref] for face in interfaces], axis=-2)
+    else:
+        sigma_if = sigma_pair[0.0][..., None, :]
+    values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([np.inf])
+
+    bottom = section["bottom_pressure"].values.astype(float)
+    thickness = cell_thickness(p, geometry["lat"].values)
+    width = bottom_width_fraction(p, bottom[:-1], bottom[1:], bathymetry)
+    tail = _tail_thickness(p, deepest, bottom, geometry["lat"].values)
+    weights = class_weights(sigma_if, values, thickness, width, tail)
+    if not interfaces:
+        weights = weights[..., :1, :]
+
+    props = {
+        "volume": np.ones_like(rho_pair),
+        "mass": rho_pair / RHO0,
+        "salt": rho_pair * sa_pair / RHO0,
+        "heat": rho_pair * CP0 * ct_pair,
+    }
+    length = distance[:, None]
+    relative = np.stack(
+        [
+            length * np.einsum("...jik,...jk->...ji", weights, _masked(q * v_eff))
+            for q in props.values()
+        ],
+        axis=-3,
+    )
+    area = np.stack(
+        [
+            length * np.einsum("...jik,...jk->...ji", weights, _masked(q * response))
+            for q in props.values()
+        ],
+        axis=-3,
+    )
+
+    column = weights.sum(axis=-2)  # (..., pair, level)
+    level_relative = (distance[:, None] * column * _masked(v_eff)).sum(axis=-2)
+    level_area = distance[:, None] * column * _masked(response)
+
+    ekman_share, level_ekman = _ekman_share(
+        sigma_if, values, p, geometry["lat"].values, ekman_depth, props
+    )
+
+    vol_area = np.einsum("...jik->...i", weights * length[:, :, None])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        class_salinity = np.einsum(
+            "...jik,...jk->...i", weights * length[:, :, None], _masked(sa_pair)
+        ) / vol_area
+        class_temperature = np.einsum(
+            "...jik,...jk->...i", weights * length[:, :, None], _masked(ct_pair)
+        ) / vol_area
+    mean_salinity = np.einsum(
+        "...jik,...jk->...", weights * length[:, :, None], _masked(sa_pair)
+    ) / vol_area.sum(axis=-1)
+
+    return SectionOperator(
+        name=name,
+        pressure=p,
+        pairs=geometry,
+        layer_names=names if interfaces else names[:1],
+        interfaces=list(interfaces),
+        v_eff=v_eff,
+        response=response,
+        common=common,
+        deepest=deepest,
+        weights=weights,
+        relative=relative,
+        area=area,
+        ekman_share=ekman_share,
+        level_relative=level_relative,
+        level_area=level_area,
+        level_ekman=level_ekman,
+        sigma_pair=sigma_pair,
+        class_salinity=class_salinity,
+        class_temperature=class_temperature,
+        mean_salinity=mean_salinity,
+        ekman_depth=float(ekman_depth),
+        bottom_triangle=bottom_triangle,
+        extra={"sa_pair": sa_pair, "ct_pair": ct_pair, "rho_pair": rho_pair},
+    )
+
+
+def _tail_thickness(
+    p: np.ndarray, deepest: np.ndarray, bottom: np.ndarray, lat: np.ndarray
+) -> np.ndarray:
+    """Thickness (m) between each pair's deepest level and the deeper sea floor.
+
+    The sliver is less than one grid step; it is integrated with the last
+    level's value and the width fraction at its mid-pressure (zero for a
+    straight sloping bottom, one for a flat one).
+    """
+    deep_bottom = np.maximum(bottom[:-1], bottom[1:])
+    shallow_bottom = np.minimum(bottom[:-1], bottom[1:])
+    p_last = p[np.clip(deepest, 0, None)]
+    p_end = np.maximum(deep_bottom, p_last)
+    mid = 0.5 * (p_last + p_end)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frac = np.where(
+            deep_bottom > shallow_bottom,
+            np.clip((deep_bottom - mid) / (deep_bottom - shallow_bottom), 0.0, 1.0),
+            1.0,
+        )
+    dz = gsw.z_from_p(p_last, lat) - gsw.z_from_p(p_end, lat)
+    return np.broadcast_to(dz * frac, deepest.shape)
+
+
+def _ekman_share(
+    sigma_if: np.ndarray,
+    values: np.ndarray,
+    p: np.ndarray,
+    lat: np.ndarray,
+    depth: float,
+    props: dict[str, np.ndarray],
+) -> tuple[np.ndarray, np.ndarray]:
+    """Per unit Ekman volume transport, the quantity carried in each class.
+
+    The Ekman transport is spread uniformly over the top ``depth`` metres of
+    each pair and split among the classes found there. Also returns the
+    fraction carried at each grid level, (..., pair, level).
+    """
+    z = -gsw.z_from_p(p[None, :], lat[:, None])  # depth, m (pair, level)
+    seg_top = z[:, :-1]
+    seg_bot = z[:, 1:]
+    inside = np.clip((depth - seg_top) / (seg_bot - seg_top), 0.0, 1.0)
+    n_lev = int(np.searchsorted(p, gsw.p_from_z(-depth, float(np.max(np.abs(lat))))) + 2)
+    n_lev = min(max(n_lev, 2), p.size)
+    thickness = (seg_bot - seg_top)[:, : n_lev - 1]
+    w = class_weights(
+        sigma_if[..., : n_lev], values, thickness, inside[:, : n_lev - 1]
+    )
+    if not np.all(np.isfinite(values)):
+        w = w[..., :1, :]
+    total = w.sum(axis=(-2, -1))  # (..., pair)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = [
+            np.einsum("...jik,...jk->...ji", w, _masked(q[..., :n_lev])) / total[..., None]
+            for q in props.values()
+        ]
+    column = w.sum(axis=-2)
+    level = np.zeros(column.shape[:-1] + (p.size,))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        level[..., :n_lev] = np.nan_to_num(column / total[..., None])
+    return np.nan_to_num(np.stack(share, axis=-3)), level

@@ -1,0 +1,323 @@
+"""A study: the configuration, its sections, and every result it implies.
+
+``Study`` runs the pipeline of DESIGN.md §2 once (read, TEOS-10, dynamic
+height, class operator) and keeps the pieces that make later changes cheap:
+references, Ekman stress and inverse settings only touch the linear
+operators. Both the command line and the workbench work through it.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import numpy as np
+import xarray as xr
+
+from sectionkit.budget import LinearOutputs, UnknownLayout, make_layout, section_outputs
+from sectionkit.config import Config
+from sectionkit.errors import Cautions, ConfigError
+from sectionkit.geostrophy import resolve_references
+from sectionkit.inverse import InverseResult, assemble, solve
+from sectionkit.operator import SectionOperator, build_operator
+
+EQUATOR_BAND = 2.0  # degrees: geostrophy refused within this band (DESIGN.md §4)
+NET_MASS_HEAT_TOLERANCE = 0.1  # Sv: above it, heat is reported as a temperature transport
+
+
+@dataclass
+class ReferenceState:
+    """Resolved references of one section."""
+
+    kinds: list[str]
+    pressure: np.ndarray  # (pair,) dbar actually used
+    offset: np.ndarray  # (pair,) m s^-1
+
+
+@dataclass
+class Results:
+    """Everything a report needs, for one state of the study."""
+
+    references: dict[str, ReferenceState]
+    ekman: dict[str, np.ndarray]
+    layout: UnknownLayout
+    outputs: dict[str, LinearOutputs]
+    inverse: InverseResult | None
+    cautions: Cautions
+
+    @property
+    def estimate(self) -> np.ndarray:
+        """Adjusted unknowns (zeros without an inverse)."""
+        return self.inverse.estimate if self.inverse else np.zeros(self.layout.size)
+
+    @property
+    def covariance(self) -> np.ndarray | None:
+        """Posterior covariance (None without an inverse)."""
+        return self.inverse.covariance if self.inverse else None
+
+    def value(self, section: str, name: str, adjusted: bool = True) -> float:
+        """One output of one section, initial or adjusted."""
+        out = self.outputs[section]
+        x = self.estimate if adjusted else None
+        return float(out.value(x)[out.index(name)])
+
+    def error(self, section: str, name: str) -> float:
+        """Posterior standard deviation of one output (NaN without an inverse)."""
+        if self.covariance is None:
+            return float("nan")
+        out = self.outputs[section]
+        g = out.gradient[out.index(name)]
+        return float(np.sqrt(max(g @ self.covariance @ g, 0.0)))
+
+
+Loader = Callable[..., tuple[xr.Dataset, Cautions]]
+
+
+@dataclass
+class Study:
+    """The sections of a configuration turned into linear operators.
+
+    Parameters
+    ----------
+    config : Config
+        The study's configuration.
+    sections : dict of str -> xr.Dataset, optional
+        Already loaded canonical sections by name; read from the
+        configuration's files when None.
+    """
+
+    config: Config
+    sections: dict[str, xr.Dataset] = field(default_factory=dict)
+    operators: dict[str, SectionOperator] = field(default_factory=dict)
+    load_cautions: Cautions = field(default_factory=Cautions)
+
+    @classmethod
+    def from_config(
+        cls,
+        config: Config,
+        sections: dict[str, xr.Dataset] | None = None,
+        progress: Callable[[str], None] | None = None,
+    ) -> Study:
+        """Load every section and build its operator.
+
+        Parameters
+        ----------
+        config : Config
+            The study's configuration.
+        sections : dict of str -> xr.Dataset, optional
+            Pre-loaded canonical sections.
+        progress : callable, optional
+            Called with a short message before each slow step.
+        """
+        study = cls(config=config)
+        for spec in config.sections:
+            if sections is not None and spec.name in sections:
+                study.sections[spec.name] = sections[spec.name]
+                continue
+            from sectionkit.io import load_section
+
+            if progress:
+                progress(f"reading section {spec.name}")
+            paths = [str(p) for p in config.section_paths(spec)]
+            ds, cautions = load_section(
+                paths[0] if len(paths) == 1 else paths,
+                name=spec.name,
+                dp=config.dp,
+                allow_equator=config.allow_equator,
+                columns=spec.columns or None,
+            )
+            study.sections[spec.name] = ds
+            study.load_cautions.extend(cautions)
+        for name, ds in study.sections.items():
+            _check_equator(name, ds, config.allow_equator, study.load_cautions)
+        study.rebuild_operators(progress)
+        return study
+
+    def rebuild_operators(self, progress: Callable[[str], None] | None = None) -> None:
+        """(Re)compute every section operator (after a change of classes or triangle rule)."""
+        cfg = self.config
+        for spec in cfg.sections:
+            if progress:
+                progress(f"dynamic height and classes of {spec.name}")
+            ds = self.sections[spec.name]
+            if ds.attrs.get("section") != spec.name:
+                ds = ds.assign_attrs(section=spec.name)
+                self.sections[spec.name] = ds
+            self.operators[spec.name] = build_operator(
+                ds,
+                cfg.interfaces,
+                cfg.layer_names,
+                bottom_triangle=cfg.bottom_triangle,
+                ekman_depth=cfg.ekman_depth,
+                bathymetry=_bathymetry(cfg, spec, ds),
+            )
+
+    # ------------------------------------------------------------ references
+    def references(self, cautions: Cautions | None = None) -> dict[str, ReferenceState]:
+        """Resolve every pair's reference: pressure used and velocity offset."""
+        out = {}
+        for name, op in self.operators.items():
+            choices = [self.config.reference_for(label) for label in op.pair_labels]
+            p_used, offset = resolve_references(
+                choices, op.v_eff, op.pressure, op.common, self._sigma_for(op, choices),
+                cautions, op.pair_labels,
+            )
+            out[name] = ReferenceState([c.kind for c in choices], p_used, offset)
+        return out
+
+    def _sigma_for(self, op: SectionOperator, choices) -> dict[float, np.ndarray]:
+        needed = {c.sigma_p_ref for c in choices if c.kind == "isopycnal"}
+        missing = needed - set(op.sigma_pair)
+        if missing:
+            from sectionkit.geostrophy import pair_mean
+            from sectionkit.layers import potential_density_anomaly
+
+            ds = self.sections[op.name]
+            sa = ds["SA"].transpose(..., "station", "pressure").values
+            ct = ds["CT"].transpose(..., "station", "pressure").values
+            for pr in missing:
+                op.sigma_pair[pr] = pair_mean(potential_density_anomaly(sa, ct, pr))
+        return op.sigma_pair
+
+    def ekman(self) -> dict[str, np.ndarray]:
+        """Ekman volume transport per pair of every section, m^3 s^-1."""
+        out = {}
+        for name, op in self.operators.items():
+            tau = self.config.ekman_stress.get(name, (0.0, 0.0))
+            out[name] = op.ekman_volume(*tau)
+        return out
+
+    def layout(self) -> UnknownLayout:
+        """Unknowns of the configured inverse (only pairs when there is none)."""
+        inv = self.config.inverse
+        boxes = []
+        ekman_sections = []
+        if inv is not None:
+            if inv.prior_diapycnal > 0 and self.config.interfaces:
+                boxes = [b.name for b in self.config.effective_boxes()]
+            if inv.prior_ekman > 0:
+                ekman_sections = [s for s, tau in self.config.ekman_stress.items()
+                                  if tau != (0.0, 0.0)]
+        return make_layout(self.operators, boxes, len(self.config.interfaces), ekman_sections)
+
+    def velocity_prior(self, layout: UnknownLayout) -> np.ndarray:
+        """Prior standard deviation of each pair's adjustment, m s^-1.
+
+        Pairs referenced to a known velocity use its stated error (when > 0).
+        """
+        inv = self.config.inverse
+        prior = []
+        for op in self.operators.values():
+            for label in op.pair_labels:
+                ref = self.config.reference_for(label)
+                if ref.kind == "velocity" and ref.velocity_error > 0:
+                    prior.append(ref.velocity_error)
+                else:
+                    prior.append(inv.prior_velocity)
+        return np.asarray(prior)
+
+    # ------------------------------------------------------------ results
+    def solve(self, inverse: bool = True) -> Results:
+        """Compute every budget, and the inverse when configured.
+
+        Parameters
+        ----------
+        inverse : bool
+            Run the configured inverse (ignored when there is none).
+        """
+        cfg = self.config
+        cautions = Cautions()
+        cautions.extend(self.load_cautions)
+        refs = self.references(cautions)
+        ekman = self.ekman()
+        layout = self.layout()
+        result = None
+        if inverse and cfg.inverse is not None:
+            offsets = {n: r.offset for n, r in refs.items()}
+            system = assemble(self.operators, offsets, ekman, cfg.effective_boxes(), cfg.inverse,
+                              layout, cfg.layer_names, self.velocity_prior(layout))
+            lower = upper = None
+            if cfg.inverse.bounds:
+                lower = np.full(layout.size, -np.inf)
+                upper = np.full(layout.size, np.inf)
+                for label, (lo, hi) in cfg.inverse.bounds.items():
+                    idx = _pair_index(layout, label)
+                    lower[idx], upper[idx] = lo, hi
+            result = solve(system, cfg.inverse, lower, upper)
+        x = result.estimate if result else None
+        outputs = {
+            name: section_outputs(op, refs[name].offset, ekman[name], layout,
+                                  cfg.reference_salinity, x)
+            for name, op in self.operators.items()
+        }
+        for name, out in outputs.items():
+            net_mass = float(out.value(x)[out.index("net_mass")])
+            if abs(net_mass) > NET_MASS_HEAT_TOLERANCE:
+                cautions.add(
+                    "temperature-transport",
+                    f"section {name}: net mass transport is {net_mass:+.2f} Sv, so heat_pw is a "
+                    "temperature transport relative to 0 degC, not a heat transport",
+                )
+        cautions.add(
+            "reference-dependence",
+            "transports depend on the reference choices and priors; geostrophy excludes "
+            "ageostrophic flow other than the stated Ekman transport",
+        )
+        return Results(refs, ekman, layout, outputs, result, cautions)
+
+
+def _pair_index(layout: UnknownLayout, label: str) -> int:
+    section, _, k = label.partition(":")
+    sl = layout.pair_slices.get(section)
+    if sl is None or int(k) >= sl.stop - sl.start:
+        raise ConfigError(f"pair {label!r} does not exist")
+    return sl.start + int(k)
+
+
+def _check_equator(name: str, ds: xr.Dataset, allow: bool, cautions: Cautions) -> None:
+    from sectionkit.errors import EquatorError
+    from sectionkit.geometry import pair_midpoints
+
+    _, mid_lat = pair_midpoints(ds["lon"].values, ds["lat"].values)
+    near = np.flatnonzero(np.abs(mid_lat) < EQUATOR_BAND)
+    if near.size == 0:
+        return
+    labels = ", ".join(f"{name}:{k}" for k in near)
+    if not allow:
+        raise EquatorError(
+            f"section {name}: pairs {labels} have mid-points within {EQUATOR_BAND:g} degrees of "
+            "the equator, where geostrophy fails; set allow_equator = true under [reference] to "
+            "continue at your own judgement"
+        )
+    cautions.add("equator", f"section {name}: pairs {labels} lie within {EQUATOR_BAND:g} degrees "
+                 "of the equator; their geostrophic velocities are unreliable")
+
+
+def _bathymetry(cfg: Config, spec, ds: xr.Dataset) -> list | None:
+    """Per-pair bottom pressures sampled along a bathymetry track, or None."""
+    if not spec.bathymetry:
+        return None
+    import gsw
+    import pandas as pd
+
+    from sectionkit.errors import InputFileError
+    from sectionkit.geometry import great_circle_distance
+
+    path = cfg.base_dir / spec.bathymetry
+    try:
+        track = pd.read_csv(path)
+    except (OSError, ValueError) as exc:
+        raise InputFileError(f"bathymetry file {path} cannot be read: {exc}") from None
+    for col in ("distance_km", "depth_m"):
+        if col not in track:
+            raise InputFileError(f"bathymetry file {path} has no column {col!r}; expected "
+                                 "distance_km (along the line from the first station) and depth_m")
+    dist = np.concatenate([[0.0], np.cumsum(great_circle_distance(ds["lon"].values,
+                                                                  ds["lat"].values))]) / 1e3
+    lat = ds["lat"].values
+    out = []
+    for j in range(dist.size - 1):
+        s = np.linspace(dist[j], dist[j + 1], 64)
+        depth = np.interp(s, track["distance_km"].values, track["depth_m"].values)
+        out.append(gsw.p_from_z(-depth, 0.5 * (lat[j] + lat[j + 1])))
+    return out
