@@ -274,7 +274,8 @@ def build_operator(
         sigma_if = np.stack([sigma_pair[face.p_ref] for face in interfaces], axis=-2)
     else:
         sigma_if = sigma_pair[0.0][..., None, :]
-    values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([np.inf])
+    # without interfaces one class holds everything: compare with an unreachable density
+    values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([1e9])
 
     bottom = section["bottom_pressure"].values.astype(float)
     thickness = cell_thickness(p, geometry["lat"].values)
@@ -401,7 +402,7 @@ def _ekman_share(
     w = class_weights(
         sigma_if[..., : n_lev], values, thickness, inside[:, : n_lev - 1]
     )
-    if not np.all(np.isfinite(values)):
+    if values.size == 1 and values[0] >= 1e9:  # no interfaces: a single class
         w = w[..., :1, :]
     total = w.sum(axis=(-2, -1))  # (..., pair)
     with np.errstate(invalid="ignore", divide="ignore"):

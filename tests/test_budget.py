@@ -1,0 +1,144 @@
+"""Class operator and budgets: analytic integrals, conservation, convergence, linearity."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from _synthetic import thermocline_section
+
+from sectionkit.budget import SV, make_layout, section_outputs
+from sectionkit.config import parse_config
+from sectionkit.errors import ConfigError
+from sectionkit.geostrophy import ReferenceChoice, resolve_references
+from sectionkit.layers import Interface, check_interfaces, class_weights
+from sectionkit.operator import RHO0, build_operator
+from sectionkit.study import Study
+
+FACES = [Interface(26.8, 0.0), Interface(27.6, 0.0), Interface(36.9, 2000.0)]
+NAMES = ["upper", "thermocline", "intermediate", "deep"]
+
+
+def _config(reference: float | str = 2000.0, overrides=None, stress=None):
+    return parse_config({
+        "title": "test",
+        "sections": [{"name": "south", "file": "unused.nc"}],
+        "reference": {"pressure": reference, "overrides": overrides or {}},
+        "ekman": {"stress": stress or {}},
+        "layers": {"interfaces": [{"sigma": f.sigma, "p_ref": f.p_ref} for f in FACES],
+                   "names": NAMES},
+    })
+
+
+def test_class_integral_of_linear_fields_is_exact_with_fractional_cells():
+    # analytic: sigma = s0 + g p and v = v0 + c p on a coarse grid; the interface
+    # sits mid-cell at p_i = (sigma_i - s0) / g, so the upper class integral is
+    # v0 p_i + c p_i^2 / 2 exactly (linear fields within every cell).
+    p = np.arange(0.0, 101.0, 10.0)
+    s0, g, v0, c = 25.0, 0.02, 0.1, -0.003
+    sigma = (s0 + g * p)[None, None, :]
+    face = 25.0 + g * 43.0  # crosses between 40 and 50
+    thickness = np.full((1, p.size - 1), 10.0)  # metres per segment
+    w = class_weights(sigma, np.array([face]), thickness, np.ones((1, p.size - 1)))
+    v = v0 + c * p
+    upper = (w[0, 0] * v).sum()
+    lower = (w[0, 1] * v).sum()
+    p_i = 43.0
+    np.testing.assert_allclose(upper, v0 * p_i + c * p_i**2 / 2, rtol=1e-12)
+    np.testing.assert_allclose(upper + lower, v0 * 100 + c * 100**2 / 2, rtol=1e-12)
+
+
+def test_class_transports_sum_to_total_and_areas_to_section_area():
+    section = thermocline_section(n=6, dp=10.0)
+    op = build_operator(section, FACES, NAMES)
+    length = op.pairs["distance"].values
+    # class areas add up to the section area; with a straight bottom between
+    # stations each pair is a trapezoid: L (H_a + H_b) / 2 (geometry, exact)
+    depth = section["bottom_depth"].values
+    trapezoids = (length * 0.5 * (depth[:-1] + depth[1:])).sum()
+    area = (op.weights.sum(axis=-1) * length[:, None]).sum()
+    np.testing.assert_allclose(area, trapezoids, rtol=2e-3)
+    _, offset = resolve_references([ReferenceChoice("pressure", 1000.0)] * op.n_pair,
+                                   op.v_eff, op.pressure, op.common)
+    t = op.transports(offset)[0]  # volume (pair, class)
+    column = np.nansum(op.weights.sum(axis=-2) * op.absolute_velocity(offset), axis=-1) * length
+    np.testing.assert_allclose(t.sum(axis=-1), column, rtol=1e-12)
+
+
+def test_every_class_has_area_and_densest_class_sits_at_the_bottom():
+    # fact of the trade (common practice): in a stably stratified column the
+    # densest class occupies the deepest levels
+    op = build_operator(thermocline_section(n=5, dp=10.0), FACES, NAMES)
+    area = (op.weights.sum(axis=-1)).sum(axis=0)
+    assert np.all(area > 0)
+    deepest_level = op.deepest[0]
+    assert np.argmax(op.weights[0, :, deepest_level]) == len(NAMES) - 1
+    assert np.argmax(op.weights[0, :, 0]) == 0
+
+
+def test_class_transports_converge_when_dp_is_halved():
+    # grid convergence: halving dp changes class transports by < 0.5 %
+    # (compare 4 and 2 dbar)
+    results = []
+    for dp in (4.0, 2.0):
+        op = build_operator(thermocline_section(n=6, dp=dp), FACES, NAMES)
+        _, offset = resolve_references([ReferenceChoice("pressure", 1500.0)] * op.n_pair,
+                                       op.v_eff, op.pressure, op.common)
+        results.append(op.transports(offset)[0].sum(axis=0))
+    change = np.abs(results[1] - results[0]) / np.abs(results[1]).max()
+    assert np.all(change < 0.005), change
+
+
+def test_reference_change_as_linear_update_equals_full_recompute():
+    section = thermocline_section(n=6, dp=10.0)
+    study = Study.from_config(_config(2000.0), sections={"south": section})
+    first = study.solve()
+    study.config = _config(1000.0, overrides={"south:2": "bottom"})
+    updated = study.solve()  # operators kept: only offsets change
+    fresh = Study.from_config(_config(1000.0, overrides={"south:2": "bottom"}),
+                              sections={"south": section}).solve()
+    a = updated.outputs["south"].value()
+    b = fresh.outputs["south"].value()
+    np.testing.assert_allclose(a, b, rtol=1e-10, atol=1e-10)
+    assert not np.allclose(first.outputs["south"].value(), a)
+
+
+def test_uniform_stress_gives_ekman_transport_tau_over_rho_f():
+    # analytic (Ekman 1905, common practice): |U_E| = tau / (rho f) per metre of line
+    section = thermocline_section(n=6, dp=10.0, lat0=25.0)
+    op = build_operator(section, FACES, NAMES)
+    tau = 0.08
+    ek = op.ekman_volume(tau, 0.0)  # eastward stress across an eastward line: southward
+    f = op.pairs["f"].values
+    expected = -tau * op.pairs["distance"].values / (RHO0 * f)
+    np.testing.assert_allclose(ek, expected, rtol=1e-12)
+    assert np.all(ek < 0)
+    # it lands in the class of the top Ekman depth (the lightest, here)
+    t = op.transports(np.zeros(op.n_pair), 0.0, ek)[0] - op.transports(np.zeros(op.n_pair))[0]
+    np.testing.assert_allclose(t.sum(), ek.sum(), rtol=1e-10)
+    np.testing.assert_allclose(t[:, 0].sum(), ek.sum(), rtol=1e-10)
+
+
+def test_freshwater_and_heat_are_linear_functionals_of_the_adjustment():
+    section = thermocline_section(n=5, dp=10.0)
+    op = build_operator(section, FACES, NAMES)
+    layout = make_layout({op.name: op})
+    offset = np.zeros(op.n_pair)
+    out = section_outputs(op, offset, np.zeros(op.n_pair), layout)
+    rng = np.random.default_rng(3)
+    b = rng.normal(0, 0.01, op.n_pair)
+    direct = op.transports(offset, b)
+    via_gradient = out.value(b)
+    np.testing.assert_allclose(via_gradient[out.index("net")], direct[0].sum() / SV, rtol=1e-10)
+    np.testing.assert_allclose(via_gradient[out.index("heat")], direct[3].sum() / 1e15,
+                               rtol=1e-10)
+
+
+def test_interfaces_not_increasing_in_density_are_refused():
+    with pytest.raises(ConfigError, match="increase in density"):
+        check_interfaces([Interface(27.0, 0.0), Interface(26.5, 0.0)], None)
+
+
+def test_unknown_configuration_key_names_the_closest_valid_one():
+    with pytest.raises(ConfigError, match="did you mean 'pressure'"):
+        parse_config({"sections": [{"name": "a", "file": "x.nc"}],
+                      "reference": {"presure": 1000.0}})
