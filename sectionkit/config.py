@@ -34,7 +34,8 @@ def _check_keys(table: dict, allowed: tuple[str, ...], where: str) -> None:
     for key in table:
         if key not in allowed:
             close = difflib.get_close_matches(key, allowed, n=1)
-            hint = f"; did you mean {close[0]!r}?" if close else f"; valid keys: {', '.join(allowed)}"
+            hint = (f"; did you mean {close[0]!r}?" if close
+                    else f"; valid keys: {', '.join(allowed)}")
             raise ConfigError(f"unknown key {key!r} in {where}{hint}")
 
 
@@ -242,7 +243,9 @@ def parse_reference(value: Any, where: str) -> ReferenceChoice:
         if "velocity" in value:
             _check_keys(value, ("velocity", "pressure", "error"), where)
             if "pressure" not in value:
-                raise ConfigError(f"{where}: a known velocity needs the pressure it was measured at")
+                raise ConfigError(
+                    f"{where}: a known velocity needs the pressure it was measured at"
+                )
             return ReferenceChoice(
                 "velocity",
                 pressure=_number(value["pressure"], f"{where}.pressure", nonneg=True),

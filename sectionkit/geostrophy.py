@@ -374,7 +374,9 @@ def resolve_references(
             pj = pc
         elif choice.kind in ("pressure", "velocity"):
             if choice.pressure is None:
-                raise ComputationError(f"pair {labels[j]}: a {choice.kind} reference needs a pressure")
+                raise ComputationError(
+                    f"pair {labels[j]}: a {choice.kind} reference needs a pressure"
+                )
             pj = np.minimum(choice.pressure, pc)
             if cautions is not None and np.any(choice.pressure > pc):
                 cautions.add(

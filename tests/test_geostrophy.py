@@ -88,7 +88,7 @@ def test_eos80_seawater_velocity_agrees_within_known_difference():
     t = gsw.t_from_CT(sa, ct, p)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        gpan = sw.gpan(sp.T, t.T, p[:, None])  # seawater 3.x takes ITS-90 temperature  # m^3 kg^-1 Pa = J/kg, positive down
+        gpan = sw.gpan(sp.T, t.T, p[:, None])  # seawater 3.x takes ITS-90 temperature
         v_eos80 = sw.gvel(gpan, lat, lon)  # relative to the surface
     psi = dynamic_height(sa, ct, p)
     g = pair_geometry(section)
