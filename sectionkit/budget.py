@@ -252,7 +252,17 @@ def section_outputs(
 
 
 def overturning_pressure(op: SectionOperator, outputs: LinearOutputs, x=None) -> float:
-    """Pressure (dbar) of the depth-space overturning maximum."""
-    psi = np.array([outputs.value(x)[outputs.index(f"psi_depth:{k}")]
-                    for k in range(op.pressure.size)])
+    """Pressure (dbar) of the depth-space overturning maximum.
+
+    Parameters
+    ----------
+    op : SectionOperator
+        The section.
+    outputs : LinearOutputs
+        Its outputs (with the ``psi_depth:<k>`` rows).
+    x : ndarray (unknown,), optional
+        State (adjusted unknowns); x = 0 when None.
+    """
+    first = outputs.index("psi_depth:0")
+    psi = outputs.value(x)[first : first + op.pressure.size]
     return float(op.pressure[int(np.argmax(np.abs(psi)))])
