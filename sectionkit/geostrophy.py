@@ -368,6 +368,7 @@ def resolve_references(
     p_common = p[np.clip(common, 0, None)]
     p_used = np.array(p_common, dtype=float, copy=True)
     u_ref = np.zeros_like(p_used)
+    too_deep: list[str] = []
     for j, choice in enumerate(choices):
         pc = p_common[..., j]
         if choice.kind == "bottom":
@@ -378,12 +379,8 @@ def resolve_references(
                     f"pair {labels[j]}: a {choice.kind} reference needs a pressure"
                 )
             pj = np.minimum(choice.pressure, pc)
-            if cautions is not None and np.any(choice.pressure > pc):
-                cautions.add(
-                    "reference-below-pair",
-                    f"pair {labels[j]}: reference {choice.pressure:g} dbar is deeper than the "
-                    f"deepest common level ({float(np.min(pc)):g} dbar); that level is used",
-                )
+            if np.any(choice.pressure > pc):
+                too_deep.append(f"{labels[j]} ({float(np.min(pc)):g})")
             if choice.kind == "velocity":
                 u_ref[..., j] = choice.velocity
         elif choice.kind == "isopycnal":
@@ -413,5 +410,11 @@ def resolve_references(
         else:
             raise ComputationError(f"pair {labels[j]}: unknown reference kind {choice.kind!r}")
         p_used[..., j] = pj
+    if cautions is not None and too_deep:
+        cautions.add(
+            "reference-below-pair",
+            f"{len(too_deep)} pair(s) do not reach their reference pressure; their deepest "
+            "common level is used instead: " + ", ".join(too_deep) + " (dbar)",
+        )
     v_at_ref = value_at_pressure(v_eff, p, p_used)
     return p_used, u_ref - v_at_ref
