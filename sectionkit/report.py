@@ -26,7 +26,7 @@ import pandas as pd
 
 from sectionkit.study import Results, Study
 
-CSV_FLOAT_FORMAT = "%.6g"
+CSV_FLOAT_FORMAT = "%.8g"  # enough digits for re-analysis, no float noise
 
 
 def layer_table(study: Study, results: Results) -> pd.DataFrame:
