@@ -201,8 +201,11 @@ def pair_mean(station_values: np.ndarray) -> np.ndarray:
     """
     a = station_values[..., :-1, :]
     b = station_values[..., 1:, :]
-    both = np.isfinite(a) & np.isfinite(b)
-    return np.where(both, 0.5 * (a + b), np.where(np.isfinite(a), a, b))
+    mean = 0.5 * (a + b)
+    gap = np.isnan(mean)
+    if gap.any():
+        mean[gap] = np.where(np.isnan(a[gap]), b[gap], a[gap])
+    return mean
 
 
 def value_at_pressure(profile: np.ndarray, p: np.ndarray, p_at: np.ndarray) -> np.ndarray:

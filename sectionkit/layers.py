@@ -197,42 +197,56 @@ def class_weights(
     """
     n_if = sigma.shape[-2]
     n_class = n_if + 1
-    d0 = sigma[..., :-1] - interfaces[:, None]  # (..., pair, interface, seg)
-    d1 = sigma[..., 1:] - interfaces[:, None]
-    valid = np.isfinite(d0).all(axis=-2) & np.isfinite(d1).all(axis=-2)  # (..., pair, seg)
-    d0 = np.nan_to_num(d0)
-    d1 = np.nan_to_num(d1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        t_cross = np.where((d0 > 0) != (d1 > 0), d0 / (d0 - d1), 0.0)
-    t_cross = np.clip(t_cross, 0.0, 1.0)
-    seg_shape = t_cross.shape[:-2] + t_cross.shape[-1:]
-    zeros = np.zeros(seg_shape)[..., None, :]
-    bp = np.sort(np.concatenate([zeros, t_cross, zeros + 1.0], axis=-2), axis=-2)
-    scale = np.where(valid, thickness * width, 0.0)  # (..., pair, seg)
     n_level = sigma.shape[-1]
-    alpha = np.zeros(seg_shape[:-1] + (n_class,) + seg_shape[-1:])
-    beta = np.zeros_like(alpha)
-    slope = d1 - d0
-    for m in range(n_class):  # sub-intervals between sorted crossings
-        a = bp[..., m, :]
-        b = bp[..., m + 1, :]
-        tm = 0.5 * (a + b)
-        # class of the sub-interval: how many interfaces its mid-point is denser than
-        cls = ((d0 + tm[..., None, :] * slope) > 0).sum(axis=-2)  # (..., pair, seg)
-        onehot = cls[..., None, :] == np.arange(n_class)[:, None]
-        alpha += np.where(onehot, (b - a)[..., None, :], 0.0)
-        beta += np.where(onehot, (0.5 * (b * b - a * a))[..., None, :], 0.0)
-    alpha *= scale[..., None, :]
-    beta *= scale[..., None, :]
-    out = np.zeros(sigma.shape[:-2] + (n_class, n_level))
-    out[..., :-1] += alpha - beta
-    out[..., 1:] += beta
+    valid = np.isfinite(sigma[..., 0, :-1]) & np.isfinite(sigma[..., 0, 1:])  # (..., pair, seg)
+    start_class = np.zeros(valid.shape, dtype=np.int16)
+    crossed = np.zeros(valid.shape, dtype=bool)
+    for n in range(n_if):  # one interface at a time keeps memory at (pair, seg)
+        above0 = sigma[..., n, :-1] > interfaces[n]
+        start_class += above0
+        crossed |= above0 != (sigma[..., n, 1:] > interfaces[n])
+    crossed &= valid
+    scale = np.where(valid, thickness * width, 0.0)  # (..., pair, seg)
+    out = np.zeros(valid.shape[:-1] + (n_class, n_level))
+    # segments no interface crosses lie in one class: trapezoid weights
+    half = np.where(crossed, 0.0, 0.5 * scale)
+    for i in range(n_class):
+        part = np.where(start_class == i, half, 0.0)
+        out[..., i, :-1] += part
+        out[..., i, 1:] += part
+    # crossed segments (a few per pair): split at the sorted crossings and integrate
+    # the linear field exactly over each sub-interval
+    where_crossed = np.nonzero(crossed)
+    if where_crossed[0].size:
+        lead = where_crossed[:-1]
+        seg = where_crossed[-1]
+        c0 = np.stack([sigma[..., n, :-1][where_crossed] - interfaces[n] for n in range(n_if)],
+                      axis=-1)  # (n_crossed, interface)
+        c1 = np.stack([sigma[..., n, 1:][where_crossed] - interfaces[n] for n in range(n_if)],
+                      axis=-1)
+        w = scale[where_crossed]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            t_cross = np.where((c0 > 0) != (c1 > 0), c0 / (c0 - c1), 0.0)
+        n_c = c0.shape[0]
+        bp = np.sort(np.concatenate([np.zeros((n_c, 1)), np.clip(t_cross, 0.0, 1.0),
+                                     np.ones((n_c, 1))], axis=-1), axis=-1)
+        a = bp[:, :-1]
+        b = bp[:, 1:]
+        tm = 0.5 * (a + b)  # (n_crossed, sub)
+        cls = ((c0[:, None, :] + tm[:, :, None] * (c1 - c0)[:, None, :]) > 0).sum(axis=-1)
+        alpha = np.zeros((n_c, n_class))
+        beta = np.zeros((n_c, n_class))
+        rows = np.broadcast_to(np.arange(n_c)[:, None], cls.shape)
+        np.add.at(alpha, (rows, cls), b - a)
+        np.add.at(beta, (rows, cls), 0.5 * (b * b - a * a))
+        for i in range(n_class):
+            klass = np.full(n_c, i)
+            out[lead + (klass, seg)] += (alpha[:, i] - beta[:, i]) * w
+            out[lead + (klass, seg + 1)] += beta[:, i] * w
     if tail is not None:
         last = n_level - 1 - np.argmax(np.isfinite(sigma[..., 0, ::-1]), axis=-1)  # (..., pair)
-        last_cls = (
-            np.take_along_axis(np.nan_to_num(sigma), last[..., None, None], axis=-1)[..., 0]
-            > interfaces
-        ).sum(axis=-1)
+        last_sigma = np.take_along_axis(sigma, last[..., None, None], axis=-1)[..., 0]
+        last_cls = (np.nan_to_num(last_sigma) > interfaces).sum(axis=-1)
         has_data = np.isfinite(sigma[..., 0, :]).any(axis=-1)
         tail_w = np.where(has_data, np.broadcast_to(tail, last.shape), 0.0)
         onehot = last_cls[..., None] == np.arange(n_class)

@@ -315,17 +315,17 @@ def build_operator(
         sigma_if, values, p, geometry["lat"].values, ekman_depth, props
     )
 
-    vol_area = np.einsum("...jik->...i", weights * length[:, :, None])
+    pair_area = weights.sum(axis=-1) * length  # (..., pair, class) m^2
+    vol_area = pair_area.sum(axis=-2)
+    sa0 = _masked(sa_pair)
     with np.errstate(invalid="ignore", divide="ignore"):
-        class_salinity = np.einsum(
-            "...jik,...jk->...i", weights * length[:, :, None], _masked(sa_pair)
-        ) / vol_area
-        class_temperature = np.einsum(
-            "...jik,...jk->...i", weights * length[:, :, None], _masked(ct_pair)
-        ) / vol_area
-    mean_salinity = np.einsum(
-        "...jik,...jk->...", weights * length[:, :, None], _masked(sa_pair)
-    ) / vol_area.sum(axis=-1)
+        sa_area = (np.einsum("...jik,...jk->...ji", weights, sa0) * length).sum(axis=-2)
+        ct_area = (np.einsum("...jik,...jk->...ji", weights, _masked(ct_pair)) * length).sum(
+            axis=-2
+        )
+        class_salinity = sa_area / vol_area
+        class_temperature = ct_area / vol_area
+    mean_salinity = sa_area.sum(axis=-1) / vol_area.sum(axis=-1)
 
     return SectionOperator(
         name=name,
