@@ -84,6 +84,15 @@ class KnownTransport:
 
 
 @dataclass
+class SectionNet:
+    """A constraint on the net transport across one section (e.g. a closed basin), Sv."""
+
+    section: str
+    transport: float
+    noise: float
+
+
+@dataclass
 class InverseSpec:
     """Settings of the box inverse (DESIGN.md §5)."""
 
@@ -98,6 +107,7 @@ class InverseSpec:
     noise_salt: list[float] = field(default_factory=list)
     noise_heat: list[float] = field(default_factory=list)
     known: list[KnownTransport] = field(default_factory=list)
+    section_net: list[SectionNet] = field(default_factory=list)
     bounds: dict[str, list[float]] = field(default_factory=dict)
 
 
@@ -191,6 +201,8 @@ class Config:
                     del inv[key]
             if not inv["known"]:
                 del inv["known"]
+            if not inv["section_net"]:
+                del inv["section_net"]
             out["inverse"] = inv
         return out
 
@@ -386,7 +398,8 @@ def _check_pair_label(label: str, names: list[str], where: str) -> None:
 
 def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
     allowed = ("solver", "rank", "conserve", "prior_velocity", "prior_diapycnal", "prior_ekman",
-               "noise_total", "noise_layer", "noise_salt", "noise_heat", "known", "bounds")
+               "noise_total", "noise_layer", "noise_salt", "noise_heat", "known", "section_net",
+               "bounds")
     _check_keys(inv, allowed, "[inverse]")
     spec = InverseSpec()
     spec.solver = str(inv.get("solver", spec.solver))
@@ -448,6 +461,19 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
             noise=_number(kt.get("noise"), f"{where} noise", positive=True),
             layer=layer,
             box=box if box is not None else box_names[0],
+        ))
+    for n, net in enumerate(inv.get("section_net", [])):
+        where = f"[inverse] section_net #{n + 1}"
+        _check_keys(net, ("section", "transport", "noise"), where)
+        name = str(net.get("section", ""))
+        if name not in cfg.section_names():
+            close = difflib.get_close_matches(name, cfg.section_names(), n=1)
+            raise ConfigError(f"{where}: section {name!r} does not exist"
+                              + (f"; did you mean {close[0]!r}?" if close else ""))
+        spec.section_net.append(SectionNet(
+            section=name,
+            transport=_number(net.get("transport"), f"{where} transport"),
+            noise=_number(net.get("noise"), f"{where} noise", positive=True),
         ))
     for label, pair in inv.get("bounds", {}).items():
         _check_pair_label(label, cfg.section_names(), "[inverse] bounds")

@@ -12,7 +12,15 @@ Constraints (all in Sv, or Sv g/kg, or PW):
 - ``salt:<class>``: salt inflow as an anomaly from the box-class mean
   salinity, ``sum (salt - S_i mass)``, so it is not a copy of mass; a transfer
   carries the mean salinity of the two classes it joins;
-- ``heat:<class>``: the same with potential enthalpy (rho0 c_p0 Theta_i).
+- ``heat:<class>``: the same with potential enthalpy (rho0 c_p0 Theta_i);
+- optionally ``net_mass`` of one section (row box ``section:<name>``): its net
+  mass transport in its own frame, minus the stated value (a closed basin,
+  a known throughflow).
+
+Default salt (heat) noise is ``noise_layer`` times the larger of the class's
+salinity (temperature) spread and half the contrast with its neighbouring
+classes: transfers across interfaces and mixing carry anomalies of that
+size, which the constraints do not model.
 """
 
 from __future__ import annotations
@@ -190,11 +198,12 @@ def assemble(
         if "salt" in spec.conserve:
             salt_v, salt_g = net("salt")
             dia_s = _transfer_anomaly(dia, sa_mean)
+            contrast = _neighbour_contrast(sa_mean)
             for i, layer in enumerate(layer_names):
                 rows.append((box.name, f"salt:{layer}"))
                 e_rows.append(salt_g[i] - sa_mean[i] * mass_g[i] + dia_s[i])
                 initial.append(float(salt_v[i] - sa_mean[i] * mass_v[i]))
-                spread = max(sa_std[i], SALT_NOISE_FLOOR)
+                spread = max(sa_std[i], contrast[i], SALT_NOISE_FLOOR)
                 noise.append(spec.noise_salt[i] if spec.noise_salt
                              else spec.noise_layer[i] * spread)
                 units.append("Sv g/kg")
@@ -202,14 +211,24 @@ def assemble(
             heat_v, heat_g = net("heat")
             h = RHO0 * CP0 * SV / PW  # PW per (Sv degC)
             dia_h = _transfer_anomaly(dia, ct_mean) * h
+            contrast = _neighbour_contrast(ct_mean)
             for i, layer in enumerate(layer_names):
                 rows.append((box.name, f"heat:{layer}"))
                 e_rows.append(heat_g[i] - h * ct_mean[i] * mass_g[i] + dia_h[i])
                 initial.append(float(heat_v[i] - h * ct_mean[i] * mass_v[i]))
-                spread = max(ct_std[i], TEMPERATURE_NOISE_FLOOR)
+                spread = max(ct_std[i], contrast[i], TEMPERATURE_NOISE_FLOOR)
                 noise.append(spec.noise_heat[i] if spec.noise_heat
                              else spec.noise_layer[i] * spread * h)
                 units.append("PW")
+    for net in spec.section_net:
+        op = operators[net.section]
+        t = op.transports(offsets[net.section], 0.0, ekman[net.section], 1.0)[1].sum() / SV
+        rows.append((f"section:{net.section}", "net_mass"))
+        e_rows.append(class_transport_gradient(op, "mass", layout, ekman[net.section])
+                      .sum(axis=0))
+        initial.append(float(t - net.transport))
+        noise.append(net.noise)
+        units.append("Sv")
     if not rows:
         raise ConfigError("[inverse] conserve is empty: name at least one of mass, salt, heat")
 
@@ -222,6 +241,14 @@ def assemble(
         prior[idx] = spec.prior_ekman
     return ConstraintSystem(rows, np.vstack(e_rows), np.asarray(initial), np.asarray(noise),
                             prior, units)
+
+
+def _neighbour_contrast(class_mean: np.ndarray) -> np.ndarray:
+    """Half the largest difference between each class mean and its neighbours."""
+    diff = np.abs(np.diff(class_mean))
+    left = np.concatenate([[0.0], diff])
+    right = np.concatenate([diff, [0.0]])
+    return 0.5 * np.maximum(left, right)
 
 
 def _transfer_anomaly(dia: np.ndarray, class_mean: np.ndarray) -> np.ndarray:
