@@ -71,11 +71,9 @@ def run_budget(config_path: Path, out_dir: Path, *, figures: bool = True,
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from sectionkit.io.check import describe_section
+    from sectionkit.io.check import run_check
 
-    for path in args.files:
-        print(describe_section(path, dp=args.dp, allow_equator=args.allow_equator))
-    return 0
+    return run_check(args)
 
 
 def _cmd_budget(args: argparse.Namespace) -> int:
@@ -131,10 +129,9 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("check", help="validate section files and describe what was found",
                        description="Read each section file, validate it and print what it holds "
                        "(stations, positions, depths, spacing, grid, cautions).")
-    p.add_argument("files", nargs="+", help="CF-NetCDF or CSV section file(s)")
-    p.add_argument("--dp", type=float, default=2.0, help="grid step, dbar (default 2)")
-    p.add_argument("--allow-equator", action="store_true",
-                   help="accept pairs within 2 degrees of the equator (with a caution)")
+    from sectionkit.io.check import add_check_arguments
+
+    add_check_arguments(p)
     p.set_defaults(func=_cmd_check)
 
     p = sub.add_parser("budget", help="compute the budgets of a TOML configuration",

@@ -1,0 +1,125 @@
+"""A section from one file, a folder of per-cast files, or a list of files."""
+
+from __future__ import annotations
+
+import os
+import re
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+from sectionkit.errors import Cautions, InputFileError, SectionDataError
+from sectionkit.io.csvfile import read_csv
+from sectionkit.io.formats import CSV_SUFFIXES, NETCDF_SUFFIXES, file_format
+from sectionkit.io.netcdf import read_netcdf
+from sectionkit.io.raw import Profile
+
+Source = str | os.PathLike | Sequence[str | os.PathLike]
+
+
+def natural_key(name: str) -> list[Any]:
+    """Sort key that orders ``cast2`` before ``cast10`` (digit runs compare as numbers)."""
+    return [int(t) if t.isdigit() else t.lower() for t in re.split(r"(\d+)", name)]
+
+
+def source_files(source: Source) -> list[str]:
+    """The files a source names, in station order.
+
+    Parameters
+    ----------
+    source : path, folder, or sequence of paths
+        A section file; a folder of per-cast files (read in sorted file-name
+        order, digit runs compared as numbers); or files in the order given.
+
+    Returns
+    -------
+    list of str
+        File paths.
+    """
+    if isinstance(source, (str, os.PathLike)):
+        path = os.fspath(source)
+        if os.path.isdir(path):
+            names = [
+                n
+                for n in os.listdir(path)
+                if not n.startswith(".") and n.lower().endswith(NETCDF_SUFFIXES + CSV_SUFFIXES)
+            ]
+            if not names:
+                raise InputFileError(
+                    f"folder {path}: holds no section files (.nc or .csv); point to the folder "
+                    "of per-cast files or to a section file"
+                )
+            return [os.path.join(path, n) for n in sorted(names, key=natural_key)]
+        return [path]
+    try:
+        files = [os.fspath(s) for s in source]
+    except TypeError as exc:
+        raise InputFileError(
+            f"source {source!r} is not a file path, a folder or a list of file paths"
+        ) from exc
+    if not files:
+        raise InputFileError("no section files given; pass a file, a folder or a list of files")
+    for f in files:
+        if os.path.isdir(f):
+            raise InputFileError(
+                f"file {f}: is a folder inside a list of files; list the files themselves"
+            )
+    return files
+
+
+def read_profiles(
+    files: list[str],
+    *,
+    cautions: Cautions,
+    variables: Mapping[str, str] | None = None,
+    csv_options: Mapping[str, Any] | None = None,
+) -> list[Profile]:
+    """Read and concatenate the profiles of several files, in the order given.
+
+    Parameters
+    ----------
+    files : list of str
+        Section or per-cast files, NetCDF or CSV.
+    cautions : Cautions
+        Collects reading findings.
+    variables : mapping, optional
+        NetCDF: quantity to variable name where standard names are ambiguous.
+    csv_options : mapping, optional
+        CSV: keyword arguments of :func:`sectionkit.io.csvfile.read_csv`.
+
+    Returns
+    -------
+    list of Profile
+        All stations, file by file.
+    """
+    profiles: list[Profile] = []
+    for f in files:
+        if file_format(f) == "netcdf":
+            profiles.extend(read_netcdf(f, variables=variables, cautions=cautions))
+        else:
+            profiles.extend(read_csv(f, cautions=cautions, **dict(csv_options or {})))
+    return profiles
+
+
+def reorder(profiles: list[Profile], order: Sequence[str]) -> list[Profile]:
+    """Select and order stations by id.
+
+    Parameters
+    ----------
+    profiles : list of Profile
+        Stations with ids.
+    order : sequence of str
+        Station ids in the wanted order; stations not named are left out.
+
+    Returns
+    -------
+    list of Profile
+        The named stations in the given order.
+    """
+    by_id = {str(p.station): p for p in profiles}
+    missing = [str(s) for s in order if str(s) not in by_id]
+    if missing:
+        raise SectionDataError(
+            f"station order names {', '.join(missing)}, not found among the stations read "
+            f"({', '.join(by_id)}); use the station ids of the files"
+        )
+    return [by_id[str(s)] for s in order]

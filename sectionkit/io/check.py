@@ -1,0 +1,249 @@
+"""``sectionkit check``: what a section file holds, in words, or why it cannot be used."""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import sys
+from collections.abc import Mapping, Sequence
+from typing import Any, TextIO
+
+import numpy as np
+import xarray as xr
+
+from sectionkit.errors import Cautions, SectionkitError
+from sectionkit.io.casts import Source
+from sectionkit.io.csvfile import CSV_COLUMNS
+from sectionkit.io.raw import RawSection
+from sectionkit.io.section import grid_raw_section, read_section
+from sectionkit.io.validate import station_spacing, validate_section
+from sectionkit.thermo import SALINITY_KINDS, TEMPERATURE_KINDS, GriddingRules
+
+
+def _range(values: np.ndarray, fmt: str) -> str:
+    return f"{format(float(np.min(values)), fmt)} .. {format(float(np.max(values)), fmt)}"
+
+
+def format_report(raw: RawSection, ds: xr.Dataset, cautions: Cautions) -> str:
+    """The report text for a loaded section.
+
+    Parameters
+    ----------
+    raw : RawSection
+        The profiles as read.
+    ds : xarray.Dataset
+        The gridded section.
+    cautions : Cautions
+        Findings of reading, checking and gridding.
+
+    Returns
+    -------
+    str
+        Several lines of text.
+    """
+    ids = raw.stations
+    first = raw.profiles[0]
+    read_as = sorted(
+        {
+            f"pressure {p.names.get('pressure')} [{p.units.get('pressure')}], "
+            f"salinity {p.names.get('salinity')} ({p.salinity_kind}), "
+            f"temperature {p.names.get('temperature')} ({p.temperature_kind}, "
+            f"[{p.units.get('temperature')}])"
+            for p in raw.profiles
+        }
+    )
+    deepest = np.array([p.pressure[p.complete()][-1] for p in raw.profiles])
+    given = sum(np.isfinite(p.bottom_depth) for p in raw.profiles)
+    spacing = station_spacing(raw.lon, raw.lat) / 1e3
+    pressure = ds["pressure"].values
+    files = raw.sources if len(raw.sources) <= 3 else raw.sources[:2] + ["..."] + raw.sources[-1:]
+    lines = [
+        f"Section {raw.name}: {len(ids)} stations from {', '.join(files)}",
+        f"  stations:  {ids[0]} .. {ids[-1]}"
+        + (f" (first in {first.file})" if len(raw.sources) > 1 else ""),
+        "  read as:   " + "; ".join(read_as),
+        f"  latitude:  {_range(raw.lat, '.3f')} degrees_north",
+        f"  longitude: {_range(raw.lon, '.3f')} degrees_east",
+        f"  deepest samples: {_range(deepest, '.0f')} dbar",
+        f"  bottom:    {_range(ds['bottom_depth'].values, '.0f')} m "
+        f"({given} of {len(ids)} stations give a bottom depth)",
+        f"  spacing:   min {spacing.min():.1f} km, median {np.median(spacing):.1f} km, "
+        f"max {spacing.max():.1f} km (total {spacing.sum():.1f} km)",
+        f"  grid:      0 .. {pressure[-1]:g} dbar every {ds.attrs['dp']:g} dbar "
+        f"({pressure.size} levels)",
+    ]
+    if cautions:
+        lines.append(f"  cautions ({len(cautions)}):")
+        lines.extend(f"    {c}" for c in cautions)
+    else:
+        lines.append("  cautions:  none")
+    return "\n".join(lines)
+
+
+def describe_section(
+    source: Source,
+    dp: float = 2.0,
+    *,
+    allow_equator: bool = False,
+    rules: GriddingRules | None = None,
+    **read_options: Any,
+) -> str:
+    """Read, check and grid a section, and describe it for the command line.
+
+    Parameters
+    ----------
+    source : path, folder or sequence of paths
+        As for :func:`sectionkit.io.read_section`.
+    dp : float
+        Grid step, dbar.
+    allow_equator : bool
+        Keep pairs near the equator with a caution instead of refusing them.
+    rules : GriddingRules, optional
+        Gap limits (dbar) and bottom tolerance (m).
+    **read_options
+        Passed to :func:`sectionkit.io.read_section` (name, columns,
+        temperature_kind, salinity_kind, pressure_units, temperature_units,
+        variables, order).
+
+    Returns
+    -------
+    str
+        Stations, position and depth ranges, spacing (km), grid and cautions.
+
+    Raises
+    ------
+    SectionkitError
+        Whatever :func:`sectionkit.io.load_section` would raise.
+    """
+    rules = dataclasses.replace(rules or GriddingRules(), dp=float(dp))
+    raw = read_section(source, **read_options)
+    cautions = validate_section(raw, allow_equator=allow_equator)
+    ds = grid_raw_section(raw, rules, cautions)
+    return format_report(raw, ds, cautions)
+
+
+def _pairs(items: Sequence[str] | None, what: str) -> dict[str, str]:
+    out = {}
+    for item in items or []:
+        key, sep, value = item.partition("=")
+        if not sep or not key.strip() or not value.strip():
+            raise argparse.ArgumentTypeError(f"{what} {item!r} must look like KEY=VALUE")
+        out[key.strip()] = value.strip()
+    return out
+
+
+def add_check_arguments(parser: argparse.ArgumentParser) -> argparse.ArgumentParser:
+    """Add the ``check`` command's arguments to a parser (for the CLI's subcommand).
+
+    Parameters
+    ----------
+    parser : argparse.ArgumentParser
+        The (sub)parser to fill.
+
+    Returns
+    -------
+    argparse.ArgumentParser
+        The same parser.
+    """
+    parser.add_argument(
+        "files",
+        nargs="+",
+        metavar="FILE",
+        help="section file (CF-NetCDF or CSV) or folder of per-cast files; each is one section",
+    )
+    parser.add_argument("--dp", type=float, default=2.0, help="grid step, dbar (default 2)")
+    parser.add_argument(
+        "--allow-equator", action="store_true", help="keep pairs within 2 degrees of the equator"
+    )
+    parser.add_argument(
+        "--column",
+        action="append",
+        metavar="KEY=HEADER",
+        help=f"CSV header for a column; KEY is one of {', '.join(CSV_COLUMNS)}",
+    )
+    parser.add_argument(
+        "--variable",
+        action="append",
+        metavar="QUANTITY=NAME",
+        help="NetCDF variable to use where several share a standard_name",
+    )
+    parser.add_argument("--temperature-kind", choices=TEMPERATURE_KINDS, default="in-situ")
+    parser.add_argument("--salinity-kind", choices=SALINITY_KINDS, default="practical")
+    parser.add_argument("--pressure-units", default="dbar", help="CSV pressure units (dbar, Pa)")
+    parser.add_argument(
+        "--temperature-units", default="degC", help="CSV temperature units (degC, K)"
+    )
+    return parser
+
+
+def run_check(
+    args: argparse.Namespace, out: TextIO | None = None, err: TextIO | None = None
+) -> int:
+    """Describe every file named in parsed ``check`` arguments.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        As filled by a parser set up with :func:`add_check_arguments`.
+    out, err : text streams, optional
+        Where reports and error messages go (default stdout and stderr).
+
+    Returns
+    -------
+    int
+        0 when every file could be loaded, 1 when any raised a sectionkit error.
+    """
+    out = sys.stdout if out is None else out
+    err = sys.stderr if err is None else err
+    status = 0
+    try:
+        options: Mapping[str, Any] = {
+            "columns": _pairs(args.column, "--column") or None,
+            "variables": _pairs(args.variable, "--variable") or None,
+            "temperature_kind": args.temperature_kind,
+            "salinity_kind": args.salinity_kind,
+            "pressure_units": args.pressure_units,
+            "temperature_units": args.temperature_units,
+        }
+    except argparse.ArgumentTypeError as exc:
+        print(f"error: {exc}", file=err)
+        return 1
+    for i, file in enumerate(args.files):
+        if i:
+            print(file=out)
+        try:
+            text = describe_section(file, args.dp, allow_equator=args.allow_equator, **options)
+        except SectionkitError as exc:
+            print(f"error: {file}: {exc}", file=err)
+            status = 1
+            continue
+        print(text, file=out)
+    return status
+
+
+def check_main(
+    argv: Sequence[str] | None = None, out: TextIO | None = None, err: TextIO | None = None
+) -> int:
+    """The ``sectionkit check FILE...`` command.
+
+    Parameters
+    ----------
+    argv : sequence of str, optional
+        Arguments after ``check`` (default: ``sys.argv[1:]``).
+    out, err : text streams, optional
+        Where reports and error messages go (default stdout and stderr).
+
+    Returns
+    -------
+    int
+        Exit status: 0 when every file loaded, 1 on a sectionkit error (message
+        printed without traceback). Bad usage exits with status 2 (argparse).
+    """
+    parser = add_check_arguments(
+        argparse.ArgumentParser(
+            prog="sectionkit check",
+            description="Validate section files and print what was found.",
+        )
+    )
+    args = parser.parse_args(argv)
+    return run_check(args, out, err)

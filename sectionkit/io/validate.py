@@ -1,0 +1,524 @@
+"""Checks that a section can be used as read: clear errors, and cautions.
+
+Errors (raised) stop the load with a message naming file, station,
+variable and value and saying what to do. Cautions (collected) are
+findings a scientist should see but that do not stop the computation.
+
+Thresholds (stated, not tuned):
+
+- pressure: above MAX_PRESSURE (12000 dbar, deeper than any ocean) means Pa
+  labelled dbar; below MIN_PRESSURE (-5 dbar) means a missing-value marker
+  or depth with the wrong sign;
+- temperature: a median in KELVIN_BAND (250 to 320) labelled degC is kelvin;
+  otherwise values outside TEMPERATURE_RANGE (-3 to 40 degC) are refused;
+- salinity: values above MAX_SALINITY (42, above any open sea), negative
+  values, or values below DEEP_MIN_SALINITY (15) deeper than DEEP_PRESSURE
+  (500 dbar, where no sea is that fresh) cannot be salinity (conductivity in
+  mS/cm or S/m, or a missing-value marker);
+- positions: two stations closer than SAME_POSITION (10 m) are one place;
+- equator: pair mid-points within EQUATOR_BAND (2 degrees) refuse geostrophy.
+
+Cautions: station spacing above GAP_FACTOR (3) times the median spacing,
+casts ending more than SHORT_CAST (200 m) above the stated bottom, density
+inversions (see :func:`sectionkit.thermo.find_inversions`), samples with
+only some of pressure, salinity and temperature, all-brackish salinity.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+
+import gsw
+import numpy as np
+
+from sectionkit.errors import Cautions, EquatorError, SectionDataError
+from sectionkit.io.raw import Profile, RawSection
+from sectionkit.io.units import is_pascal
+from sectionkit.thermo import Inversion, depth_from_pressure, pressure_from_depth
+
+MAX_PRESSURE = 12000.0  # dbar
+MIN_PRESSURE = -5.0  # dbar
+KELVIN_BAND = (250.0, 320.0)  # K
+TEMPERATURE_RANGE = (-3.0, 40.0)  # degC
+MAX_SALINITY = 42.0
+DEEP_PRESSURE = 500.0  # dbar
+DEEP_MIN_SALINITY = 15.0
+BRACKISH = 7.0
+MAX_BOTTOM_DEPTH = 11500.0  # m
+SAME_POSITION = 10.0  # m
+EQUATOR_BAND = 2.0  # degrees
+GAP_FACTOR = 3.0
+SHORT_CAST = 200.0  # m
+EARTH_RADIUS = 6371.0e3  # m, as gsw.distance
+
+
+# ---------------------------------------------------------------------------
+# Geometry kernels
+# ---------------------------------------------------------------------------
+
+
+def great_circle_distance(
+    lon1: np.ndarray, lat1: np.ndarray, lon2: np.ndarray, lat2: np.ndarray
+) -> np.ndarray:
+    """Great-circle distance between points on a sphere of radius 6371 km.
+
+    Parameters
+    ----------
+    lon1, lat1 : ndarray (...)
+        First points, degrees_east and degrees_north.
+    lon2, lat2 : ndarray (...)
+        Second points, degrees_east and degrees_north.
+
+    Returns
+    -------
+    ndarray (...)
+        Distance, m.
+    """
+    l1, p1, l2, p2 = (np.radians(np.asarray(a, dtype=float)) for a in (lon1, lat1, lon2, lat2))
+    h = np.sin((p2 - p1) / 2) ** 2 + np.cos(p1) * np.cos(p2) * np.sin((l2 - l1) / 2) ** 2
+    return 2 * EARTH_RADIUS * np.arcsin(np.sqrt(np.clip(h, 0.0, 1.0)))
+
+
+def pair_midpoints(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Great-circle mid-points of neighbouring stations.
+
+    Parameters
+    ----------
+    lon : ndarray (station,)
+        Longitude, degrees_east.
+    lat : ndarray (station,)
+        Latitude, degrees_north.
+
+    Returns
+    -------
+    lon_mid, lat_mid : ndarray (pair,)
+        Mid-point of each pair k (stations k and k+1), degrees_east and
+        degrees_north.
+    """
+    lam = np.radians(np.asarray(lon, dtype=float))
+    phi = np.radians(np.asarray(lat, dtype=float))
+    dlam = lam[1:] - lam[:-1]
+    bx = np.cos(phi[1:]) * np.cos(dlam)
+    by = np.cos(phi[1:]) * np.sin(dlam)
+    phi_m = np.arctan2(np.sin(phi[:-1]) + np.sin(phi[1:]), np.hypot(np.cos(phi[:-1]) + bx, by))
+    lam_m = lam[:-1] + np.arctan2(by, np.cos(phi[:-1]) + bx)
+    return np.degrees(lam_m), np.degrees(phi_m)
+
+
+def station_spacing(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
+    """Distance between neighbouring stations (gsw.distance at the sea surface).
+
+    Parameters
+    ----------
+    lon : ndarray (station,)
+        Longitude, degrees_east.
+    lat : ndarray (station,)
+        Latitude, degrees_north.
+
+    Returns
+    -------
+    ndarray (pair,)
+        Distance, m.
+    """
+    return np.asarray(gsw.distance(np.asarray(lon, float), np.asarray(lat, float)), float)
+
+
+# ---------------------------------------------------------------------------
+# Per-profile checks
+# ---------------------------------------------------------------------------
+
+
+def _first(mask: np.ndarray) -> int:
+    return int(np.flatnonzero(mask)[0])
+
+
+def _at(profile: Profile, k: int) -> str:
+    p = profile.pressure[k]
+    return f"sample {k}" + (f" ({p:g} dbar)" if np.isfinite(p) else "")
+
+
+def check_position(profile: Profile) -> None:
+    """Latitude and longitude present and in range."""
+    for quantity, value, low, high in (
+        ("latitude", profile.lat, -90.0, 90.0),
+        ("longitude", profile.lon, -180.0, 360.0),
+    ):
+        if not np.isfinite(value):
+            raise SectionDataError(
+                f"{profile.where(quantity)}: {quantity} is {value}, not a position; every "
+                "station needs a finite latitude and longitude"
+            )
+        if not low <= value <= high:
+            raise SectionDataError(
+                f"{profile.where(quantity)}: {quantity} {value:g} is outside {low:g} .. {high:g} "
+                "degrees; fix the position (decimal degrees, north and east positive)"
+            )
+
+
+def check_finite(profile: Profile) -> None:
+    """No infinite values (missing values must be NaN or _FillValue)."""
+    for quantity in ("pressure", "salinity", "temperature"):
+        values = getattr(profile, quantity)
+        bad = np.isinf(values)
+        if bad.any():
+            k = _first(bad)
+            raise SectionDataError(
+                f"{profile.where(quantity)}: value {values[k]} at sample {k} is infinite; "
+                "mark missing values as NaN or with _FillValue"
+            )
+    if np.isinf(profile.bottom_depth):
+        raise SectionDataError(
+            f"{profile.where('bottom_depth')}: bottom depth is infinite; "
+            "give a depth in m or leave it missing"
+        )
+
+
+def check_present(profile: Profile) -> None:
+    """At least one sample with pressure, salinity and temperature all present."""
+    for quantity in ("pressure", "salinity", "temperature"):
+        if not np.isfinite(getattr(profile, quantity)).any():
+            raise SectionDataError(
+                f"{profile.where(quantity)}: {quantity} is missing (NaN) at every sample; "
+                "the profile is empty — drop the station or supply its data"
+            )
+    if not profile.complete().any():
+        raise SectionDataError(
+            f"{profile.where()}: no sample has pressure, salinity and temperature all present; "
+            "drop the station or supply its data"
+        )
+
+
+def check_pressure(profile: Profile) -> None:
+    """Pressure in a plausible range for its units and increasing downward."""
+    p = profile.pressure[np.isfinite(profile.pressure)]
+    units = profile.units.get("pressure", "dbar")
+    if p.max() > MAX_PRESSURE:
+        k = _first(profile.pressure == p.max())
+        raise SectionDataError(
+            f"{profile.where('pressure')}: pressure reaches {p.max():g} dbar at sample {k} "
+            f"(labelled {units!r}), deeper than any ocean ({MAX_PRESSURE:g} dbar); values in Pa "
+            "labelled dbar? fix the units attribute (sectionkit converts Pa)"
+        )
+    if is_pascal(units) and p.size > 1 and p.max() < 1.0:
+        raise SectionDataError(
+            f"{profile.where('pressure')}: pressure labelled {units!r} reaches only "
+            f"{p.max() * 1e4:g} Pa ({p.max():g} dbar); the values look like dbar labelled Pa — "
+            "fix the units attribute"
+        )
+    if p.min() < MIN_PRESSURE:
+        k = _first(profile.pressure == p.min())
+        raise SectionDataError(
+            f"{profile.where('pressure')}: pressure {p.min():g} dbar at sample {k} is negative; "
+            "a missing-value marker (declare it as _FillValue) or depth with the wrong sign?"
+        )
+    steps = np.diff(p)
+    if np.any(steps <= 0):
+        k = _first(steps <= 0)
+        index = np.flatnonzero(np.isfinite(profile.pressure))
+        raise SectionDataError(
+            f"{profile.where('pressure')}: pressure does not increase from {p[k]:g} to "
+            f"{p[k + 1]:g} dbar at sample {int(index[k + 1])}; profiles must increase downward "
+            "— sort or drop the bad scans (upcast samples, repeated pressures)"
+        )
+
+
+def check_temperature(profile: Profile) -> None:
+    """Temperature in degC, in the range of sea water."""
+    t = profile.temperature
+    finite = np.isfinite(t)
+    units = profile.units.get("temperature", "degC")
+    median = float(np.median(t[finite]))
+    if KELVIN_BAND[0] <= median <= KELVIN_BAND[1]:
+        raise SectionDataError(
+            f"{profile.where('temperature')}: values {np.min(t[finite]):g} .. "
+            f"{np.max(t[finite]):g} (labelled {units!r}) look like kelvin; label the units 'K' "
+            "(sectionkit converts) or convert to degC"
+        )
+    low, high = TEMPERATURE_RANGE
+    bad = finite & ((t < low) | (t > high))
+    if bad.any():
+        k = _first(bad)
+        hint = (
+            " — the values were labelled kelvin but look like degC; fix the units attribute"
+            if units.strip().lower() in {"k", "kelvin"} and t[k] < -200
+            else "; a missing-value marker (declare it as _FillValue) or wrong units?"
+        )
+        raise SectionDataError(
+            f"{profile.where('temperature')}: temperature {t[k]:g} degC at {_at(profile, k)} is "
+            f"outside the range of sea water ({low:g} .. {high:g} degC){hint}"
+        )
+
+
+def check_salinity(profile: Profile, cautions: Cautions) -> None:
+    """Salinity values that can be salinity (not conductivity, not markers)."""
+    s, p = profile.salinity, profile.pressure
+    finite = np.isfinite(s)
+    if np.any(s[finite] > MAX_SALINITY):
+        k = _first(finite & (s > MAX_SALINITY))
+        raise SectionDataError(
+            f"{profile.where('salinity')}: value {s[k]:g} at {_at(profile, k)} cannot be "
+            f"salinity (no sea exceeds {MAX_SALINITY:g}); conductivity in mS/cm or a "
+            "missing-value marker? convert conductivity with gsw.SP_from_C, declare markers "
+            "as _FillValue"
+        )
+    if np.any(s[finite] < 0):
+        k = _first(finite & (s < 0))
+        raise SectionDataError(
+            f"{profile.where('salinity')}: value {s[k]:g} at {_at(profile, k)} is negative; a "
+            "missing-value marker? declare it as _FillValue"
+        )
+    deep = finite & np.isfinite(p) & (p > DEEP_PRESSURE) & (s < DEEP_MIN_SALINITY)
+    if deep.any():
+        k = _first(deep)
+        raise SectionDataError(
+            f"{profile.where('salinity')}: value {s[k]:g} at {_at(profile, k)} cannot be "
+            f"salinity (no sea is fresher than {DEEP_MIN_SALINITY:g} below "
+            f"{DEEP_PRESSURE:g} dbar); conductivity in S/m, or a mass fraction? convert to "
+            "Practical Salinity (PSS-78) or Absolute Salinity in g/kg"
+        )
+    if np.max(s[finite]) < BRACKISH:
+        cautions.add(
+            "salinity-low",
+            f"{profile.where('salinity')}: every value is below {BRACKISH:g} "
+            f"({np.min(s[finite]):g} .. {np.max(s[finite]):g}); brackish water, or conductivity "
+            "in S/m? check the variable",
+            file=profile.file,
+            station=profile.station,
+            variable=profile.names.get("salinity"),
+        )
+
+
+def check_incomplete(profile: Profile, cautions: Cautions) -> None:
+    """Caution for samples that have only some of pressure, salinity and temperature."""
+    # levels with pressure but neither salinity nor temperature are just
+    # below the end of a cast in a shared-pressure file: not incomplete
+    measured = np.isfinite(profile.salinity) | np.isfinite(profile.temperature)
+    partial = int(np.count_nonzero(measured & ~profile.complete()))
+    if partial:
+        cautions.add(
+            "incomplete-samples",
+            f"{profile.where()}: {partial} sample(s) lack pressure, salinity or temperature and "
+            "were left out before gridding",
+            file=profile.file,
+            station=profile.station,
+        )
+
+
+def check_profile(profile: Profile, cautions: Cautions) -> None:
+    """Every per-station check, in the order that gives the clearest message.
+
+    Parameters
+    ----------
+    profile : Profile
+        One station as read (dbar, degC).
+    cautions : Cautions
+        Collects non-fatal findings.
+    """
+    check_position(profile)
+    check_finite(profile)
+    check_present(profile)
+    check_pressure(profile)
+    check_temperature(profile)
+    check_salinity(profile, cautions)
+    check_incomplete(profile, cautions)
+
+
+# ---------------------------------------------------------------------------
+# Bottom
+# ---------------------------------------------------------------------------
+
+
+def resolve_bottom(
+    profile: Profile, tolerance: float, cautions: Cautions
+) -> tuple[float, float, float]:
+    """The station's bottom pressure and depth, checked against its deepest sample.
+
+    Parameters
+    ----------
+    profile : Profile
+        One checked station.
+    tolerance : float
+        How far the stated bottom may lie above the deepest sample, m.
+    cautions : Cautions
+        Collects short casts and bottoms moved down to the deepest sample.
+
+    Returns
+    -------
+    bottom_pressure : float
+        Sea-floor pressure, dbar (the deepest sample when no depth is given).
+    bottom_depth : float
+        Sea-floor depth, m, positive down.
+    deepest : float
+        Pressure of the deepest complete sample, dbar.
+    """
+    deepest = float(profile.pressure[profile.complete()][-1])
+    deepest_depth = float(depth_from_pressure(deepest, profile.lat))
+    depth = profile.bottom_depth
+    if not np.isfinite(depth):
+        return deepest, deepest_depth, deepest
+    if depth < 0 or depth > MAX_BOTTOM_DEPTH:
+        raise SectionDataError(
+            f"{profile.where('bottom_depth')}: bottom depth {depth:g} m is outside 0 .. "
+            f"{MAX_BOTTOM_DEPTH:g} m; depth is positive down, in metres — fix the value or "
+            "leave it missing"
+        )
+    above = deepest_depth - depth
+    if above > tolerance:
+        raise SectionDataError(
+            f"{profile.where('bottom_depth')}: bottom depth {depth:g} m is {above:.1f} m "
+            f"shallower than the deepest sample ({deepest:g} dbar = {deepest_depth:.1f} m); "
+            f"more than {tolerance:g} m is not sounding error — fix the bottom depth or the "
+            "pressure"
+        )
+    if above > 0:
+        cautions.add(
+            "bottom-moved",
+            f"{profile.where('bottom_depth')}: bottom depth {depth:g} m is {above:.1f} m above "
+            f"the deepest sample; the bottom is taken at the deepest sample ({deepest:g} dbar)",
+            file=profile.file,
+            station=profile.station,
+        )
+        return deepest, deepest_depth, deepest
+    if -above > SHORT_CAST:
+        cautions.add(
+            "short-cast",
+            f"{profile.where()}: the deepest sample ({deepest:g} dbar, {deepest_depth:.0f} m) is "
+            f"{-above:.0f} m above the stated bottom ({depth:.0f} m); properties are extended "
+            "unchanged over that depth, so near-bottom transports rest on that assumption",
+            file=profile.file,
+            station=profile.station,
+        )
+    return float(pressure_from_depth(depth, profile.lat)), float(depth), deepest
+
+
+# ---------------------------------------------------------------------------
+# Section checks
+# ---------------------------------------------------------------------------
+
+
+def _label(raw: RawSection, i: int) -> str:
+    p = raw.profiles[i]
+    return f"{p.station} ({p.file})"
+
+
+def check_stations(raw: RawSection) -> None:
+    """At least two stations, each id once."""
+    n = len(raw.profiles)
+    if n < 2:
+        raise SectionDataError(
+            f"{raw.name} ({', '.join(raw.sources)}): {n} station(s) found; a section needs at "
+            "least two stations to form a pair"
+        )
+    counts = Counter(raw.stations)
+    repeated = [s for s, c in counts.items() if c > 1]
+    if repeated:
+        s = repeated[0]
+        files = sorted({p.file for p in raw.profiles if p.station == s})
+        raise SectionDataError(
+            f"station {s} appears {counts[s]} times (files {', '.join(files)}); give every "
+            "cast its own station id"
+        )
+
+
+def check_same_positions(raw: RawSection) -> None:
+    """No two stations at the same position."""
+    lon, lat = raw.lon, raw.lat
+    d = great_circle_distance(lon[:, None], lat[:, None], lon[None, :], lat[None, :])
+    d[np.tril_indices(len(lon))] = np.inf
+    if np.any(d < SAME_POSITION):
+        i, j = (int(v) for v in np.argwhere(d < SAME_POSITION)[0])
+        raise SectionDataError(
+            f"stations {_label(raw, i)} and {_label(raw, j)} are at the same position "
+            f"(lat {lat[i]:g}, lon {lon[i]:g}; {d[i, j]:.1f} m apart); geostrophy needs distinct "
+            "positions — average repeated casts into one station or drop one"
+        )
+
+
+def check_equator(raw: RawSection, allow_equator: bool, cautions: Cautions) -> None:
+    """Refuse (or caution) pairs whose mid-point is within EQUATOR_BAND of the equator."""
+    lon_m, lat_m = pair_midpoints(raw.lon, raw.lat)
+    near = np.flatnonzero(np.abs(lat_m) < EQUATOR_BAND)
+    if near.size == 0:
+        return
+    ids = raw.stations
+    names = [
+        f"{raw.name}:{k} (stations {ids[k]}-{ids[k + 1]}, mid-point "
+        f"{abs(lat_m[k]):.2f} {'S' if lat_m[k] < 0 else 'N'})"
+        for k in near
+    ]
+    text = (
+        f"pairs {', '.join(names)} lie within {EQUATOR_BAND:g} degrees of the equator, where "
+        "geostrophy (v = dPsi / (f L)) is not defined"
+    )
+    if not allow_equator:
+        raise EquatorError(
+            f"{text}; drop those stations, or set allow_equator = true under [reference] "
+            "(allow_equator=True) to keep them"
+        )
+    cautions.add("equator", f"{text}; kept because allow_equator is set")
+
+
+def check_spacing(raw: RawSection, cautions: Cautions) -> np.ndarray:
+    """Caution for station gaps wider than GAP_FACTOR times the median spacing.
+
+    Returns
+    -------
+    ndarray (pair,)
+        Station spacing, m.
+    """
+    spacing = station_spacing(raw.lon, raw.lat)
+    if spacing.size >= 2:
+        median = float(np.median(spacing))
+        ids = raw.stations
+        for k in np.flatnonzero(spacing > GAP_FACTOR * median):
+            cautions.add(
+                "station-gap",
+                f"pair {raw.name}:{k} (stations {ids[k]}-{ids[k + 1]}) is "
+                f"{spacing[k] / 1e3:.1f} km wide, more than {GAP_FACTOR:g} times the median "
+                f"spacing ({median / 1e3:.1f} km); transport there is poorly resolved",
+                station=ids[k],
+            )
+    return spacing
+
+
+def inversion_cautions(
+    raw: RawSection, inversions: list[Inversion], span: float, threshold: float, cautions: Cautions
+) -> None:
+    """Turn found density inversions into cautions naming station and pressure."""
+    for inv in inversions:
+        profile = raw.profiles[inv.station_index]
+        cautions.add(
+            "density-inversion",
+            f"{profile.where()}: density inversion of {inv.excess:.3f} kg/m3 between "
+            f"{inv.p_top:g} and {inv.p_bottom:g} dbar (parcels {span:g} dbar apart compared at "
+            f"their mid pressure; threshold {threshold:g} kg/m3); check for spikes or "
+            "salinity-temperature sensor lag",
+            file=profile.file,
+            station=profile.station,
+        )
+
+
+def validate_section(raw: RawSection, *, allow_equator: bool = False) -> Cautions:
+    """Check a section as read; raise on what cannot be used, collect cautions.
+
+    Parameters
+    ----------
+    raw : RawSection
+        The profiles as read (dbar, degC), stations numbered.
+    allow_equator : bool
+        Keep pairs near the equator (with a caution) instead of refusing them.
+
+    Returns
+    -------
+    Cautions
+        Findings of the reading and of these checks.
+    """
+    cautions = Cautions()
+    cautions.extend(raw.cautions)
+    check_stations(raw)
+    for profile in raw.profiles:
+        check_profile(profile, cautions)
+    check_same_positions(raw)
+    check_equator(raw, allow_equator, cautions)
+    check_spacing(raw, cautions)
+    return cautions
