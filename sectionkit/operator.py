@@ -285,31 +285,27 @@ def build_operator(
     if not interfaces:
         weights = weights[..., :1, :]
 
+    rho0 = _masked(rho_pair)
     props = {
-        "volume": np.ones_like(rho_pair),
-        "mass": rho_pair / RHO0,
-        "salt": rho_pair * sa_pair / RHO0,
-        "heat": rho_pair * CP0 * ct_pair,
+        "volume": np.ones_like(rho0),
+        "mass": rho0 / RHO0,
+        "salt": rho0 * _masked(sa_pair) / RHO0,
+        "heat": rho0 * CP0 * _masked(ct_pair),
     }
     length = distance[:, None]
-    relative = np.stack(
-        [
-            length * np.einsum("...jik,...jk->...ji", weights, _masked(q * v_eff))
-            for q in props.values()
-        ],
-        axis=-3,
-    )
-    area = np.stack(
-        [
-            length * np.einsum("...jik,...jk->...ji", weights, _masked(q * response))
-            for q in props.values()
-        ],
-        axis=-3,
-    )
+    v0 = _masked(v_eff)
+    r0 = _masked(response)
+    # one batched matrix product for every quantity: (pair, class, level) @ (pair, level, 2q)
+    integrands = np.stack([q * v0 for q in props.values()] + [q * r0 for q in props.values()],
+                          axis=-1)
+    integrals = np.matmul(weights, integrands) * length[..., None]  # (..., pair, class, 2q)
+    n_q = len(props)
+    relative = np.moveaxis(integrals[..., :n_q], -1, -3)  # (..., quantity, pair, class)
+    area = np.moveaxis(integrals[..., n_q:], -1, -3)
 
     column = weights.sum(axis=-2)  # (..., pair, level)
-    level_relative = (distance[:, None] * column * _masked(v_eff)).sum(axis=-2)
-    level_area = distance[:, None] * column * _masked(response)
+    level_relative = (length * column * v0).sum(axis=-2)
+    level_area = length * column * r0
 
     ekman_share, level_ekman = _ekman_share(
         sigma_if, values, p, geometry["lat"].values, ekman_depth, props
@@ -392,16 +388,14 @@ def _ekman_share(
     each pair and split among the classes found there. Also returns the
     fraction carried at each grid level, (..., pair, level).
     """
-    z = -gsw.z_from_p(p[None, :], lat[:, None])  # depth, m (pair, level)
+    n_lev = int(np.searchsorted(p, gsw.p_from_z(-depth, float(np.max(np.abs(lat))))) + 2)
+    n_lev = min(max(n_lev, 2), p.size)
+    z = -gsw.z_from_p(p[None, :n_lev], lat[:, None])  # depth, m (pair, level)
     seg_top = z[:, :-1]
     seg_bot = z[:, 1:]
     inside = np.clip((depth - seg_top) / (seg_bot - seg_top), 0.0, 1.0)
-    n_lev = int(np.searchsorted(p, gsw.p_from_z(-depth, float(np.max(np.abs(lat))))) + 2)
-    n_lev = min(max(n_lev, 2), p.size)
-    thickness = (seg_bot - seg_top)[:, : n_lev - 1]
-    w = class_weights(
-        sigma_if[..., : n_lev], values, thickness, inside[:, : n_lev - 1]
-    )
+    thickness = seg_bot - seg_top
+    w = class_weights(sigma_if[..., :n_lev], values, thickness, inside)
     if values.size == 1 and values[0] >= 1e9:  # no interfaces: a single class
         w = w[..., :1, :]
     total = w.sum(axis=(-2, -1))  # (..., pair)
