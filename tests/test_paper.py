@@ -1,0 +1,269 @@
+"""Paper tables (tables.tex, tables.md): rounding, captions, rows, escaping, determinism.
+
+The ocean here is invented: two lines of stations over a smooth
+stratification (warm salty surface over cold deep water), built in memory.
+"""
+
+from __future__ import annotations
+
+import re
+import shutil
+import subprocess
+from pathlib import Path
+
+import gsw
+import numpy as np
+import pytest
+import xarray as xr
+
+from sectionkit import paper
+from sectionkit.config import parse_config
+from sectionkit.paper import (
+    error_decimals,
+    format_fixed,
+    format_with_error,
+    latex_escape,
+    round_with_error,
+    write_paper_tables,
+)
+from sectionkit.report import tables
+from sectionkit.study import Study
+
+# ---------------------------------------------------------------- invented study
+
+
+def invented_line(n: int, lat0: float, dp: float = 10.0, pmax: float = 4000.0) -> xr.Dataset:
+    """A canonical gridded section (docs/CONTRACTS-INTERNAL.md), made up."""
+    p = np.arange(0.0, pmax + dp / 2, dp)
+    lon = np.linspace(-40.0, -35.0, n)
+    lat = np.full(n, lat0)
+    bottoms = np.linspace(2600.0, pmax - 5.0, n)
+    x = np.linspace(0.0, 1.0, n)[:, None]
+    ct = 2.0 + 18.0 * np.exp(-p / (700.0 + 300.0 * x))
+    sa = 34.9 + 1.2 * np.exp(-p / 900.0) + 0.1 * x
+    below = p[None, :] > bottoms[:, None]
+    return xr.Dataset(
+        {
+            "SA": (("station", "pressure"), np.where(below, np.nan, sa)),
+            "CT": (("station", "pressure"), np.where(below, np.nan, ct)),
+            "lat": ("station", lat),
+            "lon": ("station", lon),
+            "bottom_pressure": ("station", bottoms),
+            "bottom_depth": ("station", -gsw.z_from_p(bottoms, lat)),
+        },
+        coords={"pressure": p, "station": [f"K{i + 1}" for i in range(n)]},
+        attrs={"section": "line", "dp": dp},
+    )
+
+
+CONFIG = {
+    "title": "Invented box",
+    "grid": {"dp": 10.0},
+    "sections": [
+        {"name": "south", "file": "south.nc"},
+        {"name": "north", "file": "north.nc", "into_box": False},
+    ],
+    "reference": {"pressure": 2000.0, "overrides": {"south:2": "bottom"}},
+    "ekman": {"stress": {"south": [-0.06, 0.0]}},
+    "layers": {
+        "interfaces": [{"sigma": 26.8, "p_ref": 0.0}, {"sigma": 36.9, "p_ref": 2000.0}],
+        "names": ["upper", "mid", "deep_water"],
+    },
+    "inverse": {
+        "noise_layer": [1.0, 1.0, 1.0],
+        "known": [{"name": "strait", "transport": 0.8, "noise": 0.2, "layer": "upper"}],
+    },
+}
+
+
+def make_study(inverse: bool = True) -> Study:
+    cfg = dict(CONFIG)
+    if not inverse:
+        cfg.pop("inverse")
+    sections = {"south": invented_line(5, 25.0), "north": invented_line(6, 40.0)}
+    return Study.from_config(parse_config(cfg), sections=sections)
+
+
+@pytest.fixture(scope="module")
+def solved():
+    study = make_study()
+    return study, study.solve()
+
+
+@pytest.fixture(scope="module")
+def unsolved():
+    study = make_study(inverse=False)
+    return study, study.solve()
+
+
+def md_tables(text: str) -> list[list[list[str]]]:
+    """Body rows of every Markdown pipe table (header and rule dropped), cells unescaped."""
+    blocks: list[list[str]] = []
+    previous = False
+    for line in text.splitlines():
+        is_row = line.startswith("| ")
+        if is_row and not previous:
+            blocks.append([])
+        if is_row:
+            blocks[-1].append(line)
+        previous = is_row
+    return [
+        [[c.strip().replace("\\_", "_") for c in re.split(r"(?<!\\)\|", row)[1:-1]]
+         for row in block[2:]]
+        for block in blocks
+    ]
+
+
+# ---------------------------------------------------------------- rounding
+
+
+def test_value_is_quoted_to_the_first_significant_digit_of_its_error():
+    assert round_with_error(12.3456, 0.234) == ("12.3", "0.2")
+    assert round_with_error(-0.0249, 0.0184) == ("-0.025", "0.018")
+    assert round_with_error(1234.5, 23.0) == ("1230", "20")
+    assert format_with_error(12.3456, 0.234) == "12.3 ± 0.2"
+
+
+def test_error_starting_with_one_keeps_two_digits():
+    assert round_with_error(12.3456, 0.134) == ("12.35", "0.13")
+    assert round_with_error(28.687, 1.0927) == ("28.7", "1.1")
+    # 0.0996 rounds to 0.10 at two significant digits: a leading 1
+    assert round_with_error(3.14159, 0.0996) == ("3.14", "0.10")
+    assert error_decimals(0.96) == 1  # 9.6e-1: one decimal, error prints as 1.0
+    assert round_with_error(5.0, 0.96) == ("5.0", "1.0")
+
+
+def test_rounding_is_half_away_from_zero_on_the_printed_decimal():
+    # binary floats would round 0.15 and 2.675 down
+    assert format_fixed(0.15, 1) == "0.2"
+    assert format_fixed(2.675, 2) == "2.68"
+    assert format_fixed(-2.675, 2) == "-2.68"
+
+
+def test_values_that_round_to_zero_carry_no_minus_sign():
+    assert format_fixed(-0.0004, 3) == "0.000"
+    assert round_with_error(-0.0004, 0.01) == ("0.000", "0.010")
+
+
+def test_value_without_error_uses_the_fixed_precision_of_its_unit():
+    assert round_with_error(31.00707, None, "Sv") == ("31.0", None)
+    assert round_with_error(3.083587, float("nan"), "PW") == ("3.08", None)
+    assert round_with_error(-0.960052, None, "freshwater Sv") == ("-0.96", None)
+    assert round_with_error(207.445, None, "km2") == ("207", None)
+    assert round_with_error(0.0123, 0.0, "m/s") == ("0.012", None)
+    assert round_with_error(float("nan"), 0.3) == ("", None)
+
+
+def test_latex_special_characters_in_names_are_escaped():
+    assert latex_escape("deep_water & 50% #2") == r"deep\_water \& 50\% \#2"
+    assert latex_escape("a{b}~c^d\\") == (
+        r"a\{b\}\textasciitilde{}c\textasciicircum{}d\textbackslash{}"
+    )
+
+
+# ---------------------------------------------------------------- files
+
+
+def test_latex_has_booktabs_rules_errors_and_captions(solved, tmp_path):
+    study, results = solved
+    write_paper_tables(study, results, tmp_path)
+    tex = (tmp_path / "tables.tex").read_text()
+    for rule in (r"\toprule", r"\midrule", r"\bottomrule"):
+        assert tex.count(rule) == 4
+    assert tex.count(r"\caption{") == 4
+    assert r"$\pm$" in tex
+    assert "S[table-format=" in tex
+    for unit in (r"km$^{2}$", r"m\,s$^{-1}$", "(Sv)", "(PW)"):
+        assert unit in tex
+    captions = re.findall(r"\\caption\{(.*)\}", tex)
+    for caption in captions:
+        assert "level of no motion at 2000 dbar with 1 pair override" in caption
+        assert "Bottom triangles: velocity held constant" in caption
+        assert "Inverse: Gauss--Markov estimate conserving mass and salt" in caption
+        assert r"0.02 m\,s$^{-1}$ (reference velocity)" in caption
+    assert r"deep\_water" in tex and "deep_water" not in tex.replace(r"deep\_water", "")
+    assert not re.search(r"\d\.\d{5,}", tex), "no raw float noise in the tables"
+
+
+def test_caption_says_when_no_inverse_ran(unsolved, tmp_path):
+    study, results = unsolved
+    write_paper_tables(study, results, tmp_path)
+    tex = (tmp_path / "tables.tex").read_text()
+    md = (tmp_path / "tables.md").read_text()
+    assert tex.count("No inverse: initial budgets") == 4
+    assert md.count("No inverse: initial budgets") == 4
+    assert "±" not in md.split("No inverse")[-1]  # no errors in the rows
+    assert "No inverse: there are no box constraints." in md
+
+
+def test_markdown_rows_match_the_csv_tables(solved, tmp_path):
+    study, results = solved
+    write_paper_tables(study, results, tmp_path)
+    md = (tmp_path / "tables.md").read_text()
+    layers, pairs, box, summary = md_tables(md)
+    frames = tables(study, results)
+
+    df = frames["layer_transports.csv"]
+    assert [(r[0], r[1]) for r in layers] == list(zip(df.section, df.layer, strict=True))
+    assert [r[-1] for r in layers] == [
+        format_with_error(v, e) for v, e in zip(df.adjusted_sv, df.adjusted_err_sv, strict=True)
+    ]
+
+    df = frames["pair_adjustments.csv"]
+    assert [(r[0], int(r[1])) for r in pairs] == list(zip(df.section, df.pair, strict=True))
+    assert [r[5] for r in pairs] == list(df.ref_kind)
+    assert [float(r[6]) for r in pairs] == pytest.approx(list(df.ref_pressure), abs=0.5)
+
+    df = frames["box_budget.csv"]
+    assert [(r[0], r[1]) for r in box] == list(zip(df.box, df.constraint, strict=True))
+    assert [float(r[6]) for r in box] == pytest.approx(list(df.normalized_residual), abs=0.006)
+
+    df = frames["section_summary.csv"]
+    assert [r[0] for r in summary] == list(df.section)
+    assert [r[1] for r in summary] == [
+        format_with_error(v, e) for v, e in zip(df.net_sv, df.net_err_sv, strict=True)
+    ]
+    assert [r[3] for r in summary] == [
+        format_with_error(v, e, "PW") for v, e in zip(df.heat_pw, df.heat_err_pw, strict=True)
+    ]
+
+
+def test_tables_are_byte_identical_across_runs(solved, tmp_path):
+    study, results = solved
+    write_paper_tables(study, results, tmp_path / "a")
+    again = study.solve()
+    write_paper_tables(study, again, tmp_path / "b")
+    for name in ("tables.tex", "tables.md"):
+        assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "b" / name).read_bytes()
+
+
+def test_long_tables_become_longtables(solved, monkeypatch):
+    study, results = solved
+    monkeypatch.setattr(paper, "LONG_TABLE_ROWS", 5)
+    tex = paper.to_latex(paper.paper_tables(study, results))
+    assert r"\begin{longtable}" in tex and r"\endfirsthead" in tex
+    assert tex.count(r"\begin{longtable}") == 3  # layers (6), pairs (9), box (7 rows)
+
+
+@pytest.mark.skipif(
+    shutil.which("pdflatex") is None or shutil.which("kpsewhich") is None,
+    reason="pdflatex not installed",
+)
+def test_latex_compiles(solved, unsolved, tmp_path, monkeypatch):
+    have = subprocess.run(["kpsewhich", "siunitx.sty", "booktabs.sty", "longtable.sty"],
+                          capture_output=True, text=True).stdout.split()
+    if len(have) < 3:
+        pytest.skip("siunitx, booktabs or longtable missing")
+    monkeypatch.setattr(paper, "LONG_TABLE_ROWS", 8)  # exercise a longtable too
+    for tag, (study, results) in (("inv", solved), ("initial", unsolved)):
+        write_paper_tables(study, results, tmp_path / tag)
+    doc = tmp_path / "doc.tex"
+    doc.write_text(
+        "\\documentclass{article}\n\\usepackage[T1]{fontenc}\n\\usepackage{booktabs}\n"
+        "\\usepackage{siunitx}\n\\usepackage{longtable}\n\\begin{document}\n"
+        "\\input{inv/tables.tex}\n\\clearpage\n\\input{initial/tables.tex}\n\\end{document}\n"
+    )
+    run = subprocess.run(["pdflatex", "-interaction=nonstopmode", "-halt-on-error", doc.name],
+                         cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    assert run.returncode == 0, run.stdout[-2000:]
+    assert Path(tmp_path / "doc.pdf").stat().st_size > 1000
