@@ -122,9 +122,15 @@ class LinearOutputs:
         g = self.gradient
         return np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", g, covariance, g), 0.0))
 
+    def __post_init__(self) -> None:
+        self._position = {name: k for k, name in enumerate(self.names)}
+
     def index(self, name: str) -> int:
         """Position of a named output."""
-        return self.names.index(name)
+        try:
+            return self._position[name]
+        except KeyError:
+            raise KeyError(f"no output named {name!r}") from None
 
 
 def class_transport_gradient(
@@ -244,10 +250,14 @@ def section_outputs(
         add("overturning_density", psi_rho[kr], gpsi_rho[kr], "Sv")
     else:
         add("overturning_density", np.nan, np.zeros(layout.size), "Sv")
-    for n in range(psi_rho.size):
-        add(f"psi_density:{n}", psi_rho[n], gpsi_rho[n], "Sv")
-    for k in range(op.pressure.size):
-        add(f"psi_depth:{k}", psi_z[k], gpsi_z[k], "Sv")
+    names += [f"psi_density:{n}" for n in range(psi_rho.size)]
+    initial.append(psi_rho)
+    grads.append(gpsi_rho.reshape(psi_rho.size, layout.size))
+    units += ["Sv"] * psi_rho.size
+    names += [f"psi_depth:{k}" for k in range(op.pressure.size)]
+    initial.append(psi_z)
+    grads.append(gpsi_z)
+    units += ["Sv"] * psi_z.size
     return LinearOutputs(names, np.concatenate(initial), np.vstack(grads), units)
 
 

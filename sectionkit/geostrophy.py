@@ -372,47 +372,52 @@ def resolve_references(
     p_used = np.array(p_common, dtype=float, copy=True)
     u_ref = np.zeros_like(p_used)
     too_deep: list[str] = []
+    groups: dict[ReferenceChoice, list[int]] = {}
     for j, choice in enumerate(choices):
-        pc = p_common[..., j]
+        groups.setdefault(choice, []).append(j)
+    for choice, members in groups.items():  # pairs sharing a choice are resolved together
+        idx = np.asarray(members)
+        pc = p_common[..., idx]
         if choice.kind == "bottom":
             pj = pc
         elif choice.kind in ("pressure", "velocity"):
             if choice.pressure is None:
                 raise ComputationError(
-                    f"pair {labels[j]}: a {choice.kind} reference needs a pressure"
+                    f"pair {labels[idx[0]]}: a {choice.kind} reference needs a pressure"
                 )
             pj = np.minimum(choice.pressure, pc)
-            if np.any(choice.pressure > pc):
-                too_deep.append(f"{labels[j]} ({float(np.min(pc)):g})")
+            short = np.any(choice.pressure > pc, axis=tuple(range(pc.ndim - 1)))
+            for j in idx[short]:
+                too_deep.append(f"{labels[j]} ({float(np.min(p_common[..., j])):g})")
             if choice.kind == "velocity":
-                u_ref[..., j] = choice.velocity
+                u_ref[..., idx] = choice.velocity
         elif choice.kind == "isopycnal":
             if sigma_at is None or choice.sigma_p_ref not in sigma_at:
                 raise ComputationError(
-                    f"pair {labels[j]}: no potential density referenced to "
+                    f"pair {labels[idx[0]]}: no potential density referenced to "
                     f"{choice.sigma_p_ref:g} dbar was prepared for the isopycnal reference"
                 )
             pj, status = isopycnal_pressure(
-                sigma_at[choice.sigma_p_ref][..., j : j + 1, :], p, common[..., j : j + 1],
-                choice.sigma,
+                sigma_at[choice.sigma_p_ref][..., idx, :], p, common[..., idx], choice.sigma
             )
-            pj, status = pj[..., 0], status[..., 0]
-            if cautions is not None and np.any(status == 1):
-                cautions.add(
-                    "isopycnal-not-reached",
-                    f"pair {labels[j]}: the isopycnal {choice.sigma:g} (p_ref "
-                    f"{choice.sigma_p_ref:g} dbar) lies below the pair's deepest common level; "
-                    "the deepest common level is used",
-                )
-            if cautions is not None and np.any(status == 2):
-                cautions.add(
-                    "isopycnal-outcrops",
-                    f"pair {labels[j]}: the isopycnal {choice.sigma:g} outcrops (the surface is "
-                    "denser); the sea surface is used as the reference",
-                )
+            lead = tuple(range(status.ndim - 1))
+            for code, kind, text in (
+                (1, "isopycnal-not-reached", "lies below the deepest common level of pair(s) {}; "
+                 "the deepest common level is used"),
+                (2, "isopycnal-outcrops", "outcrops at pair(s) {} (the surface is denser); the "
+                 "sea surface is used as the reference"),
+            ):
+                hit = idx[np.any(status == code, axis=lead)]
+                if cautions is not None and hit.size:
+                    cautions.add(kind, f"the isopycnal {choice.sigma:g} (p_ref "
+                                 f"{choice.sigma_p_ref:g} dbar) " + text.format(
+                                     ", ".join(labels[j] for j in hit)))
         else:
-            raise ComputationError(f"pair {labels[j]}: unknown reference kind {choice.kind!r}")
-        p_used[..., j] = pj
+            raise ComputationError(
+                f"pair {labels[idx[0]]}: unknown reference kind {choice.kind!r}"
+            )
+        p_used[..., idx] = pj
+    too_deep.sort(key=lambda text: labels.index(text.split(" ")[0]))
     if cautions is not None and too_deep:
         cautions.add(
             "reference-below-pair",

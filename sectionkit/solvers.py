@@ -81,6 +81,10 @@ _SYMMETRY_RTOL = 1e-8
 # --------------------------------------------------------------------------
 
 
+
+class NotFittedError(ComputationError, AttributeError):
+    """A result was read before ``fit``; also an AttributeError so ``getattr`` defaults work."""
+
 class _Covariance:
     """A covariance ``C = S S^T`` held as variances (diagonal) or a Cholesky factor.
 
@@ -390,7 +394,7 @@ class _LinearSolver:
     def __getattr__(self, attr: str) -> Any:
         # Only reached when normal lookup fails, i.e. before fit() for results.
         if attr in type(self)._fitted_names:
-            raise ComputationError(
+            raise NotFittedError(
                 f"{type(self).__name__}.{attr} is not available yet: call fit(E, y) first"
             )
         raise AttributeError(f"{type(self).__name__!r} object has no attribute {attr!r}")

@@ -282,7 +282,7 @@ def _check_equator(name: str, ds: xr.Dataset, allow: bool, cautions: Cautions) -
     near = np.flatnonzero(np.abs(mid_lat) < EQUATOR_BAND)
     if near.size == 0:
         return
-    labels = ", ".join(f"{name}:{k}" for k in near)
+    labels = _pair_ranges(name, near)
     if not allow:
         raise EquatorError(
             f"section {name}: pairs {labels} have mid-points within {EQUATOR_BAND:g} degrees of "
@@ -291,6 +291,20 @@ def _check_equator(name: str, ds: xr.Dataset, allow: bool, cautions: Cautions) -
         )
     cautions.add("equator", f"section {name}: pairs {labels} lie within {EQUATOR_BAND:g} degrees "
                  "of the equator; their geostrophic velocities are unreliable")
+
+
+def _pair_ranges(section: str, pairs: np.ndarray) -> str:
+    """Pair indices as compact ranges: ``south:0-12, south:15``."""
+    parts = []
+    start = prev = int(pairs[0])
+    for k in [int(v) for v in pairs[1:]] + [None]:
+        if k is not None and k == prev + 1:
+            prev = k
+            continue
+        parts.append(f"{section}:{start}" if start == prev else f"{section}:{start}-{prev}")
+        if k is not None:
+            start = prev = k
+    return ", ".join(parts)
 
 
 def _bathymetry(cfg: Config, spec, ds: xr.Dataset) -> list | None:
