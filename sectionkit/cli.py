@@ -42,11 +42,14 @@ def run_budget(config_path: Path, out_dir: Path, *, figures: bool = True,
                quiet: bool = False) -> int:
     """Run the whole chain of one configuration and write its outputs."""
     from sectionkit.config import load_config
-    from sectionkit.report import write_outputs
+    from sectionkit.report import load_provenance, write_outputs
     from sectionkit.study import Study
 
     progress = None if quiet else _progress
-    config = load_config(config_path)
+    if Path(config_path).suffix.lower() == ".json":
+        config = load_provenance(config_path)
+    else:
+        config = load_config(config_path)
     study = Study.from_config(config, progress=progress)
     if progress:
         progress("budgets" + (" and inverse" if config.inverse else ""))
@@ -137,7 +140,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("budget", help="compute the budgets of a TOML configuration",
                        description="Compute class transports, the box inverse (when [inverse] is "
                        "configured) and write the tables, figures and provenance to --out.")
-    p.add_argument("config", help="configuration file (.toml)")
+    p.add_argument("config", help="configuration file (.toml), or the provenance.json of an "
+                   "earlier run to reproduce it (its input files must be unchanged)")
     p.add_argument("--out", required=True, help="output folder")
     p.add_argument("--no-figures", action="store_true", help="skip figures (faster)")
     p.add_argument("--quiet", action="store_true", help="no progress messages")

@@ -24,6 +24,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from sectionkit.config import Config, parse_config
+from sectionkit.errors import InputFileError
 from sectionkit.study import Results, Study
 
 CSV_FLOAT_FORMAT = "%.8g"  # enough digits for re-analysis, no float noise
@@ -173,6 +175,47 @@ def provenance(study: Study, results: Results) -> dict:
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
         "cautions": [str(c) for c in results.cautions],
     }
+
+
+def load_provenance(path: str | Path, check_inputs: bool = True) -> Config:
+    """The configuration of an earlier run, from its provenance.json.
+
+    Parameters
+    ----------
+    path : str or Path
+        A ``provenance.json`` written by :func:`write_outputs`.
+    check_inputs : bool
+        Refuse to go on when an input file is missing or its SHA-256 differs
+        from the recorded one (the rerun would not reproduce the run).
+
+    Returns
+    -------
+    Config
+        The resolved configuration, relative paths taken from the original
+        configuration's folder.
+    """
+    path = Path(path)
+    try:
+        record = json.loads(path.read_text())
+        data = record["configuration"]
+        base = Path(record["configuration_dir"])
+    except (OSError, ValueError, KeyError, TypeError) as exc:
+        raise InputFileError(
+            f"{path} is not a sectionkit provenance.json ({exc}); pass the run's "
+            "provenance.json or a TOML configuration"
+        ) from None
+    if check_inputs:
+        for name, digest in record.get("input_sha256", {}).items():
+            if not Path(name).is_file():
+                raise InputFileError(f"{path}: input file {name} of the recorded run is missing; "
+                                     "restore it to reproduce the run")
+            if sha256(name) != digest:
+                raise InputFileError(
+                    f"{path}: input file {name} has changed since the recorded run (SHA-256 "
+                    f"{sha256(name)[:12]}… instead of {digest[:12]}…); restore the original "
+                    "to reproduce the run"
+                )
+    return parse_config(data, base_dir=base)
 
 
 def _write_csv(df: pd.DataFrame, path: Path) -> None:
