@@ -20,29 +20,11 @@ def _progress(message: str) -> None:
     print(f"  .. {message}", file=sys.stderr, flush=True)
 
 
-def _extras():
-    """Writers beyond the CSV tables, when their modules are present."""
-    writers = []
-    try:
-        from sectionkit.paper import write_paper_tables
-
-        writers.append(write_paper_tables)
-    except ImportError:
-        pass
-    try:
-        from sectionkit.figures import write_figures
-
-        writers.append(write_figures)
-    except ImportError:
-        pass
-    return writers
-
-
 def run_budget(config_path: Path, out_dir: Path, *, figures: bool = True,
                quiet: bool = False) -> int:
     """Run the whole chain of one configuration and write its outputs."""
     from sectionkit.config import load_config
-    from sectionkit.report import load_provenance, write_outputs
+    from sectionkit.report import default_writers, load_provenance, write_outputs
     from sectionkit.study import Study
 
     progress = None if quiet else _progress
@@ -54,9 +36,9 @@ def run_budget(config_path: Path, out_dir: Path, *, figures: bool = True,
     if progress:
         progress("budgets" + (" and inverse" if config.inverse else ""))
     results = study.solve()
-    extras = _extras() if figures else []
-    if progress and extras:
-        progress("tables and figures")
+    extras = default_writers(figures)
+    if progress:
+        progress("tables and figures" if figures else "tables")
     written = write_outputs(study, results, out_dir, extras)
     print(f"{config.title}: wrote {len(written)} files to {out_dir}")
     for name in study.operators:

@@ -296,6 +296,31 @@ class InverseResult:
         """Adjusted inflow divided by its noise (DESIGN.md §7)."""
         return self.adjusted / self.system.noise
 
+    @property
+    def resolution_diagonal(self) -> np.ndarray:
+        """Diagonal of the model resolution matrix per unknown (0 where not solved for)."""
+        out = np.zeros(self.system.prior.size)
+        active = self.system.prior > 0
+        out[active] = np.diag(self.solver.resolution)
+        return out
+
+    def summary(self) -> dict:
+        """Solver, size, rank and chi-squared statistics, for reports."""
+        chi2 = self.solver.chi2
+        info = {
+            "solver": type(self.solver).__name__,
+            "constraints": int(self.system.matrix.shape[0]),
+            "unknowns": int(np.count_nonzero(self.system.prior > 0)),
+            "chi2_residuals": float(chi2.residuals),
+            "chi2_residuals_expected": float(chi2.residuals_expected),
+            "chi2_estimate": float(chi2.estimate),
+            "chi2_estimate_expected": float(chi2.estimate_expected),
+        }
+        rank = getattr(self.solver, "rank", None)
+        if rank is not None:
+            info["rank"] = int(rank)
+        return info
+
 
 def solve(
     system: ConstraintSystem,

@@ -66,6 +66,7 @@ def pair_table(study: Study, results: Results) -> pd.DataFrame:
     rows = []
     x = results.estimate
     cov = results.covariance
+    resolution = results.inverse.resolution_diagonal if results.inverse else None
     for name, op in study.operators.items():
         sl = results.layout.pair_slices[name]
         ref = results.references[name]
@@ -83,6 +84,7 @@ def pair_table(study: Study, results: Results) -> pd.DataFrame:
                 "adjustment_m_s": float(x[idx]),
                 "adjustment_err_m_s": float(np.sqrt(cov[idx, idx])) if cov is not None
                 else np.nan,
+                "resolution": float(resolution[idx]) if resolution is not None else np.nan,
             })
     return pd.DataFrame(rows)
 
@@ -90,7 +92,8 @@ def pair_table(study: Study, results: Results) -> pd.DataFrame:
 def box_table(results: Results) -> pd.DataFrame:
     """box_budget.csv: one row per box constraint (net inflow, positive in)."""
     inv = results.inverse
-    columns = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual", "unit"]
+    columns = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual", "unit",
+               "initial_normalized_residual"]
     if inv is None:
         return pd.DataFrame(columns=columns)
     sys_ = inv.system
@@ -103,6 +106,37 @@ def box_table(results: Results) -> pd.DataFrame:
         "noise": sys_.noise,
         "normalized_residual": adjusted / sys_.noise,
         "unit": sys_.units,
+        "initial_normalized_residual": sys_.initial / sys_.noise,
+    }, columns=columns)
+
+
+def unknowns_table(results: Results) -> pd.DataFrame:
+    """inverse_unknowns.csv: every unknown of the inverse with prior, estimate and error.
+
+    Reference-velocity adjustments in m s^-1, diapycnal transfers (positive
+    from the lighter to the denser class) in Sv, Ekman adjustments as a
+    fraction of the stated Ekman transport.
+    """
+    columns = ["unknown", "kind", "unit", "prior_std", "estimate", "posterior_std",
+               "resolution"]
+    inv = results.inverse
+    if inv is None:
+        return pd.DataFrame(columns=columns)
+    layout = results.layout
+    kinds = ["reference_velocity"] * layout.size
+    units = ["m s-1"] * layout.size
+    for idx in layout.diapycnal.values():
+        kinds[idx], units[idx] = "diapycnal_transfer", "Sv"
+    for idx in layout.ekman.values():
+        kinds[idx], units[idx] = "ekman_fraction", "1"
+    return pd.DataFrame({
+        "unknown": layout.labels,
+        "kind": kinds,
+        "unit": units,
+        "prior_std": inv.system.prior,
+        "estimate": inv.estimate,
+        "posterior_std": np.sqrt(np.maximum(np.diag(inv.covariance), 0.0)),
+        "resolution": inv.resolution_diagonal,
     }, columns=columns)
 
 
@@ -132,6 +166,7 @@ def tables(study: Study, results: Results) -> dict[str, pd.DataFrame]:
         "pair_adjustments.csv": pair_table(study, results),
         "box_budget.csv": box_table(results),
         "section_summary.csv": summary_table(study, results),
+        "inverse_unknowns.csv": unknowns_table(results),
     }
 
 
@@ -174,6 +209,7 @@ def provenance(study: Study, results: Results) -> dict:
         "packages": _package_versions(),
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
         "cautions": [str(c) for c in results.cautions],
+        "inverse": results.inverse.summary() if results.inverse else None,
     }
 
 
@@ -220,6 +256,24 @@ def load_provenance(path: str | Path, check_inputs: bool = True) -> Config:
 
 def _write_csv(df: pd.DataFrame, path: Path) -> None:
     df.to_csv(path, index=False, float_format=CSV_FLOAT_FORMAT, lineterminator="\n")
+
+
+def default_writers(figures: bool = True) -> list[Callable[[Study, Results, Path], None]]:
+    """The writers a batch run uses beyond the CSV tables: paper tables, and figures.
+
+    Parameters
+    ----------
+    figures : bool
+        Include the figures (the slowest part of a run).
+    """
+    from sectionkit.paper import write_paper_tables
+
+    writers: list[Callable[[Study, Results, Path], None]] = [write_paper_tables]
+    if figures:
+        from sectionkit.figures import write_figures
+
+        writers.append(write_figures)
+    return writers
 
 
 def write_outputs(

@@ -915,10 +915,9 @@ class WorkbenchState:
         list of Path
             Files written, relative to ``folder``.
         """
-        from sectionkit.cli import _extras
-        from sectionkit.report import write_outputs
+        from sectionkit.report import default_writers, write_outputs
 
-        return write_outputs(self.study, self.results, folder, _extras() if figures else [])
+        return write_outputs(self.study, self.results, folder, default_writers(figures))
 
     # ------------------------------------------------------------ machinery
     def _check_label(self, label: str) -> None:
