@@ -90,3 +90,14 @@ def test_rerun_refuses_changed_inputs(demo_run, tmp_path, capsys):
     path.write_text(json.dumps(record))
     assert main(["budget", str(path), "--out", str(tmp_path / "o"), "--quiet"]) == 1
     assert "has changed since the recorded run" in capsys.readouterr().err
+
+
+def test_demo_inverse_recovers_the_true_diapycnal_transfers(demo_run):
+    # twin truth of the generator: demo_sections/truth_diapycnal.csv
+    truth = pd.read_csv(DEMO_DIR / "truth_diapycnal.csv")
+    unknowns = pd.read_csv(demo_run / "inverse_unknowns.csv").set_index("unknown")
+    for row in truth.itertuples():
+        estimate = unknowns.loc[f"interior:W{row.interface}"]
+        assert estimate["kind"] == "diapycnal_transfer"
+        assert abs(estimate["estimate"] - row.w_true_sv) <= 2 * estimate["posterior_std"]
+        assert 0 < estimate["resolution"] <= 1
