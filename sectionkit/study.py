@@ -11,14 +11,19 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
+import gsw
 import numpy as np
+import pandas as pd
 import xarray as xr
 
 from sectionkit.budget import LinearOutputs, UnknownLayout, make_layout, section_outputs
 from sectionkit.config import Config
-from sectionkit.errors import Cautions, ConfigError
-from sectionkit.geostrophy import resolve_references
+from sectionkit.errors import Cautions, ConfigError, EquatorError, InputFileError
+from sectionkit.geometry import great_circle_distance, pair_midpoints
+from sectionkit.geostrophy import pair_mean, resolve_references
 from sectionkit.inverse import InverseResult, assemble, solve
+from sectionkit.io import load_section
+from sectionkit.layers import potential_density_anomaly
 from sectionkit.operator import SectionOperator, build_operator
 
 EQUATOR_BAND = 2.0  # degrees: geostrophy refused within this band (DESIGN.md §4)
@@ -114,8 +119,6 @@ class Study:
             if sections is not None and spec.name in sections:
                 study.sections[spec.name] = sections[spec.name]
                 continue
-            from sectionkit.io import load_section
-
             if progress:
                 progress(f"reading section {spec.name}")
             paths = [str(p) for p in config.section_paths(spec)]
@@ -169,9 +172,6 @@ class Study:
         needed = {c.sigma_p_ref for c in choices if c.kind == "isopycnal"}
         missing = needed - set(op.sigma_pair)
         if missing:
-            from sectionkit.geostrophy import pair_mean
-            from sectionkit.layers import potential_density_anomaly
-
             ds = self.sections[op.name]
             sa = ds["SA"].transpose(..., "station", "pressure").values
             ct = ds["CT"].transpose(..., "station", "pressure").values
@@ -275,9 +275,6 @@ def _pair_index(layout: UnknownLayout, label: str) -> int:
 
 
 def _check_equator(name: str, ds: xr.Dataset, allow: bool, cautions: Cautions) -> None:
-    from sectionkit.errors import EquatorError
-    from sectionkit.geometry import pair_midpoints
-
     _, mid_lat = pair_midpoints(ds["lon"].values, ds["lat"].values)
     near = np.flatnonzero(np.abs(mid_lat) < EQUATOR_BAND)
     if near.size == 0:
@@ -311,12 +308,6 @@ def _bathymetry(cfg: Config, spec, ds: xr.Dataset) -> list | None:
     """Per-pair bottom pressures sampled along a bathymetry track, or None."""
     if not spec.bathymetry:
         return None
-    import gsw
-    import pandas as pd
-
-    from sectionkit.errors import InputFileError
-    from sectionkit.geometry import great_circle_distance
-
     path = cfg.base_dir / spec.bathymetry
     try:
         track = pd.read_csv(path)
