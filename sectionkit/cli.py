@@ -13,7 +13,7 @@ from pathlib import Path
 
 from sectionkit.errors import SectionkitError
 
-DEMO_DIR = Path(__file__).resolve().parent.parent / "demo_sections"
+DEMO_DIR = Path(__file__).resolve().parent.parent / "demo_sections"  # = demo.BUNDLED_DIR
 
 
 def _progress(message: str) -> None:
@@ -67,16 +67,10 @@ def _cmd_budget(args: argparse.Namespace) -> int:
 
 
 def demo_config_path() -> Path:
-    """The bundled demo configuration (regenerated into a cache if not shipped)."""
-    path = DEMO_DIR / "demo.toml"
-    if path.is_file():
-        return path
-    from sectionkit.demo import write_demo
+    """The bundled demo configuration (see :func:`sectionkit.demo.bundled_demo_config`)."""
+    from sectionkit.demo import bundled_demo_config
 
-    cache = Path.home() / ".cache" / "sectionkit" / "demo_sections"
-    if not (cache / "demo.toml").is_file():
-        write_demo(cache)
-    return cache / "demo.toml"
+    return bundled_demo_config()
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:

@@ -1407,6 +1407,25 @@ def _truth_tables(truth: DemoTruth) -> dict[str, tuple[list[str], list[list[str]
     }
 
 
+BUNDLED_DIR = Path(__file__).resolve().parent.parent / "demo_sections"
+
+
+def bundled_demo_config() -> Path:
+    """The demo configuration shipped in ``demo_sections/``.
+
+    When the package was installed without the repository's ``demo_sections/``
+    folder, the demo is generated once into ``~/.cache/sectionkit`` (the
+    generator is deterministic, so the files are the same).
+    """
+    path = BUNDLED_DIR / "demo.toml"
+    if path.is_file():
+        return path
+    cache = Path.home() / ".cache" / "sectionkit" / "demo_sections"
+    if not (cache / "demo.toml").is_file():
+        write_demo(cache)
+    return cache / "demo.toml"
+
+
 def write_demo(
     folder: str | os.PathLike, *, small: bool = False, scenario: DemoScenario | None = None
 ) -> dict[str, Path]:

@@ -1,6 +1,6 @@
 """Paper-ready tables: the four §7 tables as LaTeX (booktabs + siunitx) and Markdown.
 
-The tables hold the same rows as the CSV files of :mod:`sectionkit.report`
+The tables hold the same rows as the CSV files of :mod:`sectionkit.tables`
 (they are built from the same DataFrames) but are rounded for print:
 
 **Rounding rule.** A value with an error is quoted to the decimal place of
@@ -33,6 +33,7 @@ import pandas as pd
 from sectionkit.errors import SectionkitError
 from sectionkit.geostrophy import ReferenceChoice
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
+from sectionkit.tables import tables
 
 #: Decimals quoted for a value without an error, by unit key.
 FIXED_DECIMALS: dict[str, int] = {
@@ -694,8 +695,6 @@ def paper_tables(study: Study, results: Results) -> list[PaperTable]:
     list of PaperTable
         Class transports, pair adjustments, box budget, section summary.
     """
-    from sectionkit.report import tables
-
     frames = tables(study, results)
     return [
         _layer_table(frames["layer_transports.csv"], study, results),

@@ -59,7 +59,7 @@ def open_workbench(
     from sectionkit.workbench.view import WorkbenchView
 
     if config_path is None:
-        from sectionkit.cli import demo_config_path
+        from sectionkit.demo import bundled_demo_config as demo_config_path
 
         config_path = demo_config_path()
     state = WorkbenchState.open(config_path, resume=resume, autosave=autosave)

@@ -475,13 +475,13 @@ class WorkbenchState:
 
     def tables(self) -> dict[str, pd.DataFrame]:
         """The four §7 tables of the current state, exactly as a batch run writes them."""
-        from sectionkit.report import tables
+        from sectionkit.tables import tables
 
         return tables(self.study, self.results)
 
     def section_numbers(self) -> pd.DataFrame:
         """Net, heat, freshwater and overturning of each section with errors (section_summary)."""
-        from sectionkit.report import summary_table
+        from sectionkit.tables import summary_table
 
         return summary_table(self.study, self.results)
 
