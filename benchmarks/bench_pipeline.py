@@ -1,0 +1,498 @@
+"""Benchmarks of the section pipeline, reference updates, ensembles and model-output memory.
+
+Each function measures one goal and returns a :class:`Measurement`; the
+project runner ``benchmarks/run.py`` prints them one line per goal.
+
+- :func:`pipeline_vs_floor` — the whole chain of one long line (200
+  stations, 1 dbar grid, 6000 dbar: TEOS-10 dynamic height, references,
+  class operator, budgets and a mass-conserving inverse) against the floor
+  of gsw.geo_strf_dyn_height alone on the same profiles. Goal <= 3x.
+- :func:`reference_update` — a changed global reference turned into new
+  class transports (``Study.references`` + ``SectionOperator.transports``)
+  against recomputing the operators. Goal <= 1/100.
+- :func:`ensemble_scaling` — ensemble members per second on a
+  dask.distributed LocalCluster with 2 worker processes against 1. Goal >=
+  1.7x.
+- :func:`model_output_memory` — peak memory of a 1000-record model-output
+  section computed in chunks along time, against the same with 100
+  records, each in a fresh subprocess. Goal: growth <= 1.25x (bounded).
+- :func:`profile_pipeline` — cProfile of the long-line pipeline, the top
+  functions by own time.
+
+Everything runs on invented data (:mod:`sectionkit.modelsection`).
+"""
+
+from __future__ import annotations
+
+import cProfile
+import io
+import json
+import os
+import pstats
+import statistics
+import subprocess
+import sys
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _ensure_importable() -> None:
+    """Let the script run from a source checkout without installing the package."""
+    try:
+        import sectionkit  # noqa: F401
+    except ImportError:
+        sys.path.insert(0, str(ROOT))
+
+
+@dataclass
+class Measurement:
+    """One measured goal.
+
+    Attributes
+    ----------
+    name : str
+        What was measured.
+    value : float
+        The measurement, in ``unit``.
+    goal : float
+        The goal, in ``unit``.
+    kind : {"<=", ">="}
+        Whether the value must be at most or at least the goal.
+    unit : str
+        ``"x"`` for ratios, ``"s"``, ``"MB"``.
+    details : dict
+        Supporting numbers for the record (seconds, sizes).
+    """
+
+    name: str
+    value: float
+    goal: float
+    kind: str = "<="
+    unit: str = "x"
+    details: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def met(self) -> bool:
+        """True when the goal is met."""
+        return self.value <= self.goal if self.kind == "<=" else self.value >= self.goal
+
+    @property
+    def shortfall(self) -> float:
+        """Factor by which the goal is missed (1 when met)."""
+        if self.met:
+            return 1.0
+        return self.value / self.goal if self.kind == "<=" else self.goal / self.value
+
+    def line(self) -> str:
+        """``<name>: <measured> (goal <goal>) met`` or ``... short (by X)``."""
+        verdict = "met" if self.met else f"short (by {self.shortfall:.2f}x)"
+        return (f"{self.name}: {_fmt(self.value, self.unit)} "
+                f"(goal {self.kind} {_fmt(self.goal, self.unit)}) {verdict}")
+
+
+def _fmt(value: float, unit: str) -> str:
+    if unit == "x":
+        return f"{value:.4g}x" if value >= 0.1 else f"1/{1 / value:.0f}"
+    return f"{value:.4g} {unit}"
+
+
+def _median_time(func: Callable[[], Any], repeats: int) -> tuple[float, list[float]]:
+    times = []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        func()
+        times.append(time.perf_counter() - start)
+    return statistics.median(times), times
+
+
+# ---------------------------------------------------------------- the long line
+def long_line_study(n_station: int = 200, dp: float = 1.0, p_max: float = 6000.0):
+    """Configuration and canonical section of an invented long line.
+
+    Five classes (interfaces at sigma_0 26.8 and 27.5, sigma_2 36.95, sigma_4
+    45.9), a 3000 dbar level of no motion, an Ekman stress and a
+    mass-conserving inverse.
+
+    Returns
+    -------
+    config : sectionkit.config.Config
+    sections : dict of str -> xr.Dataset
+    """
+    _ensure_importable()
+    from sectionkit.config import parse_config
+    from sectionkit.modelsection import synthetic_section
+
+    section = synthetic_section(n_station, dp, p_max, lat=30.0, seed=0, name="line", noise=10.0)
+    config = parse_config({
+        "title": "invented long line",
+        "grid": {"dp": dp},
+        "sections": [{"name": "line", "file": "line.nc"}],
+        "reference": {"pressure": 3000.0},
+        "ekman": {"stress": {"line": [0.05, 0.0]}},
+        "layers": {"interfaces": [{"sigma": 26.8, "p_ref": 0.0}, {"sigma": 27.5, "p_ref": 0.0},
+                                  {"sigma": 36.95, "p_ref": 2000.0},
+                                  {"sigma": 45.9, "p_ref": 4000.0}]},
+        "inverse": {"conserve": ["mass"], "noise_layer": [1.0] * 5},
+    })
+    return config, {"line": section}
+
+
+def pipeline_vs_floor(quick: bool = False) -> Measurement:
+    """Whole chain of a 200-station, 1 dbar, 6000 dbar line against gsw dynamic height alone.
+
+    Parameters
+    ----------
+    quick : bool
+        2 timed runs instead of 5 (after one cold run); the fastest counts.
+
+    Returns
+    -------
+    Measurement
+        Ratio of the pipeline's wall time to the floor's; details hold the
+        seconds of each stage.
+    """
+    import gsw
+
+    from sectionkit.study import Study
+
+    config, sections = long_line_study()
+    sec = sections["line"]
+    sa, ct, p = sec["SA"].values, sec["CT"].values, sec["pressure"].values
+    repeats = 2 if quick else 5
+
+    def floor() -> None:
+        gsw.geo_strf_dyn_height(sa, ct, p, p_ref=0.0, axis=1, max_dp=1.0)
+
+    def full() -> None:
+        Study.from_config(config, sections=sections).solve()
+
+    start = time.perf_counter()
+    full()  # the first (cold) run also pays page faults of the large temporaries
+    cold = time.perf_counter() - start
+    # the fastest of several runs: on a shared machine other processes only add time
+    _, floor_times = _median_time(floor, 9)
+    _, full_times = _median_time(full, repeats)
+    study = Study.from_config(config, sections=sections)
+    t_build, _ = _median_time(lambda: Study.from_config(config, sections=sections), repeats)
+    t_solve, _ = _median_time(study.solve, repeats)
+    return Measurement(
+        "full pipeline (200 stations, 1 dbar, 6000 dbar) / gsw dynamic height alone",
+        min(full_times) / min(floor_times), 3.0,
+        details={"floor_s (fastest of 9)": min(floor_times),
+                 "pipeline_s (fastest)": min(full_times),
+                 "pipeline_median_s": statistics.median(full_times),
+                 "pipeline_cold_s": cold, "operators_median_s": t_build,
+                 "solve_median_s": t_solve,
+                 "grid": f"{sa.shape[0]} stations x {sa.shape[1]} levels"},
+    )
+
+
+def reference_update(quick: bool = False) -> Measurement:
+    """A changed reference level turned into new class transports, against a full recompute.
+
+    Parameters
+    ----------
+    quick : bool
+        Fewer repeats.
+
+    Returns
+    -------
+    Measurement
+        Ratio of the update's wall time to rebuilding the operators and
+        computing the same transports.
+    """
+    import dataclasses
+
+    from sectionkit.study import Study
+
+    config, sections = long_line_study()
+    study = Study.from_config(config, sections=sections)
+    ekman = study.ekman()
+    levels = iter(np.tile(np.linspace(1000.0, 4000.0, 31), 100))
+
+    def update() -> dict[str, np.ndarray]:
+        study.config.reference = dataclasses.replace(study.config.reference,
+                                                     pressure=float(next(levels)))
+        refs = study.references()
+        return {name: op.transports(refs[name].offset, 0.0, ekman[name]).sum(axis=-2)
+                for name, op in study.operators.items()}
+
+    def recompute() -> None:
+        fresh = Study.from_config(config, sections=sections)
+        refs = fresh.references()
+        for name, op in fresh.operators.items():
+            op.transports(refs[name].offset, 0.0, ekman[name]).sum(axis=-2)
+
+    update()
+    t_update, _ = _median_time(update, 10 if quick else 50)
+    t_full, _ = _median_time(recompute, 1 if quick else 3)
+    return Measurement("reference update / full recompute (200-station line)",
+                       t_update / t_full, 0.01,
+                       details={"update_s": t_update, "recompute_s": t_full})
+
+
+# ---------------------------------------------------------------- ensembles
+def ensemble_box(n_station: int = 40, dp: float = 2.0):
+    """An invented two-line box whose members cost a few tenths of a second each.
+
+    Returns
+    -------
+    config : sectionkit.config.Config
+    sections : dict of str -> xr.Dataset
+    """
+    _ensure_importable()
+    from sectionkit.config import parse_config
+    from sectionkit.modelsection import synthetic_section
+
+    config = parse_config({
+        "title": "invented ensemble box",
+        "grid": {"dp": dp},
+        "sections": [{"name": "south", "file": "south.nc"},
+                     {"name": "north", "file": "north.nc", "into_box": False}],
+        "reference": {"pressure": 3000.0},
+        "ekman": {"stress": {"south": [0.05, 0.0]}},
+        "layers": {"interfaces": [{"sigma": 26.8, "p_ref": 0.0},
+                                  {"sigma": 36.95, "p_ref": 2000.0}],
+                   "names": ["upper", "intermediate", "deep"]},
+        "inverse": {"conserve": ["mass", "salt"], "noise_layer": [1.0, 0.5, 0.5],
+                    "prior_velocity": 0.01},
+    })
+    sections = {
+        "south": synthetic_section(n_station, dp, 5000.0, lat=28.0, seed=1, name="south",
+                                   noise=20.0),
+        "north": synthetic_section(n_station + 5, dp, 5000.0, lat=34.0, seed=2, name="north",
+                                   noise=20.0),
+    }
+    return config, sections
+
+
+def ensemble_scaling(quick: bool = False) -> Measurement:
+    """Members per second with 2 worker processes against 1 (LocalCluster, 1 thread each).
+
+    Clusters come from :func:`sectionkit.ensemble.local_cluster` (as the
+    ``sectionkit ensemble`` command makes them). Cluster start-up and a
+    warm-up member (imports on the workers) are not timed; the ensemble
+    perturbs sensors, the reference level and the priors, so every member
+    rebuilds both operators and solves the inverse (plus one task for the
+    unperturbed run). Each cluster runs the ensemble 2 (quick) or 3 times
+    and the fastest counts. The full run also times 2 workers with dask's
+    default ``MALLOC_TRIM_THRESHOLD_`` for the record.
+
+    Parameters
+    ----------
+    quick : bool
+        8 members instead of 32.
+
+    Returns
+    -------
+    Measurement
+        Throughput ratio (2 workers / 1 worker).
+    """
+    from distributed import Client
+
+    from sectionkit.ensemble import Perturbation, local_cluster, members_equal, run_ensemble
+
+    config, sections = ensemble_box()
+    perturb = Perturbation(reference_range=(2000.0, 3500.0), prior_factor=(0.5, 2.0))
+    members = 8 if quick else 32
+    rounds = 2 if quick else 3
+    setups = [("1w", 1, False), ("2w", 2, False)]
+    if not quick:
+        setups.append(("2w_dask_malloc_trim", 2, True))
+    times: dict[str, float] = {}
+    runs = {}
+    capacity_before = parallel_capacity()
+    load_before = os.getloadavg()[0]
+    for label, workers, keep in setups:
+        # one cluster at a time (idle clusters still poll), fastest of a few rounds: bursts of
+        # other jobs on a shared machine only ever add time
+        with local_cluster(workers, keep_malloc_trim=keep) as cluster, Client(cluster) as client:
+            run_ensemble(config, workers, seed=99, client=client, perturb=perturb,
+                         sections=sections)  # warm-up: imports on every worker
+            best = float("inf")
+            for _ in range(rounds):
+                start = time.perf_counter()
+                runs[label] = run_ensemble(config, members, seed=1, client=client,
+                                           perturb=perturb, sections=sections)
+                best = min(best, time.perf_counter() - start)
+            times[label] = best
+    start = time.perf_counter()
+    serial = run_ensemble(config, members, seed=1, perturb=perturb, sections=sections)
+    t_serial = time.perf_counter() - start
+    same = max(members_equal(r, serial) for r in runs.values())
+    capacity = parallel_capacity()
+    details = {"machine_2_process_capacity_before_x": capacity_before["capacity_x"],
+               "machine_2_process_capacity_after_x": capacity["capacity_x"],
+               "load_average_1min_before": load_before,
+               "load_average_1min_after": os.getloadavg()[0],
+               "one_worker_s": times["1w"], "two_workers_s": times["2w"],
+               "serial_in_client_s": t_serial, "members": members,
+               "members_per_s_2w": members / times["2w"], "max_rel_diff_vs_serial": same}
+    if "2w_dask_malloc_trim" in times:
+        details["two_workers_with_dask_MALLOC_TRIM_THRESHOLD_s"] = times["2w_dask_malloc_trim"]
+    return Measurement(
+        f"ensemble throughput 2 workers / 1 worker ({members} members)",
+        times["1w"] / times["2w"], 1.7, kind=">=", details=details,
+    )
+
+
+def _capacity_work(n: int) -> float:
+    """CPU-bound numpy work of a fixed size (what two cores can do at once)."""
+    rng = np.random.default_rng(n)
+    a = rng.standard_normal((400, 400))
+    total = 0.0
+    for _ in range(12):
+        total += float(np.tanh(a @ a.T / 400.0).sum())
+        a = np.sin(a) + 1e-3 * rng.standard_normal(a.shape)
+    return total
+
+
+def parallel_capacity(tasks: int = 8) -> dict[str, float]:
+    """Speed-up of 2 processes over 1 on plain numpy work, measured now.
+
+    On a machine shared with other jobs this is what two workers can get at
+    best; it puts the ensemble scaling in context.
+
+    Returns
+    -------
+    dict
+        ``one_process_s``, ``two_processes_s`` and ``capacity_x``.
+    """
+    import multiprocessing as mp
+
+    ctx = mp.get_context("spawn")
+    times = {}
+    for procs in (1, 2):
+        with ctx.Pool(procs) as pool:
+            pool.map(_capacity_work, range(procs))
+            start = time.perf_counter()
+            pool.map(_capacity_work, range(tasks), chunksize=1)
+            times[procs] = time.perf_counter() - start
+    return {"one_process_s": times[1], "two_processes_s": times[2],
+            "capacity_x": times[1] / times[2]}
+
+
+# ---------------------------------------------------------------- model-output memory
+def _peak_rss_mb() -> float:
+    """Peak resident set size of this process, MB (VmHWM; unlike ru_maxrss it is not
+    inherited from the parent across fork and exec)."""
+    with open("/proc/self/status") as fh:
+        for line in fh:
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) / 1024.0
+    import resource  # pragma: no cover - not Linux
+
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
+def _memory_child(n_time: int, chunk: int, n_station: int) -> dict[str, float]:
+    """Run in a fresh interpreter: a chunked model-output line to time series; peak memory."""
+    import dask
+
+    from sectionkit.config import parse_config
+    from sectionkit.modelsection import section_time_series, synthetic_model_output
+
+    config = parse_config({
+        "grid": {"dp": 10.0},
+        "sections": [{"name": "line", "file": "line.nc"}],
+        "reference": {"pressure": "bottom"},
+        "layers": {"interfaces": [{"sigma": 26.8, "p_ref": 0.0},
+                                  {"sigma": 36.95, "p_ref": 2000.0}]},
+    })
+    base = _peak_rss_mb()
+    model = synthetic_model_output(n_time, n_station, chunks=chunk)
+    start = time.perf_counter()
+    series = section_time_series(model, config, "line")
+    with dask.config.set(scheduler="threads", num_workers=2):
+        result = series[["net", "heat", "overturning", "volume_transport"]].compute()
+    seconds = time.perf_counter() - start
+    peak = _peak_rss_mb()
+    n_level = int(series.sizes["pressure"])
+    return {
+        "n_time": n_time, "chunk": chunk, "seconds": seconds,
+        "peak_rss_mb": peak, "rss_after_imports_mb": base, "growth_mb": peak - base,
+        "canonical_sa_ct_mb": 2 * n_time * n_station * n_level * 8 / 2**20,
+        "finite": bool(np.isfinite(result["net"].values).all()),
+    }
+
+
+def _memory_run(n_time: int, chunk: int, n_station: int) -> dict[str, float]:
+    code = (
+        "import json, sys; sys.path.insert(0, {root!r}); sys.path.insert(0, {bench!r});"
+        "from bench_pipeline import _memory_child;"
+        "print(json.dumps(_memory_child({n}, {c}, {s})))"
+    ).format(root=str(ROOT), bench=str(ROOT / "benchmarks"), n=n_time, c=chunk, s=n_station)
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          check=True)
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def model_output_memory(quick: bool = False) -> Measurement:
+    """Peak memory of a long model-output section computed in chunks along time.
+
+    A 40-station invented model line (40 depth levels, 10 dbar canonical
+    grid, ~530 levels) chunked by 20 records and computed with dask's
+    threaded scheduler (2 threads); each length runs in its own subprocess,
+    and the peak resident set sizes (VmHWM) are compared.
+
+    Parameters
+    ----------
+    quick : bool
+        200 records against 40 instead of 1000 against 100.
+
+    Returns
+    -------
+    Measurement
+        Peak RSS of the long run divided by that of the short one.
+    """
+    long_n, short_n = (200, 40) if quick else (1000, 100)
+    short = _memory_run(short_n, 20, 40)
+    long = _memory_run(long_n, 20, 40)
+    details: dict[str, Any] = {"long": long, "short": short}
+    if not quick:
+        # for contrast: the short series as one chunk (memory grows with the chunk)
+        details["short_as_one_chunk"] = _memory_run(short_n, short_n, 40)
+    return Measurement(
+        f"peak memory {long_n}-record / {short_n}-record model-output section "
+        f"({long['peak_rss_mb']:.0f} MB vs {short['peak_rss_mb']:.0f} MB, chunks of 20)",
+        long["peak_rss_mb"] / short["peak_rss_mb"], 1.25, details=details,
+    )
+
+
+# ---------------------------------------------------------------- profile
+def profile_pipeline(quick: bool = False, top: int = 25) -> str:
+    """cProfile of the long-line pipeline (operators and solve), top functions by own time.
+
+    Parameters
+    ----------
+    quick : bool
+        A 100-station, 2 dbar line instead of 200 stations at 1 dbar.
+    top : int
+        Number of functions listed.
+
+    Returns
+    -------
+    str
+        The pstats listing (sorted by total own time), then by cumulative time.
+    """
+    from sectionkit.study import Study
+
+    config, sections = long_line_study(100, 2.0) if quick else long_line_study()
+    config.dp = sections["line"].attrs["dp"]
+    Study.from_config(config, sections=sections).solve()  # warm
+    prof = cProfile.Profile()
+    prof.enable()
+    Study.from_config(config, sections=sections).solve()
+    prof.disable()
+    buf = io.StringIO()
+    stats = pstats.Stats(prof, stream=buf)
+    stats.sort_stats("tottime").print_stats(top)
+    stats.sort_stats("cumulative").print_stats(top)
+    return buf.getvalue()

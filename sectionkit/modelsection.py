@@ -1,0 +1,549 @@
+"""Model-output sections: a fixed line of stations with a time dimension.
+
+Ocean model output sampled along a line is a section whose stations never
+move: temperature and salinity on (time, station, level) with a fixed land
+mask. :func:`model_section` turns it into the canonical section of
+docs/CONTRACTS-INTERNAL.md with the time (and any other leading) dimension
+kept, lazily when the input is dask-backed; :func:`section_time_series` then
+gives every budget as a time series through :mod:`sectionkit.xr`.
+
+Conversion rules (stated, since they shape the numbers):
+
+- variables are found by CF ``standard_name`` (DESIGN.md §3, plus
+  ``sea_water_salinity``, taken as practical salinity as in most model
+  output);
+- a depth coordinate (m, positive down unless ``positive = "up"``) becomes
+  pressure with ``gsw.p_from_z`` at each station's latitude;
+- practical salinity becomes Absolute Salinity with ``gsw.SA_from_SP`` at
+  each station's position; potential temperature becomes Conservative
+  Temperature with ``gsw.CT_from_pt``, in-situ temperature with
+  ``gsw.CT_from_t`` (kelvin converted);
+- the land mask is the first record's (it must not change with time); a
+  station's last wet level is its deepest finite sample;
+- profiles are interpolated linearly in pressure onto 0, dp, 2 dp, ...;
+  above the shallowest model level the shallowest value is used, and below
+  the deepest wet level the deepest value continues down to the sea floor
+  (``sea_floor_depth_below_sea_surface`` when given, else the deepest wet
+  level), as for casts in DESIGN.md §3.
+
+Also here: invented test oceans (:func:`synthetic_section`,
+:func:`synthetic_model_output`) used by the tests and the benchmarks.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import gsw
+import numpy as np
+import xarray as xr
+
+from sectionkit.config import Config
+from sectionkit.errors import SectionDataError
+
+__all__ = [
+    "interpolation_weights",
+    "interpolate_profiles",
+    "model_section",
+    "section_time_series",
+    "synthetic_model_output",
+    "synthetic_section",
+]
+
+TEMPERATURE_NAMES = (
+    "sea_water_conservative_temperature",
+    "sea_water_potential_temperature",
+    "sea_water_temperature",
+)
+SALINITY_NAMES = (
+    "sea_water_absolute_salinity",
+    "sea_water_practical_salinity",
+    "sea_water_salinity",
+)
+BOTTOM_DEPTH_MISMATCH = 10.0  # m: a sea floor this much above the deepest wet level is an error
+
+
+# ------------------------------------------------------------------ kernels
+def interpolation_weights(
+    p_src: np.ndarray, last: np.ndarray, bottom: np.ndarray, grid: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Linear-in-pressure interpolation from model levels onto a pressure grid.
+
+    Parameters
+    ----------
+    p_src : ndarray (station, level)
+        Pressure of each model level at each station, dbar, increasing.
+    last : ndarray (station,) of int
+        Index of each station's deepest wet level.
+    bottom : ndarray (station,)
+        Sea-floor pressure of each station, dbar.
+    grid : ndarray (pressure,)
+        Target pressures, dbar, increasing.
+
+    Returns
+    -------
+    lo : ndarray (station, pressure) of int
+        Index of the model level at or above each target.
+    w : ndarray (station, pressure)
+        Weight of level ``lo + 1``, dimensionless (0 above the shallowest
+        level, 1 on the deepest wet level and below it: constant extension).
+    wet : ndarray (station, pressure) of bool
+        True where the target lies above the sea floor.
+    """
+    n_station, n_level = p_src.shape
+    lo = np.zeros((n_station, grid.size), dtype=int)
+    w = np.zeros((n_station, grid.size))
+    for s in range(n_station):
+        ps = p_src[s, : last[s] + 1]
+        k = np.clip(np.searchsorted(ps, grid, side="right") - 1, 0, max(ps.size - 2, 0))
+        if ps.size > 1:
+            frac = (grid - ps[k]) / (ps[k + 1] - ps[k])
+            w[s] = np.clip(frac, 0.0, 1.0)
+        lo[s] = k
+    wet = grid[None, :] <= bottom[:, None] + 1e-9
+    return lo, w, wet
+
+
+def interpolate_profiles(
+    values: np.ndarray, lo: np.ndarray, w: np.ndarray, wet: np.ndarray
+) -> np.ndarray:
+    """Apply :func:`interpolation_weights` to profiles with any leading dimensions.
+
+    Parameters
+    ----------
+    values : ndarray (..., station, level)
+        Model-level values, any unit.
+    lo, w, wet : ndarray (station, pressure)
+        From :func:`interpolation_weights`.
+
+    Returns
+    -------
+    ndarray (..., station, pressure)
+        Values on the pressure grid, same unit; NaN below the sea floor.
+    """
+    values = np.asarray(values, dtype=float)
+    if values.shape[-1] == 1:
+        out = np.broadcast_to(values, values.shape[:-1] + (lo.shape[-1],))
+    else:
+        idx = np.broadcast_to(lo, values.shape[:-2] + lo.shape)
+        v_lo = np.take_along_axis(values, idx, axis=-1)
+        v_hi = np.take_along_axis(values, idx + 1, axis=-1)
+        out = np.where(w == 0.0, v_lo, np.where(w == 1.0, v_hi, v_lo + w * (v_hi - v_lo)))
+    return np.where(wet, out, np.nan)
+
+
+# ------------------------------------------------------------------ finding variables
+def _by_standard_name(ds: xr.Dataset, names: Sequence[str], what: str) -> tuple[str, str]:
+    for standard in names:
+        for var in ds.variables:
+            if ds[var].attrs.get("standard_name") == standard:
+                return str(var), standard
+    raise SectionDataError(
+        f"the model output has no {what} variable (looked for standard_name "
+        f"{' or '.join(names)}); set the standard_name attribute of the right variable"
+    )
+
+
+def _vertical(ds: xr.Dataset, field: xr.DataArray, station_dim: str) -> tuple[str, np.ndarray, str]:
+    """Name of the vertical dimension, its values and kind ('depth' or 'pressure')."""
+    for dim in field.dims:
+        if dim == station_dim or dim not in ds.coords:
+            continue
+        coord = ds[dim]
+        standard = coord.attrs.get("standard_name", "")
+        units = str(coord.attrs.get("units", "")).lower()
+        if standard == "sea_water_pressure" or units in ("dbar", "decibar"):
+            return str(dim), np.asarray(coord.values, dtype=float), "pressure"
+        if standard == "depth" or (coord.attrs.get("axis") == "Z" and units in ("m", "meter",
+                                                                              "meters", "metre")):
+            z = np.asarray(coord.values, dtype=float)
+            if coord.attrs.get("positive", "down") == "up":
+                z = -z
+            return str(dim), z, "depth"
+    raise SectionDataError(
+        f"no vertical coordinate found among the dimensions {field.dims} of "
+        f"{field.name!r}; expected a depth (standard_name depth, m) or pressure "
+        "(standard_name sea_water_pressure, dbar) coordinate"
+    )
+
+
+def _celsius(da: xr.DataArray) -> xr.DataArray:
+    units = str(da.attrs.get("units", "degC")).strip().lower()
+    if units in ("k", "kelvin"):
+        return da - 273.15
+    return da
+
+
+# ------------------------------------------------------------------ user calls
+def model_section(
+    ds: xr.Dataset,
+    *,
+    dp: float = 10.0,
+    name: str = "model",
+    station_dim: str | None = None,
+) -> xr.Dataset:
+    """The canonical section of a model-output line, leading dimensions kept.
+
+    Parameters
+    ----------
+    ds : xr.Dataset
+        Model output: temperature and salinity (found by standard_name) on
+        (..., station, level), ``latitude``/``longitude`` per station, a
+        depth (m) or pressure (dbar) vertical coordinate, optionally
+        ``sea_floor_depth_below_sea_surface`` per station. May be
+        dask-backed; the result then stays lazy.
+    dp : float
+        Grid step of the canonical section, dbar.
+    name : str
+        Section name.
+    station_dim : str, optional
+        Name of the station dimension (default: the dimension of the
+        latitude variable).
+
+    Returns
+    -------
+    xr.Dataset
+        Canonical section: ``SA`` (g/kg), ``CT`` (degC) on
+        (..., station, pressure); ``lon``, ``lat``, ``bottom_pressure``
+        (dbar), ``bottom_depth`` (m) per station.
+    """
+    if not dp > 0:
+        raise SectionDataError(f"grid step dp = {dp!r} dbar must be positive")
+    lat_name, _ = _by_standard_name(ds, ("latitude",), "latitude")
+    lon_name, _ = _by_standard_name(ds, ("longitude",), "longitude")
+    lat = np.asarray(ds[lat_name].values, dtype=float)
+    lon = np.asarray(ds[lon_name].values, dtype=float)
+    if lat.ndim != 1:
+        raise SectionDataError(f"latitude {lat_name!r} has dimensions {ds[lat_name].dims}; a "
+                               "model-output line needs one fixed position per station")
+    station_dim = station_dim or str(ds[lat_name].dims[0])
+    t_name, t_kind = _by_standard_name(ds, TEMPERATURE_NAMES, "temperature")
+    s_name, s_kind = _by_standard_name(ds, SALINITY_NAMES, "salinity")
+    temp = _celsius(ds[t_name])
+    salt = ds[s_name]
+    vdim, vert, vkind = _vertical(ds, salt, station_dim)
+    if np.any(np.diff(vert) <= 0):
+        raise SectionDataError(f"the vertical coordinate {vdim!r} must increase downward")
+    p_src = (gsw.p_from_z(-vert[None, :], lat[:, None]) if vkind == "depth"
+             else np.broadcast_to(vert, (lat.size, vert.size)).copy())
+    lead_dims = [d for d in salt.dims if d not in (station_dim, vdim)]
+    core = [station_dim, vdim]
+    salt = salt.transpose(*lead_dims, *core)
+    temp = temp.transpose(*lead_dims, *core)
+
+    first = np.asarray(salt.isel({d: 0 for d in lead_dims}).values, dtype=float)
+    finite = np.isfinite(first)
+    last = np.where(finite.any(axis=1), finite.shape[1] - 1 - np.argmax(finite[:, ::-1], axis=1),
+                    -1)
+    for s in range(lat.size):
+        if last[s] < 0:
+            raise SectionDataError(f"station {s} of the model line is land (no wet level); "
+                                   "drop it from the line")
+        if not finite[s, : last[s] + 1].all():
+            raise SectionDataError(f"station {s}: the model profile has missing values above "
+                                   f"its deepest wet level {last[s]}; profiles must be wet "
+                                   "from the top down")
+    p_last = p_src[np.arange(lat.size), last]
+    if "sea_floor_depth_below_sea_surface" in [ds[v].attrs.get("standard_name")
+                                               for v in ds.variables]:
+        b_name, _ = _by_standard_name(ds, ("sea_floor_depth_below_sea_surface",), "bottom depth")
+        bottom_depth = np.asarray(ds[b_name].values, dtype=float)
+        bottom = gsw.p_from_z(-bottom_depth, lat)
+        z_last = -gsw.z_from_p(p_last, lat)
+        bad = np.flatnonzero(bottom_depth < z_last - BOTTOM_DEPTH_MISMATCH)
+        if bad.size:
+            s = int(bad[0])
+            raise SectionDataError(
+                f"station {s}: sea floor at {bottom_depth[s]:.1f} m is shallower than the "
+                f"deepest wet model level ({z_last[s]:.1f} m) by more than "
+                f"{BOTTOM_DEPTH_MISMATCH:g} m; check the bathymetry variable {b_name!r}")
+        bottom = np.maximum(bottom, p_last)
+    else:
+        bottom = p_last
+        bottom_depth = -gsw.z_from_p(bottom, lat)
+    grid = np.arange(0.0, float(np.max(bottom)) + 0.5 * dp, dp)
+    grid = grid[grid <= np.max(bottom) + 1e-9]
+    lo, w, wet = interpolation_weights(p_src, last, bottom, grid)
+
+    p_da = xr.DataArray(p_src, dims=core)
+    lon_da = xr.DataArray(lon, dims=[station_dim])
+    lat_da = xr.DataArray(lat, dims=[station_dim])
+    par = {"dask": "parallelized", "output_dtypes": [float]}
+    if s_kind == "sea_water_absolute_salinity":
+        sa_src = salt
+    else:
+        sa_src = xr.apply_ufunc(gsw.SA_from_SP, salt, p_da, lon_da, lat_da, **par)
+    if t_kind == "sea_water_conservative_temperature":
+        ct_src = temp
+    elif t_kind == "sea_water_potential_temperature":
+        ct_src = xr.apply_ufunc(gsw.CT_from_pt, sa_src, temp, **par)
+    else:
+        ct_src = xr.apply_ufunc(gsw.CT_from_t, sa_src, temp, p_da, **par)
+
+    def to_grid(da: xr.DataArray) -> xr.DataArray:
+        if da.chunks is not None:
+            da = da.chunk({station_dim: -1, vdim: -1})
+        out = xr.apply_ufunc(
+            interpolate_profiles, da,
+            input_core_dims=[core], output_core_dims=[[station_dim, "pressure"]],
+            exclude_dims={vdim},
+            kwargs={"lo": lo, "w": w, "wet": wet},
+            dask="parallelized", output_dtypes=[float],
+            dask_gufunc_kwargs={"output_sizes": {"pressure": grid.size}},
+        )
+        return out.rename({station_dim: "station"}) if station_dim != "station" else out
+
+    sa = to_grid(sa_src).assign_attrs(units="g/kg", long_name="Absolute Salinity")
+    ct = to_grid(ct_src).assign_attrs(units="degC", long_name="Conservative Temperature")
+    section = xr.Dataset(
+        {
+            "SA": sa.drop_vars([c for c in sa.coords if c not in lead_dims]),
+            "CT": ct.drop_vars([c for c in ct.coords if c not in lead_dims]),
+            "lat": ("station", lat, {"units": "degrees_north"}),
+            "lon": ("station", lon, {"units": "degrees_east"}),
+            "bottom_pressure": ("station", bottom, {"units": "dbar"}),
+            "bottom_depth": ("station", bottom_depth, {"units": "m"}),
+        },
+        coords={
+            "pressure": ("pressure", grid, {"units": "dbar",
+                                            "standard_name": "sea_water_pressure"}),
+            "station": [str(i + 1) for i in range(lat.size)],
+        },
+        attrs={
+            "section": name,
+            "source": str(ds.attrs.get("source", "model output")),
+            "dp": float(dp),
+            "gridding": "linear in pressure from model levels; shallowest value above the first "
+            "level; deepest wet value continued to the sea floor; land mask of the first record",
+        },
+    )
+    for d in lead_dims:
+        if d in ds.coords:
+            section = section.assign_coords({d: ds[d]})
+    return section
+
+
+def section_time_series(
+    model_output: xr.Dataset,
+    config: Config,
+    name: str | None = None,
+    *,
+    dp: float | None = None,
+    stress: Any = None,
+) -> xr.Dataset:
+    """Every budget of a model-output line as a time series.
+
+    Parameters
+    ----------
+    model_output : xr.Dataset
+        Model output along a fixed line (see :func:`model_section`), possibly
+        dask-backed and chunked along time.
+    config : Config
+        Classes, reference, bottom triangle, Ekman settings.
+    name : str, optional
+        Section name in the configuration (default: its first section).
+    dp : float, optional
+        Grid step, dbar (default: the configuration's ``[grid] dp``).
+    stress : xr.DataArray or (east, north), optional
+        Wind stress, N m^-2; a DataArray with dims (time, component) gives a
+        varying Ekman transport. Default: the configured stress.
+
+    Returns
+    -------
+    xr.Dataset
+        As :func:`sectionkit.xr.section_budget`, with the model's leading
+        dimensions (lazy on dask input).
+    """
+    from sectionkit.xr import budget_from_config
+
+    name = name or (config.section_names()[0] if config.sections else "model")
+    section = model_section(model_output, dp=dp or config.dp, name=name)
+    return budget_from_config(section, config, name, stress=stress)
+
+
+# ------------------------------------------------------------------ invented oceans
+def _profiles(
+    x: np.ndarray, p: np.ndarray, phase: float = 0.0, eddy: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """Invented temperature (degC) and salinity (g/kg) on (station, level).
+
+    A thermocline deepening across the line (geostrophic shear), a
+    fresher intermediate layer and a deep cold, salty layer; ``phase``
+    moves the thermocline depth (seasonal heave), ``eddy`` adds a
+    per-station displacement, m.
+    """
+    x = x[:, None]
+    depth = 600.0 + 60.0 * x + 25.0 * np.sin(phase) * (1.0 - x)
+    if eddy is not None:
+        depth = depth + eddy[:, None]
+    zeta = p[None, :] / depth
+    temp = 1.2 + 17.5 * np.exp(-zeta) + 0.25 * np.exp(-((p[None, :] - 2200.0) / 900.0) ** 2) * x
+    salt = (34.95 + 1.1 * np.exp(-zeta) - 0.35 * np.exp(-((p[None, :] - 900.0) / 350.0) ** 2)
+            + 0.01 * x * np.exp(-p[None, :] / 3000.0))
+    return temp, salt
+
+
+def synthetic_section(
+    n_station: int = 20,
+    dp: float = 2.0,
+    p_max: float = 5000.0,
+    lat: float = 30.0,
+    lon: tuple[float, float] = (-40.0, -30.0),
+    seed: int = 0,
+    name: str = "line",
+    noise: float = 0.0,
+) -> xr.Dataset:
+    """An invented canonical section (docs/CONTRACTS-INTERNAL.md), for tests and benchmarks.
+
+    Parameters
+    ----------
+    n_station : int
+        Number of stations.
+    dp : float
+        Grid step, dbar.
+    p_max : float
+        Deepest bottom pressure, dbar.
+    lat : float
+        Latitude of the (zonal) line, degrees_north.
+    lon : (float, float)
+        First and last longitude, degrees_east.
+    seed : int
+        Seed of the station-to-station noise.
+    name : str
+        Section name.
+    noise : float
+        Standard deviation of an eddy displacement of the thermocline, m.
+
+    Returns
+    -------
+    xr.Dataset
+        SA, CT (station, pressure), lat, lon, bottom_pressure, bottom_depth.
+    """
+    rng = np.random.default_rng(seed)
+    p = np.arange(0.0, p_max + 0.5 * dp, dp)
+    x = np.linspace(0.0, 1.0, n_station)
+    # a basin-shaped floor: shallower at both ends
+    bottom = p_max * (0.55 + 0.45 * np.sin(np.pi * np.clip(0.05 + 0.9 * x, 0, 1)) ** 0.5)
+    bottom = np.minimum(bottom + rng.uniform(-0.02, 0.0, n_station) * p_max, p_max)
+    bottom[np.argmax(bottom)] = p_max
+    eddy = noise * rng.standard_normal(n_station) if noise else None
+    ct, sa = _profiles(x, p, 0.0, eddy)
+    last = np.floor(bottom / dp + 1e-9) * dp
+    wet = p[None, :] <= last[:, None]
+    lats = np.full(n_station, float(lat))
+    return xr.Dataset(
+        {
+            "SA": (("station", "pressure"), np.where(wet, sa, np.nan), {"units": "g/kg"}),
+            "CT": (("station", "pressure"), np.where(wet, ct, np.nan), {"units": "degC"}),
+            "lat": ("station", lats, {"units": "degrees_north"}),
+            "lon": ("station", np.linspace(lon[0], lon[1], n_station), {"units": "degrees_east"}),
+            "bottom_pressure": ("station", bottom, {"units": "dbar"}),
+            "bottom_depth": ("station", -gsw.z_from_p(bottom, lats), {"units": "m"}),
+        },
+        coords={"pressure": ("pressure", p, {"units": "dbar"}),
+                "station": [str(i + 1) for i in range(n_station)]},
+        attrs={"section": name, "dp": float(dp), "source": "synthetic (invented ocean)"},
+    )
+
+
+def _model_fields(
+    steps: np.ndarray, x: np.ndarray, p_levels: np.ndarray, wet: np.ndarray, seed: int
+) -> np.ndarray:
+    """Potential temperature and practical salinity of the invented model.
+
+    Returns an array (2, time, station, level): degC, then practical salinity.
+
+    Each time step's eddy field comes from its own generator (seed, step), so
+    the values do not depend on how time is chunked.
+    """
+    out = np.empty((2, steps.size, x.size, p_levels.shape[-1]))
+    for n, step in enumerate(np.asarray(steps).ravel()):
+        rng = np.random.default_rng([seed, int(step)])
+        eddy = 15.0 * rng.standard_normal(x.size)
+        temp, salt = _profiles(x, p_levels, 2.0 * np.pi * float(step) / 12.0, eddy)
+        out[0, n] = np.where(wet, temp, np.nan)
+        out[1, n] = np.where(wet, salt / 1.0047, np.nan)  # ~ practical salinity
+    return out
+
+
+def synthetic_model_output(
+    n_time: int = 50,
+    n_station: int = 12,
+    depths: np.ndarray | None = None,
+    lat: float = 30.0,
+    lon: tuple[float, float] = (-40.0, -30.0),
+    seed: int = 0,
+    chunks: int | None = None,
+) -> xr.Dataset:
+    """Invented model output along a fixed line: monthly records on depth levels.
+
+    Parameters
+    ----------
+    n_time : int
+        Number of records (months).
+    n_station : int
+        Number of stations.
+    depths : ndarray (level,), optional
+        Model level depths, m (default: 40 levels stretched from 5 m to
+        about 5300 m).
+    lat : float
+        Latitude of the line, degrees_north.
+    lon : (float, float)
+        First and last longitude, degrees_east.
+    seed : int
+        Seed of the eddy noise.
+    chunks : int, optional
+        Records per dask chunk; numpy arrays when None. Values do not depend
+        on the chunking.
+
+    Returns
+    -------
+    xr.Dataset
+        ``thetao`` (sea_water_potential_temperature, degC) and ``so``
+        (sea_water_practical_salinity) on (time, station, depth); ``lat``,
+        ``lon`` and ``deptho`` (sea_floor_depth_below_sea_surface, m) per
+        station.
+    """
+    if depths is None:
+        s = np.linspace(0.0, 1.0, 40)
+        depths = 5.0 + 5300.0 * (0.15 * s + 0.85 * s**2.2)
+    depths = np.asarray(depths, dtype=float)
+    x = np.linspace(0.0, 1.0, n_station)
+    floor = 5200.0 * (0.6 + 0.4 * np.sin(np.pi * (0.08 + 0.84 * x)) ** 0.5)
+    lats = np.full(n_station, float(lat))
+    p_levels = gsw.p_from_z(-depths[None, :], lats[:, None])
+    wet = depths[None, :] <= floor[:, None]
+    steps = np.arange(n_time)
+    dims = ("time", "station", "depth")
+    if chunks is None:
+        fields = _model_fields(steps, x, p_levels, wet, seed)
+        theta, so = fields[0], fields[1]
+    else:
+        import dask.array as dsa
+
+        t = dsa.from_array(steps, chunks=chunks)
+        both = t.map_blocks(
+            _model_fields, x, p_levels, wet, seed, new_axis=[0, 2, 3],
+            chunks=((2,), t.chunks[0], (n_station,), (depths.size,)), dtype=float,
+            meta=np.empty((0, 0, 0, 0)),
+        )
+        theta, so = both[0], both[1]
+    return xr.Dataset(
+        {
+            "thetao": (dims, theta, {"standard_name": "sea_water_potential_temperature",
+                                     "units": "degC"}),
+            "so": (dims, so, {"standard_name": "sea_water_practical_salinity", "units": "1"}),
+            "lat": ("station", lats, {"standard_name": "latitude", "units": "degrees_north"}),
+            "lon": ("station", np.linspace(lon[0], lon[1], n_station),
+                    {"standard_name": "longitude", "units": "degrees_east"}),
+            "deptho": ("station", floor, {"standard_name": "sea_floor_depth_below_sea_surface",
+                                          "units": "m"}),
+        },
+        coords={
+            "time": ("time", steps, {"units": "months since 2000-01-01"}),
+            "depth": ("depth", depths, {"standard_name": "depth", "units": "m",
+                                        "positive": "down", "axis": "Z"}),
+        },
+        attrs={"source": "synthetic model output (invented ocean)"},
+    )
