@@ -86,18 +86,7 @@ def box_class_means(
     sa_mean, sa_std, ct_mean, ct_std : ndarray (class,)
         g/kg and degC.
     """
-    sums = None
-    for name in box.enters + box.leaves:
-        op = operators[name]
-        length = op.pairs["distance"].values[:, None, None]
-        w = op.weights * length  # (pair, class, level) m^2
-        sa = np.nan_to_num(op.extra["sa_pair"])[:, None, :]
-        ct = np.nan_to_num(op.extra["ct_pair"])[:, None, :]
-        part = np.array([
-            w.sum(axis=(0, 2)), (w * sa).sum(axis=(0, 2)), (w * sa**2).sum(axis=(0, 2)),
-            (w * ct).sum(axis=(0, 2)), (w * ct**2).sum(axis=(0, 2)),
-        ])
-        sums = part if sums is None else sums + part
+    sums = sum(operators[name].extra["class_moments"] for name in box.enters + box.leaves)
     area = np.where(sums[0] > 0, sums[0], np.nan)
     sa_mean = sums[1] / area
     ct_mean = sums[3] / area

@@ -17,6 +17,7 @@ transports add up to the total by construction.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import gsw
@@ -166,7 +167,7 @@ def bottom_width_fraction(
 
 
 def class_weights(
-    sigma: np.ndarray,
+    sigma: np.ndarray | Sequence[np.ndarray],
     interfaces: np.ndarray,
     thickness: np.ndarray,
     width: np.ndarray,
@@ -176,9 +177,10 @@ def class_weights(
 
     Parameters
     ----------
-    sigma : ndarray (..., pair, interface, level)
+    sigma : ndarray (..., pair, interface, level), or a sequence of (..., pair, level)
         Pair-mean potential density anomaly at each interface's own reference
-        pressure, kg m^-3; NaN below the deeper station's bottom.
+        pressure, kg m^-3; NaN below the deeper station's bottom. A sequence
+        (one array per interface) avoids stacking large arrays.
     interfaces : ndarray (interface,)
         Interface values, kg m^-3.
     thickness : ndarray (pair, level - 1)
@@ -195,16 +197,18 @@ def class_weights(
         Weights, m: the depth integral over class ``i`` of a field ``q`` is
         ``sum_k w[..., i, k] * q[k]``.
     """
-    n_if = sigma.shape[-2]
+    faces = [sigma[..., n, :] for n in range(sigma.shape[-2])] if isinstance(
+        sigma, np.ndarray) else list(sigma)
+    n_if = len(faces)
     n_class = n_if + 1
-    n_level = sigma.shape[-1]
-    valid = np.isfinite(sigma[..., 0, :-1]) & np.isfinite(sigma[..., 0, 1:])  # (..., pair, seg)
+    n_level = faces[0].shape[-1]
+    valid = np.isfinite(faces[0][..., :-1]) & np.isfinite(faces[0][..., 1:])  # (..., pair, seg)
     start_class = np.zeros(valid.shape, dtype=np.int16)
     crossed = np.zeros(valid.shape, dtype=bool)
     for n in range(n_if):  # one interface at a time keeps memory at (pair, seg)
-        above0 = sigma[..., n, :-1] > interfaces[n]
+        above0 = faces[n][..., :-1] > interfaces[n]
         start_class += above0
-        crossed |= above0 != (sigma[..., n, 1:] > interfaces[n])
+        crossed |= above0 != (faces[n][..., 1:] > interfaces[n])
     crossed &= valid
     scale = np.where(valid, thickness * width, 0.0)  # (..., pair, seg)
     out = np.zeros(valid.shape[:-1] + (n_class, n_level))
@@ -220,9 +224,9 @@ def class_weights(
     if where_crossed[0].size:
         lead = where_crossed[:-1]
         seg = where_crossed[-1]
-        c0 = np.stack([sigma[..., n, :-1][where_crossed] - interfaces[n] for n in range(n_if)],
+        c0 = np.stack([faces[n][..., :-1][where_crossed] - interfaces[n] for n in range(n_if)],
                       axis=-1)  # (n_crossed, interface)
-        c1 = np.stack([sigma[..., n, 1:][where_crossed] - interfaces[n] for n in range(n_if)],
+        c1 = np.stack([faces[n][..., 1:][where_crossed] - interfaces[n] for n in range(n_if)],
                       axis=-1)
         w = scale[where_crossed]
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -244,10 +248,13 @@ def class_weights(
             out[lead + (klass, seg)] += (alpha[:, i] - beta[:, i]) * w
             out[lead + (klass, seg + 1)] += beta[:, i] * w
     if tail is not None:
-        last = n_level - 1 - np.argmax(np.isfinite(sigma[..., 0, ::-1]), axis=-1)  # (..., pair)
-        last_sigma = np.take_along_axis(sigma, last[..., None, None], axis=-1)[..., 0]
+        finite = np.isfinite(faces[0])
+        last = n_level - 1 - np.argmax(finite[..., ::-1], axis=-1)  # (..., pair)
+        last_sigma = np.stack(
+            [np.take_along_axis(f, last[..., None], axis=-1)[..., 0] for f in faces], axis=-1
+        )
         last_cls = (np.nan_to_num(last_sigma) > interfaces).sum(axis=-1)
-        has_data = np.isfinite(sigma[..., 0, :]).any(axis=-1)
+        has_data = finite.any(axis=-1)
         tail_w = np.where(has_data, np.broadcast_to(tail, last.shape), 0.0)
         onehot = last_cls[..., None] == np.arange(n_class)
         contrib = onehot * tail_w[..., None]  # (..., pair, class)

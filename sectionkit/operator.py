@@ -139,17 +139,18 @@ class SectionOperator:
 
         Parameters
         ----------
-        stress_east, stress_north : float
-            Wind stress components, N m^-2.
+        stress_east, stress_north : float or ndarray (...)
+            Wind stress components, N m^-2 (extra dimensions, e.g. time, allowed).
 
         Returns
         -------
-        ndarray (pair,)
+        ndarray (..., pair)
             -(tau . t) L / (RHO0 f), m^3 s^-1, positive to the left of
             increasing station order.
         """
         g = self.pairs
-        along = stress_east * g["along_east"].values + stress_north * g["along_north"].values
+        along = (np.asarray(stress_east, dtype=float)[..., None] * g["along_east"].values
+                 + np.asarray(stress_north, dtype=float)[..., None] * g["along_north"].values)
         return -along * g["distance"].values / (RHO0 * g["f"].values)
 
     def transports(
@@ -167,7 +168,7 @@ class SectionOperator:
             Reference offset from the reference choice, m s^-1.
         adjustment : ndarray (..., pair) or float
             Reference-velocity adjustment b (the inverse's unknown), m s^-1.
-        ekman : ndarray (pair,) or float
+        ekman : ndarray (..., pair) or float
             Ekman volume transport per pair, m^3 s^-1.
         ekman_factor : float
             Multiplier (1 + e) of the Ekman transport, dimensionless.
@@ -178,12 +179,14 @@ class SectionOperator:
             Transports in ``QUANTITY_UNITS``.
         """
         ref = np.asarray(offset) + np.asarray(adjustment)
-        ek = np.broadcast_to(np.asarray(ekman, dtype=float), (self.n_pair,))
+        ek = np.asarray(ekman, dtype=float)
+        if ek.ndim == 0:
+            ek = np.full(self.n_pair, float(ek))
         factor = np.asarray(ekman_factor, dtype=float)[..., None, None, None]
         return (
             self.relative
             + self.area * ref[..., None, :, None]
-            + factor * ek[:, None] * self.ekman_share
+            + factor * ek[..., None, :, None] * self.ekman_share
         )
 
     def absolute_velocity(self, offset: np.ndarray, adjustment: np.ndarray | float = 0.0):
@@ -206,7 +209,8 @@ class SectionOperator:
 
 
 def _masked(a: np.ndarray) -> np.ndarray:
-    return np.nan_to_num(a, nan=0.0)
+    """The array with NaN (below the bottom) set to zero."""
+    return np.where(np.isnan(a), 0.0, a)
 
 
 def build_operator(
@@ -268,12 +272,10 @@ def build_operator(
     sa_pair = pair_mean(sa)
     ct_pair = pair_mean(ct)
     rho_pair = pair_mean(gsw.rho(sa, ct, p))
-    p_refs = sorted({face.p_ref for face in interfaces} | {0.0})
+    p_refs = sorted({face.p_ref for face in interfaces}) if interfaces else [0.0]
     sigma_pair = {pr: pair_mean(potential_density_anomaly(sa, ct, pr)) for pr in p_refs}
-    if interfaces:
-        sigma_if = np.stack([sigma_pair[face.p_ref] for face in interfaces], axis=-2)
-    else:
-        sigma_if = sigma_pair[0.0][..., None, :]
+    # one array per interface (no stacked copy of the large fields)
+    sigma_if = [sigma_pair[face.p_ref] for face in interfaces] or [sigma_pair[0.0]]
     # without interfaces one class holds everything: compare with an unreachable density
     values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([1e9])
 
@@ -311,17 +313,17 @@ def build_operator(
         sigma_if, values, p, geometry["lat"].values, ekman_depth, props
     )
 
-    pair_area = weights.sum(axis=-1) * length  # (..., pair, class) m^2
-    vol_area = pair_area.sum(axis=-2)
+    # area moments of SA and CT per class: [area, SA, SA^2, CT, CT^2] integrals (m^2 units)
     sa0 = _masked(sa_pair)
+    ct0 = _masked(ct_pair)
+    moments = np.matmul(weights, np.stack([np.ones_like(sa0), sa0, sa0 * sa0, ct0, ct0 * ct0],
+                                          axis=-1)) * length[..., None]  # (..., pair, class, 5)
+    class_moments = np.moveaxis(moments.sum(axis=-3), -1, -2)  # (..., 5, class)
+    vol_area = class_moments[..., 0, :]
     with np.errstate(invalid="ignore", divide="ignore"):
-        sa_area = (np.einsum("...jik,...jk->...ji", weights, sa0) * length).sum(axis=-2)
-        ct_area = (np.einsum("...jik,...jk->...ji", weights, _masked(ct_pair)) * length).sum(
-            axis=-2
-        )
-        class_salinity = sa_area / vol_area
-        class_temperature = ct_area / vol_area
-    mean_salinity = sa_area.sum(axis=-1) / vol_area.sum(axis=-1)
+        class_salinity = class_moments[..., 1, :] / vol_area
+        class_temperature = class_moments[..., 3, :] / vol_area
+    mean_salinity = class_moments[..., 1, :].sum(axis=-1) / vol_area.sum(axis=-1)
 
     return SectionOperator(
         name=name,
@@ -346,7 +348,8 @@ def build_operator(
         mean_salinity=mean_salinity,
         ekman_depth=float(ekman_depth),
         bottom_triangle=bottom_triangle,
-        extra={"sa_pair": sa_pair, "ct_pair": ct_pair, "rho_pair": rho_pair},
+        extra={"sa_pair": sa_pair, "ct_pair": ct_pair, "rho_pair": rho_pair,
+               "class_moments": class_moments},
     )
 
 
@@ -375,7 +378,7 @@ def _tail_thickness(
 
 
 def _ekman_share(
-    sigma_if: np.ndarray,
+    sigma_if: list[np.ndarray],
     values: np.ndarray,
     p: np.ndarray,
     lat: np.ndarray,
@@ -395,7 +398,7 @@ def _ekman_share(
     seg_bot = z[:, 1:]
     inside = np.clip((depth - seg_top) / (seg_bot - seg_top), 0.0, 1.0)
     thickness = seg_bot - seg_top
-    w = class_weights(sigma_if[..., :n_lev], values, thickness, inside)
+    w = class_weights([face[..., :n_lev] for face in sigma_if], values, thickness, inside)
     if values.size == 1 and values[0] >= 1e9:  # no interfaces: a single class
         w = w[..., :1, :]
     total = w.sum(axis=(-2, -1))  # (..., pair)
