@@ -91,12 +91,18 @@ def test_twin_truth_lies_within_two_sigma_at_the_stated_rate():
         sd_t = np.sqrt(np.einsum("ij,jk,ik->i", g, result.covariance, g))
         inside_t += np.sum(np.abs(g @ (result.estimate - x_true)) <= 2 * sd_t)
         count_t += sd_t.size
-        scaled.append((result.adjusted - noise) / system.noise)
+        # the posterior residual y - E x = -adjusted, scaled by its predicted std
+        residual_sd = np.sqrt(np.diag(result.solver.residual_covariance))
+        scaled.append(-result.adjusted / residual_sd)
     rate_x = inside_x / count_x
     rate_t = inside_t / count_t
     # 95.45 % expected; band from the binomial spread of correlated draws
     assert 0.92 < rate_x < 0.98, rate_x
     assert 0.91 < rate_t < 0.99, rate_t
+    # residuals scaled by their predicted std (N - E P E^T) have unit variance:
+    # 200 draws x rows; the band is about 4 standard errors of a chi-square mean
+    variance = np.mean(np.square(scaled))
+    assert 0.85 < variance < 1.15, variance
 
 
 def test_inverse_moves_imbalance_consistent_with_priors_to_within_noise():
