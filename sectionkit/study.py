@@ -63,8 +63,10 @@ class Results:
     def value(self, section: str, name: str, adjusted: bool = True) -> float:
         """One output of one section, initial or adjusted."""
         out = self.outputs[section]
-        x = self.estimate if adjusted else None
-        return float(out.value(x)[out.index(name)])
+        k = out.index(name)
+        if not adjusted or self.inverse is None:
+            return float(out.initial[k])
+        return float(out.initial[k] + out.gradient[k] @ self.estimate)
 
     def error(self, section: str, name: str) -> float:
         """Posterior standard deviation of one output (NaN without an inverse)."""
