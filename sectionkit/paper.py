@@ -502,6 +502,12 @@ def inverse_description(study: Study, results: Results, tex: bool = False) -> st
         listed = "; ".join(f"{esc(k.name)} {_num(k.transport)} {pm} {_num(k.noise)} Sv "
                            f"({esc(k.layer)})" for k in inv.known)
         text += f"; known transports {listed}"
+    if inv.section_net:
+        listed = "; ".join(f"{esc(n.section)} {_num(n.transport)} {pm} {_num(n.noise)} Sv"
+                           for n in inv.section_net)
+        text += f"; net transport constrained across {listed}"
+    if inv.noise_salt:
+        text += f"; salt-anomaly noise {', '.join(_num(x) for x in inv.noise_salt)} Sv g/kg"
     text += ". Errors are one posterior standard deviation."
     return text
 
@@ -680,6 +686,61 @@ def _summary_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTab
     return PaperTable("section_summary", title, caption(True), caption(False), cols, rows)
 
 
+def _transfer_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
+    """Diapycnal transfers and Ekman adjustments (the box-scale unknowns)."""
+    title = "Diapycnal transfers and Ekman adjustments from the inverse."
+    faces = study.config.interfaces
+    names = study.config.layer_names
+
+    def caption(tex: bool) -> str:
+        body = ("Transfer across each interface inside each box, positive from the lighter "
+                "to the denser class (Sv), and the fractional adjustment of each section's "
+                "Ekman transport, with prior and posterior standard deviations and the "
+                "diagonal of the resolution matrix (1: fully determined by the constraints; "
+                "0: the prior alone).")
+        return _caption(title, body, study, results, tex)
+
+    cols = [
+        Column("Unknown", "Unknown", False),
+        Column("Between", "Between", False),
+        Column("Prior", "Prior"),
+        Column("Estimate", "Estimate"),
+        Column("Resolution", "Resolution"),
+    ]
+    rows = []
+    for r in df.itertuples(index=False):
+        if r.kind == "reference_velocity":
+            continue
+        if r.kind == "diapycnal_transfer":
+            n = int(str(r.unknown).rsplit(":W", 1)[1])
+            between = f"{names[n]} / {names[n + 1]}"
+            between_tex = f"{latex_escape(names[n])} / {latex_escape(names[n + 1])}"
+            between_md = f"{markdown_escape(names[n])} / {markdown_escape(names[n + 1])}"
+            label = f"W across {_interface_text(faces[n].sigma, faces[n].p_ref, False)}"
+            label_tex = (f"$W$ across {_interface_text(faces[n].sigma, faces[n].p_ref, True)}")
+            box = str(r.unknown).rsplit(":W", 1)[0]
+            unit = "Sv"
+            rows.append([
+                Cell.text(f"{box}: {label}", f"{latex_escape(box)}: {label_tex}",
+                          f"{markdown_escape(box)}: {label}"),
+                Cell.text(between, between_tex, between_md),
+                Cell.number(r.prior_std, None, unit),
+                Cell.number(r.estimate, _err(r.posterior_std), unit),
+                Cell(value=format_fixed(r.resolution, FIXED_DECIMALS["1"])),
+            ])
+        else:
+            section = str(r.unknown).rsplit(":", 1)[0]
+            rows.append([
+                Cell.text(f"{section}: Ekman adjustment"),
+                Cell.text(""),
+                Cell(value=format_fixed(r.prior_std, FIXED_DECIMALS["1"])),
+                Cell.number(r.estimate, _err(r.posterior_std), "1"),
+                Cell(value=format_fixed(r.resolution, FIXED_DECIMALS["1"])),
+            ])
+    return PaperTable("inverse_unknowns", title, caption(True), caption(False), cols, rows,
+                      empty_note="No diapycnal or Ekman unknowns in this inverse.")
+
+
 def paper_tables(study: Study, results: Results) -> list[PaperTable]:
     """The four §7 tables, rounded and captioned, in the order of DESIGN.md §7.
 
@@ -693,15 +754,19 @@ def paper_tables(study: Study, results: Results) -> list[PaperTable]:
     Returns
     -------
     list of PaperTable
-        Class transports, pair adjustments, box budget, section summary.
+        Class transports, pair adjustments, box budget, section summary, and
+        (when an inverse ran) its diapycnal transfers and Ekman adjustments.
     """
     frames = tables(study, results)
-    return [
+    out = [
         _layer_table(frames["layer_transports.csv"], study, results),
         _pair_table(frames["pair_adjustments.csv"], study, results),
         _box_table(frames["box_budget.csv"], study, results),
         _summary_table(frames["section_summary.csv"], study, results),
     ]
+    if results.inverse is not None:
+        out.append(_transfer_table(frames["inverse_unknowns.csv"], study, results))
+    return out
 
 
 # --------------------------------------------------------------------------- LaTeX

@@ -168,9 +168,10 @@ def test_latex_has_booktabs_rules_errors_and_captions(solved, tmp_path):
     study, results = solved
     write_paper_tables(study, results, tmp_path)
     tex = (tmp_path / "tables.tex").read_text()
+    # the four §7 tables plus the inverse's transfers and Ekman adjustments
     for rule in (r"\toprule", r"\midrule", r"\bottomrule"):
-        assert tex.count(rule) == 4
-    assert tex.count(r"\caption{") == 4
+        assert tex.count(rule) == 5
+    assert tex.count(r"\caption{") == 5
     assert r"$\pm$" in tex
     assert "S[table-format=" in tex
     for unit in (r"km$^{2}$", r"m\,s$^{-1}$", "(Sv)", "(PW)"):
@@ -200,8 +201,16 @@ def test_markdown_rows_match_the_csv_tables(solved, tmp_path):
     study, results = solved
     write_paper_tables(study, results, tmp_path)
     md = (tmp_path / "tables.md").read_text()
-    layers, pairs, box, summary = md_tables(md)
+    layers, pairs, box, summary, unknowns = md_tables(md)
     frames = tables(study, results)
+
+    df = frames["inverse_unknowns.csv"]
+    df = df[df.kind != "reference_velocity"]
+    assert len(unknowns) == len(df)
+    assert [r[3] for r in unknowns] == [
+        format_with_error(v, e, "1" if k == "ekman_fraction" else "Sv")
+        for v, e, k in zip(df.estimate, df.posterior_std, df.kind, strict=True)
+    ]
 
     df = frames["layer_transports.csv"]
     assert [(r[0], r[1]) for r in layers] == list(zip(df.section, df.layer, strict=True))
