@@ -288,22 +288,36 @@ def build_operator(
         weights = weights[..., :1, :]
 
     rho0 = _masked(rho_pair)
+    sa0 = _masked(sa_pair)
+    ct0 = _masked(ct_pair)
     props = {
         "volume": np.ones_like(rho0),
         "mass": rho0 / RHO0,
-        "salt": rho0 * _masked(sa_pair) / RHO0,
-        "heat": rho0 * CP0 * _masked(ct_pair),
+        "salt": rho0 * sa0 / RHO0,
+        "heat": rho0 * CP0 * ct0,
     }
     length = distance[:, None]
     v0 = _masked(v_eff)
     r0 = _masked(response)
-    # one batched matrix product for every quantity: (pair, class, level) @ (pair, level, 2q)
-    integrands = np.stack([q * v0 for q in props.values()] + [q * r0 for q in props.values()],
-                          axis=-1)
-    integrals = np.matmul(weights, integrands) * length[..., None]  # (..., pair, class, 2q)
+    # every class integral in one batched matrix product over the level axis:
+    # each quantity times v (relative transport) and times the response (area),
+    # then the area moments [1, SA, SA^2, CT, CT^2] of the class means
     n_q = len(props)
+    fields = np.empty(v0.shape[:-1] + (2 * n_q + 5, v0.shape[-1]))
+    for m, q in enumerate(props.values()):
+        np.multiply(q, v0, out=fields[..., m, :])
+        np.multiply(q, r0, out=fields[..., n_q + m, :])
+    fields[..., 2 * n_q, :] = 1.0
+    fields[..., 2 * n_q + 1, :] = sa0
+    np.multiply(sa0, sa0, out=fields[..., 2 * n_q + 2, :])
+    fields[..., 2 * n_q + 3, :] = ct0
+    np.multiply(ct0, ct0, out=fields[..., 2 * n_q + 4, :])
+    integrals = np.matmul(weights, np.swapaxes(fields, -1, -2)) * length[..., None]
+    del fields
     relative = np.moveaxis(integrals[..., :n_q], -1, -3)  # (..., quantity, pair, class)
-    area = np.moveaxis(integrals[..., n_q:], -1, -3)
+    area = np.moveaxis(integrals[..., n_q : 2 * n_q], -1, -3)
+    # area moments of SA and CT per class: [area, SA, SA^2, CT, CT^2] integrals (m^2 units)
+    class_moments = np.moveaxis(integrals[..., 2 * n_q :].sum(axis=-3), -1, -2)  # (..., 5, class)
 
     column = weights.sum(axis=-2)  # (..., pair, level)
     level_relative = (length * column * v0).sum(axis=-2)
@@ -313,12 +327,6 @@ def build_operator(
         sigma_if, values, p, geometry["lat"].values, ekman_depth, props
     )
 
-    # area moments of SA and CT per class: [area, SA, SA^2, CT, CT^2] integrals (m^2 units)
-    sa0 = _masked(sa_pair)
-    ct0 = _masked(ct_pair)
-    moments = np.matmul(weights, np.stack([np.ones_like(sa0), sa0, sa0 * sa0, ct0, ct0 * ct0],
-                                          axis=-1)) * length[..., None]  # (..., pair, class, 5)
-    class_moments = np.moveaxis(moments.sum(axis=-3), -1, -2)  # (..., 5, class)
     vol_area = class_moments[..., 0, :]
     with np.errstate(invalid="ignore", divide="ignore"):
         class_salinity = class_moments[..., 1, :] / vol_area
