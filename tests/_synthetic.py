@@ -63,3 +63,27 @@ def thermocline_section(
     sa = np.where(below, np.nan, sa)
     return canonical_section(sa, ct, p, np.linspace(lon0, lon1, n), np.full(n, lat0), bottoms,
                              name)
+
+
+def invented_line(n: int, lat0: float, dp: float = 10.0, pmax: float = 4000.0) -> xr.Dataset:
+    """A canonical gridded section (docs/CONTRACTS-INTERNAL.md), made up."""
+    p = np.arange(0.0, pmax + dp / 2, dp)
+    lon = np.linspace(-40.0, -35.0, n)
+    lat = np.full(n, lat0)
+    bottoms = np.linspace(2600.0, pmax - 5.0, n)
+    x = np.linspace(0.0, 1.0, n)[:, None]
+    ct = 2.0 + 18.0 * np.exp(-p / (700.0 + 300.0 * x))
+    sa = 34.9 + 1.2 * np.exp(-p / 900.0) + 0.1 * x
+    below = p[None, :] > bottoms[:, None]
+    return xr.Dataset(
+        {
+            "SA": (("station", "pressure"), np.where(below, np.nan, sa)),
+            "CT": (("station", "pressure"), np.where(below, np.nan, ct)),
+            "lat": ("station", lat),
+            "lon": ("station", lon),
+            "bottom_pressure": ("station", bottoms),
+            "bottom_depth": ("station", -gsw.z_from_p(bottoms, lat)),
+        },
+        coords={"pressure": p, "station": [f"K{i + 1}" for i in range(n)]},
+        attrs={"section": "line", "dp": dp},
+    )
