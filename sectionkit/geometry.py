@@ -32,6 +32,29 @@ def wrap_longitude_difference(dlon: np.ndarray) -> np.ndarray:
     return (np.asarray(dlon, dtype=float) + 180.0) % 360.0 - 180.0
 
 
+def haversine(
+    lon1: np.ndarray, lat1: np.ndarray, lon2: np.ndarray, lat2: np.ndarray
+) -> np.ndarray:
+    """Great-circle distance between two sets of points (broadcast).
+
+    Parameters
+    ----------
+    lon1, lat1 : ndarray (...)
+        First points, degrees_east and degrees_north.
+    lon2, lat2 : ndarray (...)
+        Second points, degrees_east and degrees_north.
+
+    Returns
+    -------
+    ndarray (...)
+        Distance on a sphere of radius ``EARTH_RADIUS``, m (as gsw.distance at p = 0).
+    """
+    l1, p1, l2, p2 = (np.radians(np.asarray(a, dtype=float)) for a in (lon1, lat1, lon2, lat2))
+    a = np.sin((p2 - p1) / 2) ** 2 + np.cos(p1) * np.cos(p2) * np.sin((l2 - l1) / 2) ** 2
+    a = np.clip(a, 0.0, 1.0)
+    return EARTH_RADIUS * 2 * np.arctan2(np.sqrt(a), np.sqrt(1 - a))
+
+
 def great_circle_distance(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
     """Distance between neighbouring stations along the line.
 
@@ -47,14 +70,9 @@ def great_circle_distance(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
     ndarray (..., pair)
         Great-circle distance, m (haversine, as gsw.distance at p = 0).
     """
-    lon_r = np.radians(np.asarray(lon, dtype=float))
-    lat_r = np.radians(np.asarray(lat, dtype=float))
-    dlon = np.diff(lon_r, axis=-1)
-    dlat = np.diff(lat_r, axis=-1)
-    a = np.sin(dlat / 2) ** 2 + np.cos(lat_r[..., :-1]) * np.cos(lat_r[..., 1:]) * np.sin(
-        dlon / 2
-    ) ** 2
-    return EARTH_RADIUS * 2 * np.arctan2(np.sqrt(a), np.sqrt(1 - a))
+    lon = np.asarray(lon, dtype=float)
+    lat = np.asarray(lat, dtype=float)
+    return haversine(lon[..., :-1], lat[..., :-1], lon[..., 1:], lat[..., 1:])
 
 
 def pair_midpoints(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -83,6 +101,30 @@ def pair_midpoints(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.nda
     mid_lon = np.where(mid_lon > 360.0, mid_lon - 360.0, mid_lon)
     mid_lon = np.where(mid_lon < -180.0, mid_lon + 360.0, mid_lon)
     return mid_lon, 0.5 * (lat[..., :-1] + lat[..., 1:])
+
+
+EQUATOR_BAND = 2.0  # degrees: geostrophy is refused within this band (DESIGN.md §4)
+
+
+def equatorial_pairs(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs whose mid-point lies within ``EQUATOR_BAND`` of the equator.
+
+    Parameters
+    ----------
+    lon : ndarray (station,)
+        Longitude, degrees_east.
+    lat : ndarray (station,)
+        Latitude, degrees_north.
+
+    Returns
+    -------
+    pairs : ndarray of int
+        Indices of those pairs.
+    mid_lat : ndarray (pair,)
+        Mid-point latitude of every pair, degrees_north.
+    """
+    _, mid_lat = pair_midpoints(lon, lat)
+    return np.flatnonzero(np.abs(mid_lat) < EQUATOR_BAND), mid_lat
 
 
 def coriolis_parameter(lat: np.ndarray) -> np.ndarray:

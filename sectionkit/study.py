@@ -18,15 +18,15 @@ import xarray as xr
 
 from sectionkit.budget import LinearOutputs, UnknownLayout, make_layout, section_outputs
 from sectionkit.config import Config
-from sectionkit.errors import Cautions, ConfigError, EquatorError, InputFileError
-from sectionkit.geometry import great_circle_distance, pair_midpoints
+from sectionkit.errors import Cautions, ConfigError, InputFileError
+from sectionkit.geometry import great_circle_distance
 from sectionkit.geostrophy import pair_mean, resolve_references
 from sectionkit.inverse import InverseResult, assemble, solve
 from sectionkit.io import load_section
+from sectionkit.io.validate import check_pair_latitudes
 from sectionkit.layers import potential_density_anomaly
 from sectionkit.operator import SectionOperator, build_operator
 
-EQUATOR_BAND = 2.0  # degrees: geostrophy refused within this band (DESIGN.md §4)
 NET_MASS_HEAT_TOLERANCE = 0.1  # Sv: above it, heat is reported as a temperature transport
 
 
@@ -119,7 +119,12 @@ class Study:
         study = cls(config=config)
         for spec in config.sections:
             if sections is not None and spec.name in sections:
-                study.sections[spec.name] = sections[spec.name]
+                # sections read from files were checked by load_section; these were not
+                ds = sections[spec.name]
+                check_pair_latitudes(spec.name, [str(s) for s in ds["station"].values],
+                                     ds["lon"].values, ds["lat"].values, config.allow_equator,
+                                     study.load_cautions)
+                study.sections[spec.name] = ds
                 continue
             if progress:
                 progress(f"reading section {spec.name}")
@@ -133,8 +138,6 @@ class Study:
             )
             study.sections[spec.name] = ds
             study.load_cautions.extend(cautions)
-        for name, ds in study.sections.items():
-            _check_equator(name, ds, config.allow_equator, study.load_cautions)
         study.rebuild_operators(progress)
         return study
 
@@ -274,36 +277,6 @@ def _pair_index(layout: UnknownLayout, label: str) -> int:
     if sl is None or int(k) >= sl.stop - sl.start:
         raise ConfigError(f"pair {label!r} does not exist")
     return sl.start + int(k)
-
-
-def _check_equator(name: str, ds: xr.Dataset, allow: bool, cautions: Cautions) -> None:
-    _, mid_lat = pair_midpoints(ds["lon"].values, ds["lat"].values)
-    near = np.flatnonzero(np.abs(mid_lat) < EQUATOR_BAND)
-    if near.size == 0:
-        return
-    labels = _pair_ranges(name, near)
-    if not allow:
-        raise EquatorError(
-            f"section {name}: pairs {labels} have mid-points within {EQUATOR_BAND:g} degrees of "
-            "the equator, where geostrophy fails; set allow_equator = true under [reference] to "
-            "continue at your own judgement"
-        )
-    cautions.add("equator", f"section {name}: pairs {labels} lie within {EQUATOR_BAND:g} degrees "
-                 "of the equator; their geostrophic velocities are unreliable")
-
-
-def _pair_ranges(section: str, pairs: np.ndarray) -> str:
-    """Pair indices as compact ranges: ``south:0-12, south:15``."""
-    parts = []
-    start = prev = int(pairs[0])
-    for k in [int(v) for v in pairs[1:]] + [None]:
-        if k is not None and k == prev + 1:
-            prev = k
-            continue
-        parts.append(f"{section}:{start}" if start == prev else f"{section}:{start}-{prev}")
-        if k is not None:
-            start = prev = k
-    return ", ".join(parts)
 
 
 def _bathymetry(cfg: Config, spec, ds: xr.Dataset) -> list | None:

@@ -142,3 +142,17 @@ def test_unknown_configuration_key_names_the_closest_valid_one():
     with pytest.raises(ConfigError, match="did you mean 'pressure'"):
         parse_config({"sections": [{"name": "a", "file": "x.nc"}],
                       "reference": {"presure": 1000.0}})
+
+
+def test_in_memory_section_near_the_equator_is_refused_with_the_file_rule():
+    # DESIGN.md §4: geostrophy is refused within 2 degrees of the equator unless
+    # allow_equator is set; sections handed over in memory meet the same rule as files
+    from sectionkit.errors import EquatorError
+
+    section = thermocline_section(n=5, dp=10.0, lat0=1.0)
+    with pytest.raises(EquatorError, match=r"south:0 \(stations 1-2.*allow_equator = true"):
+        Study.from_config(_config(), sections={"south": section})
+    config = _config()
+    config.allow_equator = True
+    study = Study.from_config(config, sections={"south": section})
+    assert study.load_cautions.of_kind("equator")

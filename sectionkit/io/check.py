@@ -12,11 +12,12 @@ import numpy as np
 import xarray as xr
 
 from sectionkit.errors import Cautions, SectionkitError
+from sectionkit.geometry import great_circle_distance
 from sectionkit.io.casts import Source
 from sectionkit.io.csvfile import CSV_COLUMNS
 from sectionkit.io.raw import RawSection
 from sectionkit.io.section import grid_raw_section, read_section
-from sectionkit.io.validate import station_spacing, validate_section
+from sectionkit.io.validate import validate_section
 from sectionkit.thermo import SALINITY_KINDS, TEMPERATURE_KINDS, GriddingRules
 
 
@@ -54,7 +55,7 @@ def format_report(raw: RawSection, ds: xr.Dataset, cautions: Cautions) -> str:
     )
     deepest = np.array([p.pressure[p.complete()][-1] for p in raw.profiles])
     given = sum(np.isfinite(p.bottom_depth) for p in raw.profiles)
-    spacing = station_spacing(raw.lon, raw.lat) / 1e3
+    spacing = great_circle_distance(raw.lon, raw.lat) / 1e3
     pressure = ds["pressure"].values
     files = raw.sources if len(raw.sources) <= 3 else raw.sources[:2] + ["..."] + raw.sources[-1:]
     lines = [

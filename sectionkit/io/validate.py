@@ -28,10 +28,15 @@ from __future__ import annotations
 
 from collections import Counter
 
-import gsw
 import numpy as np
 
 from sectionkit.errors import Cautions, EquatorError, SectionDataError
+from sectionkit.geometry import (
+    EQUATOR_BAND,
+    equatorial_pairs,
+    great_circle_distance,
+    haversine,
+)
 from sectionkit.io.raw import Profile, RawSection
 from sectionkit.io.units import is_pascal
 from sectionkit.thermo import Inversion, depth_from_pressure, pressure_from_depth
@@ -46,86 +51,8 @@ DEEP_MIN_SALINITY = 15.0
 BRACKISH = 7.0
 MAX_BOTTOM_DEPTH = 11500.0  # m
 SAME_POSITION = 10.0  # m
-EQUATOR_BAND = 2.0  # degrees
 GAP_FACTOR = 3.0
 SHORT_CAST = 200.0  # m
-EARTH_RADIUS = 6371.0e3  # m, as gsw.distance
-
-
-# ---------------------------------------------------------------------------
-# Geometry kernels
-# ---------------------------------------------------------------------------
-
-
-def great_circle_distance(
-    lon1: np.ndarray, lat1: np.ndarray, lon2: np.ndarray, lat2: np.ndarray
-) -> np.ndarray:
-    """Great-circle distance between points on a sphere of radius 6371 km.
-
-    Parameters
-    ----------
-    lon1, lat1 : ndarray (...)
-        First points, degrees_east and degrees_north.
-    lon2, lat2 : ndarray (...)
-        Second points, degrees_east and degrees_north.
-
-    Returns
-    -------
-    ndarray (...)
-        Distance, m.
-    """
-    l1, p1, l2, p2 = (np.radians(np.asarray(a, dtype=float)) for a in (lon1, lat1, lon2, lat2))
-    h = np.sin((p2 - p1) / 2) ** 2 + np.cos(p1) * np.cos(p2) * np.sin((l2 - l1) / 2) ** 2
-    return 2 * EARTH_RADIUS * np.arcsin(np.sqrt(np.clip(h, 0.0, 1.0)))
-
-
-def pair_midpoints(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Great-circle mid-points of neighbouring stations.
-
-    Parameters
-    ----------
-    lon : ndarray (station,)
-        Longitude, degrees_east.
-    lat : ndarray (station,)
-        Latitude, degrees_north.
-
-    Returns
-    -------
-    lon_mid, lat_mid : ndarray (pair,)
-        Mid-point of each pair k (stations k and k+1), degrees_east and
-        degrees_north.
-    """
-    lam = np.radians(np.asarray(lon, dtype=float))
-    phi = np.radians(np.asarray(lat, dtype=float))
-    dlam = lam[1:] - lam[:-1]
-    bx = np.cos(phi[1:]) * np.cos(dlam)
-    by = np.cos(phi[1:]) * np.sin(dlam)
-    phi_m = np.arctan2(np.sin(phi[:-1]) + np.sin(phi[1:]), np.hypot(np.cos(phi[:-1]) + bx, by))
-    lam_m = lam[:-1] + np.arctan2(by, np.cos(phi[:-1]) + bx)
-    return np.degrees(lam_m), np.degrees(phi_m)
-
-
-def station_spacing(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
-    """Distance between neighbouring stations (gsw.distance at the sea surface).
-
-    Parameters
-    ----------
-    lon : ndarray (station,)
-        Longitude, degrees_east.
-    lat : ndarray (station,)
-        Latitude, degrees_north.
-
-    Returns
-    -------
-    ndarray (pair,)
-        Distance, m.
-    """
-    return np.asarray(gsw.distance(np.asarray(lon, float), np.asarray(lat, float)), float)
-
-
-# ---------------------------------------------------------------------------
-# Per-profile checks
-# ---------------------------------------------------------------------------
 
 
 def _first(mask: np.ndarray) -> int:
@@ -423,7 +350,7 @@ def check_stations(raw: RawSection) -> None:
 def check_same_positions(raw: RawSection) -> None:
     """No two stations at the same position."""
     lon, lat = raw.lon, raw.lat
-    d = great_circle_distance(lon[:, None], lat[:, None], lon[None, :], lat[None, :])
+    d = haversine(lon[:, None], lat[:, None], lon[None, :], lat[None, :])
     d[np.tril_indices(len(lon))] = np.inf
     if np.any(d < SAME_POSITION):
         i, j = (int(v) for v in np.argwhere(d < SAME_POSITION)[0])
@@ -434,15 +361,34 @@ def check_same_positions(raw: RawSection) -> None:
         )
 
 
-def check_equator(raw: RawSection, allow_equator: bool, cautions: Cautions) -> None:
-    """Refuse (or caution) pairs whose mid-point is within EQUATOR_BAND of the equator."""
-    lon_m, lat_m = pair_midpoints(raw.lon, raw.lat)
-    near = np.flatnonzero(np.abs(lat_m) < EQUATOR_BAND)
+def check_pair_latitudes(
+    name: str,
+    stations: list[str],
+    lon: np.ndarray,
+    lat: np.ndarray,
+    allow_equator: bool,
+    cautions: Cautions,
+) -> None:
+    """Refuse (or caution) pairs whose mid-point is within EQUATOR_BAND of the equator.
+
+    Parameters
+    ----------
+    name : str
+        Section name.
+    stations : list of str
+        Station ids, in order.
+    lon, lat : ndarray (station,)
+        Station positions, degrees_east and degrees_north.
+    allow_equator : bool
+        Keep such pairs with a caution instead of raising EquatorError.
+    cautions : Cautions
+        Collects the caution.
+    """
+    near, lat_m = equatorial_pairs(lon, lat)
     if near.size == 0:
         return
-    ids = raw.stations
     names = [
-        f"{raw.name}:{k} (stations {ids[k]}-{ids[k + 1]}, mid-point "
+        f"{name}:{k} (stations {stations[k]}-{stations[k + 1]}, mid-point "
         f"{abs(lat_m[k]):.2f} {'S' if lat_m[k] < 0 else 'N'})"
         for k in near
     ]
@@ -458,6 +404,11 @@ def check_equator(raw: RawSection, allow_equator: bool, cautions: Cautions) -> N
     cautions.add("equator", f"{text}; kept because allow_equator is set")
 
 
+def check_equator(raw: RawSection, allow_equator: bool, cautions: Cautions) -> None:
+    """:func:`check_pair_latitudes` for a section as read."""
+    check_pair_latitudes(raw.name, raw.stations, raw.lon, raw.lat, allow_equator, cautions)
+
+
 def check_spacing(raw: RawSection, cautions: Cautions) -> np.ndarray:
     """Caution for station gaps wider than GAP_FACTOR times the median spacing.
 
@@ -466,7 +417,7 @@ def check_spacing(raw: RawSection, cautions: Cautions) -> np.ndarray:
     ndarray (pair,)
         Station spacing, m.
     """
-    spacing = station_spacing(raw.lon, raw.lat)
+    spacing = great_circle_distance(raw.lon, raw.lat)
     if spacing.size >= 2:
         median = float(np.median(spacing))
         ids = raw.stations
