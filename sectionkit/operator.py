@@ -189,6 +189,29 @@ class SectionOperator:
             + factor * ek[..., None, :, None] * self.ekman_share
         )
 
+    def sigma_for(self, choices) -> dict[float, np.ndarray]:
+        """Pair-mean potential density at every reference pressure the choices need.
+
+        Densities for the class interfaces are computed when the operator is
+        built; an isopycnal reference at another reference pressure is
+        computed here once, from the stations' SA and CT, and kept.
+
+        Parameters
+        ----------
+        choices : iterable of ReferenceChoice
+            The references about to be resolved.
+
+        Returns
+        -------
+        dict of float -> ndarray (..., pair, level)
+            ``sigma_pair``, completed; kg m^-3.
+        """
+        for pr in {c.sigma_p_ref for c in choices if c.kind == "isopycnal"} - set(self.sigma_pair):
+            self.sigma_pair[pr] = pair_mean(
+                potential_density_anomaly(self.extra["station_sa"], self.extra["station_ct"], pr)
+            )
+        return self.sigma_pair
+
     def absolute_velocity(self, offset: np.ndarray, adjustment: np.ndarray | float = 0.0):
         """Absolute velocity of each pair on the grid.
 
@@ -357,7 +380,7 @@ def build_operator(
         ekman_depth=float(ekman_depth),
         bottom_triangle=bottom_triangle,
         extra={"sa_pair": sa_pair, "ct_pair": ct_pair, "rho_pair": rho_pair,
-               "class_moments": class_moments},
+               "class_moments": class_moments, "station_sa": sa, "station_ct": ct},
     )
 
 

@@ -20,11 +20,10 @@ from sectionkit.budget import LinearOutputs, UnknownLayout, make_layout, section
 from sectionkit.config import Config
 from sectionkit.errors import Cautions, ConfigError, InputFileError
 from sectionkit.geometry import great_circle_distance
-from sectionkit.geostrophy import pair_mean, resolve_references
+from sectionkit.geostrophy import resolve_references
 from sectionkit.inverse import InverseResult, assemble, solve
 from sectionkit.io import load_section
 from sectionkit.io.validate import check_pair_latitudes
-from sectionkit.layers import potential_density_anomaly
 from sectionkit.operator import SectionOperator, build_operator
 
 NET_MASS_HEAT_TOLERANCE = 0.1  # Sv: above it, heat is reported as a temperature transport
@@ -167,22 +166,11 @@ class Study:
         for name, op in self.operators.items():
             choices = [self.config.reference_for(label) for label in op.pair_labels]
             p_used, offset = resolve_references(
-                choices, op.v_eff, op.pressure, op.common, self._sigma_for(op, choices),
+                choices, op.v_eff, op.pressure, op.common, op.sigma_for(choices),
                 cautions, op.pair_labels,
             )
             out[name] = ReferenceState([c.kind for c in choices], p_used, offset)
         return out
-
-    def _sigma_for(self, op: SectionOperator, choices) -> dict[float, np.ndarray]:
-        needed = {c.sigma_p_ref for c in choices if c.kind == "isopycnal"}
-        missing = needed - set(op.sigma_pair)
-        if missing:
-            ds = self.sections[op.name]
-            sa = ds["SA"].transpose(..., "station", "pressure").values
-            ct = ds["CT"].transpose(..., "station", "pressure").values
-            for pr in missing:
-                op.sigma_pair[pr] = pair_mean(potential_density_anomaly(sa, ct, pr))
-        return op.sigma_pair
 
     def ekman(self) -> dict[str, np.ndarray]:
         """Ekman volume transport per pair of every section, m^3 s^-1."""

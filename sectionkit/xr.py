@@ -42,8 +42,8 @@ from sectionkit.budget import PW, SV
 from sectionkit.config import Config
 from sectionkit.errors import ConfigError, SectionDataError
 from sectionkit.geometry import pair_geometry
-from sectionkit.geostrophy import ReferenceChoice, pair_mean, resolve_references
-from sectionkit.layers import Interface, check_interfaces, potential_density_anomaly
+from sectionkit.geostrophy import ReferenceChoice, resolve_references
+from sectionkit.layers import Interface, check_interfaces
 from sectionkit.operator import RHO0, SectionOperator, build_operator
 
 __all__ = [
@@ -260,15 +260,6 @@ def _pair_choices(
     return choices
 
 
-def _sigma_for(
-    op: SectionOperator, choices: list[ReferenceChoice], sa: np.ndarray, ct: np.ndarray
-) -> dict[float, np.ndarray]:
-    """Pair-mean potential density at every reference pressure an isopycnal needs."""
-    for pr in {c.sigma_p_ref for c in choices if c.kind == "isopycnal"} - set(op.sigma_pair):
-        op.sigma_pair[pr] = pair_mean(potential_density_anomaly(sa, ct, pr))
-    return op.sigma_pair
-
-
 def _as_section(
     sa: np.ndarray,
     ct: np.ndarray,
@@ -375,7 +366,7 @@ def budget_kernel(
                         bathymetry=bathymetry, max_dp=max_dp)
     choices = _pair_choices(reference, overrides, op.n_pair)
     p_used, offset = resolve_references(choices, op.v_eff, op.pressure, op.common,
-                                        _sigma_for(op, choices, sa, ct))
+                                        op.sigma_for(choices))
     g = op.pairs
     ek = ekman_volume(g["distance"].values, g["f"].values, g["along_east"].values,
                       g["along_north"].values, stress)
