@@ -162,6 +162,91 @@ def class_transport_gradient(
     return g
 
 
+def _signed_extremum(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Value of largest magnitude along the last axis (sign kept) and its index."""
+    k = np.argmax(np.abs(values), axis=-1)
+    return np.take_along_axis(values, k[..., None], axis=-1)[..., 0], k
+
+
+def section_values(
+    op: SectionOperator,
+    offset: np.ndarray,
+    adjustment: np.ndarray | float = 0.0,
+    ekman: np.ndarray | float = 0.0,
+    reference_salinity: float | None = None,
+) -> dict[str, np.ndarray]:
+    """Every reported number of a section for one reference state (the definitions).
+
+    :func:`section_outputs` takes its initial values from here and adds their
+    derivatives; :mod:`sectionkit.xr` calls this directly, since every
+    argument may carry leading dimensions (time, member).
+
+    Parameters
+    ----------
+    op : SectionOperator
+        Built operator; its arrays may have leading dimensions.
+    offset : ndarray (..., pair)
+        Reference offset from the reference choice, m s^-1.
+    adjustment : ndarray (..., pair) or float
+        Reference-velocity adjustment (the inverse's estimate), m s^-1.
+    ekman : ndarray (..., pair) or float
+        Ekman volume transport per pair (already multiplied by any Ekman
+        adjustment factor), m^3 s^-1.
+    reference_salinity : float, optional
+        Salinity the freshwater transport is relative to, g/kg; the section's
+        area-mean Absolute Salinity when None.
+
+    Returns
+    -------
+    dict of str -> ndarray
+        ``volume_transport``, ``mass_transport`` (Sv), ``salt_transport``
+        (Sv g/kg), ``heat_transport`` (PW), each (..., class);
+        ``pair_volume_transport`` (..., pair, class) Sv; ``net``, ``net_mass``,
+        ``freshwater`` (Sv) and ``heat`` (PW); ``psi_depth`` (..., level) and
+        ``psi_density`` (..., interface) Sv, accumulated from the surface and
+        from the lightest class; ``overturning`` (their depth-space extreme,
+        Sv), ``overturning_pressure`` (dbar) and ``overturning_density`` (Sv).
+    """
+    ek = np.asarray(ekman, dtype=float)
+    if ek.ndim == 0:
+        ek = np.full(op.n_pair, float(ek))
+    ref = np.asarray(offset, dtype=float) + np.asarray(adjustment, dtype=float)
+    t = op.transports(offset, adjustment, ek)  # (..., quantity, pair, class)
+    cls = t.sum(axis=-2)
+    volume = cls[..., Q["volume"], :] / SV
+    mass = cls[..., Q["mass"], :] / SV
+    salt = cls[..., Q["salt"], :] / SV
+    heat = cls[..., Q["heat"], :] / PW
+    s_ref = op.mean_salinity if reference_salinity is None else reference_salinity
+    out: dict[str, np.ndarray] = {
+        "volume_transport": volume,
+        "mass_transport": mass,
+        "salt_transport": salt,
+        "heat_transport": heat,
+        "pair_volume_transport": t[..., Q["volume"], :, :] / SV,
+        "net": volume.sum(axis=-1),
+        "net_mass": mass.sum(axis=-1),
+        "heat": heat.sum(axis=-1),
+        "freshwater": mass.sum(axis=-1) - salt.sum(axis=-1) / s_ref,
+    }
+    level = (
+        op.level_relative
+        + np.einsum("...jk,...j->...k", op.level_area, ref)
+        + np.einsum("...j,...jk->...k", ek, op.level_ekman)
+    )
+    psi_z = np.cumsum(level, axis=-1) / SV
+    out["psi_depth"] = psi_z
+    out["overturning"], kz = _signed_extremum(psi_z)
+    out["overturning_pressure"] = op.pressure[kz]
+    psi_rho = np.cumsum(volume, axis=-1)[..., :-1]
+    out["psi_density"] = psi_rho
+    if psi_rho.shape[-1]:
+        out["overturning_density"] = _signed_extremum(psi_rho)[0]
+    else:
+        out["overturning_density"] = np.full(volume.shape[:-1], np.nan)
+    return out
+
+
 def section_outputs(
     op: SectionOperator,
     offset: np.ndarray,
@@ -197,16 +282,15 @@ def section_outputs(
         ``overturning`` (depth space), ``overturning_density``, and
         ``psi_depth:<k>`` / ``psi_density:<n>`` streamfunction values.
     """
-    t0 = op.transports(offset, 0.0, ekman, 1.0)  # (quantity, pair, class)
+    values = section_values(op, offset, 0.0, ekman, reference_salinity)
     names: list[str] = []
     initial: list[np.ndarray] = []
     grads: list[np.ndarray] = []
     units: list[str] = []
-    per_q: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+    per_q: dict[str, np.ndarray] = {}
     for quantity in QUANTITIES:
-        value = t0[Q[quantity]].sum(axis=0) / QUANTITY_SCALE[quantity]
-        grad = class_transport_gradient(op, quantity, layout, ekman)
-        per_q[quantity] = (value, grad)
+        value = values[f"{quantity}_transport"]
+        grad = per_q[quantity] = class_transport_gradient(op, quantity, layout, ekman)
         unit = {"volume": "Sv", "mass": "Sv", "salt": "Sv g/kg", "heat": "PW"}[quantity]
         for i, layer in enumerate(op.layer_names):
             names.append(f"{quantity}:{layer}")
@@ -220,27 +304,23 @@ def section_outputs(
         grads.append(np.atleast_2d(grad))
         units.append(unit)
 
-    vol, gvol = per_q["volume"]
-    mass, gmass = per_q["mass"]
-    salt, gsalt = per_q["salt"]
-    heat, gheat = per_q["heat"]
-    add("net", vol.sum(), gvol.sum(axis=0), "Sv")
-    add("net_mass", mass.sum(), gmass.sum(axis=0), "Sv")
-    add("heat", heat.sum(), gheat.sum(axis=0), "PW")
+    # the derivatives of section_values' definitions
+    add("net", values["net"], per_q["volume"].sum(axis=0), "Sv")
+    add("net_mass", values["net_mass"], per_q["mass"].sum(axis=0), "Sv")
+    add("heat", values["heat"], per_q["heat"].sum(axis=0), "PW")
     s_ref = float(op.mean_salinity) if reference_salinity is None else reference_salinity
-    add("freshwater", mass.sum() - salt.sum() / s_ref,
-        gmass.sum(axis=0) - gsalt.sum(axis=0) / s_ref, "Sv")
+    add("freshwater", values["freshwater"],
+        per_q["mass"].sum(axis=0) - per_q["salt"].sum(axis=0) / s_ref, "Sv")
 
     # overturning in density classes: cumulative from the light side at each interface
-    psi_rho = np.cumsum(vol)[:-1]
-    gpsi_rho = np.cumsum(gvol, axis=0)[:-1]
+    psi_rho = values["psi_density"]
+    gpsi_rho = np.cumsum(per_q["volume"], axis=0)[:-1]
     # overturning in depth: cumulative transport from the surface down
-    level = op.level_relative + op.level_area.T @ offset + ekman @ op.level_ekman
     glevel = np.zeros((op.pressure.size, layout.size))
     glevel[:, layout.pair_slices[op.name]] = op.level_area.T
     if op.name in layout.ekman:
         glevel[:, layout.ekman[op.name]] = ekman @ op.level_ekman
-    psi_z = np.cumsum(level) / SV
+    psi_z = values["psi_depth"]
     gpsi_z = np.cumsum(glevel, axis=0) / SV
     x_at = np.zeros(layout.size) if x_for_maximum is None else x_for_maximum
     kz = int(np.argmax(np.abs(psi_z + gpsi_z @ x_at)))

@@ -4,10 +4,9 @@ The engine's kernels take ``SA`` and ``CT`` as ``(..., station, pressure)``
 arrays and broadcast any leading dimensions. This module adds the two upper
 tiers of the style guide on top of them:
 
-1. :func:`operator_outputs` and :func:`budget_kernel` — numpy kernels. The
-   first turns a built :class:`~sectionkit.operator.SectionOperator` and a
-   reference state into every reported number; the second runs the whole
-   chain (operator, references, Ekman, outputs) on plain arrays.
+1. :func:`budget_kernel` — a numpy kernel running the whole chain
+   (operator, references, Ekman, and the outputs of
+   :func:`sectionkit.budget.section_values`) on plain arrays.
 2. :func:`section_budget` — the xarray wrapper: ``xr.apply_ufunc`` with
    ``dask="parallelized"``, core dimensions ``station`` and ``pressure``, new
    output dimensions ``pair``, ``layer`` and ``interface``. A section whose
@@ -22,8 +21,9 @@ Station positions, bottom pressures and the pressure grid are those of the
 section and do not vary along the leading dimensions (a fixed station grid,
 as for repeated occupations or model output along a fixed line).
 
-The numbers are those of :func:`sectionkit.budget.section_outputs` evaluated
-at the given state, so without leading dimensions they equal
+The numbers are those of :func:`sectionkit.budget.section_values` (the
+definitions behind :func:`sectionkit.budget.section_outputs`) at the given
+state, so without leading dimensions they equal
 :meth:`sectionkit.study.Results.value`. Reference fall-backs (a reference
 deeper than a pair) are applied as in the engine but not reported as
 cautions here: the kernel runs inside dask tasks.
@@ -38,21 +38,19 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from sectionkit.budget import PW, SV
+from sectionkit.budget import section_values
 from sectionkit.config import Config
 from sectionkit.errors import ConfigError, SectionDataError
 from sectionkit.geometry import pair_geometry
 from sectionkit.geostrophy import ReferenceChoice, resolve_references
 from sectionkit.layers import Interface, check_interfaces
-from sectionkit.operator import RHO0, SectionOperator, build_operator
+from sectionkit.operator import build_operator
 
 __all__ = [
     "OUTPUTS",
     "OutputSpec",
     "budget_from_config",
     "budget_kernel",
-    "ekman_volume",
-    "operator_outputs",
     "section_budget",
 ]
 
@@ -116,119 +114,6 @@ ReferenceLike = ReferenceChoice | float | str
 
 
 # --------------------------------------------------------------------- kernels
-def ekman_volume(
-    distance: np.ndarray,
-    f: np.ndarray,
-    along_east: np.ndarray,
-    along_north: np.ndarray,
-    stress: np.ndarray,
-) -> np.ndarray:
-    """Ekman volume transport across each pair for a (possibly varying) wind stress.
-
-    Parameters
-    ----------
-    distance : ndarray (pair,)
-        Pair length, m.
-    f : ndarray (pair,)
-        Coriolis parameter at the pair mid-point, s^-1.
-    along_east, along_north : ndarray (pair,)
-        Unit vector along the line, dimensionless.
-    stress : ndarray (..., 2)
-        Wind stress (east, north), N m^-2; leading dimensions broadcast.
-
-    Returns
-    -------
-    ndarray (..., pair)
-        ``-(tau . t) L / (rho0 f)``, m^3 s^-1, positive to the left of
-        increasing station order (DESIGN.md §4).
-    """
-    stress = np.asarray(stress, dtype=float)
-    along = stress[..., 0:1] * along_east + stress[..., 1:2] * along_north
-    return -along * distance / (RHO0 * f)
-
-
-def _signed_extremum(values: np.ndarray, axis: int = -1) -> tuple[np.ndarray, np.ndarray]:
-    """Value of largest magnitude along ``axis`` (sign kept) and its index."""
-    k = np.argmax(np.abs(values), axis=axis)
-    return np.take_along_axis(values, np.expand_dims(k, axis), axis=axis).squeeze(axis), k
-
-
-def operator_outputs(
-    op: SectionOperator,
-    offset: np.ndarray,
-    adjustment: np.ndarray | float = 0.0,
-    ekman: np.ndarray | float = 0.0,
-    reference_salinity: float | None = None,
-) -> dict[str, np.ndarray]:
-    """Every reported number of a section for one reference state.
-
-    The definitions are those of :func:`sectionkit.budget.section_outputs`
-    (class sums, net, heat, freshwater, overturning maxima located at the
-    given state), evaluated directly rather than as ``initial + G x`` so that
-    every argument may carry leading dimensions.
-
-    Parameters
-    ----------
-    op : SectionOperator
-        Built operator; its arrays may have leading dimensions.
-    offset : ndarray (..., pair)
-        Reference offset from the reference choice, m s^-1.
-    adjustment : ndarray (..., pair) or float
-        Reference-velocity adjustment (the inverse's estimate), m s^-1.
-    ekman : ndarray (..., pair) or float
-        Ekman volume transport per pair (already multiplied by any Ekman
-        adjustment factor), m^3 s^-1.
-    reference_salinity : float, optional
-        Salinity the freshwater transport is relative to, g/kg; the section's
-        area-mean Absolute Salinity when None.
-
-    Returns
-    -------
-    dict of str -> ndarray
-        Keyed by the names of :data:`OUTPUTS` (except ``reference_pressure``),
-        each with the broadcast leading dimensions followed by the output's
-        core dimensions; units as in :data:`OUTPUTS`.
-    """
-    ek = np.asarray(ekman, dtype=float)
-    if ek.ndim == 0:
-        ek = np.full(op.n_pair, float(ek))
-    ref = np.asarray(offset, dtype=float) + np.asarray(adjustment, dtype=float)
-    t = op.transports(offset, adjustment, 0.0, 1.0) + ek[..., None, :, None] * op.ekman_share
-    cls = t.sum(axis=-2)  # (..., quantity, class)
-    volume = cls[..., 0, :] / SV
-    mass = cls[..., 1, :] / SV
-    salt = cls[..., 2, :] / SV
-    heat = cls[..., 3, :] / PW
-    s_ref = op.mean_salinity if reference_salinity is None else reference_salinity
-    out: dict[str, np.ndarray] = {
-        "volume_transport": volume,
-        "mass_transport": mass,
-        "salt_transport": salt,
-        "heat_transport": heat,
-        "pair_volume_transport": t[..., 0, :, :] / SV,
-        "net": volume.sum(axis=-1),
-        "net_mass": mass.sum(axis=-1),
-        "heat": heat.sum(axis=-1),
-        "freshwater": mass.sum(axis=-1) - salt.sum(axis=-1) / s_ref,
-    }
-    level = (
-        op.level_relative
-        + np.einsum("...jk,...j->...k", op.level_area, ref)
-        + np.einsum("...j,...jk->...k", ek, op.level_ekman)
-    )
-    psi_z = np.cumsum(level, axis=-1) / SV
-    out["psi_depth"] = psi_z
-    out["overturning"], kz = _signed_extremum(psi_z)
-    out["overturning_pressure"] = op.pressure[kz]
-    psi_rho = np.cumsum(volume, axis=-1)[..., :-1]
-    out["psi_density"] = psi_rho
-    if psi_rho.shape[-1]:
-        out["overturning_density"] = _signed_extremum(psi_rho)[0]
-    else:
-        out["overturning_density"] = np.full(volume.shape[:-1], np.nan)
-    return out
-
-
 def _pair_choices(
     reference: ReferenceLike | Sequence[ReferenceLike],
     overrides: Mapping[int, ReferenceLike] | None,
@@ -367,10 +252,8 @@ def budget_kernel(
     choices = _pair_choices(reference, overrides, op.n_pair)
     p_used, offset = resolve_references(choices, op.v_eff, op.pressure, op.common,
                                         op.sigma_for(choices))
-    g = op.pairs
-    ek = ekman_volume(g["distance"].values, g["f"].values, g["along_east"].values,
-                      g["along_north"].values, stress)
-    out = operator_outputs(op, offset, adjustment, ek, reference_salinity)
+    ek = op.ekman_volume(stress[..., 0], stress[..., 1])
+    out = section_values(op, offset, adjustment, ek, reference_salinity)
     out["reference_pressure"] = p_used
     lead = np.broadcast_shapes(sa.shape[:-2], adjustment.shape[:-1], stress.shape[:-1])
     for spec in OUTPUTS:
