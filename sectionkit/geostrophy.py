@@ -371,7 +371,7 @@ def resolve_references(
     p_common = p[np.clip(common, 0, None)]
     p_used = np.array(p_common, dtype=float, copy=True)
     u_ref = np.zeros_like(p_used)
-    too_deep: list[str] = []
+    too_deep: list[int] = []  # pairs whose reference pressure lies below them
     groups: dict[ReferenceChoice, list[int]] = {}
     for j, choice in enumerate(choices):
         groups.setdefault(choice, []).append(j)
@@ -386,9 +386,9 @@ def resolve_references(
                     f"pair {labels[idx[0]]}: a {choice.kind} reference needs a pressure"
                 )
             pj = np.minimum(choice.pressure, pc)
-            short = np.any(choice.pressure > pc, axis=tuple(range(pc.ndim - 1)))
-            for j in idx[short]:
-                too_deep.append(f"{labels[j]} ({float(np.min(p_common[..., j])):g})")
+            if cautions is not None:
+                short = np.any(choice.pressure > pc, axis=tuple(range(pc.ndim - 1)))
+                too_deep.extend(int(j) for j in idx[short])
             if choice.kind == "velocity":
                 u_ref[..., idx] = choice.velocity
         elif choice.kind == "isopycnal":
@@ -417,12 +417,13 @@ def resolve_references(
                 f"pair {labels[idx[0]]}: unknown reference kind {choice.kind!r}"
             )
         p_used[..., idx] = pj
-    too_deep.sort(key=lambda text: labels.index(text.split(" ")[0]))
     if cautions is not None and too_deep:
+        listed = ", ".join(f"{labels[j]} ({float(np.min(p_common[..., j])):g})"
+                           for j in sorted(too_deep))
         cautions.add(
             "reference-below-pair",
             f"{len(too_deep)} pair(s) do not reach their reference pressure; their deepest "
-            "common level is used instead: " + ", ".join(too_deep) + " (dbar)",
+            f"common level is used instead: {listed} (dbar)",
         )
     v_at_ref = value_at_pressure(v_eff, p, p_used)
     return p_used, u_ref - v_at_ref

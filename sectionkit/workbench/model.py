@@ -48,7 +48,7 @@ from sectionkit.config import (
     parse_reference,
 )
 from sectionkit.errors import Cautions, ConfigError, SectionkitError
-from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice, value_at_pressure
+from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
 from sectionkit.layers import Interface
 from sectionkit.study import Results, Study
 
@@ -1075,30 +1075,6 @@ class WorkbenchState:
         self._error_cache = (results, err)
         return err
 
-    def _global_pressure_references(self) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
-        """Offsets and pressures after a new global level of no motion, all pairs at once.
-
-        The pairs without an override take the global pressure, or their
-        deepest common level where they are shallower, and the offset that
-        makes the velocity vanish there: the pressure rule of
-        :func:`sectionkit.geostrophy.resolve_references`, evaluated for all
-        those pairs in one call of its interpolation kernel instead of pair
-        by pair (same arithmetic, same numbers). Pairs with an override keep
-        the offsets of the current snapshot (their references did not change).
-        """
-        pressure = float(self._config.reference.pressure)
-        overrides = self._config.overrides
-        offsets, pressures = {}, {}
-        for name, op in self.study.operators.items():
-            offset = self._snap.offsets[name].copy()
-            used = self._snap.ref_pressure[name].copy()
-            free = np.array([label not in overrides for label in op.pair_labels])
-            p_common = op.pressure[np.clip(op.common, 0, None)]
-            used[free] = np.minimum(pressure, p_common[free])
-            offset[free] = 0.0 - value_at_pressure(op.v_eff[free], op.pressure, used[free])
-            offsets[name], pressures[name] = offset, used
-        return offsets, pressures
-
     def _volume_gradient(self, base: Results, name: str, layers: tuple[str, ...]) -> np.ndarray:
         """d(class volume transport)/dx of one section, Sv per unknown (cached per solve)."""
         cache = self._gradient_cache
@@ -1139,15 +1115,15 @@ class WorkbenchState:
         """
         base = self._base
         assert base is not None
-        if global_only and self._config.reference.kind == "pressure":
-            offsets, pressures = self._global_pressure_references()
-            cautions = None  # collected when asked for (reference_cautions)
+        if global_only:
+            cautions = None  # a dragged slider: collected when asked for (reference_cautions)
+            refs = self.study.references(None)
         else:
             cautions = Cautions()
             cautions.extend(self.study.load_cautions)
             refs = self.study.references(cautions)
-            offsets = {n: r.offset for n, r in refs.items()}
-            pressures = {n: r.pressure for n, r in refs.items()}
+        offsets = {n: r.offset for n, r in refs.items()}
+        pressures = {n: r.pressure for n, r in refs.items()}
         layout = base.layout
         sections = tuple(self.study.operators)
         layers = self._snap.classes.layers
