@@ -13,8 +13,6 @@ from pathlib import Path
 
 from sectionkit.errors import SectionkitError
 
-DEMO_DIR = Path(__file__).resolve().parent.parent / "demo_sections"  # = demo.BUNDLED_DIR
-
 
 def _progress(message: str) -> None:
     print(f"  .. {message}", file=sys.stderr, flush=True)
@@ -81,7 +79,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
 def _cmd_lab(args: argparse.Namespace) -> int:
     import subprocess
 
-    notebook = DEMO_DIR.parent / "notebooks" / "workbench.ipynb"
+    notebook = Path(__file__).resolve().parent.parent / "notebooks" / "workbench.ipynb"
     cmd = [sys.executable, "-m", "jupyterlab", str(notebook)]
     if args.no_browser:
         cmd.append("--no-browser")

@@ -31,7 +31,6 @@ from matplotlib.colors import TwoSlopeNorm
 from matplotlib.figure import Figure
 from matplotlib.ticker import FixedLocator, FuncFormatter, MaxNLocator, NullLocator
 
-from sectionkit.errors import SectionkitError
 from sectionkit.operator import SectionOperator
 from sectionkit.study import Results, Study
 
@@ -644,14 +643,6 @@ def _lat_text(y: float, _pos=None) -> str:
     return f"{abs(y):g}°{'N' if y > 0 else 'S'}"
 
 
-def _fitted(solver, name: str):
-    """A fitted solver attribute, or None when this solver does not have it."""
-    try:
-        return getattr(solver, name)
-    except (AttributeError, SectionkitError):
-        return None
-
-
 def scaled_singular_values(results: Results) -> tuple[np.ndarray, str]:
     """Singular values of the noise- and prior-scaled constraint matrix.
 
@@ -673,7 +664,7 @@ def scaled_singular_values(results: Results) -> tuple[np.ndarray, str]:
         ``"solver"`` or ``"constraint system"``.
     """
     inv = results.inverse
-    values = _fitted(inv.solver, "singular_values")
+    values = getattr(inv.solver, "singular_values", None)
     if values is not None:
         return np.asarray(values, dtype=float), "solver"
     system = inv.system
@@ -699,7 +690,7 @@ def resolution_diagonal(results: Results) -> np.ndarray:
     inv = results.inverse
     active = inv.system.prior > 0
     out = np.full(active.size, np.nan)
-    res = _fitted(inv.solver, "resolution")
+    res = getattr(inv.solver, "resolution", None)
     if res is not None:
         out[active] = np.diag(np.asarray(res, dtype=float))
     else:  # 1 - posterior / prior variance, exact for Gauss-Markov
@@ -1019,7 +1010,7 @@ def inverse_figure(study: Study, results: Results) -> Figure | None:
         return None
     system = inv.system
     values, source = scaled_singular_values(results)
-    rank = _fitted(inv.solver, "rank") if study.config.inverse.solver == "svd" else None
+    rank = getattr(inv.solver, "rank", None) if study.config.inverse.solver == "svd" else None
     boxes = {r[0] for r in system.rows}
     labels = [f"{b}: {c}" if len(boxes) > 1 else c for b, c in system.rows]
     before = system.initial / system.noise

@@ -30,7 +30,6 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sectionkit.errors import SectionkitError
 from sectionkit.geostrophy import ReferenceChoice
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.tables import tables
@@ -448,14 +447,6 @@ def reference_description(study: Study, results: Results, tex: bool = False) -> 
     return text
 
 
-def _fitted(solver, name: str, default):
-    """A fitted solver attribute, or ``default`` when this solver does not have it."""
-    try:
-        return getattr(solver, name)
-    except (AttributeError, SectionkitError):
-        return default
-
-
 def inverse_description(study: Study, results: Results, tex: bool = False) -> str:
     """Sentence on the inverse: solver, constraints, priors, noise, known transports.
 
@@ -481,8 +472,8 @@ def inverse_description(study: Study, results: Results, tex: bool = False) -> st
     percent = r"\%" if tex else "%"
     solver = _SOLVER_PHRASE.get(inv.solver, esc(inv.solver))
     if inv.solver == "svd":
-        used = _fitted(results.inverse.solver, "rank", inv.rank)
-        svals = _fitted(results.inverse.solver, "singular_values", None)
+        used = getattr(results.inverse.solver, "rank", inv.rank)
+        svals = getattr(results.inverse.solver, "singular_values", None)
         total = f" of {len(svals)}" if svals is not None else ""
         rule = "" if inv.rank else ", chosen where the scaled singular values exceed 1"
         solver += f" (rank {used}{total}{rule})"

@@ -8,8 +8,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from sectionkit.cli import DEMO_DIR, main
+from sectionkit.cli import main
 from sectionkit.config import load_config
+from sectionkit.demo import BUNDLED_DIR as DEMO_DIR
 from sectionkit.study import Study
 
 CSV_FILES = ["layer_transports.csv", "pair_adjustments.csv", "box_budget.csv",

@@ -633,6 +633,13 @@ def test_results_before_fit_are_computation_error() -> None:
         _ = GaussMarkov(1.0, 1.0).estimate
 
 
+def test_missing_results_give_getattr_defaults() -> None:
+    # callers (figures, captions) ask every solver for optional results this way
+    assert getattr(GaussMarkov(1.0, 1.0), "estimate", None) is None
+    fitted = GaussMarkov(1.0, 1.0).fit(np.eye(2), np.ones(2))
+    assert getattr(fitted, "singular_values", None) is None
+
+
 # --------------------------------------------------------------------------
 # Propagation to linear outputs
 # --------------------------------------------------------------------------
