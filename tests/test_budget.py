@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from _synthetic import thermocline_section
 
-from sectionkit.budget import SV, make_layout, section_outputs
+from sectionkit.budget import SV, make_layout, section_outputs, section_values
 from sectionkit.config import parse_config
 from sectionkit.errors import ConfigError
 from sectionkit.geostrophy import ReferenceChoice, resolve_references
@@ -156,3 +156,37 @@ def test_in_memory_section_near_the_equator_is_refused_with_the_file_rule():
     config.allow_equator = True
     study = Study.from_config(config, sections={"south": section})
     assert study.load_cautions.of_kind("equator")
+
+
+def test_uniform_flow_gives_closed_form_heat_freshwater_and_overturning():
+    # analytic: uniform SA, CT (no shear) moving at a uniform reference velocity b
+    # over a flat bottom. Heat = c_p0 CT b L \int rho dz with c_p0 = 3991.86795711963
+    # J kg-1 K-1 (TEOS-10 manual, IOC, SCOR and IAPSO 2010; the value of DESIGN.md §4)
+    # and rho from gsw.rho; the depth streamfunction grows as b L z; freshwater
+    # relative to the water's own salinity is zero.
+    import gsw
+    from _synthetic import canonical_section
+
+    p = np.arange(0.0, 1001.0, 10.0)
+    n, sa0, ct0, b = 4, 35.0, 10.0, 0.05
+    section = canonical_section(np.full((n, p.size), sa0), np.full((n, p.size), ct0), p,
+                                np.linspace(-30.0, -29.0, n), np.full(n, 30.0),
+                                np.full(n, 1000.0))
+    op = build_operator(section, [])
+    offset = np.zeros(op.n_pair)
+    values = section_values(op, offset, b)
+    length = op.pairs["distance"].values.sum()
+    fine = np.linspace(0.0, 1000.0, 20001)
+    depth = -gsw.z_from_p(fine, 30.0)
+    column_mass = np.trapezoid(gsw.rho(sa0, ct0, fine), depth)  # kg m^-2
+    heat = 3991.86795711963 * ct0 * b * length * column_mass / 1e15
+    np.testing.assert_allclose(values["heat"], heat, rtol=1e-6)
+    np.testing.assert_allclose(values["net"], b * length * depth[-1] / 1e6, rtol=1e-6)
+    np.testing.assert_allclose(values["psi_depth"],
+                               b * length * -gsw.z_from_p(p, 30.0) / 1e6, rtol=1e-6,
+                               atol=b * length * 5.0 / 1e6)  # half a 10 dbar cell at the top
+    np.testing.assert_allclose(values["overturning"], values["net"], rtol=1e-12)
+    assert abs(section_values(op, offset, b, reference_salinity=sa0)["freshwater"]) < 1e-12
+    np.testing.assert_allclose(
+        section_values(op, offset, b, reference_salinity=34.0)["freshwater"],
+        values["net_mass"] * (1 - sa0 / 34.0), rtol=1e-10)
