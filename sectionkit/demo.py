@@ -63,7 +63,9 @@ from __future__ import annotations
 import argparse
 import dataclasses
 import os
+import shutil
 import sys
+import tempfile
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -1451,24 +1453,29 @@ def write_demo(
     scenario.check()
     out = Path(folder)
     out.mkdir(parents=True, exist_ok=True)
-    paths: dict[str, Path] = {}
-    files = {line.name: f"{line.name}_line.nc" for line in scenario.lines}
-    sections = {}
-    for line in scenario.lines:
-        obs = _observe(scenario, line.name)
-        path = out / files[line.name]
-        _write_netcdf(path, obs, scenario)
-        sections[line.name] = _canonical(obs, scenario.dp, str(path))
-        paths[line.name] = path
-    truth = demo_truth(scenario, sections=sections)
-    config = out / "demo.toml"
-    config.write_text(_toml_config(scenario, files), encoding="utf-8")
-    paths["config"] = config
-    for fname, (header, rows) in _truth_tables(truth).items():
-        path = out / fname
-        _write_csv(path, header, rows)
-        paths[fname.removesuffix(".csv")] = path
-    return paths
+    # everything is written into a temporary folder and moved into place at the end,
+    # so a failure leaves no half-written demo behind
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=out.parent))
+    try:
+        names: dict[str, str] = {}
+        files = {line.name: f"{line.name}_line.nc" for line in scenario.lines}
+        sections = {}
+        for line in scenario.lines:
+            obs = _observe(scenario, line.name)
+            _write_netcdf(tmp / files[line.name], obs, scenario)
+            sections[line.name] = _canonical(obs, scenario.dp, str(out / files[line.name]))
+            names[line.name] = files[line.name]
+        truth = demo_truth(scenario, sections=sections)
+        (tmp / "demo.toml").write_text(_toml_config(scenario, files), encoding="utf-8")
+        names["config"] = "demo.toml"
+        for fname, (header, rows) in _truth_tables(truth).items():
+            _write_csv(tmp / fname, header, rows)
+            names[fname.removesuffix(".csv")] = fname
+        for fname in names.values():
+            os.replace(tmp / fname, out / fname)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    return {key: out / fname for key, fname in names.items()}
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -379,3 +379,17 @@ def test_scenario_refuses_mismatched_class_counts():
     bad = demo.DemoScenario(diapycnal=(1.0, 2.0))
     with pytest.raises(ComputationError, match="diapycnal"):
         bad.check()
+
+
+def test_failed_generation_leaves_no_half_written_demo(tmp_path, monkeypatch):
+    import sectionkit.demo as demo
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("truth failed")
+
+    monkeypatch.setattr(demo, "demo_truth", broken)
+    out = tmp_path / "demo"
+    with pytest.raises(RuntimeError):
+        demo.write_demo(out, small=True)
+    assert list(out.iterdir()) == []
+    assert [p.name for p in tmp_path.iterdir()] == ["demo"]
