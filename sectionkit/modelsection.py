@@ -41,6 +41,8 @@ import xarray as xr
 
 from sectionkit.config import Config
 from sectionkit.errors import SectionDataError
+from sectionkit.io.netcdf import STANDARD_NAMES
+from sectionkit.thermo import absolute_salinity, conservative_temperature
 
 __all__ = [
     "interpolation_weights",
@@ -270,16 +272,15 @@ def model_section(
     lon_da = xr.DataArray(lon, dims=[station_dim])
     lat_da = xr.DataArray(lat, dims=[station_dim])
     par = {"dask": "parallelized", "output_dtypes": [float]}
-    if s_kind == "sea_water_absolute_salinity":
+    # the same TEOS-10 conversions (thermo's kernels) and standard-name kinds as the readers
+    if STANDARD_NAMES["salinity"][s_kind] == "absolute":
         sa_src = salt
     else:
-        sa_src = xr.apply_ufunc(gsw.SA_from_SP, salt, p_da, lon_da, lat_da, **par)
-    if t_kind == "sea_water_conservative_temperature":
-        ct_src = temp
-    elif t_kind == "sea_water_potential_temperature":
-        ct_src = xr.apply_ufunc(gsw.CT_from_pt, sa_src, temp, **par)
-    else:
-        ct_src = xr.apply_ufunc(gsw.CT_from_t, sa_src, temp, p_da, **par)
+        sa_src = xr.apply_ufunc(absolute_salinity, salt, p_da, lon_da, lat_da,
+                                input_core_dims=[core, core, [station_dim], [station_dim]],
+                                output_core_dims=[core], **par)
+    ct_src = xr.apply_ufunc(conservative_temperature, temp, sa_src, p_da,
+                            kwargs={"kind": STANDARD_NAMES["temperature"][t_kind]}, **par)
 
     def to_grid(da: xr.DataArray) -> xr.DataArray:
         if da.chunks is not None:

@@ -217,3 +217,33 @@ def test_adjustment_with_a_member_dimension_equals_each_adjustment_alone():
         for spec in OUTPUTS:
             assert _max_rel(out[spec.name].isel(member=m).values,
                             alone[spec.name].values) <= 1e-12, spec.name
+
+
+def test_model_practical_salinity_and_potential_temperature_convert_as_gsw():
+    # TEOS-10 (gsw.SA_from_SP at each station's position, gsw.CT_from_pt): model
+    # output in practical salinity and potential temperature
+    import gsw
+
+    depths = np.array([0.0, 500.0, 1000.0])
+    lat = np.array([25.0, 26.0])
+    lon = np.array([-30.0, -29.0])
+    p_lev = gsw.p_from_z(-depths[None, :], lat[:, None])
+    sp = np.array([[36.5, 35.2, 34.9], [36.3, 35.1, 34.95]])[None]
+    pt = np.array([[24.0, 9.0, 4.5], [22.0, 8.5, 4.2]])[None]
+    model = xr.Dataset(
+        {"thetao": (("time", "station", "depth"), pt,
+                    {"standard_name": "sea_water_potential_temperature", "units": "degC"}),
+         "so": (("time", "station", "depth"), sp,
+                {"standard_name": "sea_water_practical_salinity", "units": "1"}),
+         "la": ("station", lat, {"standard_name": "latitude"}),
+         "lo": ("station", lon, {"standard_name": "longitude"}),
+         "h": ("station", np.array([1000.0, 1000.0]),
+               {"standard_name": "sea_floor_depth_below_sea_surface"})},
+        coords={"depth": ("depth", depths, {"standard_name": "depth", "units": "m"})},
+    )
+    sec = model_section(model, dp=1.0)
+    # compared at the surface, a level of both the model and the pressure grid
+    sa0 = gsw.SA_from_SP(sp[0, :, 0], 0.0, lon, lat)
+    np.testing.assert_allclose(sec["SA"].values[0, :, 0], sa0, rtol=1e-12)
+    np.testing.assert_allclose(sec["CT"].values[0, :, 0], gsw.CT_from_pt(sa0, pt[0, :, 0]),
+                               rtol=1e-12)
