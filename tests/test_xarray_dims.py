@@ -227,7 +227,6 @@ def test_model_practical_salinity_and_potential_temperature_convert_as_gsw():
     depths = np.array([0.0, 500.0, 1000.0])
     lat = np.array([25.0, 26.0])
     lon = np.array([-30.0, -29.0])
-    p_lev = gsw.p_from_z(-depths[None, :], lat[:, None])
     sp = np.array([[36.5, 35.2, 34.9], [36.3, 35.1, 34.95]])[None]
     pt = np.array([[24.0, 9.0, 4.5], [22.0, 8.5, 4.2]])[None]
     model = xr.Dataset(
