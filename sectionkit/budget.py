@@ -339,20 +339,3 @@ def section_outputs(
     grads.append(gpsi_z)
     units += ["Sv"] * psi_z.size
     return LinearOutputs(names, np.concatenate(initial), np.vstack(grads), units)
-
-
-def overturning_pressure(op: SectionOperator, outputs: LinearOutputs, x=None) -> float:
-    """Pressure (dbar) of the depth-space overturning maximum.
-
-    Parameters
-    ----------
-    op : SectionOperator
-        The section.
-    outputs : LinearOutputs
-        Its outputs (with the ``psi_depth:<k>`` rows).
-    x : ndarray (unknown,), optional
-        State (adjusted unknowns); x = 0 when None.
-    """
-    first = outputs.index("psi_depth:0")
-    psi = outputs.value(x)[first : first + op.pressure.size]
-    return float(op.pressure[int(np.argmax(np.abs(psi)))])
