@@ -245,6 +245,7 @@ def build_operator(
     ekman_depth: float = 50.0,
     bathymetry: list | None = None,
     max_dp: float = 1.0,
+    relative_velocity_of_pairs: np.ndarray | None = None,
 ) -> SectionOperator:
     """Build the linear transport operator of a section.
 
@@ -265,6 +266,10 @@ def build_operator(
         Per pair, sampled sea-floor pressures along the pair (dbar), or None.
     max_dp : float
         Integration step of gsw's dynamic height, dbar.
+    relative_velocity_of_pairs : ndarray (..., pair, level), optional
+        The velocity relative to the surface of this same section from an
+        earlier build (``extra["v_rel"]``), m s^-1: a change of classes,
+        bottom-triangle rule or Ekman depth then needs no new dynamic height.
 
     Returns
     -------
@@ -285,11 +290,14 @@ def build_operator(
             "merge or drop one of them"
         )
 
-    psi = dynamic_height(sa, ct, p, max_dp=max_dp)
-    v_rel = relative_velocity(psi, distance, f)
     last = last_valid_level(sa + ct)
     common, deepest = pair_level_limits(last)
-    v_rel = np.where(np.arange(p.size) <= common[..., None], v_rel, np.nan)
+    if relative_velocity_of_pairs is None:
+        psi = dynamic_height(sa, ct, p, max_dp=max_dp)
+        v_rel = relative_velocity(psi, distance, f)
+        v_rel = np.where(np.arange(p.size) <= common[..., None], v_rel, np.nan)
+    else:
+        v_rel = relative_velocity_of_pairs
     v_eff, response = extend_into_bottom_triangle(v_rel, p, common, deepest, bottom_triangle)
 
     sa_pair = pair_mean(sa)
@@ -380,7 +388,8 @@ def build_operator(
         ekman_depth=float(ekman_depth),
         bottom_triangle=bottom_triangle,
         extra={"sa_pair": sa_pair, "ct_pair": ct_pair, "rho_pair": rho_pair,
-               "class_moments": class_moments, "station_sa": sa, "station_ct": ct},
+               "class_moments": class_moments, "station_sa": sa, "station_ct": ct,
+               "v_rel": v_rel, "section": section},
     )
 
 

@@ -141,12 +141,20 @@ class Study:
         return study
 
     def rebuild_operators(self, progress: Callable[[str], None] | None = None) -> None:
-        """(Re)compute every section operator (after a change of classes or triangle rule)."""
+        """(Re)compute every section operator (after a change of classes or triangle rule).
+
+        Dynamic height is computed only for a section whose data the existing
+        operator was not built from; otherwise its relative velocity is reused.
+        """
         cfg = self.config
         for spec in cfg.sections:
-            if progress:
-                progress(f"dynamic height and classes of {spec.name}")
             ds = self.sections[spec.name]
+            previous = self.operators.get(spec.name)
+            if previous is not None and previous.extra.get("section") is not ds:
+                previous = None  # new data: dynamic height again
+            if progress:
+                progress(("classes of " if previous else "dynamic height and classes of ")
+                         + spec.name)
             if ds.attrs.get("section") != spec.name:
                 ds = ds.assign_attrs(section=spec.name)
                 self.sections[spec.name] = ds
@@ -157,6 +165,7 @@ class Study:
                 bottom_triangle=cfg.bottom_triangle,
                 ekman_depth=cfg.ekman_depth,
                 bathymetry=_bathymetry(cfg, spec, ds),
+                relative_velocity_of_pairs=None if previous is None else previous.extra["v_rel"],
             )
 
     # ------------------------------------------------------------ references

@@ -190,3 +190,32 @@ def test_uniform_flow_gives_closed_form_heat_freshwater_and_overturning():
     np.testing.assert_allclose(
         section_values(op, offset, b, reference_salinity=34.0)["freshwater"],
         values["net_mass"] * (1 - sa0 / 34.0), rtol=1e-10)
+
+
+def test_changing_classes_rebuilds_without_new_dynamic_height(monkeypatch):
+    # DESIGN.md §2: only the class operator depends on the interfaces; the
+    # rebuilt study equals a fresh one built from scratch with the new classes
+    import dataclasses
+
+    import sectionkit.operator as operator_module
+
+    section = thermocline_section(n=6, dp=10.0)
+    study = Study.from_config(_config(1500.0), sections={"south": section})
+    faces = [Interface(26.5, 0.0), Interface(36.8, 2000.0)]
+    study.config = dataclasses.replace(study.config, interfaces=faces,
+                                       layer_names=["light", "middle", "dense"])
+
+    def refuse(*args, **kwargs):
+        raise AssertionError("dynamic height recomputed")
+
+    monkeypatch.setattr(operator_module, "dynamic_height", refuse)
+    study.rebuild_operators()
+    monkeypatch.undo()
+    fresh = Study.from_config(study.config, sections={"south": section})
+    np.testing.assert_allclose(study.solve().outputs["south"].value(),
+                               fresh.solve().outputs["south"].value(), rtol=1e-12, atol=1e-12)
+    # new data are never taken for the old: a replaced section gets its own dynamic height
+    study.sections["south"] = thermocline_section(n=6, dp=10.0, tilt=100.0)
+    monkeypatch.setattr(operator_module, "dynamic_height", refuse)
+    with pytest.raises(AssertionError, match="dynamic height recomputed"):
+        study.rebuild_operators()
