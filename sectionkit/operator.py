@@ -25,7 +25,6 @@ import xarray as xr
 from sectionkit.errors import SectionDataError
 from sectionkit.geometry import pair_geometry
 from sectionkit.geostrophy import (
-    dynamic_height,
     extend_into_bottom_triangle,
     last_valid_level,
     pair_level_limits,
@@ -40,6 +39,7 @@ from sectionkit.layers import (
     class_weights,
     potential_density_anomaly,
 )
+from sectionkit.thermo import specific_volume_pass
 
 RHO0 = 1025.0  # kg m^-3, Boussinesq reference density of DESIGN.md §4 (common practice)
 CP0 = 3991.86795711963  # J kg^-1 K^-1, TEOS-10 c_p0 (IOC, SCOR and IAPSO 2010; gsw.cp0 in C)
@@ -293,16 +293,22 @@ def build_operator(
     last = last_valid_level(sa + ct)
     common, deepest = pair_level_limits(last)
     if relative_velocity_of_pairs is None:
-        psi = dynamic_height(sa, ct, p, max_dp=max_dp)
-        v_rel = relative_velocity(psi, distance, f)
+        # one pass of the equation of state: dynamic height integrated from the specific
+        # volume anomaly, in-situ density as the reciprocal of the same specific volume
+        eos = specific_volume_pass(sa, ct, p, max_dp=max_dp)
+        v_rel = relative_velocity(eos.dynamic_height, distance, f)
         v_rel = np.where(np.arange(p.size) <= common[..., None], v_rel, np.nan)
+        rho_station = eos.in_situ_density(out=eos.anomaly)
+        del eos
     else:
         v_rel = relative_velocity_of_pairs
+        rho_station = gsw.rho(sa, ct, p)
     v_eff, response = extend_into_bottom_triangle(v_rel, p, common, deepest, bottom_triangle)
 
     sa_pair = pair_mean(sa)
     ct_pair = pair_mean(ct)
-    rho_pair = pair_mean(gsw.rho(sa, ct, p))
+    rho_pair = pair_mean(rho_station)
+    del rho_station
     p_refs = sorted({face.p_ref for face in interfaces}) if interfaces else [0.0]
     sigma_pair = {pr: pair_mean(potential_density_anomaly(sa, ct, pr)) for pr in p_refs}
     # one array per interface (no stacked copy of the large fields)
