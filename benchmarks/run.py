@@ -126,7 +126,7 @@ def main(argv: list[str] | None = None) -> int:
     start = time.perf_counter()
     measured: list[Measurement] = []
     steps = [
-        lambda: [bench_pipeline.pipeline_vs_floor(args.quick)],
+        lambda: bench_pipeline.pipeline_vs_floor(args.quick),
         lambda: [bench_pipeline.reference_update(args.quick)],
         lambda: _inverse(args.quick),
         lambda: [bench_pipeline.ensemble_scaling(args.quick)],

@@ -16,6 +16,7 @@ recomputation of dynamic height.
 
 from __future__ import annotations
 
+import threading
 from dataclasses import dataclass, field
 
 import gsw
@@ -32,10 +33,12 @@ from sectionkit.geostrophy import (
     relative_velocity,
 )
 from sectionkit.layers import (
+    ClassLevels,
     Interface,
     bottom_width_fraction,
     cell_thickness,
     check_interfaces,
+    class_levels,
     class_weights,
     deciding_densities,
     potential_density_anomaly,
@@ -350,48 +353,29 @@ def build_operator(
     thickness = cell_thickness(p, geometry["lat"].values)
     width = bottom_width_fraction(p, bottom[:-1], bottom[1:], bathymetry)
     tail = _tail_thickness(p, deepest, bottom, geometry["lat"].values)
-    weights = class_weights(sigma_if, values, thickness, width, tail)
-    if not interfaces:
-        weights = weights[..., :1, :]
+    levels = class_levels(sigma_if, values, thickness, width, tail)
+    n_class = len(interfaces) + 1  # without interfaces, the one unreachable value adds none
+    weights = levels.dense()[..., :n_class, :]
 
-    rho0 = _masked(rho_pair)
-    sa0 = _masked(sa_pair)
-    ct0 = _masked(ct_pair)
-    props = {
-        "volume": np.ones_like(rho0),
-        "mass": rho0 / RHO0,
-        "salt": rho0 * sa0 / RHO0,
-        "heat": rho0 * CP0 * ct0,
-    }
+    # every class integral at once: each quantity times v (relative transport) and
+    # times the response (area), then the area moments [1, SA, SA^2, CT, CT^2]
     length = distance[:, None]
-    v0 = _masked(v_eff)
-    r0 = _masked(response)
-    # every class integral in one batched matrix product over the level axis:
-    # each quantity times v (relative transport) and times the response (area),
-    # then the area moments [1, SA, SA^2, CT, CT^2] of the class means
-    n_q = len(props)
-    fields = np.empty(v0.shape[:-1] + (2 * n_q + 5, v0.shape[-1]))
-    for m, q in enumerate(props.values()):
-        np.multiply(q, v0, out=fields[..., m, :])
-        np.multiply(q, r0, out=fields[..., n_q + m, :])
-    fields[..., 2 * n_q, :] = 1.0
-    fields[..., 2 * n_q + 1, :] = sa0
-    np.multiply(sa0, sa0, out=fields[..., 2 * n_q + 2, :])
-    fields[..., 2 * n_q + 3, :] = ct0
-    np.multiply(ct0, ct0, out=fields[..., 2 * n_q + 4, :])
-    integrals = np.matmul(weights, np.swapaxes(fields, -1, -2)) * length[..., None]
-    del fields
+    n_q = len(QUANTITIES)
+    integrals = _class_integrals(levels, v_eff, response, rho_pair, sa_pair, ct_pair)
+    integrals = integrals[..., :n_class, :] * length[..., None]  # (..., pair, class, field)
     relative = np.moveaxis(integrals[..., :n_q], -1, -3)  # (..., quantity, pair, class)
     area = np.moveaxis(integrals[..., n_q : 2 * n_q], -1, -3)
     # area moments of SA and CT per class: [area, SA, SA^2, CT, CT^2] integrals (m^2 units)
     class_moments = np.moveaxis(integrals[..., 2 * n_q :].sum(axis=-3), -1, -2)  # (..., 5, class)
 
-    column = weights.sum(axis=-2)  # (..., pair, level)
-    level_relative = (length * column * v0).sum(axis=-2)
-    level_area = length * column * r0
+    column = levels.column  # (..., pair, level), all classes
+    level_relative = np.einsum("j,...jk->...k", distance, column * _masked(v_eff))
+    level_area = length * column * _masked(response)
 
     ekman_share, level_ekman = _ekman_share(
-        sigma_if, values, p, geometry["lat"].values, ekman_depth, props
+        sigma_if, values, p, geometry["lat"].values, ekman_depth,
+        _quantities(rho_pair, sa_pair, ct_pair, slice(0, _ekman_levels(p, geometry["lat"].values,
+                                                                       ekman_depth))),
     )
 
     vol_area = class_moments[..., 0, :]
@@ -453,6 +437,98 @@ def _tail_thickness(
     return np.broadcast_to(dz * frac, deepest.shape)
 
 
+def _ekman_levels(p: np.ndarray, lat: np.ndarray, depth: float) -> int:
+    """Number of grid levels that cover the Ekman layer of every pair (and one more)."""
+    n_lev = int(np.searchsorted(p, gsw.p_from_z(-depth, float(np.max(np.abs(lat))))) + 2)
+    return min(max(n_lev, 2), p.size)
+
+
+def _quantities(rho: np.ndarray, sa: np.ndarray, ct: np.ndarray, levels: slice
+                ) -> dict[str, np.ndarray]:
+    """Each transported quantity per m^3 s^-1 of volume transport on some levels (NaN as 0)."""
+    rho0 = _masked(rho[..., levels])
+    sa0 = _masked(sa[..., levels])
+    ct0 = _masked(ct[..., levels])
+    return {"volume": np.ones_like(rho0), "mass": rho0 / RHO0, "salt": rho0 * sa0 / RHO0,
+            "heat": rho0 * CP0 * ct0}
+
+
+_SCRATCH = threading.local()
+
+
+def _scratch(shape: tuple[int, ...]) -> np.ndarray:
+    """A work array of this thread, reused from build to build (no fresh pages each time)."""
+    n = int(np.prod(shape))
+    buf = getattr(_SCRATCH, "buffer", None)
+    if buf is None or buf.size < n:
+        buf = np.empty(n)
+        _SCRATCH.buffer = buf
+    return buf[:n].reshape(shape)
+
+
+def _class_integrals(levels: ClassLevels, v: np.ndarray, response: np.ndarray, rho: np.ndarray,
+                     sa: np.ndarray, ct: np.ndarray) -> np.ndarray:
+    """Depth integrals over every class of the 13 fields of the operator, per pair.
+
+    Fields: v, v rho/RHO0, v rho SA/RHO0, v rho c_p0 CT (relative transports), the
+    same with the response instead of v (areas), then 1, SA, SA^2, CT, CT^2. Runs
+    of levels of one class are summed at once (``np.add.reduceat``); the split
+    cells are added from ``levels``' split weights.
+
+    Returns
+    -------
+    ndarray (..., pair, class, 13)
+        Integrals per metre of pair width (field unit times m).
+    """
+    shape = v.shape
+    n_lev = shape[-1]
+    n_row = int(np.prod(shape[:-1]))
+    n_class = levels.n_class
+    lc = levels.level_class.reshape(n_row, n_lev)
+    # a level without any of the fields belongs to no class (index n_class, dropped)
+    bad = np.isnan(v) | np.isnan(response) | np.isnan(rho) | np.isnan(sa) | np.isnan(ct)
+    lc = np.where(bad.reshape(n_row, n_lev), np.int8(n_class), lc)
+    tw = levels.level_weight.reshape(n_row, n_lev)
+    v2, r2, rho2, sa2, ct2 = (a.reshape(n_row, n_lev) for a in (v, response, rho, sa, ct))
+    mass = rho2 / RHO0
+    salt = mass * sa2
+    heat = rho2 * CP0
+    heat *= ct2
+    y = _scratch((13, n_row, n_lev))
+    for base, carrier in ((0, v2), (4, r2)):
+        np.multiply(tw, carrier, out=y[base])
+        for k, q in enumerate((mass, salt, heat), start=1):
+            np.multiply(y[base], q, out=y[base + k])
+    y[8] = tw
+    np.multiply(tw, sa2, out=y[9])
+    np.multiply(y[9], sa2, out=y[10])
+    np.multiply(tw, ct2, out=y[11])
+    np.multiply(y[11], ct2, out=y[12])
+    change = np.empty((n_row, n_lev), dtype=bool)
+    change[:, 0] = True
+    np.not_equal(lc[:, 1:], lc[:, :-1], out=change[:, 1:])
+    starts = np.flatnonzero(change)
+    sums = np.add.reduceat(y.reshape(13, n_row * n_lev), starts, axis=1)  # (13, run)
+    target = (starts // n_lev) * (n_class + 1) + lc.reshape(-1)[starts]
+    out = np.empty((13, n_row * (n_class + 1)))
+    for f in range(13):
+        out[f] = np.bincount(target, weights=sums[f], minlength=out.shape[1])
+    out = out.reshape(13, n_row, n_class + 1)[..., :n_class]
+    if levels.split_weight.size:
+        idx = levels.split_index
+        row = np.ravel_multi_index(idx[:-2], shape[:-1])
+        klass, lev = idx[-2], idx[-1]
+        w = levels.split_weight
+        at = (row, lev)
+        vv, rr, mm, ss, hh = v2[at] * w, r2[at] * w, mass[at], salt[at], heat[at]
+        sa_w, ct_w = sa2[at] * w, ct2[at] * w
+        parts = [vv, vv * mm, vv * ss, vv * hh, rr, rr * mm, rr * ss, rr * hh,
+                 w, sa_w, sa_w * sa2[at], ct_w, ct_w * ct2[at]]
+        for f, part in enumerate(parts):
+            np.add.at(out[f], (row, klass), part)
+    return np.moveaxis(out, 0, -1).reshape(shape[:-1] + (n_class, 13))
+
+
 def _ekman_share(
     sigma_if: list[np.ndarray],
     values: np.ndarray,
@@ -467,8 +543,7 @@ def _ekman_share(
     each pair and split among the classes found there. Also returns the
     fraction carried at each grid level, (..., pair, level).
     """
-    n_lev = int(np.searchsorted(p, gsw.p_from_z(-depth, float(np.max(np.abs(lat))))) + 2)
-    n_lev = min(max(n_lev, 2), p.size)
+    n_lev = _ekman_levels(p, lat, depth)
     z = -gsw.z_from_p(p[None, :n_lev], lat[:, None])  # depth, m (pair, level)
     seg_top = z[:, :-1]
     seg_bot = z[:, 1:]
@@ -480,7 +555,7 @@ def _ekman_share(
     total = w.sum(axis=(-2, -1))  # (..., pair)
     with np.errstate(invalid="ignore", divide="ignore"):
         share = [
-            np.einsum("...jik,...jk->...ji", w, _masked(q[..., :n_lev])) / total[..., None]
+            np.einsum("...jik,...jk->...ji", w, q[..., :n_lev]) / total[..., None]
             for q in props.values()
         ]
     column = w.sum(axis=-2)
