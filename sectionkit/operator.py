@@ -308,7 +308,8 @@ def build_operator(
     p = section["pressure"].values.astype(float)
     sa = section["SA"].transpose(..., "station", "pressure").values
     ct = section["CT"].transpose(..., "station", "pressure").values
-    geometry = pair_geometry(section)
+    bottom = section["bottom_pressure"].values.astype(float)
+    geometry, thickness, width = _fixed_parts(section, p, bottom, bathymetry)
     distance = geometry["distance"].values
     f = geometry["f"].values
     if np.any(distance <= 0):
@@ -349,9 +350,6 @@ def build_operator(
     # without interfaces one class holds everything: compare with an unreachable density
     values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([1e9])
 
-    bottom = section["bottom_pressure"].values.astype(float)
-    thickness = cell_thickness(p, geometry["lat"].values)
-    width = bottom_width_fraction(p, bottom[:-1], bottom[1:], bathymetry)
     tail = _tail_thickness(p, deepest, bottom, geometry["lat"].values)
     levels = class_levels(sigma_if, values, thickness, width, tail)
     n_class = len(interfaces) + 1  # without interfaces, the one unreachable value adds none
@@ -454,6 +452,40 @@ def _quantities(rho: np.ndarray, sa: np.ndarray, ct: np.ndarray, levels: slice
 
 
 _SCRATCH = threading.local()
+_FIXED: dict[tuple, tuple[xr.Dataset, np.ndarray, np.ndarray]] = {}
+_FIXED_LOCK = threading.Lock()
+_FIXED_SIZE = 4
+
+
+def _fixed_parts(section: xr.Dataset, p: np.ndarray, bottom: np.ndarray, bathymetry: list | None
+                 ) -> tuple[xr.Dataset, np.ndarray, np.ndarray]:
+    """Pair geometry, cell thickness and bottom width fraction of a section.
+
+    They depend on positions, bottoms and the grid only, which ensemble members
+    and repeated builds share: the last few are kept, keyed by the values
+    themselves (never by identity), and the arrays are returned read-only.
+    """
+    key = (section["lon"].values.tobytes(), section["lat"].values.tobytes(),
+           section["station"].values.tobytes(), bottom.tobytes(), p.tobytes(),
+           None if bathymetry is None else tuple(
+               None if t is None else np.asarray(t, float).tobytes() for t in bathymetry))
+    with _FIXED_LOCK:
+        hit = _FIXED.pop(key, None)
+        if hit is not None:
+            _FIXED[key] = hit  # most recently used last
+    if hit is None:
+        geometry = pair_geometry(section)
+        thickness = cell_thickness(p, geometry["lat"].values)
+        width = bottom_width_fraction(p, bottom[:-1], bottom[1:], bathymetry)
+        thickness.setflags(write=False)
+        width.setflags(write=False)
+        hit = (geometry, thickness, width)
+        with _FIXED_LOCK:
+            _FIXED[key] = hit
+            while len(_FIXED) > _FIXED_SIZE:
+                _FIXED.pop(next(iter(_FIXED)))
+    geometry, thickness, width = hit
+    return geometry.copy(deep=True), thickness, width
 
 
 def _scratch(shape: tuple[int, ...]) -> np.ndarray:

@@ -318,15 +318,23 @@ def _pchip_slopes(y: np.ndarray, h: float, count: np.ndarray) -> np.ndarray:
     neighbouring slopes, zero at extrema; end points by the edge rule; a
     two-point profile is a straight line).
     """
-    m = (y[:, 1:] - y[:, :-1]) / h  # slopes, (profile, level - 1)
+    m = np.subtract(y[:, 1:], y[:, :-1])
+    m /= h  # slopes, (profile, level - 1)
     mm, mp = m[:, :-1], m[:, 1:]
     w1 = 2 * h + h
     w2 = h + 2 * h
-    with np.errstate(invalid="ignore", divide="ignore"):
-        inner = (w1 + w2) / (w1 / mm + w2 / mp)
-    flat = (np.sign(mm) != np.sign(mp)) | (mm == 0) | (mp == 0)
     d = np.empty_like(y)
-    d[:, 1:-1] = np.where(flat, 0.0, inner)
+    inner = d[:, 1:-1]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        # (w1 + w2) / (w1 / mm + w2 / mp), in gsw's order of operations
+        np.divide(w1, mm, out=inner)
+        inner += np.divide(w2, mp)
+        np.divide(w1 + w2, inner, out=inner)
+    # zero at a change of sign or a flat neighbour (NaN slopes only lie below the bottom)
+    flat = np.signbit(mm) != np.signbit(mp)
+    flat |= mm == 0
+    flat |= mp == 0
+    np.copyto(inner, 0.0, where=flat)
     rows = np.arange(y.shape[0])
     hh = np.full(y.shape[0], h)
     three = count >= 3
@@ -382,10 +390,14 @@ def _fast_block(sa: np.ndarray, ct: np.ndarray, p: np.ndarray, n: int, max_dp: f
         dp_fine = np.diff(p_fine)
     # trapezoid steps -0.5 (b[i] + b[i+1]) dp db2pa, summed from the surface in gsw's order
     step = np.add(b_fine[:, 1:], b_fine[:, :-1])
-    step *= 0.5
-    step *= dp_fine
-    step *= _DB2PA
-    np.negative(step, out=step)
+    half_dp = 0.5 * float(dp_fine[0])
+    if np.all(dp_fine == dp_fine[0]) and half_dp == 2.0 ** np.round(np.log2(half_dp)):
+        step *= -half_dp * _DB2PA  # exactly the same rounding: 0.5 dp is a power of two
+    else:
+        step *= 0.5
+        step *= dp_fine
+        step *= _DB2PA
+        np.negative(step, out=step)
     psi_fine = np.empty(b_fine.shape)
     psi_fine[:, 0] = 0.0
     np.cumsum(step, axis=-1, out=psi_fine[:, 1:])  # NaN from the first level below the bottom
