@@ -102,7 +102,8 @@ class SectionOperator:
     common : ndarray (..., pair) of int
         Index of the deepest common level.
     weights : ndarray (..., pair, class, level)
-        Depth-integration weights of each class, m.
+        Depth-integration weights of each class, m (a property: formed from
+        ``class_levels`` when first asked for, then kept).
     relative : ndarray (..., quantity, pair, class)
         Transport for zero reference offset (velocity relative to the
         surface); units per ``QUANTITY_UNITS``.
@@ -124,6 +125,8 @@ class SectionOperator:
         first asked for).
     class_salinity, class_temperature : ndarray (..., class)
         Area-weighted mean SA (g/kg) and CT (degC) of each class.
+    class_levels : sectionkit.layers.ClassLevels
+        The class weights in compact form (a class per level, split cells).
     """
 
     name: str
@@ -135,7 +138,6 @@ class SectionOperator:
     response: np.ndarray
     common: np.ndarray
     deepest: np.ndarray
-    weights: np.ndarray
     relative: np.ndarray
     area: np.ndarray
     ekman_share: np.ndarray
@@ -149,6 +151,16 @@ class SectionOperator:
     ekman_depth: float
     bottom_triangle: str
     extra: dict = field(default_factory=dict)
+    class_levels: ClassLevels | None = None
+
+    @property
+    def weights(self) -> np.ndarray:
+        """Depth-integration weights (..., pair, class, level) of each class, m."""
+        w = self.extra.get("class_weights")
+        if w is None:
+            w = self.class_levels.dense()[..., : len(self.layer_names), :]
+            self.extra["class_weights"] = w
+        return w
 
     @property
     def n_pair(self) -> int:
@@ -353,7 +365,6 @@ def build_operator(
     tail = _tail_thickness(p, deepest, bottom, geometry["lat"].values)
     levels = class_levels(sigma_if, values, thickness, width, tail)
     n_class = len(interfaces) + 1  # without interfaces, the one unreachable value adds none
-    weights = levels.dense()[..., :n_class, :]
 
     # every class integral at once: each quantity times v (relative transport) and
     # times the response (area), then the area moments [1, SA, SA^2, CT, CT^2]
@@ -392,7 +403,6 @@ def build_operator(
         response=response,
         common=common,
         deepest=deepest,
-        weights=weights,
         relative=relative,
         area=area,
         ekman_share=ekman_share,
@@ -405,6 +415,7 @@ def build_operator(
         mean_salinity=mean_salinity,
         ekman_depth=float(ekman_depth),
         bottom_triangle=bottom_triangle,
+        class_levels=levels,
         extra={"sa_pair": sa_pair, "ct_pair": ct_pair, "rho_pair": rho_pair,
                "class_moments": class_moments, "station_sa": sa, "station_ct": ct,
                "v_rel": v_rel, "section": section},
