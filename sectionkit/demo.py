@@ -78,6 +78,7 @@ from scipy.interpolate import PchipInterpolator
 
 from sectionkit.errors import ComputationError
 from sectionkit.geostrophy import ReferenceChoice, resolve_references
+from sectionkit.inverse import interface_transfers, transfer_anomaly
 from sectionkit.layers import Interface
 from sectionkit.operator import QUANTITIES, SectionOperator, build_operator
 
@@ -925,11 +926,7 @@ class DemoTruth:
         """
         s_mean = self.class_mean_salinity()
         sections = (self.box_inflow("salt") - s_mean * self.box_inflow("mass")) / SV
-        transfers = np.zeros_like(s_mean)
-        for k, w in enumerate(self.diapycnal):
-            carried = 0.5 * (s_mean[k] + s_mean[k + 1])
-            transfers[k] -= w * (carried - s_mean[k])
-            transfers[k + 1] += w * (carried - s_mean[k + 1])
+        transfers = transfer_anomaly(interface_transfers(s_mean.size), s_mean) @ self.diapycnal
         return sections, transfers
 
     def salt_anomaly_residual(self) -> np.ndarray:

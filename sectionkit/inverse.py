@@ -31,7 +31,7 @@ import numpy as np
 
 from sectionkit.budget import PW, SV, UnknownLayout, class_transport_gradient
 from sectionkit.config import BoxSpec, InverseSpec, KnownTransport
-from sectionkit.errors import ConfigError
+from sectionkit.errors import ComputationError, ConfigError
 from sectionkit.operator import CP0, RHO0, SectionOperator
 from sectionkit.solvers import make_solver
 
@@ -160,11 +160,11 @@ def assemble(
 
         mass_v, mass_g = net("mass")
         dia = np.zeros((n_class, layout.size))
+        per_interface = interface_transfers(n_class)
         for n in range(n_class - 1):
             idx = layout.diapycnal.get((box.name, n))
             if idx is not None:
-                dia[n, idx] -= 1.0  # leaves the lighter class
-                dia[n + 1, idx] += 1.0  # enters the denser class
+                dia[:, idx] = per_interface[:, n]
         known_v = np.zeros(n_class)
         known_var = np.zeros(n_class)
         for kt in known:
@@ -186,7 +186,7 @@ def assemble(
             units.append("Sv")
         if "salt" in spec.conserve:
             salt_v, salt_g = net("salt")
-            dia_s = _transfer_anomaly(dia, sa_mean)
+            dia_s = transfer_anomaly(dia, sa_mean)
             contrast = _neighbour_contrast(sa_mean)
             for i, layer in enumerate(layer_names):
                 rows.append((box.name, f"salt:{layer}"))
@@ -199,7 +199,7 @@ def assemble(
         if "heat" in spec.conserve:
             heat_v, heat_g = net("heat")
             h = RHO0 * CP0 * SV / PW  # PW per (Sv degC)
-            dia_h = _transfer_anomaly(dia, ct_mean) * h
+            dia_h = transfer_anomaly(dia, ct_mean) * h
             contrast = _neighbour_contrast(ct_mean)
             for i, layer in enumerate(layer_names):
                 rows.append((box.name, f"heat:{layer}"))
@@ -240,18 +240,64 @@ def _neighbour_contrast(class_mean: np.ndarray) -> np.ndarray:
     return 0.5 * np.maximum(left, right)
 
 
-def _transfer_anomaly(dia: np.ndarray, class_mean: np.ndarray) -> np.ndarray:
-    """Property anomaly carried by the transfers, relative to each class mean.
+def interface_transfers(n_class: int) -> np.ndarray:
+    """Mass coefficients of one transfer per interface, Sv per Sv.
 
-    A transfer across interface n carries the mean of classes n and n + 1.
+    W_n is positive from the lighter class n to the denser class n + 1: it
+    leaves class n (-1) and enters class n + 1 (+1).
+
+    Parameters
+    ----------
+    n_class : int
+        Number of classes, dimensionless.
+
+    Returns
+    -------
+    ndarray (class, interface)
     """
-    out = np.zeros_like(dia)
-    n_class = dia.shape[0]
+    out = np.zeros((n_class, max(n_class - 1, 0)))
     for n in range(n_class - 1):
-        carried = 0.5 * (class_mean[n] + class_mean[n + 1])
-        out[n] += dia[n] * (carried - class_mean[n])
-        out[n + 1] += dia[n + 1] * (carried - class_mean[n + 1])
+        out[n, n] = -1.0
+        out[n + 1, n] = 1.0
     return out
+
+
+def transfer_anomaly(dia: np.ndarray, class_mean: np.ndarray) -> np.ndarray:
+    """Property anomaly carried by the diapycnal transfers, relative to each class mean.
+
+    A transfer joins two classes and carries the mean of their two class means
+    (layered box budget: Wunsch 1996, *The Ocean Circulation Inverse Problem*,
+    ch. 2; Ganachaud 2003, J. Geophys. Res.). Transfer W_n, from class n to
+    class n + 1, carries ``k_n = (C_n + C_{n+1}) / 2``; in its column class n's
+    anomaly row holds ``-(k_n - C_n)`` and class n + 1's ``+(k_n - C_{n+1})``;
+    no other row holds anything.
+
+    Parameters
+    ----------
+    dia : ndarray (class, unknown)
+        Mass coefficients of the transfers: in each transfer's column -1 in the
+        class it leaves and +1 in the class it enters (Sv per Sv); other
+        columns all zero.
+    class_mean : ndarray (class,)
+        Box-class mean of the property (g/kg, degC, ...).
+
+    Returns
+    -------
+    ndarray (class, unknown)
+        Anomaly coefficient of every transfer in every class row, property
+        unit per Sv of transfer.
+    """
+    dia = np.asarray(dia, float)
+    class_mean = np.asarray(class_mean, float)
+    joined = dia != 0.0
+    n_joined = joined.sum(axis=0)
+    used = n_joined > 0
+    if np.any(n_joined[used] != 2):
+        raise ComputationError("a diapycnal transfer column must join exactly two classes; "
+                               "this is a bug in the constraint assembly, please report it")
+    carried = np.zeros(dia.shape[1])
+    carried[used] = (joined[:, used] * class_mean[:, None]).sum(axis=0) / 2.0
+    return np.where(joined, dia * (carried[None, :] - class_mean[:, None]), 0.0)
 
 
 @dataclass
