@@ -109,6 +109,11 @@ class InverseSpec:
     known: list[KnownTransport] = field(default_factory=list)
     section_net: list[SectionNet] = field(default_factory=list)
     bounds: dict[str, list[float]] = field(default_factory=dict)
+    salinity: str = "preformed"
+    prior_correlation_km: float = 0.0
+
+
+SALINITY_KINDS = ("preformed", "absolute")
 
 
 @dataclass
@@ -399,7 +404,7 @@ def _check_pair_label(label: str, names: list[str], where: str) -> None:
 def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
     allowed = ("solver", "rank", "conserve", "prior_velocity", "prior_diapycnal", "prior_ekman",
                "noise_total", "noise_layer", "noise_salt", "noise_heat", "known", "section_net",
-               "bounds")
+               "bounds", "salinity", "prior_correlation_km")
     _check_keys(inv, allowed, "[inverse]")
     spec = InverseSpec()
     spec.solver = str(inv.get("solver", spec.solver))
@@ -427,6 +432,14 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
                                "[inverse] prior_ekman", nonneg=True)
     spec.noise_total = _number(inv.get("noise_total", spec.noise_total),
                                "[inverse] noise_total", positive=True)
+    spec.salinity = inv.get("salinity", spec.salinity)
+    if spec.salinity not in SALINITY_KINDS:
+        close = difflib.get_close_matches(str(spec.salinity), SALINITY_KINDS, n=1)
+        raise ConfigError(f"[inverse] salinity = {spec.salinity!r} is not one of "
+                          f"{', '.join(SALINITY_KINDS)} (the salinity of the salt budgets)"
+                          + (f"; did you mean {close[0]!r}?" if close else ""))
+    spec.prior_correlation_km = _number(inv.get("prior_correlation_km", 0.0),
+                                        "[inverse] prior_correlation_km", nonneg=True)
     n_class = len(cfg.layer_names)
     for key in ("noise_layer", "noise_salt", "noise_heat"):
         values = inv.get(key, [])

@@ -32,11 +32,13 @@ import numpy as np
 from sectionkit.budget import PW, SV, UnknownLayout, class_transport_gradient
 from sectionkit.config import BoxSpec, InverseSpec, KnownTransport
 from sectionkit.errors import ComputationError, ConfigError
+from sectionkit.geometry import haversine
 from sectionkit.operator import CP0, RHO0, SectionOperator
 from sectionkit.solvers import make_solver
 
 SALT_NOISE_FLOOR = 0.005  # g/kg: smallest salinity spread used to scale salt-anomaly noise
 TEMPERATURE_NOISE_FLOOR = 0.05  # degC, the same for heat
+CORRELATION_NUGGET = 1e-6  # white fraction of correlated pair priors (positive definite)
 
 
 @dataclass
@@ -57,6 +59,9 @@ class ConstraintSystem:
         One standard deviation of each unknown's prior.
     units : list of str
         Unit of each row.
+    prior_covariance : ndarray (unknown, unknown) or None
+        Full prior covariance when unknowns are correlated (its diagonal is
+        ``prior**2``); None for independent unknowns.
     """
 
     rows: list[tuple[str, str]]
@@ -65,6 +70,13 @@ class ConstraintSystem:
     noise: np.ndarray
     prior: np.ndarray
     units: list[str]
+    prior_covariance: np.ndarray | None = None
+
+    def prior_matrix(self) -> np.ndarray:
+        """The prior covariance as a full matrix, unknown units squared."""
+        if self.prior_covariance is not None:
+            return self.prior_covariance
+        return np.diag(self.prior**2)
 
     @property
     def target(self) -> np.ndarray:
@@ -228,8 +240,49 @@ def assemble(
         prior[idx] = spec.prior_diapycnal
     for idx in layout.ekman.values():
         prior[idx] = spec.prior_ekman
+    covariance = None
+    if spec.prior_correlation_km > 0:
+        covariance = np.diag(prior**2)
+        for name, op in operators.items():
+            sl = layout.pair_slices[name]
+            rho = along_section_correlation(op.pairs["lon"].values, op.pairs["lat"].values,
+                                            spec.prior_correlation_km)
+            covariance[sl, sl] = rho * np.outer(prior[sl], prior[sl])
     return ConstraintSystem(rows, np.vstack(e_rows), np.asarray(initial), np.asarray(noise),
-                            prior, units)
+                            prior, units, covariance)
+
+
+def along_section_correlation(
+    lon: np.ndarray, lat: np.ndarray, correlation_km: float
+) -> np.ndarray:
+    """Gaussian correlation of the reference-velocity priors of one section's pairs.
+
+    ``rho_jk = (1 - eps) exp(-d_jk^2 / (2 L^2)) + eps delta_jk`` with ``d_jk``
+    the great-circle distance between the mid-points of pairs j and k, ``L``
+    the correlation length (common practice for smooth reference-velocity
+    errors) and ``eps = CORRELATION_NUGGET`` a small white part.
+
+    Parameters
+    ----------
+    lon, lat : ndarray (pair,)
+        Pair mid-points, degrees_east and degrees_north.
+    correlation_km : float
+        Correlation length L, km; 0 gives the identity (independent pairs).
+
+    Returns
+    -------
+    ndarray (pair, pair)
+        Correlation matrix, dimensionless.
+    """
+    lon = np.asarray(lon, float)
+    lat = np.asarray(lat, float)
+    if correlation_km <= 0:
+        return np.eye(lon.size)
+    d = haversine(lon[:, None], lat[:, None], lon[None, :], lat[None, :]) / 1e3
+    # a white part of CORRELATION_NUGGET keeps the matrix positive definite when L is
+    # long against the pair spacing (a Gaussian kernel is then numerically singular)
+    return ((1.0 - CORRELATION_NUGGET) * np.exp(-0.5 * (d / correlation_km) ** 2)
+            + CORRELATION_NUGGET * np.eye(lon.size))
 
 
 def _neighbour_contrast(class_mean: np.ndarray) -> np.ndarray:
@@ -332,6 +385,25 @@ class InverseResult:
         return self.adjusted / self.system.noise
 
     @property
+    def posterior_residual_std(self) -> np.ndarray:
+        """Standard deviation of each constraint's residual the estimate can achieve, row units.
+
+        ``sqrt(diag(N - E P E^T))`` (Wunsch 1996, *The Ocean Circulation
+        Inverse Problem*, ch. 3): the noise less the part of it the adjusted
+        unknowns absorb. Zero (to rounding) where the unknowns fit a row exactly.
+        """
+        e = self.system.matrix
+        projected = np.einsum("ij,jk,ik->i", e, self.covariance, e)
+        return np.sqrt(np.maximum(self.system.noise**2 - projected, 0.0))
+
+    @property
+    def posterior_normalized_residuals(self) -> np.ndarray:
+        """Adjusted inflow over its posterior residual std; NaN where that std is zero."""
+        sd = self.posterior_residual_std
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(sd > 0, self.adjusted / sd, np.nan)
+
+    @property
     def resolution_diagonal(self) -> np.ndarray:
         """Diagonal of the model resolution matrix per unknown (0 where not solved for)."""
         out = np.zeros(self.system.prior.size)
@@ -376,8 +448,10 @@ def solve(
     """
     active = system.prior > 0
     e = system.matrix[:, active]
+    prior_variance = (system.prior[active] ** 2 if system.prior_covariance is None
+                      else system.prior_covariance[np.ix_(active, active)])
     settings: dict = {
-        "prior_variance": system.prior[active] ** 2,
+        "prior_variance": prior_variance,
         "noise_variance": system.noise**2,
     }
     if spec.solver == "svd":

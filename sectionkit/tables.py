@@ -74,7 +74,8 @@ def pair_table(study: Study, results: Results) -> pd.DataFrame:
 def box_table(results: Results) -> pd.DataFrame:
     """box_budget.csv: one row per box constraint (net inflow, positive in)."""
     inv = results.inverse
-    columns = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual", "unit",
+    columns = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual",
+               "posterior_residual_std", "posterior_normalized_residual", "unit",
                "initial_normalized_residual"]
     if inv is None:
         return pd.DataFrame(columns=columns)
@@ -87,6 +88,8 @@ def box_table(results: Results) -> pd.DataFrame:
         "adjusted": adjusted,
         "noise": sys_.noise,
         "normalized_residual": adjusted / sys_.noise,
+        "posterior_residual_std": inv.posterior_residual_std,
+        "posterior_normalized_residual": inv.posterior_normalized_residuals,
         "unit": sys_.units,
         "initial_normalized_residual": sys_.initial / sys_.noise,
     }, columns=columns)
