@@ -142,6 +142,11 @@ class Config:
         files = [spec.file] if isinstance(spec.file, str) else list(spec.file)
         return [(self.base_dir / f) if not Path(f).is_absolute() else Path(f) for f in files]
 
+    @property
+    def salt_salinity(self) -> str:
+        """Salinity of salt transports and budgets: ``[inverse] salinity`` or "preformed"."""
+        return self.inverse.salinity if self.inverse is not None else "preformed"
+
     def section_names(self) -> list[str]:
         """Names of the sections, in configuration order."""
         return [s.name for s in self.sections]

@@ -26,6 +26,7 @@ import pandas as pd
 from sectionkit.config import Config, parse_config
 from sectionkit.errors import InputFileError
 from sectionkit.figures import write_figures
+from sectionkit.operator import SALINITY_NAMES
 from sectionkit.paper import write_paper_tables
 from sectionkit.study import Results, Study
 from sectionkit.tables import (  # noqa: F401  (re-exported: the §7 tables)
@@ -80,6 +81,7 @@ def provenance(study: Study, results: Results) -> dict:
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
         "cautions": [str(c) for c in results.cautions],
         "inverse": results.inverse.summary() if results.inverse else None,
+        "salt_salinity": SALINITY_NAMES[cfg.salt_salinity],
     }
 
 

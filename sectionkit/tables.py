@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from sectionkit.operator import SALINITY_NAMES
 from sectionkit.study import Results, Study
 
 
@@ -135,12 +136,18 @@ def summary_table(study: Study, results: Results) -> pd.DataFrame:
             row[col] = results.value(name, key)
             row[col.replace("_sv", "_err_sv").replace("_pw", "_err_pw")] = results.error(name, key)
         row["net_mass_sv"] = results.value(name, "net_mass")
+        op = study.operators[name]
+        row["freshwater_ref_salinity"] = (float(op.mean_salinity)
+                                          if study.config.reference_salinity is None
+                                          else study.config.reference_salinity)
+        row["freshwater_ref_kind"] = SALINITY_NAMES[study.config.salt_salinity]
         row["overturning_density_sv"] = results.value(name, "overturning_density")
         row["overturning_density_err_sv"] = results.error(name, "overturning_density")
         rows.append(row)
     order = ["section", "net_sv", "net_err_sv", "heat_pw", "heat_err_pw", "freshwater_sv",
              "freshwater_err_sv", "overturning_sv", "overturning_err_sv", "net_mass_sv",
-             "overturning_density_sv", "overturning_density_err_sv"]
+             "overturning_density_sv", "overturning_density_err_sv", "freshwater_ref_salinity",
+             "freshwater_ref_kind"]
     return pd.DataFrame(rows)[order]
 
 
