@@ -17,7 +17,7 @@ import pandas as pd
 import xarray as xr
 
 from sectionkit.budget import LinearOutputs, UnknownLayout, make_layout, section_outputs
-from sectionkit.config import Config
+from sectionkit.config import Config, check_pair_labels
 from sectionkit.errors import Cautions, ConfigError, InputFileError
 from sectionkit.geometry import great_circle_distance
 from sectionkit.geostrophy import resolve_references
@@ -137,6 +137,8 @@ class Study:
             )
             study.sections[spec.name] = ds
             study.load_cautions.extend(cautions)
+        check_pair_labels(config, {name: ds.sizes["station"] - 1
+                                   for name, ds in study.sections.items()})
         study.rebuild_operators(progress)
         return study
 
