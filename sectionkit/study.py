@@ -17,13 +17,13 @@ import pandas as pd
 import xarray as xr
 
 from sectionkit.budget import LinearOutputs, UnknownLayout, make_layout, section_outputs
-from sectionkit.config import Config
+from sectionkit.config import Config, check_pair_labels
 from sectionkit.errors import Cautions, ConfigError, InputFileError
 from sectionkit.geometry import great_circle_distance
 from sectionkit.geostrophy import resolve_references
 from sectionkit.inverse import InverseResult, assemble, solve
 from sectionkit.io import load_section
-from sectionkit.io.validate import check_pair_latitudes
+from sectionkit.io.validate import check_gridded_levels, check_pair_latitudes
 from sectionkit.operator import SectionOperator, build_operator
 
 NET_MASS_HEAT_TOLERANCE = 0.1  # Sv: above it, heat is reported as a temperature transport
@@ -123,6 +123,7 @@ class Study:
                 check_pair_latitudes(spec.name, [str(s) for s in ds["station"].values],
                                      ds["lon"].values, ds["lat"].values, config.allow_equator,
                                      study.load_cautions)
+                check_gridded_levels(ds)
                 study.sections[spec.name] = ds
                 continue
             if progress:
@@ -137,6 +138,8 @@ class Study:
             )
             study.sections[spec.name] = ds
             study.load_cautions.extend(cautions)
+        check_pair_labels(config, {name: ds.sizes["station"] - 1
+                                   for name, ds in study.sections.items()})
         study.rebuild_operators(progress)
         return study
 
