@@ -15,11 +15,14 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import tomli_w
 
-from sectionkit.errors import ConfigError, InputFileError
+from sectionkit.errors import ConfigError, InputFileError, SectionkitError
 from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
+from sectionkit.io.units import pressure_to_dbar, temperature_to_celsius
 from sectionkit.layers import Interface, check_interfaces
+from sectionkit.thermo import SALINITY_KINDS, TEMPERATURE_KINDS
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -28,6 +31,37 @@ else:  # pragma: no cover
 
 SOLVER_NAMES = ("gauss-markov", "svd", "bounded")
 CONSTRAINT_KINDS = ("mass", "salt", "heat")
+DEEPEST_COMMON = "deepest_common"  # the reference at each pair's deepest common level
+
+# Every key the parser accepts, by table: the schema the parser checks against and the
+# user guide (docs/configuration.md) documents. Old names accepted for a key are in ALIASES.
+KEYS: dict[str, tuple[str, ...]] = {
+    "": ("title", "grid", "sections", "boxes", "reference", "ekman", "classes", "budget",
+         "inverse"),
+    "grid": ("dp",),
+    "sections": ("name", "file", "into_box", "columns", "bathymetry", "temperature_kind",
+                 "salinity_kind", "pressure_units", "temperature_units"),
+    "boxes": ("name", "enters", "leaves"),
+    "reference": ("pressure", "isopycnal", "velocity", "bottom_triangle", "overrides",
+                  "allow_equator"),
+    "reference.isopycnal": ("sigma", "p_ref"),
+    "reference.velocity": ("velocity", "pressure", "error"),
+    "ekman": ("depth", "stress"),
+    "classes": ("interfaces", "names"),
+    "classes.interfaces": ("sigma", "p_ref"),
+    "budget": ("reference_salinity",),
+    "inverse": ("solver", "rank", "conserve", "prior_velocity", "prior_diapycnal",
+                "prior_ekman", "noise_total", "noise_class", "noise_salt", "noise_heat",
+                "known", "section_net", "bounds"),
+    "inverse.known": ("name", "transport", "noise", "class", "box"),
+    "inverse.section_net": ("section", "transport", "noise"),
+}
+# old key name -> current name, per table (both accepted; the current one is written)
+ALIASES: dict[str, dict[str, str]] = {
+    "": {"layers": "classes"},
+    "inverse": {"noise_layer": "noise_class"},
+    "inverse.known": {"layer": "class"},
+}
 
 
 def _check_keys(table: dict, allowed: tuple[str, ...], where: str) -> None:
@@ -37,6 +71,24 @@ def _check_keys(table: dict, allowed: tuple[str, ...], where: str) -> None:
             hint = (f"; did you mean {close[0]!r}?" if close
                     else f"; valid keys: {', '.join(allowed)}")
             raise ConfigError(f"unknown key {key!r} in {where}{hint}")
+
+
+def _current_names(table: dict, schema: str, where: str) -> dict:
+    """``table`` with old key names (:data:`ALIASES`) replaced by the current ones.
+
+    Giving a key under both names is an error, so nothing is silently dropped.
+    """
+    aliases = ALIASES.get(schema, {})
+    if not isinstance(table, dict) or not any(k in table for k in aliases):
+        return table
+    out = dict(table)
+    for old, new in aliases.items():
+        if old in out:
+            if new in out:
+                raise ConfigError(f"{where} gives both {new!r} and its old name {old!r}; "
+                                  f"keep {new!r}")
+            out[new] = out.pop(old)
+    return out
 
 
 def _number(value: Any, where: str, *, positive: bool = False, nonneg: bool = False) -> float:
@@ -61,6 +113,16 @@ class SectionSpec:
     into_box: bool = True
     columns: dict[str, str] = field(default_factory=dict)
     bathymetry: str | None = None
+    temperature_kind: str = "in-situ"
+    salinity_kind: str = "practical"
+    pressure_units: str = "dbar"
+    temperature_units: str = "degC"
+
+    def csv_options(self) -> dict[str, Any]:
+        """The CSV layout options of this section, as keyword arguments of the readers."""
+        return {"columns": self.columns or None, "temperature_kind": self.temperature_kind,
+                "salinity_kind": self.salinity_kind, "pressure_units": self.pressure_units,
+                "temperature_units": self.temperature_units}
 
 
 @dataclass
@@ -168,6 +230,10 @@ class Config:
                 d["columns"] = dict(s.columns)
             if s.bathymetry:
                 d["bathymetry"] = s.bathymetry
+            for key, default in (("temperature_kind", "in-situ"), ("salinity_kind", "practical"),
+                                 ("pressure_units", "dbar"), ("temperature_units", "degC")):
+                if getattr(s, key) != default:
+                    d[key] = getattr(s, key)
             sections.append(d)
         out["sections"] = sections
         if self.boxes:
@@ -188,7 +254,7 @@ class Config:
         }
         if self.layer_names:
             layers["names"] = list(self.layer_names)
-        out["layers"] = layers
+        out["classes"] = layers
         if self.reference_salinity is not None:
             out["budget"] = {"reference_salinity": self.reference_salinity}
         if self.inverse is not None:
@@ -196,7 +262,10 @@ class Config:
             inv["known"] = [
                 {k: v for k, v in asdict(kt).items() if v is not None} for kt in self.inverse.known
             ]
-            for key in ("noise_layer", "noise_salt", "noise_heat", "bounds"):
+            inv["known"] = [{("class" if k == "layer" else k): v for k, v in kt.items()}
+                            for kt in inv["known"]]
+            inv["noise_class"] = inv.pop("noise_layer")
+            for key in ("noise_class", "noise_salt", "noise_heat", "bounds"):
                 if not inv[key]:
                     del inv[key]
             if not inv["known"]:
@@ -227,7 +296,7 @@ class Config:
 
 def _reference_to_toml(ref: ReferenceChoice, top: bool = False) -> Any:
     if ref.kind == "bottom":
-        return {"pressure": "bottom"} if top else "bottom"
+        return {"pressure": DEEPEST_COMMON} if top else DEEPEST_COMMON
     if ref.kind == "pressure":
         return {"pressure": ref.pressure} if top else ref.pressure
     if ref.kind == "isopycnal":
@@ -238,22 +307,26 @@ def _reference_to_toml(ref: ReferenceChoice, top: bool = False) -> Any:
 
 
 def parse_reference(value: Any, where: str) -> ReferenceChoice:
-    """A reference from its TOML form: number, ``"bottom"``, isopycnal or velocity table."""
+    """A reference from its TOML form: number, ``"deepest_common"``, isopycnal or velocity table.
+
+    ``"bottom"`` is the old name of ``"deepest_common"`` and still accepted.
+    See docs/configuration.md, section ``[reference]``.
+    """
     if isinstance(value, str):
-        if value == "bottom":
+        if value in (DEEPEST_COMMON, "bottom"):
             return ReferenceChoice("bottom")
-        raise ConfigError(f'{where} = {value!r}: use a pressure in dbar, "bottom", '
+        raise ConfigError(f'{where} = {value!r}: use a pressure in dbar, "{DEEPEST_COMMON}", '
                           "{ sigma = ..., p_ref = ... } or { velocity = ..., pressure = ... }")
     if isinstance(value, dict):
         if "sigma" in value:
-            _check_keys(value, ("sigma", "p_ref"), where)
+            _check_keys(value, KEYS["reference.isopycnal"], where)
             return ReferenceChoice(
                 "isopycnal",
                 sigma=_number(value["sigma"], f"{where}.sigma"),
                 sigma_p_ref=_number(value.get("p_ref", 0.0), f"{where}.p_ref", nonneg=True),
             )
         if "velocity" in value:
-            _check_keys(value, ("velocity", "pressure", "error"), where)
+            _check_keys(value, KEYS["reference.velocity"], where)
             if "pressure" not in value:
                 raise ConfigError(
                     f"{where}: a known velocity needs the pressure it was measured at"
@@ -268,8 +341,7 @@ def parse_reference(value: Any, where: str) -> ReferenceChoice:
     return ReferenceChoice("pressure", pressure=_number(value, where, nonneg=True))
 
 
-TOP_KEYS = ("title", "grid", "sections", "boxes", "reference", "ekman", "layers", "budget",
-            "inverse")
+TOP_KEYS = KEYS[""]
 
 
 def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
@@ -282,12 +354,13 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
     base_dir : Path, optional
         Folder that relative file names are taken from.
     """
-    _check_keys(data, TOP_KEYS, "the configuration")
+    data = _current_names(data, "", "the configuration")
+    _check_keys(data, KEYS[""], "the configuration")
     cfg = Config(base_dir=Path(base_dir) if base_dir else Path.cwd())
     cfg.title = str(data.get("title", cfg.title))
 
     grid = data.get("grid", {})
-    _check_keys(grid, ("dp",), "[grid]")
+    _check_keys(grid, KEYS["grid"], "[grid]")
     cfg.dp = _number(grid.get("dp", 2.0), "[grid] dp", positive=True)
 
     sections = data.get("sections", [])
@@ -295,7 +368,7 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
         raise ConfigError("the configuration has no [[sections]]; add at least one line")
     for n, sec in enumerate(sections):
         where = f"[[sections]] #{n + 1}"
-        _check_keys(sec, ("name", "file", "into_box", "columns", "bathymetry"), where)
+        _check_keys(sec, KEYS["sections"], where)
         for key in ("name", "file"):
             if key not in sec:
                 raise ConfigError(f"{where} is missing {key!r}")
@@ -311,13 +384,14 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
                 into_box=bool(sec.get("into_box", True)),
                 columns=dict(sec.get("columns", {})),
                 bathymetry=sec.get("bathymetry"),
+                **_csv_layout(sec, where),
             )
         )
     names = cfg.section_names()
 
     for n, box in enumerate(data.get("boxes", [])):
         where = f"[[boxes]] #{n + 1}"
-        _check_keys(box, ("name", "enters", "leaves"), where)
+        _check_keys(box, KEYS["boxes"], where)
         spec = BoxSpec(str(box.get("name", f"box{n + 1}")), list(box.get("enters", [])),
                        list(box.get("leaves", [])))
         for s in spec.enters + spec.leaves:
@@ -331,8 +405,7 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
         cfg.boxes.append(spec)
 
     ref = data.get("reference", {})
-    _check_keys(ref, ("pressure", "isopycnal", "velocity", "bottom_triangle", "overrides",
-                      "allow_equator"), "[reference]")
+    _check_keys(ref, KEYS["reference"], "[reference]")
     kinds = [k for k in ("pressure", "isopycnal", "velocity") if k in ref]
     if len(kinds) > 1:
         raise ConfigError(f"[reference] sets both {kinds[0]!r} and {kinds[1]!r}; choose one")
@@ -350,7 +423,7 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
     cfg.allow_equator = bool(ref.get("allow_equator", False))
 
     ek = data.get("ekman", {})
-    _check_keys(ek, ("depth", "stress"), "[ekman]")
+    _check_keys(ek, KEYS["ekman"], "[ekman]")
     cfg.ekman_depth = _number(ek.get("depth", 50.0), "[ekman] depth", positive=True)
     for sec_name, stress in ek.get("stress", {}).items():
         if sec_name not in names:
@@ -364,20 +437,20 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
             _number(stress[1], f"[ekman] stress {sec_name}[1]"),
         )
 
-    layers = data.get("layers", {})
-    _check_keys(layers, ("interfaces", "names"), "[layers]")
+    layers = data.get("classes", {})
+    _check_keys(layers, KEYS["classes"], "[classes]")
     for n, face in enumerate(layers.get("interfaces", [])):
         if not isinstance(face, dict):
-            raise ConfigError(f"[layers] interface {n}: use {{ sigma = ..., p_ref = ... }}")
-        _check_keys(face, ("sigma", "p_ref"), f"[layers] interface {n}")
+            raise ConfigError(f"[classes] interface {n}: use {{ sigma = ..., p_ref = ... }}")
+        _check_keys(face, KEYS["classes.interfaces"], f"[classes] interface {n}")
         cfg.interfaces.append(Interface(
-            _number(face.get("sigma"), f"[layers] interface {n} sigma"),
-            _number(face.get("p_ref", 0.0), f"[layers] interface {n} p_ref", nonneg=True),
+            _number(face.get("sigma"), f"[classes] interface {n} sigma"),
+            _number(face.get("p_ref", 0.0), f"[classes] interface {n} p_ref", nonneg=True),
         ))
     cfg.layer_names = check_interfaces(cfg.interfaces, layers.get("names"))
 
     budget = data.get("budget", {})
-    _check_keys(budget, ("reference_salinity",), "[budget]")
+    _check_keys(budget, KEYS["budget"], "[budget]")
     if "reference_salinity" in budget:
         cfg.reference_salinity = _number(budget["reference_salinity"],
                                          "[budget] reference_salinity", positive=True)
@@ -385,6 +458,30 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
     if "inverse" in data:
         cfg.inverse = _parse_inverse(data["inverse"], cfg)
     return cfg
+
+
+def _csv_layout(sec: dict[str, Any], where: str) -> dict[str, Any]:
+    """The CSV layout keys of one ``[[sections]]`` table (what the columns hold)."""
+    out: dict[str, Any] = {}
+    for key, allowed in (("temperature_kind", TEMPERATURE_KINDS),
+                         ("salinity_kind", SALINITY_KINDS)):
+        if key not in sec:
+            continue
+        value = sec[key]
+        if value not in allowed:
+            close = difflib.get_close_matches(str(value), allowed, n=1)
+            raise ConfigError(f"{where}: {key} = {value!r} is not one of {', '.join(allowed)}"
+                              + (f"; did you mean {close[0]!r}?" if close else ""))
+        out[key] = value
+    for key, convert in (("pressure_units", pressure_to_dbar),
+                         ("temperature_units", temperature_to_celsius)):
+        if key in sec:
+            try:  # the readers' own unit tables decide what is understood
+                convert(np.zeros(1), str(sec[key]), f"{where} {key}")
+            except SectionkitError as exc:
+                raise ConfigError(str(exc)) from None
+            out[key] = str(sec[key])
+    return out
 
 
 def _check_pair_label(label: str, names: list[str], where: str) -> None:
@@ -397,10 +494,8 @@ def _check_pair_label(label: str, names: list[str], where: str) -> None:
 
 
 def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
-    allowed = ("solver", "rank", "conserve", "prior_velocity", "prior_diapycnal", "prior_ekman",
-               "noise_total", "noise_layer", "noise_salt", "noise_heat", "known", "section_net",
-               "bounds")
-    _check_keys(inv, allowed, "[inverse]")
+    inv = _current_names(inv, "inverse", "[inverse]")
+    _check_keys(inv, KEYS["inverse"], "[inverse]")
     spec = InverseSpec()
     spec.solver = str(inv.get("solver", spec.solver))
     if spec.solver not in SOLVER_NAMES:
@@ -428,23 +523,25 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
     spec.noise_total = _number(inv.get("noise_total", spec.noise_total),
                                "[inverse] noise_total", positive=True)
     n_class = len(cfg.layer_names)
-    for key in ("noise_layer", "noise_salt", "noise_heat"):
+    for key, attr in (("noise_class", "noise_layer"), ("noise_salt", "noise_salt"),
+                      ("noise_heat", "noise_heat")):
         values = inv.get(key, [])
         if values and len(values) != n_class:
             raise ConfigError(f"[inverse] {key} has {len(values)} entries; give one per class "
                               f"({n_class}: {', '.join(cfg.layer_names)})")
-        setattr(spec, key, [_number(v, f"[inverse] {key}[{i}]", positive=True)
-                            for i, v in enumerate(values)])
+        setattr(spec, attr, [_number(v, f"[inverse] {key}[{i}]", positive=True)
+                             for i, v in enumerate(values)])
     if not spec.noise_layer:
         spec.noise_layer = [1.0] * n_class
     box_names = [b.name for b in cfg.effective_boxes()]
     for n, kt in enumerate(inv.get("known", [])):
         where = f"[inverse] known #{n + 1}"
-        _check_keys(kt, ("name", "transport", "noise", "layer", "box"), where)
-        layer = str(kt.get("layer", ""))
+        kt = _current_names(kt, "inverse.known", where)
+        _check_keys(kt, KEYS["inverse.known"], where)
+        layer = str(kt.get("class", ""))
         if layer not in cfg.layer_names:
             close = difflib.get_close_matches(layer, cfg.layer_names, n=1)
-            raise ConfigError(f"{where}: layer {layer!r} does not exist (classes: "
+            raise ConfigError(f"{where}: class {layer!r} does not exist (classes: "
                               f"{', '.join(cfg.layer_names)})"
                               + (f"; did you mean {close[0]!r}?" if close else ""))
         box = kt.get("box")
@@ -464,7 +561,7 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
         ))
     for n, net in enumerate(inv.get("section_net", [])):
         where = f"[inverse] section_net #{n + 1}"
-        _check_keys(net, ("section", "transport", "noise"), where)
+        _check_keys(net, KEYS["inverse.section_net"], where)
         name = str(net.get("section", ""))
         if name not in cfg.section_names():
             close = difflib.get_close_matches(name, cfg.section_names(), n=1)

@@ -30,7 +30,7 @@ from sectionkit.paper import write_paper_tables
 from sectionkit.study import Results, Study
 from sectionkit.tables import (  # noqa: F401  (re-exported: the §7 tables)
     box_table,
-    layer_table,
+    class_table,
     pair_table,
     summary_table,
     tables,

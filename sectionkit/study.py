@@ -133,7 +133,7 @@ class Study:
                 name=spec.name,
                 dp=config.dp,
                 allow_equator=config.allow_equator,
-                columns=spec.columns or None,
+                **spec.csv_options(),
             )
             study.sections[spec.name] = ds
             study.load_cautions.extend(cautions)

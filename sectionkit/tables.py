@@ -13,8 +13,12 @@ import pandas as pd
 from sectionkit.study import Results, Study
 
 
-def layer_table(study: Study, results: Results) -> pd.DataFrame:
-    """layer_transports.csv: one row per section x class (section frame, Sv)."""
+def class_table(study: Study, results: Results) -> pd.DataFrame:
+    """class_transports.csv: one row per section x density class (section frame, Sv).
+
+    Columns and units: docs/outputs.md. The volume transport of each class;
+    ``sigma_top`` is the lighter bound, ``sigma_bottom`` the denser one.
+    """
     cfg = study.config
     faces = cfg.interfaces
     rows = []
@@ -30,7 +34,7 @@ def layer_table(study: Study, results: Results) -> pd.DataFrame:
             bottom = faces[i] if i < len(faces) else None
             rows.append({
                 "section": name,
-                "layer": layer,
+                "class": layer,
                 "sigma_top": top.sigma if top else np.nan,
                 "sigma_bottom": bottom.sigma if bottom else np.nan,
                 "p_ref_top": top.p_ref if top else np.nan,
@@ -53,6 +57,8 @@ def pair_table(study: Study, results: Results) -> pd.DataFrame:
         sl = results.layout.pair_slices[name]
         ref = results.references[name]
         g = op.pairs
+        stations = [str(s) for s in study.sections[name]["station"].values] \
+            if name in study.sections else [str(k) for k in range(op.n_pair + 1)]
         for k in range(op.n_pair):
             idx = sl.start + k
             rows.append({
@@ -67,6 +73,8 @@ def pair_table(study: Study, results: Results) -> pd.DataFrame:
                 "adjustment_err_m_s": float(np.sqrt(cov[idx, idx])) if cov is not None
                 else np.nan,
                 "resolution": float(resolution[idx]) if resolution is not None else np.nan,
+                "first_station": stations[k],
+                "second_station": stations[k + 1],
             })
     return pd.DataFrame(rows)
 
@@ -92,23 +100,27 @@ def box_table(results: Results) -> pd.DataFrame:
     }, columns=columns)
 
 
-def unknowns_table(results: Results) -> pd.DataFrame:
+def unknowns_table(study: Study, results: Results) -> pd.DataFrame:
     """inverse_unknowns.csv: every unknown of the inverse with prior, estimate and error.
 
     Reference-velocity adjustments in m s^-1, diapycnal transfers (positive
     from the lighter to the denser class) in Sv, Ekman adjustments as a
-    fraction of the stated Ekman transport.
+    fraction of the stated Ekman transport. ``interface`` names the surface a
+    diapycnal transfer crosses (``σ₂ 36.98``; blank for other unknowns).
     """
     columns = ["unknown", "kind", "unit", "prior_std", "estimate", "posterior_std",
-               "resolution"]
+               "resolution", "interface"]
     inv = results.inverse
     if inv is None:
         return pd.DataFrame(columns=columns)
     layout = results.layout
     kinds = ["reference_velocity"] * layout.size
     units = ["m s-1"] * layout.size
-    for idx in layout.diapycnal.values():
+    faces = [""] * layout.size
+    for (_, n), idx in layout.diapycnal.items():
         kinds[idx], units[idx] = "diapycnal_transfer", "Sv"
+        face = study.config.interfaces[n]
+        faces[idx] = face.display()
     for idx in layout.ekman.values():
         kinds[idx], units[idx] = "ekman_fraction", "1"
     return pd.DataFrame({
@@ -119,6 +131,7 @@ def unknowns_table(results: Results) -> pd.DataFrame:
         "estimate": inv.estimate,
         "posterior_std": np.sqrt(np.maximum(np.diag(inv.covariance), 0.0)),
         "resolution": inv.resolution_diagonal,
+        "interface": faces,
     }, columns=columns)
 
 
@@ -132,21 +145,22 @@ def summary_table(study: Study, results: Results) -> pd.DataFrame:
             row[col] = results.value(name, key)
             row[col.replace("_sv", "_err_sv").replace("_pw", "_err_pw")] = results.error(name, key)
         row["net_mass_sv"] = results.value(name, "net_mass")
+        row["net_mass_err_sv"] = results.error(name, "net_mass")
         row["overturning_density_sv"] = results.value(name, "overturning_density")
         row["overturning_density_err_sv"] = results.error(name, "overturning_density")
         rows.append(row)
     order = ["section", "net_sv", "net_err_sv", "heat_pw", "heat_err_pw", "freshwater_sv",
              "freshwater_err_sv", "overturning_sv", "overturning_err_sv", "net_mass_sv",
-             "overturning_density_sv", "overturning_density_err_sv"]
+             "overturning_density_sv", "overturning_density_err_sv", "net_mass_err_sv"]
     return pd.DataFrame(rows)[order]
 
 
 def tables(study: Study, results: Results) -> dict[str, pd.DataFrame]:
     """All §7 tables by file name."""
     return {
-        "layer_transports.csv": layer_table(study, results),
+        "class_transports.csv": class_table(study, results),
         "pair_adjustments.csv": pair_table(study, results),
         "box_budget.csv": box_table(results),
         "section_summary.csv": summary_table(study, results),
-        "inverse_unknowns.csv": unknowns_table(results),
+        "inverse_unknowns.csv": unknowns_table(study, results),
     }

@@ -13,7 +13,7 @@ from sectionkit.config import load_config
 from sectionkit.demo import BUNDLED_DIR as DEMO_DIR
 from sectionkit.study import Study
 
-CSV_FILES = ["layer_transports.csv", "pair_adjustments.csv", "box_budget.csv",
+CSV_FILES = ["class_transports.csv", "pair_adjustments.csv", "box_budget.csv",
              "section_summary.csv"]
 
 
