@@ -24,6 +24,7 @@ from pathlib import Path
 import pandas as pd
 
 from sectionkit.config import Config, parse_config
+from sectionkit.dataset import write_results_nc
 from sectionkit.errors import InputFileError
 from sectionkit.figures import write_figures
 from sectionkit.paper import write_paper_tables
@@ -176,6 +177,7 @@ def write_outputs(
     try:
         for name, df in tables(study, results).items():
             _write_csv(df, tmp / name)
+        write_results_nc(study, results, tmp)
         for writer in extras or []:
             writer(study, results, tmp)
         (tmp / "provenance.json").write_text(

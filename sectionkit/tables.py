@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from sectionkit.outputs import REGISTRY
 from sectionkit.study import Results, Study
 
 
@@ -140,8 +141,10 @@ def summary_table(study: Study, results: Results) -> pd.DataFrame:
     rows = []
     for name in study.operators:
         row = {"section": name}
-        for col, key in (("net_sv", "net"), ("heat_pw", "heat"), ("freshwater_sv", "freshwater"),
-                         ("overturning_sv", "overturning")):
+        for col, output in (("net_sv", "net_volume_transport"), ("heat_pw", "heat_transport"),
+                            ("freshwater_sv", "freshwater_transport"),
+                            ("overturning_sv", "overturning_depth")):
+            key = REGISTRY[output].key
             row[col] = results.value(name, key)
             row[col.replace("_sv", "_err_sv").replace("_pw", "_err_pw")] = results.error(name, key)
         row["net_mass_sv"] = results.value(name, "net_mass")

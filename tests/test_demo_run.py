@@ -71,7 +71,7 @@ def test_rerun_from_provenance_reproduces_identical_tables(demo_run, tmp_path):
     rerun = tmp_path / "rerun"
     assert main(["budget", str(demo_run / "provenance.json"), "--out", str(rerun), "--quiet",
                  "--no-figures"]) == 0
-    for name in CSV_FILES:
+    for name in CSV_FILES + ["inverse_unknowns.csv", "results.nc"]:
         assert (rerun / name).read_bytes() == (demo_run / name).read_bytes(), name
 
 
