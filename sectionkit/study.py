@@ -134,7 +134,7 @@ class Study:
                 name=spec.name,
                 dp=config.dp,
                 allow_equator=config.allow_equator,
-                columns=spec.columns or None,
+                **spec.csv_options(),
             )
             study.sections[spec.name] = ds
             study.load_cautions.extend(cautions)
@@ -202,8 +202,10 @@ class Study:
             if inv.prior_diapycnal > 0 and self.config.interfaces:
                 boxes = [b.name for b in self.config.effective_boxes()]
             if inv.prior_ekman > 0:
-                ekman_sections = [s for s, tau in self.config.ekman_stress.items()
-                                  if tau != (0.0, 0.0)]
+                # in section order, not the stress table's (a provenance rerun sorts it)
+                ekman_sections = [s for s in self.config.section_names()
+                                  if tuple(self.config.ekman_stress.get(s, (0.0, 0.0)))
+                                  != (0.0, 0.0)]
         return make_layout(self.operators, boxes, len(self.config.interfaces), ekman_sections)
 
     def velocity_prior(self, layout: UnknownLayout) -> np.ndarray:
