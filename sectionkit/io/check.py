@@ -73,12 +73,57 @@ def format_report(raw: RawSection, ds: xr.Dataset, cautions: Cautions) -> str:
         f"  grid:      0 .. {pressure[-1]:g} dbar every {ds.attrs['dp']:g} dbar "
         f"({pressure.size} levels)",
     ]
+    lines.extend(flag_report(raw))
     if cautions:
         lines.append(f"  cautions ({len(cautions)}):")
         lines.extend(f"    {c}" for c in cautions)
     else:
         lines.append("  cautions:  none")
     return "\n".join(lines)
+
+
+def _flag_text(per_flag: dict[int, int]) -> str:
+    return ", ".join(
+        f"{'no flag' if flag < 0 else f'flag {flag}'}: {n}" for flag, n in sorted(per_flag.items())
+    )
+
+
+def flag_report(raw: RawSection) -> list[str]:
+    """Lines counting WOCE quality flags per variable, in total and per station.
+
+    Parameters
+    ----------
+    raw : RawSection
+        Profiles as read; only WHP-Exchange casts carry flag counts.
+
+    Returns
+    -------
+    list of str
+        Empty when no profile has flags. Stations whose samples are all
+        flagged 2 (acceptable) are summarised, the others listed.
+    """
+    flagged = [p for p in raw.profiles if p.flag_counts]
+    if not flagged:
+        return []
+    total: dict[str, dict[int, int]] = {}
+    for p in flagged:
+        for column, per_flag in p.flag_counts.items():
+            into = total.setdefault(column, {})
+            for flag, n in per_flag.items():
+                into[flag] = into.get(flag, 0) + n
+    lines = ["  WOCE flags (2 used; 1, 3 used with a caution; 6, 7 used; 4, 5, 9 dropped):"]
+    lines += [f"    {column}: {_flag_text(per_flag)}" for column, per_flag in total.items()]
+    clean = 0
+    for p in flagged:
+        if all(set(per_flag) <= {2} for per_flag in p.flag_counts.values()):
+            clean += 1
+            continue
+        text = "; ".join(
+            f"{c} {_flag_text(f)}" for c, f in p.flag_counts.items() if set(f) - {2}
+        )
+        lines.append(f"    station {p.station}: {text}")
+    lines.append(f"    {clean} of {len(flagged)} stations have every sample flagged 2")
+    return lines
 
 
 def describe_section(
