@@ -19,6 +19,7 @@ import tomli_w
 
 from sectionkit.errors import ConfigError, InputFileError
 from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
+from sectionkit.io.bottle import tracer_name
 from sectionkit.layers import Interface, check_interfaces
 
 if sys.version_info >= (3, 11):
@@ -61,6 +62,8 @@ class SectionSpec:
     into_box: bool = True
     columns: dict[str, str] = field(default_factory=dict)
     bathymetry: str | None = None
+    bottle: str | None = None  # WHP-Exchange bottle file (tracers)
+    stations: list[str] | None = None  # station order and subset (by station id)
 
 
 @dataclass
@@ -109,6 +112,7 @@ class InverseSpec:
     known: list[KnownTransport] = field(default_factory=list)
     section_net: list[SectionNet] = field(default_factory=list)
     bounds: dict[str, list[float]] = field(default_factory=dict)
+    noise_tracer: dict[str, list[float]] = field(default_factory=dict)  # per tracer, per class
 
 
 @dataclass
@@ -128,6 +132,7 @@ class Config:
     interfaces: list[Interface] = field(default_factory=list)
     layer_names: list[str] = field(default_factory=list)
     reference_salinity: float | None = None
+    tracers: list[str] = field(default_factory=list)  # plain names of [tracers] transport
     inverse: InverseSpec | None = None
     base_dir: Path = field(default_factory=Path.cwd)
 
@@ -168,6 +173,10 @@ class Config:
                 d["columns"] = dict(s.columns)
             if s.bathymetry:
                 d["bathymetry"] = s.bathymetry
+            if s.bottle:
+                d["bottle"] = s.bottle
+            if s.stations is not None:
+                d["stations"] = list(s.stations)
             sections.append(d)
         out["sections"] = sections
         if self.boxes:
@@ -191,12 +200,14 @@ class Config:
         out["layers"] = layers
         if self.reference_salinity is not None:
             out["budget"] = {"reference_salinity": self.reference_salinity}
+        if self.tracers:
+            out["tracers"] = {"transport": list(self.tracers)}
         if self.inverse is not None:
             inv = asdict(self.inverse)
             inv["known"] = [
                 {k: v for k, v in asdict(kt).items() if v is not None} for kt in self.inverse.known
             ]
-            for key in ("noise_layer", "noise_salt", "noise_heat", "bounds"):
+            for key in ("noise_layer", "noise_salt", "noise_heat", "bounds", "noise_tracer"):
                 if not inv[key]:
                     del inv[key]
             if not inv["known"]:
@@ -269,7 +280,7 @@ def parse_reference(value: Any, where: str) -> ReferenceChoice:
 
 
 TOP_KEYS = ("title", "grid", "sections", "boxes", "reference", "ekman", "layers", "budget",
-            "inverse")
+            "tracers", "inverse")
 
 
 def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
@@ -295,7 +306,8 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
         raise ConfigError("the configuration has no [[sections]]; add at least one line")
     for n, sec in enumerate(sections):
         where = f"[[sections]] #{n + 1}"
-        _check_keys(sec, ("name", "file", "into_box", "columns", "bathymetry"), where)
+        _check_keys(sec, ("name", "file", "into_box", "columns", "bathymetry", "bottle",
+                          "stations"), where)
         for key in ("name", "file"):
             if key not in sec:
                 raise ConfigError(f"{where} is missing {key!r}")
@@ -311,6 +323,8 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
                 into_box=bool(sec.get("into_box", True)),
                 columns=dict(sec.get("columns", {})),
                 bathymetry=sec.get("bathymetry"),
+                bottle=_optional_text(sec.get("bottle"), f"{where} bottle"),
+                stations=_station_list(sec.get("stations"), f"{where} stations"),
             )
         )
     names = cfg.section_names()
@@ -382,9 +396,45 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
         cfg.reference_salinity = _number(budget["reference_salinity"],
                                          "[budget] reference_salinity", positive=True)
 
+    tracers = data.get("tracers", {})
+    _check_keys(tracers, ("transport",), "[tracers]")
+    transport = tracers.get("transport", [])
+    if not isinstance(transport, list):
+        raise ConfigError("[tracers] transport must be a list of tracer names, e.g. "
+                          '["oxygen", "silicate"]')
+    for name in transport:
+        plain = tracer_name(name)
+        if plain not in cfg.tracers:
+            cfg.tracers.append(plain)
+    if cfg.tracers and not any(s.bottle for s in cfg.sections):
+        raise ConfigError("[tracers] transport names tracers but no [[sections]] has a bottle "
+                          "file; add bottle = \"<file>\" to the sections that have one")
+
     if "inverse" in data:
         cfg.inverse = _parse_inverse(data["inverse"], cfg)
     return cfg
+
+
+def _optional_text(value: Any, where: str) -> str | None:
+    if value is None:
+        return None
+    if not isinstance(value, str) or not value:
+        raise ConfigError(f"{where} = {value!r} must be a file name (text)")
+    return value
+
+
+def _station_list(value: Any, where: str) -> list[str] | None:
+    if value is None:
+        return None
+    if not isinstance(value, list) or not value:
+        raise ConfigError(f"{where} = {value!r} must be a list of station ids, e.g. "
+                          '["1", "2", "3"] or [1, 2, 3]')
+    out = []
+    for item in value:
+        if isinstance(item, bool) or not isinstance(item, str | int):
+            raise ConfigError(f"{where}: {item!r} is not a station id (text or whole number)")
+        out.append(str(item))
+    return out
 
 
 def _check_pair_label(label: str, names: list[str], where: str) -> None:
@@ -399,7 +449,7 @@ def _check_pair_label(label: str, names: list[str], where: str) -> None:
 def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
     allowed = ("solver", "rank", "conserve", "prior_velocity", "prior_diapycnal", "prior_ekman",
                "noise_total", "noise_layer", "noise_salt", "noise_heat", "known", "section_net",
-               "bounds")
+               "bounds", "noise_tracer")
     _check_keys(inv, allowed, "[inverse]")
     spec = InverseSpec()
     spec.solver = str(inv.get("solver", spec.solver))
@@ -413,7 +463,13 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
         raise ConfigError(f"[inverse] rank = {rank!r} must be a whole number >= 0")
     spec.rank = rank
     spec.conserve = list(inv.get("conserve", spec.conserve))
-    for c in spec.conserve:
+    for n, c in enumerate(spec.conserve):
+        if c not in CONSTRAINT_KINDS and _is_tracer(c):
+            spec.conserve[n] = c = tracer_name(c)
+            if c not in cfg.tracers:
+                raise ConfigError(f"[inverse] conserve: tracer {c!r} must also be listed in "
+                                  "[tracers] transport")
+            continue
         if c not in CONSTRAINT_KINDS:
             close = difflib.get_close_matches(c, CONSTRAINT_KINDS, n=1)
             raise ConfigError(f"[inverse] conserve: {c!r} is not one of "
@@ -437,6 +493,17 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
                             for i, v in enumerate(values)])
     if not spec.noise_layer:
         spec.noise_layer = [1.0] * n_class
+    noise_tracer = inv.get("noise_tracer", {})
+    if not isinstance(noise_tracer, dict):
+        raise ConfigError("[inverse] noise_tracer must be a table, e.g. "
+                          "{ silicate = [2.0, 1.0, 1.0] } (kmol s^-1 per class)")
+    for name, values in noise_tracer.items():
+        plain = tracer_name(name)
+        if not isinstance(values, list) or len(values) != n_class:
+            raise ConfigError(f"[inverse] noise_tracer {name!r}: give one noise per class "
+                              f"({n_class}: {', '.join(cfg.layer_names)}), kmol s^-1")
+        spec.noise_tracer[plain] = [_number(v, f"[inverse] noise_tracer {name}[{i}]",
+                                            positive=True) for i, v in enumerate(values)]
     box_names = [b.name for b in cfg.effective_boxes()]
     for n, kt in enumerate(inv.get("known", [])):
         where = f"[inverse] known #{n + 1}"
@@ -484,6 +551,14 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
             raise ConfigError(f"[inverse] bounds {label!r}: lower {lo:g} > upper {hi:g}")
         spec.bounds[label] = [lo, hi]
     return spec
+
+
+def _is_tracer(name: str) -> bool:
+    try:
+        tracer_name(name)
+    except ConfigError:
+        return False
+    return True
 
 
 def load_config(path: str | Path) -> Config:

@@ -34,6 +34,8 @@ from sectionkit.config import BoxSpec, InverseSpec, KnownTransport
 from sectionkit.errors import ConfigError
 from sectionkit.operator import CP0, RHO0, SectionOperator
 from sectionkit.solvers import make_solver
+from sectionkit.tracers import UNIT as TRACER_UNIT
+from sectionkit.tracers import TracerOperator, box_tracer_rows
 
 SALT_NOISE_FLOOR = 0.005  # g/kg: smallest salinity spread used to scale salt-anomaly noise
 TEMPERATURE_NOISE_FLOOR = 0.05  # degC, the same for heat
@@ -106,6 +108,7 @@ def assemble(
     layout: UnknownLayout,
     layer_names: list[str],
     velocity_prior: np.ndarray | None = None,
+    tracers: dict[str, TracerOperator] | None = None,
 ) -> ConstraintSystem:
     """Build the conservation constraints of every box.
 
@@ -128,6 +131,9 @@ def assemble(
     velocity_prior : ndarray (n_pairs_total,), optional
         Prior standard deviation of each pair's adjustment (m s^-1); the
         global ``prior_velocity`` where None.
+    tracers : dict of str -> TracerOperator, optional
+        Tracer operators by section, for tracers named in ``spec.conserve``
+        (rows ``<tracer>:<class>`` in kmol s^-1, see :mod:`sectionkit.tracers`).
     """
     n_class = len(layer_names)
     rows: list[tuple[str, str]] = []
@@ -209,6 +215,19 @@ def assemble(
                 noise.append(spec.noise_heat[i] if spec.noise_heat
                              else spec.noise_layer[i] * spread * h)
                 units.append("PW")
+        for tracer in [c for c in spec.conserve if c not in ("mass", "salt", "heat")]:
+            area = sum(operators[s].extra["class_moments"][0] for s in sections)
+            t_e, t_v, t_n = box_tracer_rows(
+                tracer, {s: _box_sign(box, s) for s in sections}, tracers or {}, area, offsets,
+                ekman, layout, mass_v, mass_g, dia, spec.noise_layer,
+                spec.noise_tracer.get(tracer),
+            )
+            for i, layer in enumerate(layer_names):
+                rows.append((box.name, f"{tracer}:{layer}"))
+                e_rows.append(t_e[i])
+                initial.append(float(t_v[i]))
+                noise.append(float(t_n[i]))
+                units.append(TRACER_UNIT)
     for net in spec.section_net:
         op = operators[net.section]
         t = op.transports(offsets[net.section], 0.0, ekman[net.section], 1.0)[1].sum() / SV

@@ -25,6 +25,7 @@ from sectionkit.inverse import InverseResult, assemble, solve
 from sectionkit.io import load_section
 from sectionkit.io.validate import check_pair_latitudes
 from sectionkit.operator import SectionOperator, build_operator
+from sectionkit.tracers import TracerOperator, build_tracer_operator, tracer_outputs
 
 NET_MASS_HEAT_TOLERANCE = 0.1  # Sv: above it, heat is reported as a temperature transport
 
@@ -48,6 +49,7 @@ class Results:
     outputs: dict[str, LinearOutputs]
     inverse: InverseResult | None
     cautions: Cautions
+    tracers: dict[str, LinearOutputs] = field(default_factory=dict)  # kmol s^-1 per section
 
     @property
     def estimate(self) -> np.ndarray:
@@ -96,6 +98,7 @@ class Study:
     sections: dict[str, xr.Dataset] = field(default_factory=dict)
     operators: dict[str, SectionOperator] = field(default_factory=dict)
     load_cautions: Cautions = field(default_factory=Cautions)
+    tracer_operators: dict[str, TracerOperator] = field(default_factory=dict)
 
     @classmethod
     def from_config(
@@ -134,6 +137,8 @@ class Study:
                 dp=config.dp,
                 allow_equator=config.allow_equator,
                 columns=spec.columns or None,
+                order=spec.stations,
+                bottle=None if not spec.bottle else str(config.base_dir / spec.bottle),
             )
             study.sections[spec.name] = ds
             study.load_cautions.extend(cautions)
@@ -167,6 +172,13 @@ class Study:
                 bathymetry=_bathymetry(cfg, spec, ds),
                 relative_velocity_of_pairs=None if previous is None else previous.extra["v_rel"],
             )
+            present = [t for t in cfg.tracers if t in ds]
+            if present:
+                self.tracer_operators[spec.name] = build_tracer_operator(
+                    self.operators[spec.name], ds, present
+                )
+            else:
+                self.tracer_operators.pop(spec.name, None)
 
     # ------------------------------------------------------------ references
     def references(self, cautions: Cautions | None = None) -> dict[str, ReferenceState]:
@@ -237,7 +249,8 @@ class Study:
         if inverse and cfg.inverse is not None:
             offsets = {n: r.offset for n, r in refs.items()}
             system = assemble(self.operators, offsets, ekman, cfg.effective_boxes(), cfg.inverse,
-                              layout, cfg.layer_names, self.velocity_prior(layout))
+                              layout, cfg.layer_names, self.velocity_prior(layout),
+                              tracers=self.tracer_operators)
             lower = upper = None
             if cfg.inverse.bounds:
                 lower = np.full(layout.size, -np.inf)
@@ -265,7 +278,12 @@ class Study:
             "transports depend on the reference choices and priors; geostrophy excludes "
             "ageostrophic flow other than the stated Ekman transport",
         )
-        return Results(refs, ekman, layout, outputs, result, cautions)
+        tracers = {
+            name: tracer_outputs(top, self.operators[name].layer_names, refs[name].offset,
+                                 ekman[name], layout)
+            for name, top in self.tracer_operators.items()
+        }
+        return Results(refs, ekman, layout, outputs, result, cautions, tracers)
 
 
 def _pair_index(layout: UnknownLayout, label: str) -> int:
