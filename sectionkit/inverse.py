@@ -59,6 +59,9 @@ class ConstraintSystem:
         One standard deviation of each unknown's prior.
     units : list of str
         Unit of each row.
+    prior_mean : ndarray (unknown,) or None
+        Prior mean of each unknown (zero when None), e.g. reference-velocity
+        adjustments from direct velocity measurements, unknown units.
     """
 
     rows: list[tuple[str, str]]
@@ -67,6 +70,7 @@ class ConstraintSystem:
     noise: np.ndarray
     prior: np.ndarray
     units: list[str]
+    prior_mean: np.ndarray | None = None
 
     @property
     def target(self) -> np.ndarray:
@@ -109,6 +113,7 @@ def assemble(
     layer_names: list[str],
     velocity_prior: np.ndarray | None = None,
     tracers: dict[str, TracerOperator] | None = None,
+    velocity_prior_mean: np.ndarray | None = None,
 ) -> ConstraintSystem:
     """Build the conservation constraints of every box.
 
@@ -134,6 +139,9 @@ def assemble(
     tracers : dict of str -> TracerOperator, optional
         Tracer operators by section, for tracers named in ``spec.conserve``
         (rows ``<tracer>:<class>`` in kmol s^-1, see :mod:`sectionkit.tracers`).
+    velocity_prior_mean : ndarray (n_pairs_total,), optional
+        Prior mean of each pair's adjustment (m s^-1), e.g. from direct
+        velocity profiles; zero where None.
     """
     n_class = len(layer_names)
     rows: list[tuple[str, str]] = []
@@ -247,8 +255,12 @@ def assemble(
         prior[idx] = spec.prior_diapycnal
     for idx in layout.ekman.values():
         prior[idx] = spec.prior_ekman
+    prior_mean = None
+    if velocity_prior_mean is not None and np.any(velocity_prior_mean != 0):
+        prior_mean = np.zeros(layout.size)
+        prior_mean[:n_pairs] = velocity_prior_mean
     return ConstraintSystem(rows, np.vstack(e_rows), np.asarray(initial), np.asarray(noise),
-                            prior, units)
+                            prior, units, prior_mean)
 
 
 def _neighbour_contrast(class_mean: np.ndarray) -> np.ndarray:
@@ -359,7 +371,8 @@ def solve(
         settings["lower"] = None if lower is None else lower[active]
         settings["upper"] = None if upper is None else upper[active]
     solver = make_solver(spec.solver, **settings)
-    solver.fit(e, system.target)
+    mean = None if system.prior_mean is None else system.prior_mean[active]
+    solver.fit(e, system.target, prior_mean=mean)
     estimate = np.zeros(system.prior.size)
     estimate[active] = solver.estimate
     cov = np.zeros((system.prior.size, system.prior.size))
