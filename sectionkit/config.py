@@ -64,6 +64,25 @@ class SectionSpec:
     bathymetry: str | None = None
     bottle: str | None = None  # WHP-Exchange bottle file (tracers)
     stations: list[str] | None = None  # station order and subset (by station id)
+    adcp: str | None = None  # direct velocity profiles (LADCP / shipboard ADCP)
+
+
+ADCP_USES = ("prior", "known")
+
+
+@dataclass
+class AdcpSpec:
+    """How direct velocity profiles reference the pairs (``[adcp]``).
+
+    ``pressure_range`` (dbar) is the averaging range; ``use`` is ``"prior"``
+    (prior mean and standard deviation of each pair's adjustment in the
+    inverse) or ``"known"`` (a known reference velocity per pair);
+    ``error`` (m s^-1) is the stated error of a range-mean direct velocity.
+    """
+
+    pressure_range: tuple[float, float] = (0.0, 0.0)
+    use: str = "prior"
+    error: float = 0.02
 
 
 @dataclass
@@ -133,6 +152,7 @@ class Config:
     layer_names: list[str] = field(default_factory=list)
     reference_salinity: float | None = None
     tracers: list[str] = field(default_factory=list)  # plain names of [tracers] transport
+    adcp: AdcpSpec | None = None
     inverse: InverseSpec | None = None
     base_dir: Path = field(default_factory=Path.cwd)
 
@@ -177,6 +197,8 @@ class Config:
                 d["bottle"] = s.bottle
             if s.stations is not None:
                 d["stations"] = list(s.stations)
+            if s.adcp:
+                d["adcp"] = s.adcp
             sections.append(d)
         out["sections"] = sections
         if self.boxes:
@@ -202,6 +224,9 @@ class Config:
             out["budget"] = {"reference_salinity": self.reference_salinity}
         if self.tracers:
             out["tracers"] = {"transport": list(self.tracers)}
+        if self.adcp is not None:
+            out["adcp"] = {"pressure_range": list(self.adcp.pressure_range),
+                           "use": self.adcp.use, "error": self.adcp.error}
         if self.inverse is not None:
             inv = asdict(self.inverse)
             inv["known"] = [
@@ -280,7 +305,7 @@ def parse_reference(value: Any, where: str) -> ReferenceChoice:
 
 
 TOP_KEYS = ("title", "grid", "sections", "boxes", "reference", "ekman", "layers", "budget",
-            "tracers", "inverse")
+            "tracers", "adcp", "inverse")
 
 
 def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
@@ -307,7 +332,7 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
     for n, sec in enumerate(sections):
         where = f"[[sections]] #{n + 1}"
         _check_keys(sec, ("name", "file", "into_box", "columns", "bathymetry", "bottle",
-                          "stations"), where)
+                          "stations", "adcp"), where)
         for key in ("name", "file"):
             if key not in sec:
                 raise ConfigError(f"{where} is missing {key!r}")
@@ -325,6 +350,7 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
                 bathymetry=sec.get("bathymetry"),
                 bottle=_optional_text(sec.get("bottle"), f"{where} bottle"),
                 stations=_station_list(sec.get("stations"), f"{where} stations"),
+                adcp=_optional_text(sec.get("adcp"), f"{where} adcp"),
             )
         )
     names = cfg.section_names()
@@ -410,9 +436,36 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
         raise ConfigError("[tracers] transport names tracers but no [[sections]] has a bottle "
                           "file; add bottle = \"<file>\" to the sections that have one")
 
+    if "adcp" in data or any(s.adcp for s in cfg.sections):
+        cfg.adcp = _parse_adcp(data.get("adcp"))
+
     if "inverse" in data:
         cfg.inverse = _parse_inverse(data["inverse"], cfg)
     return cfg
+
+
+def _parse_adcp(table: Any) -> AdcpSpec:
+    if table is None:
+        raise ConfigError("a section names an adcp file but there is no [adcp] table; add "
+                          '[adcp] with pressure_range = [top, bottom] (dbar), use = "prior" or '
+                          '"known", and error (m s^-1)')
+    if not isinstance(table, dict):
+        raise ConfigError("[adcp] must be a table")
+    _check_keys(table, ("pressure_range", "use", "error"), "[adcp]")
+    pr = table.get("pressure_range")
+    if not isinstance(pr, list) or len(pr) != 2:
+        raise ConfigError("[adcp] pressure_range must be [top, bottom] in dbar, e.g. "
+                          "[500.0, 1500.0]")
+    top = _number(pr[0], "[adcp] pressure_range[0]", nonneg=True)
+    bottom = _number(pr[1], "[adcp] pressure_range[1]", nonneg=True)
+    if bottom <= top:
+        raise ConfigError(f"[adcp] pressure_range = [{top:g}, {bottom:g}]: the bottom must lie "
+                          "deeper than the top")
+    use = table.get("use", "prior")
+    if use not in ADCP_USES:
+        raise ConfigError(f"[adcp] use = {use!r} must be one of {', '.join(ADCP_USES)}")
+    return AdcpSpec((top, bottom), str(use),
+                    _number(table.get("error", 0.02), "[adcp] error", positive=True))
 
 
 def _optional_text(value: Any, where: str) -> str | None:

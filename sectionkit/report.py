@@ -72,8 +72,9 @@ def provenance(study: Study, results: Results) -> dict:
                         files[str(p)] = sha256(p)
             elif path.exists():
                 files[str(path)] = sha256(path)
-        if spec.bottle and (cfg.base_dir / spec.bottle).is_file():
-            files[str(cfg.base_dir / spec.bottle)] = sha256(cfg.base_dir / spec.bottle)
+        for extra in (spec.bottle, spec.adcp):  # bottle tracers, direct velocities
+            if extra and (cfg.base_dir / extra).is_file():
+                files[str(cfg.base_dir / extra)] = sha256(cfg.base_dir / extra)
     return {
         "configuration": cfg.to_dict(),
         "configuration_dir": str(cfg.base_dir),

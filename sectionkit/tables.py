@@ -100,7 +100,7 @@ def unknowns_table(results: Results) -> pd.DataFrame:
     fraction of the stated Ekman transport.
     """
     columns = ["unknown", "kind", "unit", "prior_std", "estimate", "posterior_std",
-               "resolution"]
+               "resolution", "prior_mean"]
     inv = results.inverse
     if inv is None:
         return pd.DataFrame(columns=columns)
@@ -119,6 +119,8 @@ def unknowns_table(results: Results) -> pd.DataFrame:
         "estimate": inv.estimate,
         "posterior_std": np.sqrt(np.maximum(np.diag(inv.covariance), 0.0)),
         "resolution": inv.resolution_diagonal,
+        "prior_mean": (np.zeros(layout.size) if inv.system.prior_mean is None
+                       else inv.system.prior_mean),
     }, columns=columns)
 
 
