@@ -26,6 +26,7 @@ import numpy as np
 
 from sectionkit.errors import Cautions
 from sectionkit.io.adcp import VelocityProfile
+from sectionkit.io.bottle import station_key
 from sectionkit.operator import SectionOperator
 
 
@@ -135,7 +136,7 @@ def direct_reference(
     """
     g = op.pairs
     te, tn = g["along_east"].values, g["along_north"].values
-    stations = {str(p.key): p for p in profiles if p.kind == "station"}
+    stations = {station_key(p.key): p for p in profiles if p.kind == "station"}
     pairs = {int(p.key): p for p in profiles if p.kind == "pair"}
     n = op.n_pair
     measured = np.full(n, np.nan)
@@ -151,7 +152,7 @@ def direct_reference(
         else:
             found = []
             for sid in (str(g["station_a"].values[j]), str(g["station_b"].values[j])):
-                prof = stations.get(sid)
+                prof = stations.get(station_key(sid))
                 if prof is not None:
                     m, s, k = range_mean(
                         prof.pressure, normal_velocity(prof.u, prof.v, te[j], tn[j]), p_range)

@@ -142,6 +142,22 @@ def test_check_reports_flag_counts_per_flag_and_per_station(sec, tmp_path):
     assert "4 of 5 stations have every sample flagged 2" in text
 
 
+def test_check_reports_bottle_flags_and_tracer_profiles(sec, tmp_path):
+    z = write_ctd_zip(tmp_path / "cruise.zip", casts(sec))
+    rows = bottle_rows(sec)
+    n = len(rows["STNNBR"])
+    flags = {"OXYGEN": [2] * n, "SILCAT": [2] * n}
+    flags["OXYGEN"][0] = 3
+    flags["SILCAT"][1] = 4
+    btl = write_bottle(tmp_path / "btl.csv", rows, flags=flags)
+    out, err = io.StringIO(), io.StringIO()
+    assert check_main([str(z), "--bottle", str(btl)], out, err) == 0, err.getvalue()
+    text = out.getvalue()
+    assert f"OXYGEN: flag 2: {n - 1}, flag 3: 1" in text
+    assert f"SILCAT: flag 2: {n - 1}, flag 4: 1" in text
+    assert "oxygen (OXYGEN): profiles at 5 of 5 stations" in text
+
+
 def test_its68_temperature_is_converted_to_its90(sec, tmp_path):
     cs = casts(sec)[:2]
     a, _ = load_section(write_ctd_folder(tmp_path / "a", cs))

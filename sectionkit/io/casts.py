@@ -116,6 +116,13 @@ def read_profiles(
     return profiles
 
 
+def _numeric_id(station: str) -> str:
+    try:
+        return f"{float(station):g}"
+    except ValueError:
+        return station.strip()
+
+
 def reorder(profiles: list[Profile], order: Sequence[str]) -> list[Profile]:
     """Select and order stations by id.
 
@@ -132,6 +139,10 @@ def reorder(profiles: list[Profile], order: Sequence[str]) -> list[Profile]:
         The named stations in the given order.
     """
     by_id = {str(p.station): p for p in profiles}
+    # "7" also finds a station written "007" or "7.0" (STNNBR of exchange files)
+    for p in profiles:
+        by_id.setdefault(_numeric_id(str(p.station)), p)
+    order = [s if str(s) in by_id else _numeric_id(str(s)) for s in order]
     missing = [str(s) for s in order if str(s) not in by_id]
     if missing:
         raise SectionDataError(
