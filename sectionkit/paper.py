@@ -449,6 +449,21 @@ def reference_description(study: Study, results: Results, tex: bool = False) -> 
     return text
 
 
+def _direct_phrase(study: Study, tex: bool) -> str:
+    """How direct velocity profiles entered (empty when none did)."""
+    adcp = study.config.adcp
+    pairs = sum(int(np.isfinite(d.velocity).sum()) for d in study.direct.values())
+    if adcp is None or not pairs:
+        return ""
+    span = (f"{_num(adcp.pressure_range[0])}–{_num(adcp.pressure_range[1])} dbar"
+            if not tex else f"{_num(adcp.pressure_range[0])}--{_num(adcp.pressure_range[1])} dbar")
+    role = ("prior means (standard deviation the stated error "
+            f"{_num(adcp.error)} {_unit('m/s', tex)} and the standard error of the average)"
+            if adcp.use == "prior" else "known reference velocities")
+    return (f"; direct velocity profiles (LADCP/ADCP), rotated into the section normal and "
+            f"averaged over {span}, give {pairs} pairs {role}")
+
+
 def inverse_description(study: Study, results: Results, tex: bool = False) -> str:
     """Sentence on the inverse: solver, constraints, priors, noise, known transports.
 
@@ -501,6 +516,7 @@ def inverse_description(study: Study, results: Results, tex: bool = False) -> st
         text += f"; net transport constrained across {listed}"
     if inv.noise_salt:
         text += f"; salt-anomaly noise {', '.join(_num(x) for x in inv.noise_salt)} Sv g/kg"
+    text += _direct_phrase(study, tex)
     text += ". Errors are one posterior standard deviation."
     return text
 
