@@ -221,7 +221,7 @@ def test_new_interfaces_rebuild_and_equal_batch(state, box_dir):
 
 
 def test_interfaces_that_orphan_a_known_transport_are_refused(state, box_dir):
-    with pytest.raises(ConfigError, match="layer 'upper' does not exist"):
+    with pytest.raises(ConfigError, match="known transport 'strait' enters the class 'upper'"):
         state.set_interfaces([(26.8, 0.0), (36.95, 2000.0)], names=["light", "mid", "dense"])
     assert state.layer_names == ["upper", "intermediate", "deep"]
     assert_same(state, batch(box_dir, BASE))
