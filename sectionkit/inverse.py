@@ -287,6 +287,25 @@ class InverseResult:
         return self.adjusted / self.system.noise
 
     @property
+    def posterior_residual_std(self) -> np.ndarray:
+        """Standard deviation of each constraint's residual the estimate can achieve, row units.
+
+        ``sqrt(diag(N - E P E^T))`` (Wunsch 1996, *The Ocean Circulation
+        Inverse Problem*, ch. 3): the noise less the part of it the adjusted
+        unknowns absorb. Zero (to rounding) where the unknowns fit a row exactly.
+        """
+        e = self.system.matrix
+        projected = np.einsum("ij,jk,ik->i", e, self.covariance, e)
+        return np.sqrt(np.maximum(self.system.noise**2 - projected, 0.0))
+
+    @property
+    def posterior_normalized_residuals(self) -> np.ndarray:
+        """Adjusted inflow over its posterior residual std; NaN where that std is zero."""
+        sd = self.posterior_residual_std
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(sd > 0, self.adjusted / sd, np.nan)
+
+    @property
     def resolution_diagonal(self) -> np.ndarray:
         """Diagonal of the model resolution matrix per unknown (0 where not solved for)."""
         out = np.zeros(self.system.prior.size)

@@ -51,7 +51,7 @@ from sectionkit.config import (
 )
 from sectionkit.errors import Cautions, ConfigError, SectionkitError
 from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
-from sectionkit.layers import Interface
+from sectionkit.layers import Interface, check_interfaces
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.workbench.snapshot import (
     InverseView,
@@ -217,6 +217,9 @@ class VelocitySection:
         The global reference in words.
     adjusted : bool
         Whether inverse adjustments are included.
+    interface_pressure : tuple of (str, ndarray (pair,))
+        Each interface's label and the pressure where each pair's density
+        first reaches it (dbar, NaN where it does not).
     """
 
     section: str
@@ -228,6 +231,7 @@ class VelocitySection:
     interfaces: tuple[tuple[str, np.ndarray, float], ...]
     reference: str
     adjusted: bool
+    interface_pressure: tuple[tuple[str, np.ndarray], ...] = ()
 
     @property
     def pair_distance(self) -> np.ndarray:
@@ -563,6 +567,14 @@ class WorkbenchState:
             (face.label(), op.sigma_pair[face.p_ref], float(face.sigma))
             for face in self._config.interfaces
         )
+        cache = getattr(self, "_interface_cache", {})
+        if cache.get(section, (None,))[0] is not op:
+            from sectionkit.figures import interface_field, interface_pressure
+
+            cache[section] = (op, tuple(
+                (label, interface_pressure(interface_field(field), op.pressure, value))
+                for label, field, value in faces))
+            self._interface_cache = cache
         return VelocitySection(
             section=section,
             station_distance=distance,
@@ -573,7 +585,13 @@ class WorkbenchState:
             interfaces=faces,
             reference=self._config.reference.describe(),
             adjusted=snap.estimate is not None,
+            interface_pressure=cache[section][1],
         )
+
+    def station_positions(self, section: str) -> tuple[np.ndarray, np.ndarray]:
+        """Longitude and latitude of each station, degrees."""
+        ds = self.study.sections[section]
+        return ds["lon"].values.astype(float), ds["lat"].values.astype(float)
 
     def describe_reference(self, label: str | None = None) -> str:
         """The global reference (or one pair's) in words."""
@@ -738,6 +756,7 @@ class WorkbenchState:
         :attr:`flagged_classes` until their settings are edited.
         """
         faces = [_as_interface(f, n) for n, f in enumerate(interfaces)]
+        check_interfaces(faces, None)  # light to dense, before any naming
         n_class = len(faces) + 1
         old_names = list(self._config.layer_names)
         if names is None:
@@ -1046,12 +1065,23 @@ class WorkbenchState:
         -------
         list of Path
             Files written, relative to ``folder``.
+        """
+        return self.prepare_export(folder, figures=figures)(progress)
 
-        Notes
-        -----
-        Safe to run on a worker thread: it works on the study and results of
-        the moment it was called, which later changes replace but never
-        modify.
+    def prepare_export(self, folder: str | Path, *, figures: bool = True
+                       ) -> Callable[[Callable[[int, int, str], None] | None], list[Path]]:
+        """The export of the current state as a function to run later, e.g. on a thread.
+
+        The full results are computed here (on the caller's thread); the
+        returned ``run(progress)`` only writes files from the study and
+        results of this moment, which later changes replace but never modify.
+
+        Parameters
+        ----------
+        folder : str or Path
+            Output folder (written atomically).
+        figures : bool
+            Write the figures too.
         """
         from sectionkit.report import default_writers, write_outputs
 
@@ -1060,28 +1090,31 @@ class WorkbenchState:
                                     sections=dict(self.study.sections))
         results = self.results
         writers = default_writers(figures)
-        total = len(writers) + 1
-        step = [0]
-
-        def tell(what: str) -> None:
-            if progress is not None:
-                progress(step[0], total, what)
-            step[0] += 1
-
-        def announced(writer: Callable, what: str) -> Callable:
-            def run(study_: Study, results_: Results, where: Path) -> None:
-                tell(what)
-                writer(study_, results_, where)
-            return run
-
         names = {"write_paper_tables": "paper tables", "write_figures": "figures"}
-        wrapped = [announced(w, names.get(getattr(w, "__name__", ""), "files"))
-                   for w in writers]
-        tell("tables")
-        written = write_outputs(study, results, folder, wrapped)
-        if progress is not None:
-            progress(total, total, "done")
-        return written
+
+        def run(progress: Callable[[int, int, str], None] | None = None) -> list[Path]:
+            total = len(writers) + 1
+            step = [0]
+
+            def tell(what: str) -> None:
+                if progress is not None:
+                    progress(step[0], total, what)
+                step[0] += 1
+
+            def announced(writer: Callable, what: str) -> Callable:
+                def write(study_: Study, results_: Results, where: Path) -> None:
+                    tell(what)
+                    writer(study_, results_, where)
+                return write
+
+            tell("tables")
+            written = write_outputs(study, results, folder, [
+                announced(w, names.get(getattr(w, "__name__", ""), "files")) for w in writers])
+            if progress is not None:
+                progress(total, total, "done")
+            return written
+
+        return run
 
     # ------------------------------------------------------------ machinery
     def _check_label(self, label: str) -> None:

@@ -252,7 +252,7 @@ def inverse_view(study: Study, results: Results) -> InverseView | None:
     system = inv.system
     with np.errstate(invalid="ignore", divide="ignore"):
         before = system.initial / system.noise
-        after = inv.adjusted / inv.posterior_residual_std
+    after = inv.posterior_normalized_residuals
     rank = getattr(inv.solver, "rank", None)
     return InverseView(
         solver=study.config.inverse.solver,
