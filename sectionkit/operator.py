@@ -286,6 +286,7 @@ def build_operator(
     bathymetry: list | None = None,
     max_dp: float = 1.0,
     relative_velocity_of_pairs: np.ndarray | None = None,
+    salinity: str = "preformed",
 ) -> SectionOperator:
     """Build the linear transport operator of a section.
 
@@ -310,6 +311,11 @@ def build_operator(
         The velocity relative to the surface of this same section from an
         earlier build (``extra["v_rel"]``), m s^-1: a change of classes,
         bottom-triangle rule or Ekman depth then needs no new dynamic height.
+    salinity : {"preformed", "absolute"}
+        Salinity of the salt transports, class salinities and the freshwater
+        reference: Preformed Salinity S* (gsw.Sstar_from_SA; conserved, which
+        Absolute Salinity is not: IOC, SCOR and IAPSO 2010, TEOS-10 manual;
+        McDougall et al. 2012) or Absolute Salinity SA, g/kg.
 
     Returns
     -------
@@ -348,6 +354,8 @@ def build_operator(
 
     sa_pair = pair_mean(sa)
     ct_pair = pair_mean(ct)
+    salt_pair = pair_mean(budget_salinity(sa, p, section["lon"].values, section["lat"].values,
+                                          salinity))
     rho_pair = pair_mean(rho_station)
     del rho_station
     # potential density only where it can decide a class (class weights identical to the
@@ -367,10 +375,11 @@ def build_operator(
     n_class = len(interfaces) + 1  # without interfaces, the one unreachable value adds none
 
     # every class integral at once: each quantity times v (relative transport) and
-    # times the response (area), then the area moments [1, SA, SA^2, CT, CT^2]
+    # times the response (area), then the area moments [1, S, S^2, CT, CT^2], with S the
+    # salinity of the salt budgets (S* or SA)
     length = distance[:, None]
     n_q = len(QUANTITIES)
-    integrals = _class_integrals(levels, v_eff, response, rho_pair, sa_pair, ct_pair)
+    integrals = _class_integrals(levels, v_eff, response, rho_pair, salt_pair, ct_pair)
     integrals = integrals[..., :n_class, :] * length[..., None]  # (..., pair, class, field)
     relative = np.moveaxis(integrals[..., :n_q], -1, -3)  # (..., quantity, pair, class)
     area = np.moveaxis(integrals[..., n_q : 2 * n_q], -1, -3)
@@ -383,7 +392,7 @@ def build_operator(
 
     ekman_share, level_ekman = _ekman_share(
         sigma_if, values, p, geometry["lat"].values, ekman_depth,
-        _quantities(rho_pair, sa_pair, ct_pair, slice(0, _ekman_levels(p, geometry["lat"].values,
+        _quantities(rho_pair, salt_pair, ct_pair, slice(0, _ekman_levels(p, geometry["lat"].values,
                                                                        ekman_depth))),
     )
 
@@ -416,10 +425,44 @@ def build_operator(
         ekman_depth=float(ekman_depth),
         bottom_triangle=bottom_triangle,
         class_levels=levels,
-        extra={"sa_pair": sa_pair, "ct_pair": ct_pair, "rho_pair": rho_pair,
+        extra={"sa_pair": sa_pair, "salt_pair": salt_pair, "salinity": salinity,
+               "ct_pair": ct_pair, "rho_pair": rho_pair,
                "class_moments": class_moments, "station_sa": sa, "station_ct": ct,
                "v_rel": v_rel, "section": section},
     )
+
+
+SALINITY_NAMES = {"preformed": "Preformed Salinity S*", "absolute": "Absolute Salinity SA"}
+
+
+def budget_salinity(
+    sa: np.ndarray, p: np.ndarray, lon: np.ndarray, lat: np.ndarray, salinity: str
+) -> np.ndarray:
+    """The salinity salt budgets are made of, on the station grid.
+
+    Parameters
+    ----------
+    sa : ndarray (..., station, level)
+        Absolute Salinity, g/kg.
+    p : ndarray (level,)
+        Pressure, dbar.
+    lon, lat : ndarray (station,)
+        Station positions, degrees_east and degrees_north.
+    salinity : {"preformed", "absolute"}
+        Preformed Salinity S* (gsw.Sstar_from_SA, TEOS-10) or SA itself.
+
+    Returns
+    -------
+    ndarray (..., station, level)
+        g/kg; NaN where SA is NaN.
+    """
+    if salinity == "absolute":
+        return sa
+    if salinity != "preformed":
+        raise SectionDataError(f"salinity = {salinity!r} is not one of "
+                               f"{', '.join(SALINITY_NAMES)}")
+    return gsw.Sstar_from_SA(sa, p, np.asarray(lon, float)[..., None],
+                             np.asarray(lat, float)[..., None])
 
 
 def _tail_thickness(
