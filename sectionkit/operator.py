@@ -461,8 +461,32 @@ def budget_salinity(
     if salinity != "preformed":
         raise SectionDataError(f"salinity = {salinity!r} is not one of "
                                f"{', '.join(SALINITY_NAMES)}")
-    return gsw.Sstar_from_SA(sa, p, np.asarray(lon, float)[..., None],
-                             np.asarray(lat, float)[..., None])
+    return sa * _sstar_factor(np.asarray(p, float), np.asarray(lon, float),
+                              np.asarray(lat, float))
+
+
+_SSTAR: dict[bytes, np.ndarray] = {}
+
+
+def _sstar_factor(p: np.ndarray, lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
+    """S*/SA at every station and level (it depends on position and pressure only).
+
+    gsw.Sstar_from_SA is SA (1 - (1 + r1) SAAR) / (1 + SAAR) with SAAR from the
+    TEOS-10 atlas at (p, lon, lat): linear in SA, so the ratio is evaluated once
+    per set of positions and grid and kept (the last few), read-only.
+    """
+    key = p.tobytes() + b"|" + lon.tobytes() + b"|" + lat.tobytes()
+    with _FIXED_LOCK:
+        factor = _SSTAR.get(key)
+    if factor is None:
+        factor = gsw.Sstar_from_SA(np.ones(lon.shape + p.shape), p, lon[..., None],
+                                   lat[..., None])
+        factor.setflags(write=False)
+        with _FIXED_LOCK:
+            _SSTAR[key] = factor
+            while len(_SSTAR) > _FIXED_SIZE:
+                _SSTAR.pop(next(iter(_SSTAR)))
+    return factor
 
 
 def _tail_thickness(
@@ -506,6 +530,8 @@ def _quantities(rho: np.ndarray, sa: np.ndarray, ct: np.ndarray, levels: slice
 
 
 _SCRATCH = threading.local()
+#: Grid points per block of the class integrals (13 fields of them stay in cache).
+_CACHE_POINTS = 40_000
 _FIXED: dict[tuple, tuple[xr.Dataset, np.ndarray, np.ndarray]] = {}
 _FIXED_LOCK = threading.Lock()
 _FIXED_SIZE = 4
@@ -556,10 +582,11 @@ def _class_integrals(levels: ClassLevels, v: np.ndarray, response: np.ndarray, r
                      sa: np.ndarray, ct: np.ndarray) -> np.ndarray:
     """Depth integrals over every class of the 13 fields of the operator, per pair.
 
-    Fields: v, v rho/RHO0, v rho SA/RHO0, v rho c_p0 CT (relative transports), the
-    same with the response instead of v (areas), then 1, SA, SA^2, CT, CT^2. Runs
-    of levels of one class are summed at once (``np.add.reduceat``); the split
-    cells are added from ``levels``' split weights.
+    Fields: v, v rho/RHO0, v rho S/RHO0, v rho c_p0 CT (relative transports), the
+    same with the response instead of v (areas), then 1, S, S^2, CT, CT^2. Runs
+    of levels of one class are summed at once (``np.add.reduceat``), a few
+    pairs at a time so that the products stay in the processor's cache; the
+    split cells are added from ``levels``' split weights.
 
     Returns
     -------
@@ -570,43 +597,55 @@ def _class_integrals(levels: ClassLevels, v: np.ndarray, response: np.ndarray, r
     n_lev = shape[-1]
     n_row = int(np.prod(shape[:-1]))
     n_class = levels.n_class
-    lc = levels.level_class.reshape(n_row, n_lev)
-    # a level without any of the fields belongs to no class (index n_class, dropped)
-    bad = np.isnan(v) | np.isnan(response) | np.isnan(rho) | np.isnan(sa) | np.isnan(ct)
-    lc = np.where(bad.reshape(n_row, n_lev), np.int8(n_class), lc)
-    tw = levels.level_weight.reshape(n_row, n_lev)
+    lc_all = levels.level_class.reshape(n_row, n_lev)
+    tw_all = levels.level_weight.reshape(n_row, n_lev)
     v2, r2, rho2, sa2, ct2 = (a.reshape(n_row, n_lev) for a in (v, response, rho, sa, ct))
-    mass = rho2 / RHO0
-    salt = mass * sa2
-    heat = rho2 * CP0
-    heat *= ct2
-    y = _scratch((13, n_row, n_lev))
-    for base, carrier in ((0, v2), (4, r2)):
-        np.multiply(tw, carrier, out=y[base])
-        for k, q in enumerate((mass, salt, heat), start=1):
-            np.multiply(y[base], q, out=y[base + k])
-    y[8] = tw
-    np.multiply(tw, sa2, out=y[9])
-    np.multiply(y[9], sa2, out=y[10])
-    np.multiply(tw, ct2, out=y[11])
-    np.multiply(y[11], ct2, out=y[12])
-    change = np.empty((n_row, n_lev), dtype=bool)
-    change[:, 0] = True
-    np.not_equal(lc[:, 1:], lc[:, :-1], out=change[:, 1:])
-    starts = np.flatnonzero(change)
-    sums = np.add.reduceat(y.reshape(13, n_row * n_lev), starts, axis=1)  # (13, run)
-    target = (starts // n_lev) * (n_class + 1) + lc.reshape(-1)[starts]
-    out = np.empty((13, n_row * (n_class + 1)))
-    for f in range(13):
-        out[f] = np.bincount(target, weights=sums[f], minlength=out.shape[1])
-    out = out.reshape(13, n_row, n_class + 1)[..., :n_class]
+    out = np.zeros((13, n_row, n_class + 1))
+    chunk = max(1, _CACHE_POINTS // n_lev)
+    y_all = _scratch((13, min(chunk, n_row) * n_lev))
+    for a in range(0, n_row, chunk):
+        rows = slice(a, min(a + chunk, n_row))
+        n = rows.stop - rows.start
+        vv, rr, rh, ss, cc, tw = (x[rows] for x in (v2, r2, rho2, sa2, ct2, tw_all))
+        # a level without any of the fields belongs to no class (index n_class, dropped);
+        # rho is NaN wherever S or CT is
+        bad = np.isnan(vv) | np.isnan(rr) | np.isnan(rh)
+        lc = np.where(bad, np.int8(n_class), lc_all[rows])
+        mass = rh / RHO0
+        salt = mass * ss
+        heat = rh * CP0
+        heat *= cc
+        y = y_all[:, : n * n_lev].reshape(13, n, n_lev)
+        for base, carrier in ((0, vv), (4, rr)):
+            np.multiply(tw, carrier, out=y[base])
+            for k, q in enumerate((mass, salt, heat), start=1):
+                np.multiply(y[base], q, out=y[base + k])
+        y[8] = tw
+        np.multiply(tw, ss, out=y[9])
+        np.multiply(y[9], ss, out=y[10])
+        np.multiply(tw, cc, out=y[11])
+        np.multiply(y[11], cc, out=y[12])
+        change = np.empty((n, n_lev), dtype=bool)
+        change[:, 0] = True
+        np.not_equal(lc[:, 1:], lc[:, :-1], out=change[:, 1:])
+        starts = np.flatnonzero(change)
+        sums = np.add.reduceat(y.reshape(13, n * n_lev), starts, axis=1)  # (13, run)
+        target = (starts // n_lev) * (n_class + 1) + lc.reshape(-1)[starts]
+        part = out[:, rows].reshape(13, n * (n_class + 1))
+        for f in range(13):
+            part[f] += np.bincount(target, weights=sums[f], minlength=n * (n_class + 1))
+        out[:, rows] = part.reshape(13, n, n_class + 1)
+    out = out[..., :n_class]
     if levels.split_weight.size:
         idx = levels.split_index
         row = np.ravel_multi_index(idx[:-2], shape[:-1])
         klass, lev = idx[-2], idx[-1]
         w = levels.split_weight
         at = (row, lev)
-        vv, rr, mm, ss, hh = v2[at] * w, r2[at] * w, mass[at], salt[at], heat[at]
+        mm = rho2[at] / RHO0
+        ss = mm * sa2[at]
+        hh = rho2[at] * CP0 * ct2[at]
+        vv, rr = v2[at] * w, r2[at] * w
         sa_w, ct_w = sa2[at] * w, ct2[at] * w
         parts = [vv, vv * mm, vv * ss, vv * hh, rr, rr * mm, rr * ss, rr * hh,
                  w, sa_w, sa_w * sa2[at], ct_w, ct_w * ct2[at]]

@@ -92,3 +92,17 @@ def test_anomaly_and_density_match_teos10_check_values():
         assert np.max(np.abs(eos.anomaly - cv["specvol_anom_standard"].T)[ok]) \
             < cv["specvol_anom_standard_ca"]
         assert np.max(np.abs(eos.in_situ_density() - cv["rho"].T)[ok]) < cv["rho_ca"]
+
+
+def test_preformed_salinity_equals_gsw_sstar_from_sa():
+    # TEOS-10 Preformed Salinity (gsw.Sstar_from_SA) is SA times a ratio that depends on
+    # position and pressure only; the ratio is kept between builds
+    from sectionkit.operator import budget_salinity
+
+    sa, ct, p = _profiles(1, 300, 10.0, seed=5)
+    sa = sa[0]
+    lon = np.linspace(-40.0, -10.0, sa.shape[0])
+    lat = np.linspace(20.0, 35.0, sa.shape[0])
+    expected = gsw.Sstar_from_SA(sa, p, lon[:, None], lat[:, None])
+    for _ in range(2):  # computed, then kept
+        _assert_same(budget_salinity(sa, p, lon, lat, "preformed"), expected, 1e-15)
