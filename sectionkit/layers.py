@@ -400,6 +400,15 @@ class ClassLevels:
         return out
 
 
+def _trapezoid_levels(half: np.ndarray) -> np.ndarray:
+    """Per level, the half-cell weights of the segments above and below it (..., level)."""
+    out = np.empty(half.shape[:-1] + (half.shape[-1] + 1,))
+    out[..., 0] = half[..., 0]
+    out[..., -1] = half[..., -1]
+    np.add(half[..., 1:], half[..., :-1], out=out[..., 1:-1])
+    return out
+
+
 def class_levels(
     sigma: np.ndarray | Sequence[np.ndarray],
     interfaces: np.ndarray,
@@ -441,16 +450,13 @@ def class_levels(
         level_class += above
         crossed |= above[..., :-1] != above[..., 1:]
     crossed &= valid
-    scale = np.where(valid, thickness * width, 0.0)  # (..., pair, seg)
-    column = np.zeros(finite.shape)
+    scale = np.multiply(thickness, width)
+    scale = np.where(valid, scale, 0.0)  # (..., pair, seg)
     half = 0.5 * scale
-    column[..., :-1] += half
-    column[..., 1:] += half
+    column = _trapezoid_levels(half)
     # segments no interface crosses lie in one class: trapezoid weights
-    half[crossed] = 0.0
-    level_weight = np.zeros(finite.shape)
-    level_weight[..., :-1] += half
-    level_weight[..., 1:] += half
+    np.copyto(half, 0.0, where=crossed)
+    level_weight = _trapezoid_levels(half)
     # crossed segments (a few per pair): split at the sorted crossings and integrate
     # the linear field exactly over each sub-interval
     where_crossed = np.nonzero(crossed)
@@ -492,7 +498,7 @@ def class_levels(
         for target in (level_weight, column):
             cur = np.take_along_axis(target, last[..., None], axis=-1)
             np.put_along_axis(target, last[..., None], cur + tail_w, axis=-1)
-    level_class[~finite] = n_class
+    np.copyto(level_class, np.int8(n_class), where=~finite)
     if idx:
         split_index = tuple(np.concatenate(parts) for parts in zip(*idx, strict=True))
         split_weight = np.concatenate(vals)
