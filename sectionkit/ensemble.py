@@ -225,13 +225,15 @@ def _shift_plan(ok: np.ndarray, pressure: np.ndarray, shift: np.ndarray) -> tupl
     j = np.minimum(np.floor(u).astype(np.intp), np.maximum(top - 1, 0))
     w = u - j
     moved = ok & (count >= 2)[:, None] & (shift != 0.0)[:, None]
-    return j, np.minimum(j + 1, top), w, moved
+    row = (np.arange(ok.shape[0]) * ok.shape[-1])[:, None]  # flat indices of the levels
+    return j + row, np.minimum(j + 1, top) + row, w, moved
 
 
 def _apply_shift(values: np.ndarray, plan: tuple) -> np.ndarray:
     j0, j1, w, moved = plan
-    v0 = np.take_along_axis(values, j0, axis=-1)
-    v1 = np.take_along_axis(values, j1, axis=-1)
+    flat = values.reshape(-1)
+    v0 = np.take(flat, j0)
+    v1 = np.take(flat, j1)
     v1 -= v0
     v1 *= w
     v1 += v0
