@@ -342,6 +342,29 @@ def _pchip_slopes(y: np.ndarray, count: np.ndarray) -> np.ndarray:
     return d
 
 
+def _hermite(y: np.ndarray, d: np.ndarray, t: np.ndarray, n: int) -> np.ndarray:
+    """The cubic through levels k and k+1 (values ``y``, derivatives times the step ``d``)
+    at fraction ``t`` of each step; the mid-point in closed form when ``n`` is 2."""
+    y0, y1 = y[:, :-1], y[:, 1:]
+    d0, d1 = d[:, :-1], d[:, 1:]
+    if n == 2:  # (y0 + y1) / 2 + (d0 - d1) / 8
+        out = np.add(y0, y1)
+        out *= 0.5
+        tmp = np.subtract(d0, d1)
+        tmp *= 0.125
+        out += tmp
+        return out
+    tt = t * t
+    ttt = tt * t
+    # the cubic Hermite basis, as gsw evaluates it
+    out = np.multiply(y0, 2 * ttt - 3 * tt + 1)
+    tmp = np.multiply(d0, ttt - 2 * tt + t)
+    out += tmp
+    out += np.multiply(y1, -2 * ttt + 3 * tt, out=tmp)
+    out += np.multiply(d1, ttt - tt, out=tmp)
+    return out
+
+
 def _fast_block(sa: np.ndarray, ct: np.ndarray, p: np.ndarray, n: int, max_dp: float,
                 count: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Anomaly and dynamic height of a block of (profile, level) on a uniform grid.
@@ -369,42 +392,21 @@ def _fast_block(sa: np.ndarray, ct: np.ndarray, p: np.ndarray, n: int, max_dp: f
         # there with the shape-preserving cubic of each profile's valid levels
         h = float(p[1] - p[0])
         inner_p = [p[0] + max_dp * (np.arange(p.size - 1) * n + j) for j in range(1, n)]
-        inner_sa: list[np.ndarray] = []
-        inner_ct: list[np.ndarray] = []
-        for y, inner in ((sa, inner_sa), (ct, inner_ct)):
-            d = _pchip_slopes(y, count)  # derivative times the grid step
-            y0, y1 = y[:, :-1], y[:, 1:]
-            d0, d1 = d[:, :-1], d[:, 1:]
-            if n == 2:  # the mid-point: (y0 + y1) / 2 + (d0 - d1) h / 8
-                out = np.add(y0, y1)
-                out *= 0.5
-                tmp = np.subtract(d0, d1)
-                tmp *= 0.125
-                out += tmp
-                inner.append(out)
-                continue
-            tmp = np.empty(y0.shape)
-            for pj in inner_p:
-                t = (pj - p[:-1]) / h
-                tt = t * t
-                ttt = tt * t
-                # the cubic Hermite basis, as gsw evaluates it
-                out = np.multiply(y0, 2 * ttt - 3 * tt + 1)
-                out += np.multiply(d0, ttt - 2 * tt + t, out=tmp)
-                out += np.multiply(y1, -2 * ttt + 3 * tt, out=tmp)
-                out += np.multiply(d1, ttt - tt, out=tmp)
-                inner.append(out)
-        points = [b[:, :-1]]
-        points += [gsw.specvol_anom_standard(a, c, pj)
-                   for a, c, pj in zip(inner_sa, inner_ct, inner_p, strict=True)]
-        points.append(b[:, 1:])
-        del inner_sa, inner_ct
-        edges = [p[:-1], *inner_p, p[1:]]
+        slopes = [_pchip_slopes(y, count) for y in (sa, ct)]  # derivative times the step
         step = np.zeros((sa.shape[0], p.size - 1))
-        for i in range(n):
-            part = np.add(points[i + 1], points[i])
-            part *= 0.5 * (edges[i + 1] - edges[i]) * _DB2PA
+        previous, p_prev = b[:, :-1], p[:-1]
+        # one interpolated point of every step at a time (memory of the grid, not of n)
+        for pj in [*inner_p, None]:
+            if pj is None:
+                current, p_cur = b[:, 1:], p[1:]
+            else:
+                sa_j, ct_j = (_hermite(y, d, (pj - p[:-1]) / h, n)
+                              for y, d in zip((sa, ct), slopes, strict=True))
+                current, p_cur = gsw.specvol_anom_standard(sa_j, ct_j, pj), pj
+            part = np.add(current, previous)
+            part *= 0.5 * (p_cur - p_prev) * _DB2PA
             step += part
+            previous, p_prev = current, p_cur
         np.negative(step, out=step)
     psi = np.empty(b.shape)
     psi[:, 0] = 0.0
