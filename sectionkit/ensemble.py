@@ -527,7 +527,8 @@ def _run_members(
 
 
 def member_batch_size(members: int, workers: int) -> int:
-    """Members per dask task: about eight tasks per worker, at most 16 members each.
+    """Members per dask task: at least eight tasks per worker, at most 8 members each
+    (the last tasks then keep both workers busy to the end).
 
     Parameters
     ----------
@@ -541,7 +542,7 @@ def member_batch_size(members: int, workers: int) -> int:
     int
         Members per task, >= 1.
     """
-    return max(1, min(16, members // (8 * max(workers, 1))))
+    return max(1, min(8, members // (8 * max(workers, 1))))
 
 
 def run_members(study: Study, seeds: Sequence[np.random.SeedSequence], perturb: Perturbation
