@@ -209,10 +209,12 @@ def pipeline_vs_floor(quick: bool = False) -> list[Measurement]:
 
     The floor (gsw.geo_strf_dyn_height alone), sectionkit's chain
     (``Study.from_config`` + ``solve``: dynamic height, references, classes,
-    budgets and a mass-conserving inverse) and the peer
+    budgets and a mass-conserving inverse) from scratch (nothing kept from an
+    earlier build: :func:`sectionkit.operator.clear_kept_parts` first), the
+    same chain as a rebuild (for the record) and the peer
     (:func:`notebook_peer`, same classes and reference, no inverse) are timed
-    in turn in each round, so all three see the same machine load; the
-    fastest round of each counts.
+    in turn in each round, so all see the same machine load; the fastest
+    round of each counts.
 
     Parameters
     ----------
@@ -227,6 +229,7 @@ def pipeline_vs_floor(quick: bool = False) -> list[Measurement]:
     """
     import gsw
 
+    from sectionkit.operator import clear_kept_parts
     from sectionkit.study import Study
 
     config, sections = long_line_study()
@@ -240,6 +243,12 @@ def pipeline_vs_floor(quick: bool = False) -> list[Measurement]:
         gsw.geo_strf_dyn_height(sa, ct, p, p_ref=0.0, axis=1, max_dp=1.0)
 
     def full() -> None:
+        # from scratch: nothing kept from an earlier build of these stations
+        clear_kept_parts()
+        Study.from_config(config, sections=sections).solve()
+
+    def full_kept() -> None:
+        # a rebuild of the same stations (ensemble members, reruns): position-only parts kept
         Study.from_config(config, sections=sections).solve()
 
     def peer() -> None:
@@ -249,10 +258,11 @@ def pipeline_vs_floor(quick: bool = False) -> list[Measurement]:
     full()  # the first (cold) run also pays page faults of the large temporaries
     cold = time.perf_counter() - start
     peer()
-    times: dict[str, list[float]] = {"floor": [], "full": [], "peer": []}
+    times: dict[str, list[float]] = {"floor": [], "full": [], "full_kept": [], "peer": []}
     load_before = os.getloadavg()[0]
-    for _ in range(rounds):  # interleaved: the same load for all three
-        for label, func in (("floor", floor), ("full", full), ("peer", peer)):
+    for _ in range(rounds):  # interleaved: the same load for all of them
+        for label, func in (("floor", floor), ("full", full), ("full_kept", full_kept),
+                            ("peer", peer)):
             t0 = time.perf_counter()
             func()
             times[label].append(time.perf_counter() - t0)
@@ -263,6 +273,7 @@ def pipeline_vs_floor(quick: bool = False) -> list[Measurement]:
     best = {k: min(v) for k, v in times.items()}
     details = {"floor_s (fastest)": best["floor"], "pipeline_s (fastest)": best["full"],
                "peer_s (fastest)": best["peer"],
+               "pipeline_rebuild_s (fastest; position-only parts kept)": best["full_kept"],
                "pipeline_median_s": statistics.median(times["full"]),
                "pipeline_cold_s": cold, "operators_median_s": t_build,
                "solve_median_s": t_solve, "rounds": rounds,

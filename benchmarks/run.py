@@ -37,6 +37,12 @@ import time
 from pathlib import Path
 from typing import Any
 
+# one BLAS thread, as the ensemble's dask workers use: on 2 cores shared with other jobs a
+# second BLAS thread only waits for a core (set before numpy is imported; an explicit
+# setting in the environment wins)
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 sys.path.insert(1, str(HERE.parent))
@@ -126,7 +132,8 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
 
     print(f"machine: {_machine()}")
-    print(f"load average at start (1, 5, 15 min): {os.getloadavg()}")
+    print(f"load average at start (1, 5, 15 min): {os.getloadavg()}; BLAS threads: "
+          f"{os.environ.get('OPENBLAS_NUM_THREADS')}")
     print(f"mode: {'quick' if args.quick else 'full'}")
     start = time.perf_counter()
     measured: list[Measurement] = []

@@ -548,6 +548,16 @@ _FIXED_LOCK = threading.Lock()
 _FIXED_SIZE = 4
 
 
+def clear_kept_parts() -> None:
+    """Forget the position-only parts kept between builds (geometry, cell heights, S*/SA).
+
+    Builds then compute them again, as the first build of a section does.
+    """
+    with _FIXED_LOCK:
+        _FIXED.clear()
+        _SSTAR.clear()
+
+
 def _fixed_parts(section: xr.Dataset, p: np.ndarray, bottom: np.ndarray, bathymetry: list | None
                  ) -> tuple[xr.Dataset, np.ndarray, np.ndarray]:
     """Pair geometry, cell thickness and bottom width fraction of a section.
