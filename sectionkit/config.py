@@ -67,8 +67,10 @@ SCHEMA: dict[str, dict[str, str]] = {
 }
 # Table names that mean the same table ("old or new name" -> schema entry).
 TABLE_ALIASES: dict[str, str] = {}
-# Keys of the variables table of a section (which of two sensors to use).
-SECTION_VARIABLES = ("temperature", "salinity")
+# Keys of the variables table of a section: the quantity whose variable is named
+# (which of two sensors to use when several carry the same standard_name).
+SECTION_VARIABLES = ("temperature", "salinity", "pressure", "latitude", "longitude",
+                     "bottom_depth")
 
 _TYPE_NAMES = {"boolean": "a boolean (true or false)", "number": "a number",
                "integer": "a whole number", "string": "a string", "table": "a table",
@@ -224,7 +226,7 @@ class SectionSpec:
     into_box: bool = True
     columns: dict[str, str] = field(default_factory=dict)
     bathymetry: str | None = None
-    variables: dict[str, str] = field(default_factory=dict)
+    variables: dict[str, str] = field(default_factory=dict)  # quantity -> NetCDF variable
 
 
 @dataclass

@@ -135,6 +135,7 @@ class Study:
                 dp=config.dp,
                 allow_equator=config.allow_equator,
                 columns=spec.columns or None,
+                variables=spec.variables or None,
             )
             study.sections[spec.name] = ds
             study.load_cautions.extend(cautions)

@@ -42,6 +42,8 @@ class Profile:
         column name it was read from, for messages.
     units : dict
         Quantity to the units as labelled in the file (before conversion).
+    lines : ndarray (sample,), optional
+        The file's own line number of each sample (text files), for messages.
     """
 
     station: str | None
@@ -56,6 +58,7 @@ class Profile:
     temperature_kind: str = "in-situ"
     names: dict[str, str] = field(default_factory=dict)
     units: dict[str, str] = field(default_factory=dict)
+    lines: np.ndarray | None = None
 
     def where(self, quantity: str | None = None) -> str:
         """Location text for messages, e.g. ``station 7 (file north.nc), variable TEMP``."""
