@@ -146,8 +146,9 @@ def check_pressure(profile: Profile) -> None:
         k = _first(profile.pressure == p.max())
         raise SectionDataError(
             f"{profile.where('pressure')}: pressure reaches {p.max():g} dbar at "
-            f"{_place(profile, k)} (labelled {units!r}), deeper than any ocean ({MAX_PRESSURE:g} dbar); values in Pa "
-            "labelled dbar? fix the units attribute (sectionkit converts Pa)"
+            f"{_place(profile, k)} (labelled {units!r}), deeper than any ocean "
+            f"({MAX_PRESSURE:g} dbar); values in Pa labelled dbar? fix the units attribute "
+            "(sectionkit converts Pa)"
         )
     if is_pascal(units) and p.size > 1 and p.max() < 1.0:
         raise SectionDataError(
@@ -159,7 +160,8 @@ def check_pressure(profile: Profile) -> None:
         k = _first(profile.pressure == p.min())
         raise SectionDataError(
             f"{profile.where('pressure')}: pressure {p.min():g} dbar at {_place(profile, k)} is "
-            "negative; a missing-value marker (declare it as _FillValue) or depth with the wrong sign?"
+            "negative; a missing-value marker (declare it as _FillValue) or depth with the "
+            "wrong sign?"
         )
     steps = np.diff(p)
     if np.any(steps <= 0):
