@@ -60,7 +60,8 @@ SCHEMA: dict[str, dict[str, str]] = {
                 "prior_ekman": "number", "noise_total": "number",
                 "noise_layer": "list of numbers", "noise_salt": "list of numbers",
                 "noise_heat": "list of numbers", "known": "list of tables",
-                "section_net": "list of tables", "bounds": "table of lists"},
+                "section_net": "list of tables", "bounds": "table of lists",
+                "salinity": "string", "prior_correlation_km": "number"},
     "inverse.known": {"name": "string", "transport": "number", "noise": "number",
                       "layer": "string", "box": "string"},
     "inverse.section_net": {"section": "string", "transport": "number", "noise": "number"},
@@ -275,6 +276,11 @@ class InverseSpec:
     known: list[KnownTransport] = field(default_factory=list)
     section_net: list[SectionNet] = field(default_factory=list)
     bounds: dict[str, list[float]] = field(default_factory=dict)
+    salinity: str = "preformed"
+    prior_correlation_km: float = 0.0
+
+
+SALINITY_KINDS = ("preformed", "absolute")
 
 
 @dataclass
@@ -302,6 +308,11 @@ class Config:
         """Absolute paths of a section's file(s), relative ones taken from the config's folder."""
         files = [spec.file] if isinstance(spec.file, str) else list(spec.file)
         return [(self.base_dir / f) if not Path(f).is_absolute() else Path(f) for f in files]
+
+    @property
+    def salt_salinity(self) -> str:
+        """Salinity of salt transports and budgets: ``[inverse] salinity`` or "preformed"."""
+        return self.inverse.salinity if self.inverse is not None else "preformed"
 
     def section_names(self) -> list[str]:
         """Names of the sections, in configuration order."""
@@ -622,6 +633,14 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
                                "[inverse] prior_ekman", nonneg=True)
     spec.noise_total = _number(inv.get("noise_total", spec.noise_total),
                                "[inverse] noise_total", positive=True)
+    spec.salinity = inv.get("salinity", spec.salinity)
+    if spec.salinity not in SALINITY_KINDS:
+        close = difflib.get_close_matches(str(spec.salinity), SALINITY_KINDS, n=1)
+        raise ConfigError(f"[inverse] salinity = {spec.salinity!r} is not one of "
+                          f"{', '.join(SALINITY_KINDS)} (the salinity of the salt budgets)"
+                          + (f"; did you mean {close[0]!r}?" if close else ""))
+    spec.prior_correlation_km = _number(inv.get("prior_correlation_km", 0.0),
+                                        "[inverse] prior_correlation_km", nonneg=True)
     n_class = len(cfg.layer_names)
     for key in ("noise_layer", "noise_salt", "noise_heat"):
         values = inv.get(key, [])

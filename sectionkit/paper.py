@@ -31,6 +31,7 @@ import numpy as np
 import pandas as pd
 
 from sectionkit.geostrophy import ReferenceChoice
+from sectionkit.operator import SALINITY_NAMES
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.tables import tables
 
@@ -602,7 +603,8 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
         body = ("Net inflow into each box (positive in), initial and adjusted, with the "
                 "constraint's a priori noise; the normalized residual is adjusted / noise. "
                 "Values are rounded to the precision of the noise. Salt rows are salt-anomaly "
-                "transports relative to each class's mean salinity.")
+                f"transports of {SALINITY_NAMES[study.config.salt_salinity]} relative to each "
+                "class's mean; a diapycnal transfer carries the mean of its two classes.")
         return _caption(title, body, study, results, tex)
 
     cols = [
@@ -642,9 +644,10 @@ def _summary_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTab
         esc = latex_escape if tex else markdown_escape
         body = ("Net volume and mass (divided by 1025 kg m⁻³) transports; heat is the "
                 "potential-enthalpy transport; freshwater is relative to "
-                + ("the section's mean Absolute Salinity"
+                + (f"the section's mean {SALINITY_NAMES[study.config.salt_salinity]}"
                    if study.config.reference_salinity is None
-                   else f"{_num(study.config.reference_salinity)} g kg⁻¹")
+                   else f"{_num(study.config.reference_salinity)} g kg⁻¹ of "
+                   + SALINITY_NAMES[study.config.salt_salinity])
                 + "; overturning is the extreme of the streamfunction accumulated from the "
                 "surface in depth and from the lightest class in density. Section frame: "
                 "positive to the left of increasing station order.")

@@ -24,6 +24,7 @@ import pandas as pd
 from sectionkit.config import Config, parse_config
 from sectionkit.errors import InputFileError
 from sectionkit.figures import write_figures
+from sectionkit.operator import SALINITY_NAMES
 from sectionkit.outdir import PROVENANCE, check_output_folder, new_partial_folder, swap_in
 from sectionkit.paper import write_paper_tables
 from sectionkit.study import Results, Study
@@ -119,6 +120,7 @@ def provenance(study: Study, results: Results, outputs: list[str] | None = None)
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
         "cautions": [str(c) for c in results.cautions],
         "inverse": results.inverse.summary() if results.inverse else None,
+        "salt_salinity": SALINITY_NAMES[cfg.salt_salinity],
     }
     if outputs is not None:
         record["outputs"] = sorted(outputs)

@@ -170,6 +170,7 @@ class Study:
                 ekman_depth=cfg.ekman_depth,
                 bathymetry=_bathymetry(cfg, spec, ds),
                 relative_velocity_of_pairs=None if previous is None else previous.extra["v_rel"],
+                salinity=cfg.salt_salinity,
             )
 
     # ------------------------------------------------------------ references

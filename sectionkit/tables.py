@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from sectionkit.operator import SALINITY_NAMES
 from sectionkit.study import Results, Study
 
 
@@ -74,7 +75,8 @@ def pair_table(study: Study, results: Results) -> pd.DataFrame:
 def box_table(results: Results) -> pd.DataFrame:
     """box_budget.csv: one row per box constraint (net inflow, positive in)."""
     inv = results.inverse
-    columns = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual", "unit",
+    columns = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual",
+               "posterior_residual_std", "posterior_normalized_residual", "unit",
                "initial_normalized_residual"]
     if inv is None:
         return pd.DataFrame(columns=columns)
@@ -87,6 +89,8 @@ def box_table(results: Results) -> pd.DataFrame:
         "adjusted": adjusted,
         "noise": sys_.noise,
         "normalized_residual": adjusted / sys_.noise,
+        "posterior_residual_std": inv.posterior_residual_std,
+        "posterior_normalized_residual": inv.posterior_normalized_residuals,
         "unit": sys_.units,
         "initial_normalized_residual": sys_.initial / sys_.noise,
     }, columns=columns)
@@ -132,12 +136,18 @@ def summary_table(study: Study, results: Results) -> pd.DataFrame:
             row[col] = results.value(name, key)
             row[col.replace("_sv", "_err_sv").replace("_pw", "_err_pw")] = results.error(name, key)
         row["net_mass_sv"] = results.value(name, "net_mass")
+        op = study.operators[name]
+        row["freshwater_ref_salinity"] = (float(op.mean_salinity)
+                                          if study.config.reference_salinity is None
+                                          else study.config.reference_salinity)
+        row["freshwater_ref_kind"] = SALINITY_NAMES[study.config.salt_salinity]
         row["overturning_density_sv"] = results.value(name, "overturning_density")
         row["overturning_density_err_sv"] = results.error(name, "overturning_density")
         rows.append(row)
     order = ["section", "net_sv", "net_err_sv", "heat_pw", "heat_err_pw", "freshwater_sv",
              "freshwater_err_sv", "overturning_sv", "overturning_err_sv", "net_mass_sv",
-             "overturning_density_sv", "overturning_density_err_sv"]
+             "overturning_density_sv", "overturning_density_err_sv", "freshwater_ref_salinity",
+             "freshwater_ref_kind"]
     return pd.DataFrame(rows)[order]
 
 

@@ -146,6 +146,9 @@ class BoxBudget:
         inverse).
     units : tuple of str
         ``"Sv"``, ``"Sv g/kg"`` or ``"PW"`` per row.
+    posterior_std : ndarray (row,) or None
+        Residual std the estimate can achieve, sqrt(diag(N - E P E^T)) in
+        ``units`` (Wunsch 1996, ch. 3); None without an inverse.
     """
 
     rows: tuple[tuple[str, str], ...]
@@ -153,12 +156,21 @@ class BoxBudget:
     adjusted: np.ndarray
     noise: np.ndarray
     units: tuple[str, ...]
+    posterior_std: np.ndarray | None = None
 
     @property
     def normalized_residual(self) -> np.ndarray:
         """Adjusted inflow over its noise, dimensionless (DESIGN.md §7)."""
         with np.errstate(invalid="ignore", divide="ignore"):
             return self.adjusted / self.noise
+
+    @property
+    def posterior_normalized_residual(self) -> np.ndarray:
+        """Adjusted inflow over its posterior residual std (NaN without an inverse)."""
+        if self.posterior_std is None:
+            return np.full(len(self.rows), np.nan)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(self.posterior_std > 0, self.adjusted / self.posterior_std, np.nan)
 
     def to_frame(self) -> pd.DataFrame:
         """One row per constraint, the columns of box_budget.csv."""
@@ -169,6 +181,9 @@ class BoxBudget:
             "adjusted": self.adjusted,
             "noise": self.noise,
             "normalized_residual": self.normalized_residual,
+            "posterior_residual_std": (np.full(len(self.rows), np.nan)
+                                       if self.posterior_std is None else self.posterior_std),
+            "posterior_normalized_residual": self.posterior_normalized_residual,
             "unit": list(self.units),
         })
 
@@ -1071,7 +1086,8 @@ class WorkbenchState:
         if results.inverse is not None:
             sys_ = results.inverse.system
             box = BoxBudget(tuple(sys_.rows), sys_.initial.copy(), results.inverse.adjusted,
-                            sys_.noise.copy(), tuple(sys_.units))
+                            sys_.noise.copy(), tuple(sys_.units),
+                            results.inverse.posterior_residual_std)
         else:
             mass = {n: results.outputs[n].value(None)[
                 [results.outputs[n].index(f"mass:{layer}") for layer in layers]]
@@ -1168,8 +1184,10 @@ class WorkbenchState:
             active = system.prior > 0
             x = np.zeros(layout.size)
             x[active] = base.inverse.solver.gain @ (-initial_rows)
+            # the posterior covariance does not depend on the data: same residual std
             box = BoxBudget(tuple(system.rows), initial_rows, initial_rows + system.matrix @ x,
-                            system.noise.copy(), tuple(system.units))
+                            system.noise.copy(), tuple(system.units),
+                            base.inverse.posterior_residual_std)
         initial = np.zeros((len(sections), len(layers)))
         adjusted = np.zeros_like(initial)
         mass = {}
