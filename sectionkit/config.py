@@ -170,7 +170,8 @@ def check_types(data: dict[str, Any], table: str = "", path: tuple[str, ...] = (
     path : tuple of str
         How the table is written in the file (for messages).
     """
-    schema = SCHEMA[TABLE_ALIASES.get(table, table)]
+    table = TABLE_ALIASES.get(table, table)
+    schema = SCHEMA[table]
     _check_keys(data, tuple(schema), _label(path) if path else "the configuration")
     for key, value in data.items():
         spec = schema[key]

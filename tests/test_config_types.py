@@ -210,3 +210,12 @@ def test_override_for_the_last_pair_is_accepted():
 def test_bound_for_a_pair_the_section_does_not_have_is_refused():
     with pytest.raises(ConfigError, match="'south:4' does not exist"):
         _study_with(bounds={"south:4": [-0.1, 0.1]})
+
+
+def test_a_table_alias_is_checked_against_the_table_it_names(monkeypatch):
+    from sectionkit import config as config_module
+
+    monkeypatch.setitem(config_module.SCHEMA, "", {**SCHEMA[""], "classes": "table"})
+    monkeypatch.setitem(config_module.TABLE_ALIASES, "classes", "layers")
+    with pytest.raises(ConfigError, match=r"\[classes\] interfaces #1 sigma: expected a number"):
+        config_module.check_types({"classes": {"interfaces": [{"sigma": "27.0"}]}})
