@@ -16,11 +16,15 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import tomli_w
 
-from sectionkit.errors import ConfigError, InputFileError
+from sectionkit.errors import ConfigError, InputFileError, SectionkitError
 from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
+from sectionkit.io.bottle import tracer_name
+from sectionkit.io.units import pressure_to_dbar, temperature_to_celsius
 from sectionkit.layers import Interface, check_interfaces
+from sectionkit.thermo import SALINITY_KINDS, TEMPERATURE_KINDS
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -39,12 +43,15 @@ EKMAN_DEPTH_RANGE = (1.0, 500.0)  # m: the Ekman layer is tens of metres (common
 # of [[sections]] against "sections"). Adding a key is one line here plus its parsing.
 SCHEMA: dict[str, dict[str, str]] = {
     "": {"title": "string", "grid": "table", "sections": "list of tables",
-         "boxes": "list of tables", "reference": "table", "ekman": "table", "layers": "table",
-         "budget": "table", "inverse": "table"},
+         "boxes": "list of tables", "reference": "table", "ekman": "table", "classes": "table",
+         "budget": "table", "tracers": "table", "adcp": "table", "inverse": "table"},
     "grid": {"dp": "number"},
     "sections": {"name": "string", "file": "string or list of strings", "into_box": "boolean",
                  "columns": "table of strings", "bathymetry": "string",
-                 "variables": "table of strings"},
+                 "variables": "table of strings", "temperature_kind": "string",
+                 "salinity_kind": "string", "pressure_units": "string",
+                 "temperature_units": "string", "bottle": "string",
+                 "stations": "list of strings or list of integers", "adcp": "string"},
     "boxes": {"name": "string", "enters": "list of strings", "leaves": "list of strings"},
     "reference": {"pressure": "number or string", "isopycnal": "table", "velocity": "table",
                   "bottom_triangle": "string", "overrides": "table",
@@ -52,22 +59,35 @@ SCHEMA: dict[str, dict[str, str]] = {
     "reference.isopycnal": {"sigma": "number", "p_ref": "number"},
     "reference.velocity": {"velocity": "number", "pressure": "number", "error": "number"},
     "ekman": {"depth": "number", "stress": "table of lists"},
-    "layers": {"interfaces": "list of tables", "names": "list of strings"},
-    "layers.interfaces": {"sigma": "number", "p_ref": "number"},
+    "classes": {"interfaces": "list of tables", "names": "list of strings"},
+    "classes.interfaces": {"sigma": "number", "p_ref": "number"},
     "budget": {"reference_salinity": "number"},
+    "tracers": {"transport": "list of strings"},
+    "adcp": {"pressure_range": "list of numbers", "use": "string", "error": "number"},
     "inverse": {"solver": "string", "rank": "integer", "conserve": "list of strings",
                 "prior_velocity": "number", "prior_diapycnal": "number",
                 "prior_ekman": "number", "noise_total": "number",
-                "noise_layer": "list of numbers", "noise_salt": "list of numbers",
+                "noise_class": "list of numbers", "noise_salt": "list of numbers",
                 "noise_heat": "list of numbers", "known": "list of tables",
                 "section_net": "list of tables", "bounds": "table of lists",
-                "salinity": "string", "prior_correlation_km": "number"},
+                "salinity": "string", "prior_correlation_km": "number",
+                "noise_tracer": "table of lists"},
     "inverse.known": {"name": "string", "transport": "number", "noise": "number",
-                      "layer": "string", "box": "string"},
+                      "class": "string", "box": "string"},
     "inverse.section_net": {"section": "string", "transport": "number", "noise": "number"},
 }
 # Table names that mean the same table ("old or new name" -> schema entry).
 TABLE_ALIASES: dict[str, str] = {}
+# Every key the parser accepts, by table (the user guide, docs/configuration.md, documents
+# each one); old names accepted for a key are in ALIASES.
+KEYS: dict[str, tuple[str, ...]] = {table: tuple(keys) for table, keys in SCHEMA.items()}
+# old key name -> current name, per table (both accepted; the current one is written)
+ALIASES: dict[str, dict[str, str]] = {
+    "": {"layers": "classes"},
+    "inverse": {"noise_layer": "noise_class"},
+    "inverse.known": {"layer": "class"},
+}
+DEEPEST_COMMON = "deepest_common"  # the reference at each pair's deepest common level
 # Keys of the variables table of a section: the quantity whose variable is named
 # (which of two sensors to use when several carry the same standard_name).
 SECTION_VARIABLES = ("temperature", "salinity", "pressure", "latitude", "longitude",
@@ -172,9 +192,11 @@ def check_types(data: dict[str, Any], table: str = "", path: tuple[str, ...] = (
     """
     table = TABLE_ALIASES.get(table, table)
     schema = SCHEMA[table]
-    _check_keys(data, tuple(schema), _label(path) if path else "the configuration")
+    aliases = ALIASES.get(table, {})  # old names are checked as what the user wrote
+    _check_keys(data, tuple(schema) + tuple(aliases),
+                _label(path) if path else "the configuration")
     for key, value in data.items():
-        spec = schema[key]
+        spec = schema[aliases.get(key, key)]
         where = path + (key,) if path else (key,)
         if not any(_is(value, kind) for kind in spec.split(" or ")):
             wrong = _first_wrong(value, spec)
@@ -185,7 +207,8 @@ def check_types(data: dict[str, Any], table: str = "", path: tuple[str, ...] = (
                                   f"found {describe_value(item)}")
             raise ConfigError(f"{_label(where)}: expected {_expected(spec)}, "
                               f"found {describe_value(value)}")
-        child = f"{table}.{key}" if table else key
+        name = aliases.get(key, key)
+        child = f"{table}.{name}" if table else name
         child = TABLE_ALIASES.get(child, child)
         if child not in SCHEMA:
             continue
@@ -202,6 +225,38 @@ def _check_keys(table: dict, allowed: tuple[str, ...], where: str) -> None:
         if key not in allowed:
             hint = did_you_mean(key, allowed) or f"; valid keys: {', '.join(allowed)}"
             raise ConfigError(f"unknown key {key!r} in {where}{hint}")
+
+
+def _current_names(table: dict, schema: str, where: str) -> dict:
+    """``table`` with old key names (:data:`ALIASES`) replaced by the current ones.
+
+    Giving a key under both names is an error, so nothing is silently dropped.
+    """
+    aliases = ALIASES.get(schema, {})
+    if not isinstance(table, dict) or not any(k in table for k in aliases):
+        return table
+    out = dict(table)
+    for old, new in aliases.items():
+        if old in out:
+            if new in out:
+                raise ConfigError(f"{where} gives both {new!r} and its old name {old!r}; "
+                                  f"keep {new!r}")
+            out[new] = out.pop(old)
+    return out
+
+
+def _with_current_names(data: dict) -> dict:
+    """The parsed TOML tree with every old key name (:data:`ALIASES`) made current."""
+    data = _current_names(data, "", "the configuration")
+    inv = data.get("inverse")
+    if isinstance(inv, dict):
+        inv = _current_names(inv, "inverse", "[inverse]")
+        known = inv.get("known")
+        if isinstance(known, list):
+            inv["known"] = [_current_names(kt, "inverse.known", f"[inverse] known #{n + 1}")
+                            for n, kt in enumerate(known)]
+        data["inverse"] = inv
+    return data
 
 
 def _number(value: Any, where: str, *, positive: bool = False, nonneg: bool = False) -> float:
@@ -229,6 +284,37 @@ class SectionSpec:
     columns: dict[str, str] = field(default_factory=dict)
     bathymetry: str | None = None
     variables: dict[str, str] = field(default_factory=dict)  # quantity -> NetCDF variable
+    temperature_kind: str = "in-situ"
+    salinity_kind: str = "practical"
+    pressure_units: str = "dbar"
+    temperature_units: str = "degC"
+    bottle: str | None = None  # WHP-Exchange bottle file (tracers)
+    stations: list[str] | None = None  # station order and subset (by station id)
+    adcp: str | None = None  # direct velocity profiles (LADCP / shipboard ADCP)
+
+    def csv_options(self) -> dict[str, Any]:
+        """The CSV layout options of this section, as keyword arguments of the readers."""
+        return {"columns": self.columns or None, "temperature_kind": self.temperature_kind,
+                "salinity_kind": self.salinity_kind, "pressure_units": self.pressure_units,
+                "temperature_units": self.temperature_units}
+
+
+ADCP_USES = ("prior", "known")
+
+
+@dataclass
+class AdcpSpec:
+    """How direct velocity profiles reference the pairs (``[adcp]``).
+
+    ``pressure_range`` (dbar) is the averaging range; ``use`` is ``"prior"``
+    (prior mean and standard deviation of each pair's adjustment in the
+    inverse) or ``"known"`` (a known reference velocity per pair);
+    ``error`` (m s^-1) is the stated error of a range-mean direct velocity.
+    """
+
+    pressure_range: tuple[float, float] = (0.0, 0.0)
+    use: str = "prior"
+    error: float = 0.02
 
 
 @dataclass
@@ -279,9 +365,10 @@ class InverseSpec:
     bounds: dict[str, list[float]] = field(default_factory=dict)
     salinity: str = "preformed"
     prior_correlation_km: float = 0.0
+    noise_tracer: dict[str, list[float]] = field(default_factory=dict)  # per tracer, per class
 
 
-SALINITY_KINDS = ("preformed", "absolute")
+BUDGET_SALINITIES = ("preformed", "absolute")
 
 
 @dataclass
@@ -301,6 +388,8 @@ class Config:
     interfaces: list[Interface] = field(default_factory=list)
     layer_names: list[str] = field(default_factory=list)
     reference_salinity: float | None = None
+    tracers: list[str] = field(default_factory=list)  # plain names of [tracers] transport
+    adcp: AdcpSpec | None = None
     inverse: InverseSpec | None = None
     base_dir: Path = field(default_factory=Path.cwd)
 
@@ -348,6 +437,16 @@ class Config:
                 d["bathymetry"] = s.bathymetry
             if s.variables:
                 d["variables"] = dict(s.variables)
+            for key, default in (("temperature_kind", "in-situ"), ("salinity_kind", "practical"),
+                                 ("pressure_units", "dbar"), ("temperature_units", "degC")):
+                if getattr(s, key) != default:
+                    d[key] = getattr(s, key)
+            if s.bottle:
+                d["bottle"] = s.bottle
+            if s.stations is not None:
+                d["stations"] = list(s.stations)
+            if s.adcp:
+                d["adcp"] = s.adcp
             sections.append(d)
         out["sections"] = sections
         if self.boxes:
@@ -368,15 +467,23 @@ class Config:
         }
         if self.layer_names:
             layers["names"] = list(self.layer_names)
-        out["layers"] = layers
+        out["classes"] = layers
         if self.reference_salinity is not None:
             out["budget"] = {"reference_salinity": self.reference_salinity}
+        if self.tracers:
+            out["tracers"] = {"transport": list(self.tracers)}
+        if self.adcp is not None:
+            out["adcp"] = {"pressure_range": list(self.adcp.pressure_range),
+                           "use": self.adcp.use, "error": self.adcp.error}
         if self.inverse is not None:
             inv = asdict(self.inverse)
             inv["known"] = [
                 {k: v for k, v in asdict(kt).items() if v is not None} for kt in self.inverse.known
             ]
-            for key in ("noise_layer", "noise_salt", "noise_heat", "bounds"):
+            inv["known"] = [{("class" if k == "layer" else k): v for k, v in kt.items()}
+                            for kt in inv["known"]]
+            inv["noise_class"] = inv.pop("noise_layer")
+            for key in ("noise_class", "noise_salt", "noise_heat", "bounds", "noise_tracer"):
                 if not inv[key]:
                     del inv[key]
             if not inv["known"]:
@@ -407,7 +514,7 @@ class Config:
 
 def _reference_to_toml(ref: ReferenceChoice, top: bool = False) -> Any:
     if ref.kind == "bottom":
-        return {"pressure": "bottom"} if top else "bottom"
+        return {"pressure": DEEPEST_COMMON} if top else DEEPEST_COMMON
     if ref.kind == "pressure":
         return {"pressure": ref.pressure} if top else ref.pressure
     if ref.kind == "isopycnal":
@@ -418,22 +525,26 @@ def _reference_to_toml(ref: ReferenceChoice, top: bool = False) -> Any:
 
 
 def parse_reference(value: Any, where: str) -> ReferenceChoice:
-    """A reference from its TOML form: number, ``"bottom"``, isopycnal or velocity table."""
+    """A reference from its TOML form: number, ``"deepest_common"``, isopycnal or velocity table.
+
+    ``"bottom"`` is the old name of ``"deepest_common"`` and still accepted.
+    See docs/configuration.md, section ``[reference]``.
+    """
     if isinstance(value, str):
-        if value == "bottom":
+        if value in (DEEPEST_COMMON, "bottom"):
             return ReferenceChoice("bottom")
-        raise ConfigError(f'{where} = {value!r}: use a pressure in dbar, "bottom", '
+        raise ConfigError(f'{where} = {value!r}: use a pressure in dbar, "{DEEPEST_COMMON}", '
                           "{ sigma = ..., p_ref = ... } or { velocity = ..., pressure = ... }")
     if isinstance(value, dict):
         if "sigma" in value:
-            _check_keys(value, ("sigma", "p_ref"), where)
+            _check_keys(value, KEYS["reference.isopycnal"], where)
             return ReferenceChoice(
                 "isopycnal",
                 sigma=_number(value["sigma"], f"{where}.sigma"),
                 sigma_p_ref=_number(value.get("p_ref", 0.0), f"{where}.p_ref", nonneg=True),
             )
         if "velocity" in value:
-            _check_keys(value, ("velocity", "pressure", "error"), where)
+            _check_keys(value, KEYS["reference.velocity"], where)
             if "pressure" not in value:
                 raise ConfigError(
                     f"{where}: a known velocity needs the pressure it was measured at"
@@ -459,6 +570,7 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
         Folder that relative file names are taken from.
     """
     check_types(data)
+    data = _with_current_names(data)
     cfg = Config(base_dir=Path(base_dir) if base_dir else Path.cwd())
     cfg.title = data.get("title", cfg.title)
 
@@ -494,6 +606,10 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
                 columns=dict(sec.get("columns", {})),
                 bathymetry=sec.get("bathymetry"),
                 variables=variables,
+                **_csv_layout(sec, where),
+                bottle=_optional_text(sec.get("bottle"), f"{where} bottle"),
+                stations=_station_list(sec.get("stations"), f"{where} stations"),
+                adcp=_optional_text(sec.get("adcp"), f"{where} adcp"),
             )
         )
     names = cfg.section_names()
@@ -557,11 +673,11 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
             _number(stress[1], f"[ekman] stress {sec_name}[1]"),
         )
 
-    layers = data.get("layers", {})
+    layers = data.get("classes", {})
     for n, face in enumerate(layers.get("interfaces", [])):
         cfg.interfaces.append(Interface(
-            _number(face.get("sigma"), f"[layers] interface {n} sigma"),
-            _number(face.get("p_ref", 0.0), f"[layers] interface {n} p_ref", nonneg=True),
+            _number(face.get("sigma"), f"[classes] interface {n} sigma"),
+            _number(face.get("p_ref", 0.0), f"[classes] interface {n} p_ref", nonneg=True),
         ))
     cfg.layer_names = check_interfaces(cfg.interfaces, layers.get("names"))
 
@@ -570,9 +686,96 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
         cfg.reference_salinity = _number(budget["reference_salinity"],
                                          "[budget] reference_salinity", positive=True)
 
+    tracers = data.get("tracers", {})
+    _check_keys(tracers, ("transport",), "[tracers]")
+    transport = tracers.get("transport", [])
+    if not isinstance(transport, list):
+        raise ConfigError("[tracers] transport must be a list of tracer names, e.g. "
+                          '["oxygen", "silicate"]')
+    for name in transport:
+        plain = tracer_name(name)
+        if plain not in cfg.tracers:
+            cfg.tracers.append(plain)
+    if cfg.tracers and not any(s.bottle for s in cfg.sections):
+        raise ConfigError("[tracers] transport names tracers but no [[sections]] has a bottle "
+                          "file; add bottle = \"<file>\" to the sections that have one")
+
+    if "adcp" in data or any(s.adcp for s in cfg.sections):
+        cfg.adcp = _parse_adcp(data.get("adcp"))
+
     if "inverse" in data:
         cfg.inverse = _parse_inverse(data["inverse"], cfg)
     return cfg
+
+
+def _csv_layout(sec: dict[str, Any], where: str) -> dict[str, Any]:
+    """The CSV layout keys of one ``[[sections]]`` table (what the columns hold)."""
+    out: dict[str, Any] = {}
+    for key, allowed in (("temperature_kind", TEMPERATURE_KINDS),
+                         ("salinity_kind", SALINITY_KINDS)):
+        if key not in sec:
+            continue
+        value = sec[key]
+        if value not in allowed:
+            close = difflib.get_close_matches(str(value), allowed, n=1)
+            raise ConfigError(f"{where}: {key} = {value!r} is not one of {', '.join(allowed)}"
+                              + (f"; did you mean {close[0]!r}?" if close else ""))
+        out[key] = value
+    for key, convert in (("pressure_units", pressure_to_dbar),
+                         ("temperature_units", temperature_to_celsius)):
+        if key in sec:
+            try:  # the readers' own unit tables decide what is understood
+                convert(np.zeros(1), str(sec[key]), f"{where} {key}")
+            except SectionkitError as exc:
+                raise ConfigError(str(exc)) from None
+            out[key] = str(sec[key])
+    return out
+
+
+def _parse_adcp(table: Any) -> AdcpSpec:
+    if table is None:
+        raise ConfigError("a section names an adcp file but there is no [adcp] table; add "
+                          '[adcp] with pressure_range = [top, bottom] (dbar), use = "prior" or '
+                          '"known", and error (m s^-1)')
+    if not isinstance(table, dict):
+        raise ConfigError("[adcp] must be a table")
+    _check_keys(table, ("pressure_range", "use", "error"), "[adcp]")
+    pr = table.get("pressure_range")
+    if not isinstance(pr, list) or len(pr) != 2:
+        raise ConfigError("[adcp] pressure_range must be [top, bottom] in dbar, e.g. "
+                          "[500.0, 1500.0]")
+    top = _number(pr[0], "[adcp] pressure_range[0]", nonneg=True)
+    bottom = _number(pr[1], "[adcp] pressure_range[1]", nonneg=True)
+    if bottom <= top:
+        raise ConfigError(f"[adcp] pressure_range = [{top:g}, {bottom:g}]: the bottom must lie "
+                          "deeper than the top")
+    use = table.get("use", "prior")
+    if use not in ADCP_USES:
+        raise ConfigError(f"[adcp] use = {use!r} must be one of {', '.join(ADCP_USES)}")
+    return AdcpSpec((top, bottom), str(use),
+                    _number(table.get("error", 0.02), "[adcp] error", positive=True))
+
+
+def _optional_text(value: Any, where: str) -> str | None:
+    if value is None:
+        return None
+    if not isinstance(value, str) or not value:
+        raise ConfigError(f"{where} = {value!r} must be a file name (text)")
+    return value
+
+
+def _station_list(value: Any, where: str) -> list[str] | None:
+    if value is None:
+        return None
+    if not isinstance(value, list) or not value:
+        raise ConfigError(f"{where} = {value!r} must be a list of station ids, e.g. "
+                          '["1", "2", "3"] or [1, 2, 3]')
+    out = []
+    for item in value:
+        if isinstance(item, bool) or not isinstance(item, str | int):
+            raise ConfigError(f"{where}: {item!r} is not a station id (text or whole number)")
+        out.append(str(item))
+    return out
 
 
 def _check_pair_label(label: str, names: list[str], where: str) -> None:
@@ -619,7 +822,13 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
         raise ConfigError(f"[inverse] rank = {rank!r} must be a whole number >= 0")
     spec.rank = rank
     spec.conserve = list(inv.get("conserve", spec.conserve))
-    for c in spec.conserve:
+    for n, c in enumerate(spec.conserve):
+        if c not in CONSTRAINT_KINDS and _is_tracer(c):
+            spec.conserve[n] = c = tracer_name(c)
+            if c not in cfg.tracers:
+                raise ConfigError(f"[inverse] conserve: tracer {c!r} must also be listed in "
+                                  "[tracers] transport")
+            continue
         if c not in CONSTRAINT_KINDS:
             raise ConfigError(f"[inverse] conserve: {c!r} is not one of "
                               f"{', '.join(CONSTRAINT_KINDS)}" + did_you_mean(c, CONSTRAINT_KINDS))
@@ -635,29 +844,41 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
     spec.noise_total = _number(inv.get("noise_total", spec.noise_total),
                                "[inverse] noise_total", positive=True)
     spec.salinity = inv.get("salinity", spec.salinity)
-    if spec.salinity not in SALINITY_KINDS:
-        close = difflib.get_close_matches(str(spec.salinity), SALINITY_KINDS, n=1)
+    if spec.salinity not in BUDGET_SALINITIES:
+        close = difflib.get_close_matches(str(spec.salinity), BUDGET_SALINITIES, n=1)
         raise ConfigError(f"[inverse] salinity = {spec.salinity!r} is not one of "
-                          f"{', '.join(SALINITY_KINDS)} (the salinity of the salt budgets)"
+                          f"{', '.join(BUDGET_SALINITIES)} (the salinity of the salt budgets)"
                           + (f"; did you mean {close[0]!r}?" if close else ""))
     spec.prior_correlation_km = _number(inv.get("prior_correlation_km", 0.0),
                                         "[inverse] prior_correlation_km", nonneg=True)
     n_class = len(cfg.layer_names)
-    for key in ("noise_layer", "noise_salt", "noise_heat"):
+    for key, attr in (("noise_class", "noise_layer"), ("noise_salt", "noise_salt"),
+                      ("noise_heat", "noise_heat")):
         values = inv.get(key, [])
         if values and len(values) != n_class:
             raise ConfigError(f"[inverse] {key} has {len(values)} entries; give one per class "
                               f"({n_class}: {', '.join(cfg.layer_names)})")
-        setattr(spec, key, [_number(v, f"[inverse] {key}[{i}]", positive=True)
-                            for i, v in enumerate(values)])
+        setattr(spec, attr, [_number(v, f"[inverse] {key}[{i}]", positive=True)
+                             for i, v in enumerate(values)])
     if not spec.noise_layer:
         spec.noise_layer = [1.0] * n_class
+    noise_tracer = inv.get("noise_tracer", {})
+    if not isinstance(noise_tracer, dict):
+        raise ConfigError("[inverse] noise_tracer must be a table, e.g. "
+                          "{ silicate = [2.0, 1.0, 1.0] } (kmol s^-1 per class)")
+    for name, values in noise_tracer.items():
+        plain = tracer_name(name)
+        if not isinstance(values, list) or len(values) != n_class:
+            raise ConfigError(f"[inverse] noise_tracer {name!r}: give one noise per class "
+                              f"({n_class}: {', '.join(cfg.layer_names)}), kmol s^-1")
+        spec.noise_tracer[plain] = [_number(v, f"[inverse] noise_tracer {name}[{i}]",
+                                            positive=True) for i, v in enumerate(values)]
     box_names = [b.name for b in cfg.effective_boxes()]
     for n, kt in enumerate(inv.get("known", [])):
         where = f"[inverse] known #{n + 1}"
-        layer = kt.get("layer", "")
+        layer = kt.get("class", "")
         if layer not in cfg.layer_names:
-            raise ConfigError(f"{where}: layer {layer!r} does not exist (classes: "
+            raise ConfigError(f"{where}: class {layer!r} does not exist (classes: "
                               f"{', '.join(cfg.layer_names)})"
                               + did_you_mean(layer, cfg.layer_names))
         box = kt.get("box")
@@ -693,6 +914,14 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
             raise ConfigError(f"[inverse] bounds {label!r}: lower {lo:g} > upper {hi:g}")
         spec.bounds[label] = [lo, hi]
     return spec
+
+
+def _is_tracer(name: str) -> bool:
+    try:
+        tracer_name(name)
+    except ConfigError:
+        return False
+    return True
 
 
 def load_config(path: str | Path) -> Config:

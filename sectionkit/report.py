@@ -22,6 +22,7 @@ from pathlib import Path
 import pandas as pd
 
 from sectionkit.config import Config, parse_config
+from sectionkit.dataset import write_results_nc
 from sectionkit.errors import InputFileError
 from sectionkit.figures import write_figures
 from sectionkit.operator import SALINITY_NAMES
@@ -30,7 +31,7 @@ from sectionkit.paper import write_paper_tables
 from sectionkit.study import Results, Study
 from sectionkit.tables import (  # noqa: F401  (re-exported: the §7 tables)
     box_table,
-    layer_table,
+    class_table,
     pair_table,
     summary_table,
     tables,
@@ -93,6 +94,9 @@ def input_files(cfg: Config) -> tuple[list[Path], dict[str, list[str]]]:
                 files.append(path)
         if spec.bathymetry:
             files.append(cfg.base_dir / spec.bathymetry)
+        for extra in (spec.bottle, spec.adcp):  # bottle tracers, direct velocities
+            if extra:
+                files.append(cfg.base_dir / extra)
     return files, folders
 
 
@@ -245,6 +249,7 @@ def write_outputs(
     try:
         for name, df in tables(study, results).items():
             _write_csv(df, tmp / name)
+        write_results_nc(study, results, tmp)
         for writer in extras or []:
             writer(study, results, tmp)
         written = sorted(p.relative_to(tmp) for p in tmp.rglob("*") if p.is_file())

@@ -212,10 +212,8 @@ def test_bound_for_a_pair_the_section_does_not_have_is_refused():
         _study_with(bounds={"south:4": [-0.1, 0.1]})
 
 
-def test_a_table_alias_is_checked_against_the_table_it_names(monkeypatch):
-    from sectionkit import config as config_module
+def test_the_old_table_name_layers_is_checked_like_classes():
+    from sectionkit.config import check_types
 
-    monkeypatch.setitem(config_module.SCHEMA, "", {**SCHEMA[""], "classes": "table"})
-    monkeypatch.setitem(config_module.TABLE_ALIASES, "classes", "layers")
-    with pytest.raises(ConfigError, match=r"\[classes\] interfaces #1 sigma: expected a number"):
-        config_module.check_types({"classes": {"interfaces": [{"sigma": "27.0"}]}})
+    with pytest.raises(ConfigError, match=r"\[layers\] interfaces #1 sigma: expected a number"):
+        check_types({"layers": {"interfaces": [{"sigma": "27.0"}]}})

@@ -113,9 +113,9 @@ def settings(**changes) -> dict:
 def assert_same(state: WorkbenchState, expected: dict[str, pd.DataFrame]) -> None:
     """The quick class table agrees to rounding; the full tables agree exactly."""
     quick = state.class_table().to_frame()
-    layers = expected["layer_transports.csv"]
+    layers = expected["class_transports.csv"]
     assert list(quick["section"]) == list(layers["section"])
-    assert list(quick["layer"]) == list(layers["layer"])
+    assert list(quick["class"]) == list(layers["class"])
     for col in ("initial_sv", "adjusted_sv", "adjusted_err_sv"):
         np.testing.assert_allclose(quick[col], layers[col], rtol=1e-9, atol=1e-9,
                                    equal_nan=True, err_msg=col)
@@ -189,7 +189,8 @@ def test_reference_change_never_recomputes_dynamic_height(state, monkeypatch):
     def refuse(*args, **kwargs):
         raise AssertionError("dynamic height recomputed for a reference change")
 
-    monkeypatch.setattr(sectionkit.operator, "dynamic_height", refuse)
+    # the operator integrates dynamic height in its one equation-of-state pass
+    monkeypatch.setattr(sectionkit.operator, "specific_volume_pass", refuse)
     monkeypatch.setattr(sectionkit.geostrophy, "dynamic_height", refuse)
     operators = dict(state.study.operators)
     state.set_reference_pressure(1200.0)
@@ -221,7 +222,7 @@ def test_new_interfaces_rebuild_and_equal_batch(state, box_dir):
 
 
 def test_interfaces_that_orphan_a_known_transport_are_refused(state, box_dir):
-    with pytest.raises(ConfigError, match="layer 'upper' does not exist"):
+    with pytest.raises(ConfigError, match="class 'upper' does not exist"):
         state.set_interfaces([(26.8, 0.0), (36.95, 2000.0)], names=["light", "mid", "dense"])
     assert state.layer_names == ["upper", "intermediate", "deep"]
     assert_same(state, batch(box_dir, BASE))
@@ -500,7 +501,7 @@ def test_view_saves_and_exports(view, tmp_path):
     view.export_folder.value = str(tmp_path / "out")
     view.export_figures.value = False
     view.export_button.click()
-    assert (tmp_path / "out" / "layer_transports.csv").is_file()
+    assert (tmp_path / "out" / "class_transports.csv").is_file()
     assert view.status.value.startswith("exported")
 
 

@@ -44,6 +44,11 @@ class Profile:
         Quantity to the units as labelled in the file (before conversion).
     lines : ndarray (sample,), optional
         The file's own line number of each sample (text files), for messages.
+    flag_counts : dict
+        Exchange files: variable (CTDTMP, ...) to the number of samples per
+        WOCE flag, as read (before dropping); empty for other files.
+    cast : str
+        Exchange files: the CASTNO header; empty for other files.
     """
 
     station: str | None
@@ -59,6 +64,8 @@ class Profile:
     names: dict[str, str] = field(default_factory=dict)
     units: dict[str, str] = field(default_factory=dict)
     lines: np.ndarray | None = None
+    flag_counts: dict[str, dict[int, int]] = field(default_factory=dict)
+    cast: str = ""
 
     def where(self, quantity: str | None = None) -> str:
         """Location text for messages, e.g. ``station 7 (file north.nc), variable TEMP``."""

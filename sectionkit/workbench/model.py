@@ -115,13 +115,13 @@ class ClassTransports:
     inverse: bool
 
     def to_frame(self) -> pd.DataFrame:
-        """One row per section x class: section, layer, initial_sv, adjusted_sv, adjusted_err_sv."""
+        """One row per section x class: section, class, initial_sv, adjusted_sv, adjusted_err_sv."""
         rows = []
         for s, section in enumerate(self.sections):
             for i, layer in enumerate(self.layers):
                 rows.append({
                     "section": section,
-                    "layer": layer,
+                    "class": layer,
                     "initial_sv": float(self.initial[s, i]),
                     "adjusted_sv": float(self.adjusted[s, i]),
                     "adjusted_err_sv": float(self.error[s, i]),
