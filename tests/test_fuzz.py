@@ -262,23 +262,26 @@ def configurations(draw):
         "grid": {"dp": 50.0},
         "sections": [{"name": "south", "file": "south.nc"},
                      {"name": "north", "file": "north.nc", "into_box": False}],
-        "layers": {"interfaces": [{"sigma": 27.0, "p_ref": 0.0}], "names": ["upper", "deep"]},
+        "classes": {"interfaces": [{"sigma": 27.0, "p_ref": 0.0}], "names": ["upper", "deep"]},
         "inverse": {},
     }
-    tables = {"": data, "grid": data["grid"], "sections": data["sections"][0],
-              "layers": data["layers"], "inverse": data["inverse"],
-              "reference": data.setdefault("reference", {}),
-              "ekman": data.setdefault("ekman", {}),
-              "boxes": {"name": "b", "enters": ["south"], "leaves": ["north"]}}
+    box = {"name": "b", "enters": ["south"], "leaves": ["north"]}
+    # every table of the schema written as a table (not nested ones, not [[arrays]])
+    names = sorted(t for t in SCHEMA if "." not in t)
     for _ in range(draw(st.integers(1, 4))):
-        table = draw(st.sampled_from(sorted(t for t in tables if t in SCHEMA)))
+        table = draw(st.sampled_from(names))
         key = draw(st.sampled_from(sorted(SCHEMA[table])))
-        if key in ("sections",):
+        if key == "sections":
             continue
+        target = {"": data, "sections": data["sections"][0], "boxes": box}.get(table)
+        if target is None:
+            target = data.setdefault(table, {})
+            if not isinstance(target, dict):  # the table itself was drawn of a wrong type
+                continue
         wrong = draw(st.booleans())
-        tables[table][key] = draw(WRONG if wrong else _value(SCHEMA[table][key]))
+        target[key] = draw(WRONG if wrong else _value(SCHEMA[table][key]))
     if draw(st.booleans()):
-        data["boxes"] = [tables["boxes"]]
+        data["boxes"] = [box]
     return copy.deepcopy(data)
 
 
