@@ -141,3 +141,13 @@ pressure = 500.0
         "TEMP_C", "TEMP_C ", 1))
     with pytest.raises(InputFileError, match="line.csv has changed"):
         load_provenance(out / "provenance.json")
+
+
+def test_rerun_reproduces_the_figures_byte_for_byte(tmp_path):
+    config = _study(tmp_path)
+    first, again = tmp_path / "first", tmp_path / "again"
+    assert main(["budget", str(config), "--out", str(first), "--quiet"]) == 0
+    assert main(["budget", str(first / "provenance.json"), "--out", str(again), "--quiet"]) == 0
+    figures = sorted(p.name for p in (first / "figures").iterdir())
+    assert any(n.endswith(".png") for n in figures) and any(n.endswith(".pdf") for n in figures)
+    assert _outputs(again) == _outputs(first)
