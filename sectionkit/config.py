@@ -858,7 +858,9 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
         if values and len(values) != n_class:
             raise ConfigError(f"[inverse] {key} has {len(values)} entries; give one per class "
                               f"({n_class}: {', '.join(cfg.layer_names)})")
-        setattr(spec, attr, [_number(v, f"[inverse] {key}[{i}]", positive=True)
+        # noise_salt / noise_heat: 0 for a class keeps the automatic noise of that class
+        setattr(spec, attr, [_number(v, f"[inverse] {key}[{i}]", positive=attr == "noise_layer",
+                                     nonneg=attr != "noise_layer")
                              for i, v in enumerate(values)])
     if not spec.noise_layer:
         spec.noise_layer = [1.0] * n_class

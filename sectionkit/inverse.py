@@ -17,10 +17,11 @@ Constraints (all in Sv, or Sv g/kg, or PW):
   mass transport in its own frame, minus the stated value (a closed basin,
   a known throughflow).
 
-Default salt (heat) noise is ``noise_layer`` times the larger of the class's
-salinity (temperature) spread and half the contrast with its neighbouring
-classes: transfers across interfaces and mixing carry anomalies of that
-size, which the constraints do not model.
+Default salt (heat) noise (no ``noise_salt`` list, or 0 for a class) is
+``noise_layer`` times the larger of the class's salinity (temperature)
+spread and half the contrast with its neighbouring classes: transfers across
+interfaces and mixing carry anomalies of that size, which the constraints do
+not model.
 """
 
 from __future__ import annotations
@@ -219,7 +220,7 @@ def assemble(
                 e_rows.append(salt_g[i] - sa_mean[i] * mass_g[i] + dia_s[i])
                 initial.append(float(salt_v[i] - sa_mean[i] * mass_v[i]))
                 spread = max(sa_std[i], contrast[i], SALT_NOISE_FLOOR)
-                noise.append(spec.noise_salt[i] if spec.noise_salt
+                noise.append(spec.noise_salt[i] if spec.noise_salt and spec.noise_salt[i] > 0
                              else spec.noise_layer[i] * spread)
                 units.append("Sv g/kg")
         if "heat" in spec.conserve:
@@ -232,7 +233,7 @@ def assemble(
                 e_rows.append(heat_g[i] - h * ct_mean[i] * mass_g[i] + dia_h[i])
                 initial.append(float(heat_v[i] - h * ct_mean[i] * mass_v[i]))
                 spread = max(ct_std[i], contrast[i], TEMPERATURE_NOISE_FLOOR)
-                noise.append(spec.noise_heat[i] if spec.noise_heat
+                noise.append(spec.noise_heat[i] if spec.noise_heat and spec.noise_heat[i] > 0
                              else spec.noise_layer[i] * spread * h)
                 units.append("PW")
         for tracer in [c for c in spec.conserve if c not in ("mass", "salt", "heat")]:
