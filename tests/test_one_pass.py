@@ -106,3 +106,13 @@ def test_preformed_salinity_equals_gsw_sstar_from_sa():
     expected = gsw.Sstar_from_SA(sa, p, lon[:, None], lat[:, None])
     for _ in range(2):  # computed, then kept
         _assert_same(budget_salinity(sa, p, lon, lat, "preformed"), expected, 1e-15)
+
+
+def test_cell_heights_equal_gsw_z_from_p():
+    # the cells' heights from gsw.z_from_p at every latitude, polar to equatorial
+    from sectionkit.layers import cell_thickness
+
+    p = np.arange(0.0, 6500.0, 2.0)
+    lat = np.linspace(-78.0, 85.0, 40)
+    expected = -np.diff(gsw.z_from_p(p[None, :], lat[:, None]), axis=-1)
+    np.testing.assert_allclose(cell_thickness(p, lat), expected, rtol=1e-13, atol=0.0)
