@@ -116,3 +116,16 @@ def test_cell_heights_equal_gsw_z_from_p():
     lat = np.linspace(-78.0, 85.0, 40)
     expected = -np.diff(gsw.z_from_p(p[None, :], lat[:, None]), axis=-1)
     np.testing.assert_allclose(cell_thickness(p, lat), expected, rtol=1e-13, atol=0.0)
+
+
+def test_pair_means_take_the_deeper_station_alone_below_the_shallower():
+    # numpy's nanmean of the two stations: their mean, or the one with data
+    import warnings
+
+    from sectionkit.operator import _pair_mean
+
+    sa, ct, p = _profiles(2, 120, 5.0, seed=6)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # both stations empty: NaN
+        expected = np.nanmean(np.stack([sa[..., :-1, :], sa[..., 1:, :]]), axis=0)
+    np.testing.assert_array_equal(_pair_mean(sa), expected)
