@@ -293,9 +293,15 @@ def deciding_densities(
             undecided = ~(no_data | sides)
         lead, pair, blk = np.nonzero(undecided)
         if lead.size:
-            st = np.stack([pair, pair + 1], axis=-1)  # (block, 2)
-            rows = (lead[:, None], st, blk[:, None])
-            sig = potential_density_anomaly(blocks_sa[rows], blocks_ct[rows], pr)
+            # each station block once, though both its pairs may need it
+            need = np.zeros(empty.shape, dtype=bool)
+            need[:, :-1] |= undecided
+            need[:, 1:] |= undecided
+            station_sigma = np.empty(blocks_sa.shape)  # pages touched only where written
+            at = np.nonzero(need)
+            station_sigma[at] = potential_density_anomaly(blocks_sa[at], blocks_ct[at], pr)
+            sig = np.stack([station_sigma[lead, pair, blk], station_sigma[lead, pair + 1, blk]],
+                           axis=1)  # (block, 2, level in block)
             out_blocks[lead, pair, blk] = _pair_of(sig)[:, 0]
         result[pr] = out.reshape(out_shape)
     return result
