@@ -446,7 +446,8 @@ DEMO_ENSEMBLE_GOAL_FACTOR = 3.0
 
 
 def demo_ensemble_throughput(quick: bool = False, members: int | None = None,
-                             compare: int | None = None, progress: bool = True) -> Measurement:
+                             compare: int | None = None, progress: bool = True,
+                             earlier: str | None = None) -> Measurement:
     """Members per second of a demo-box ensemble on 2 worker processes.
 
     Every member perturbs the CTD sensors (per station), the global reference
@@ -466,6 +467,10 @@ def demo_ensemble_throughput(quick: bool = False, members: int | None = None,
         Override the number of members and of serially compared members.
     progress : bool
         Show the ensemble's text progress bar on stderr.
+    earlier : str, optional
+        A source tree of the earlier engine: both engines then also run
+        200 members (50 quick) in turn, in their own interpreters, for a
+        gain measured under the same load (recorded in the details).
 
     Returns
     -------
@@ -499,6 +504,12 @@ def demo_ensemble_throughput(quick: bool = False, members: int | None = None,
     same = members_equal(first, serial, names)
     rate = n / elapsed
     baseline = DEMO_ENSEMBLE_BASELINE_MEMBERS_PER_S
+    extra: dict[str, Any] = {}
+    if earlier:
+        both = side_by_side({"this": str(ROOT), "earlier": earlier}, 50 if quick else 200)
+        extra = {"side_by_side_this_members_per_s": both["this"],
+                 "side_by_side_earlier_members_per_s": both["earlier"],
+                 "side_by_side_gain_x": both["this"] / both["earlier"]}
     # members that differ from the serial run do not count: the goal is then missed
     return Measurement(
         f"demo-box ensemble, 2 workers ({n} members, bit-for-bit equal to serial: "
@@ -511,8 +522,60 @@ def demo_ensemble_throughput(quick: bool = False, members: int | None = None,
                  "serial_members_per_s (in this process)": n_cmp / t_serial,
                  f"max_rel_diff_vs_serial (first {n_cmp} members)": same,
                  "load_average_1min_before": load_before,
-                 "load_average_1min_after": load_after},
+                 "load_average_1min_after": load_after, **extra},
     )
+
+
+_SIDE_BY_SIDE = """
+import json, sys, time
+sys.path.insert(0, {root!r})
+from distributed import Client
+from sectionkit.cli import demo_config_path
+from sectionkit.config import load_config
+from sectionkit.ensemble import Perturbation, local_cluster, run_ensemble
+config = load_config(demo_config_path())
+perturb = Perturbation(reference_range=(2000.0, 3500.0), prior_factor=(0.5, 2.0))
+with local_cluster(2) as cluster, Client(cluster) as client:
+    run_ensemble(config, 4, seed=99, client=client, perturb=perturb)
+    start = time.perf_counter()
+    run_ensemble(config, {members}, seed=1, client=client, perturb=perturb)
+    print(json.dumps({{"members_per_s": {members} / (time.perf_counter() - start)}}))
+"""
+
+
+def side_by_side(engines: dict[str, str], members: int, rounds: int = 2) -> dict[str, float]:
+    """Members per second of the demo-box ensemble (2 workers) of several engines, alternated.
+
+    Each engine (a source tree holding ``sectionkit`` and ``demo_sections``)
+    runs in its own interpreter and cluster; the rounds alternate between
+    the engines so that they share the machine's load; the fastest round of
+    each counts.
+
+    Parameters
+    ----------
+    engines : dict of str -> str
+        Label -> source tree.
+    members : int
+        Members per run.
+    rounds : int
+        Runs of each engine.
+
+    Returns
+    -------
+    dict of str -> float
+        Members per second by label.
+    """
+    best: dict[str, float] = {}
+    for _ in range(rounds):
+        for label, root in engines.items():
+            env = {**os.environ, "PYTHONPATH": root}
+            proc = subprocess.run([sys.executable, "-c",
+                                   _SIDE_BY_SIDE.format(root=root, members=members)],
+                                  capture_output=True, text=True, check=True, env=env,
+                                  cwd=root)
+            rate = json.loads(proc.stdout.strip().splitlines()[-1])["members_per_s"]
+            best[label] = max(best.get(label, 0.0), rate)
+    return best
 
 
 def _capacity_work(n: int) -> float:

@@ -18,10 +18,12 @@ workbench's slider goals when ``bench_workbench`` is present.
 
 Usage::
 
-    python benchmarks/run.py [--quick] [--profile] [--json FILE]
+    python benchmarks/run.py [--quick] [--profile] [--json FILE] [--earlier REF]
 
 ``--quick`` runs smaller cases (under a minute); ``--profile`` also prints a
-cProfile listing of the pipeline's hot paths.
+cProfile listing of the pipeline's hot paths; ``--earlier REF`` also runs the
+demo-box ensemble of the engine at git revision REF, alternating with this
+one, for a gain measured under the same machine load.
 """
 
 from __future__ import annotations
@@ -123,13 +125,29 @@ def _own_inverse() -> Measurement:
                        unit="s")
 
 
+def _earlier_tree(ref: str) -> str:
+    """``sectionkit`` and ``demo_sections`` of a git revision, extracted to a temporary folder."""
+    import subprocess
+    import tempfile
+
+    tree = tempfile.mkdtemp(prefix="sectionkit-earlier-")
+    archive = subprocess.run(["git", "-C", str(HERE.parent), "archive", ref, "sectionkit",
+                              "demo_sections"], capture_output=True, check=True)
+    subprocess.run(["tar", "-x", "-C", tree], input=archive.stdout, check=True)
+    return tree
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run every benchmark and print one line per goal."""
     parser = argparse.ArgumentParser(description="sectionkit performance goals")
     parser.add_argument("--quick", action="store_true", help="smaller cases, under a minute")
     parser.add_argument("--profile", action="store_true", help="print the pipeline profile")
     parser.add_argument("--json", default=None, help="also write the measurements as JSON")
+    parser.add_argument("--earlier", default=None, metavar="REF",
+                        help="also run the demo ensemble of the engine at this git revision, "
+                             "alternating with this one (same load)")
     args = parser.parse_args(argv)
+    earlier = _earlier_tree(args.earlier) if args.earlier else None
 
     print(f"machine: {_machine()}")
     print(f"load average at start (1, 5, 15 min): {os.getloadavg()}; BLAS threads: "
@@ -142,7 +160,7 @@ def main(argv: list[str] | None = None) -> int:
         lambda: [bench_pipeline.reference_update(args.quick)],
         lambda: _inverse(args.quick),
         lambda: [bench_pipeline.ensemble_scaling(args.quick)],
-        lambda: [bench_pipeline.demo_ensemble_throughput(args.quick)],
+        lambda: [bench_pipeline.demo_ensemble_throughput(args.quick, earlier=earlier)],
         lambda: [bench_pipeline.model_output_memory(args.quick)],
         lambda: _optional("bench_workbench", args.quick),
     ]
