@@ -97,7 +97,9 @@ class SectionOperator:
     sigma_pair : dict of float -> ndarray (..., pair, level)
         Pair-mean potential density anomaly by reference pressure, kg m^-3.
     class_salinity, class_temperature : ndarray (..., class)
-        Area-weighted mean SA (g/kg) and CT (degC) of each class.
+        Area-weighted mean salinity of the salt budgets (Preformed Salinity S*
+        or SA, ``extra["salinity"]``; g/kg) and CT (degC) of each class;
+        ``mean_salinity`` is the section's area mean of the same salinity.
     """
 
     name: str
