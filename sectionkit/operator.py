@@ -363,6 +363,7 @@ def build_operator(
     column = weights.sum(axis=-2)  # (..., pair, level)
     level_relative = (length * column * v0).sum(axis=-2)
     level_area = length * column * r0
+    level_section_area = (length * column).sum(axis=-2)  # (..., level) m^2, all water
 
     ekman_share, level_ekman = _ekman_share(
         sigma_if, values, p, geometry["lat"].values, ekman_depth, props
@@ -400,7 +401,7 @@ def build_operator(
         extra={"sa_pair": sa_pair, "salt_pair": salt_pair, "salinity": salinity,
                "ct_pair": ct_pair, "rho_pair": rho_pair,
                "class_moments": class_moments, "station_sa": sa, "station_ct": ct,
-               "v_rel": v_rel, "section": section},
+               "v_rel": v_rel, "section": section, "level_section_area": level_section_area},
     )
 
 

@@ -649,7 +649,9 @@ def _summary_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTab
                    else f"{_num(study.config.reference_salinity)} g kg⁻¹ of "
                    + SALINITY_NAMES[study.config.salt_salinity])
                 + "; overturning is the extreme of the streamfunction accumulated from the "
-                "surface in depth and from the lightest class in density. Section frame: "
+                "surface in depth and from the lightest class in density, both after removing "
+                "the section's net transport as a uniform velocity over the section's area. "
+                "Section frame: "
                 "positive to the left of increasing station order.")
         if flagged:
             body += (f" For {', '.join(esc(s) for s in flagged)} the net mass transport exceeds "

@@ -261,12 +261,25 @@ class Study:
                     f"section {name}: net mass transport is {net_mass:+.2f} Sv, so heat_pw is a "
                     "temperature transport relative to 0 degC, not a heat transport",
                 )
+        results = Results(refs, ekman, layout, outputs, result, cautions)
+        for name in outputs:
+            net, err = results.value(name, "net"), results.error(name, "net")
+            limit = err if np.isfinite(err) else NET_MASS_HEAT_TOLERANCE
+            if abs(net) > limit:
+                cautions.add(
+                    "overturning-net",
+                    f"section {name}: net transport {net:+.2f} Sv exceeds "
+                    + (f"its error ({err:.2f} Sv)" if np.isfinite(err)
+                       else f"{NET_MASS_HEAT_TOLERANCE} Sv (no inverse, no error)")
+                    + "; the overturning is computed after removing it as a uniform velocity "
+                    "over the section, which may not be where the net flow is",
+                )
         cautions.add(
             "reference-dependence",
             "transports depend on the reference choices and priors; geostrophy excludes "
             "ageostrophic flow other than the stated Ekman transport",
         )
-        return Results(refs, ekman, layout, outputs, result, cautions)
+        return results
 
 
 def _pair_index(layout: UnknownLayout, label: str) -> int:
