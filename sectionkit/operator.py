@@ -22,8 +22,8 @@ import gsw
 import numpy as np
 import xarray as xr
 
-from sectionkit.errors import SectionDataError
-from sectionkit.geometry import pair_geometry
+from sectionkit.errors import EquatorError, SectionDataError
+from sectionkit.geometry import EQUATOR_HARD_BAND, pair_geometry
 from sectionkit.geostrophy import (
     dynamic_height,
     extend_into_bottom_triangle,
@@ -291,6 +291,13 @@ def build_operator(
     geometry = pair_geometry(section)
     distance = geometry["distance"].values
     f = geometry["f"].values
+    on_equator = np.flatnonzero(np.abs(geometry["lat"].values) < EQUATOR_HARD_BAND)
+    if on_equator.size:  # a backstop for sections that were not validated (1/f below)
+        raise EquatorError(
+            f"section {name}: pair(s) {', '.join(f'{name}:{k}' for k in on_equator)} lie "
+            f"within {EQUATOR_HARD_BAND:g} degrees of the equator, where geostrophy and Ekman "
+            "transport divide by f ~ 0; drop one station of each such pair"
+        )
     if np.any(distance <= 0):
         j = int(np.argmin(distance))
         raise SectionDataError(

@@ -177,7 +177,8 @@ class Study:
             choices = [self.config.reference_for(label) for label in op.pair_labels]
             p_used, offset = resolve_references(
                 choices, op.v_eff, op.pressure, op.common, op.sigma_for(choices),
-                cautions, op.pair_labels,
+                cautions, op.pair_labels, deepest=op.deepest,
+                bottom_triangle=op.bottom_triangle,
             )
             out[name] = ReferenceState([c.kind for c in choices], p_used, offset)
         return out

@@ -258,7 +258,8 @@ def budget_kernel(
                         bathymetry=bathymetry, max_dp=max_dp, salinity=salinity)
     choices = _pair_choices(reference, overrides, op.n_pair)
     p_used, offset = resolve_references(choices, op.v_eff, op.pressure, op.common,
-                                        op.sigma_for(choices))
+                                        op.sigma_for(choices), deepest=op.deepest,
+                                        bottom_triangle=op.bottom_triangle)
     ek = op.ekman_volume(stress[..., 0], stress[..., 1])
     out = section_values(op, offset, adjustment, ek, reference_salinity)
     out["reference_pressure"] = p_used
