@@ -307,6 +307,16 @@ def build_operator(
 
     last = last_valid_level(sa + ct)
     common, deepest = pair_level_limits(last)
+    bottom = section["bottom_pressure"].values.astype(float)
+    # water where a bathymetry track lies below both stations: the deeper station's
+    # properties continue down to it and the triangle rule gives its velocity
+    below = _track_below_stations(p, bottom, bathymetry)
+    data_deepest = deepest
+    if below:
+        deepest = np.array(deepest, copy=True)
+        for j, p_track in below.items():
+            deepest[..., j] = np.maximum(deepest[..., j],
+                                         np.searchsorted(p, p_track, side="right") - 1)
     if relative_velocity_of_pairs is None:
         psi = dynamic_height(sa, ct, p, max_dp=max_dp)
         v_rel = relative_velocity(psi, distance, f)
@@ -322,15 +332,33 @@ def build_operator(
     rho_pair = pair_mean(gsw.rho(sa, ct, p))
     p_refs = sorted({face.p_ref for face in interfaces}) if interfaces else [0.0]
     sigma_pair = {pr: pair_mean(potential_density_anomaly(sa, ct, pr)) for pr in p_refs}
+    for j in below:
+        k0 = int(np.max(data_deepest[..., j]))
+        k1 = int(np.max(deepest[..., j]))
+        if k1 <= k0:
+            continue
+        deeper = slice(k0 + 1, k1 + 1)
+        for pair_field in (sa_pair, ct_pair, salt_pair, *sigma_pair.values()):
+            pair_field[..., j, deeper] = pair_field[..., j, k0 : k0 + 1]
+        rho_pair[..., j, deeper] = gsw.rho(sa_pair[..., j, k0 : k0 + 1],
+                                           ct_pair[..., j, k0 : k0 + 1], p[deeper])
     # one array per interface (no stacked copy of the large fields)
     sigma_if = [sigma_pair[face.p_ref] for face in interfaces] or [sigma_pair[0.0]]
     # without interfaces one class holds everything: compare with an unreachable density
     values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([1e9])
 
-    bottom = section["bottom_pressure"].values.astype(float)
     thickness = cell_thickness(p, geometry["lat"].values)
     width = bottom_width_fraction(p, bottom[:-1], bottom[1:], bathymetry)
     tail = _tail_thickness(p, deepest, bottom, geometry["lat"].values)
+    if below:
+        tail = np.array(tail, copy=True)
+        lat_pair = geometry["lat"].values
+        for j, p_track in below.items():
+            p_last = p[int(np.max(deepest[..., j]))]
+            samples = np.asarray(bathymetry[j], dtype=float)
+            frac = float(np.mean(samples > 0.5 * (p_last + p_track)))
+            dz = float(gsw.z_from_p(p_last, lat_pair[j]) - gsw.z_from_p(p_track, lat_pair[j]))
+            tail[..., j] = dz * frac
     weights = class_weights(sigma_if, values, thickness, width, tail)
     if not interfaces:
         weights = weights[..., :1, :]
@@ -408,7 +436,9 @@ def build_operator(
         extra={"sa_pair": sa_pair, "salt_pair": salt_pair, "salinity": salinity,
                "ct_pair": ct_pair, "rho_pair": rho_pair,
                "class_moments": class_moments, "station_sa": sa, "station_ct": ct,
-               "v_rel": v_rel, "section": section, "level_section_area": level_section_area},
+               "v_rel": v_rel, "section": section, "level_section_area": level_section_area,
+               "track_below_stations": {j: (p_track, float(max(bottom[j], bottom[j + 1])))
+                                        for j, p_track in below.items()}},
     )
 
 
@@ -443,6 +473,37 @@ def budget_salinity(
                                f"{', '.join(SALINITY_NAMES)}")
     return gsw.Sstar_from_SA(sa, p, np.asarray(lon, float)[..., None],
                              np.asarray(lat, float)[..., None])
+
+
+def _track_below_stations(
+    p: np.ndarray, bottom: np.ndarray, bathymetry: list | None
+) -> dict[int, float]:
+    """Pairs whose bathymetry track lies deeper than both stations, with its deepest pressure.
+
+    Parameters
+    ----------
+    p : ndarray (level,)
+        Grid, dbar.
+    bottom : ndarray (station,)
+        Sea-floor pressure of each station, dbar.
+    bathymetry : list or None
+        Per pair, sampled sea-floor pressures along the pair (dbar), or None.
+
+    Returns
+    -------
+    dict of int -> float
+        Pair index -> deepest track pressure, dbar.
+    """
+    out: dict[int, float] = {}
+    if bathymetry is None:
+        return out
+    for j, samples in enumerate(bathymetry):
+        if samples is None:
+            continue
+        deepest_track = float(np.max(samples))
+        if deepest_track > max(bottom[j], bottom[j + 1]) + 1e-6:
+            out[j] = deepest_track
+    return out
 
 
 def _tail_thickness(

@@ -262,6 +262,17 @@ class Study:
                     f"section {name}: net mass transport is {net_mass:+.2f} Sv, so heat_pw is a "
                     "temperature transport relative to 0 degC, not a heat transport",
                 )
+        for name, op in self.operators.items():
+            below = op.extra.get("track_below_stations", {})
+            if below:
+                listed = ", ".join(f"{name}:{j} (track {pt:.0f} dbar, deeper station "
+                                   f"{pb:.0f} dbar)" for j, (pt, pb) in below.items())
+                cautions.add(
+                    "bathymetry-below-stations",
+                    f"the bathymetry track lies below both stations of pair(s) {listed}; that "
+                    "water is included with the deeper station's properties and the bottom "
+                    "triangle's velocity rule",
+                )
         results = Results(refs, ekman, layout, outputs, result, cautions)
         for name in outputs:
             net, err = results.value(name, "net"), results.error(name, "net")
