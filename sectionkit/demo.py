@@ -1264,7 +1264,7 @@ def _toml_config(scenario: DemoScenario, files: dict[str, str]) -> str:
         f"depth = {_tf(scenario.ekman_depth)}",
         f"stress = {{ {stress} }}   # N m^-2, (east, north)",
         "",
-        "[layers]",
+        "[classes]",
         f"interfaces = [\n  {faces},\n]",
         f"names = [{names}]",
         "",
@@ -1275,12 +1275,12 @@ def _toml_config(scenario: DemoScenario, files: dict[str, str]) -> str:
         f"prior_diapycnal = {_tf(scenario.inverse_prior_diapycnal)}         # Sv per interface",
         f"prior_ekman = {_tf(scenario.inverse_prior_ekman)}             # fractional",
         f"noise_total = {_tf(scenario.noise_total)}             # Sv",
-        f"noise_layer = [{noise_layer}]   # Sv, one per class",
+        f"noise_class = [{noise_layer}]   # Sv, one per class",
         f"noise_salt = [{noise_salt}]   # Sv g/kg, one per class (includes model error)",
         (
             f'known = [ {{ name = "{strait}", transport = {_tf(scenario.strait_transport)}, '
             f"noise = {_tf(scenario.strait_noise)}, "
-            f'layer = "{scenario.strait_layer}", box = "interior" }} ]'
+            f'class = "{scenario.strait_layer}", box = "interior" }} ]'
         ),
         "# the basin south of the southern line is closed: no net flow across it",
         'section_net = [ { section = "south", transport = 0.0, noise = 1.0 } ]',

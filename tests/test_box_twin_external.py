@@ -192,9 +192,10 @@ def twin():
     x_true = _truth(e, initial, prior)
     # from the level of no motion (x = 0) the box is out of balance by -E x_true
     x_own, p_own = _gauss_markov(e, -initial, noise, prior)
-    results = Study.from_config(_engine_config(), sections=_sections()).solve()
+    study = Study.from_config(_engine_config(), sections=_sections())
+    results = study.solve()
     return dict(e=e, initial=initial, x_true=x_true, x_own=x_own, p_own=p_own,
-                results=results, n_b=n_b)
+                study=study, results=results, n_b=n_b)
 
 
 def test_the_truth_conserves_mass_and_salt_with_several_sverdrups_converted(twin):
@@ -218,12 +219,12 @@ def test_engine_estimate_matches_the_written_out_gauss_markov_solution(twin):
     diff = (results.estimate - twin["x_own"]) / sd_own
     # transfers and pair adjustments agree to a small fraction of their posterior std
     assert np.max(np.abs(diff)) < 0.03, np.max(np.abs(diff))  # measured 0.012
-    table = unknowns_table(results)
+    table = unknowns_table(twin["study"], results)
     np.testing.assert_allclose(table["posterior_std"], sd_own, rtol=0.02)
 
 
 def test_engine_transfers_recover_the_truth_within_their_posterior_std(twin):
-    table = unknowns_table(twin["results"])
+    table = unknowns_table(twin["study"], twin["results"])
     w = table[table["kind"] == "diapycnal_transfer"]
     assert list(w["unknown"]) == ["box:W0", "box:W1"]
     w_true = twin["x_true"][twin["n_b"]:]

@@ -147,7 +147,7 @@ def test_inverse_unknowns_table_keeps_its_contract_columns_kinds_and_names():
         "inverse": {"noise_layer": [0.5, 0.5, 0.5]},
     })
     study = Study.from_config(config, sections=_sections())
-    table = unknowns_table(study.solve())
+    table = unknowns_table(study, study.solve())
     assert list(table.columns[:7]) == ["unknown", "kind", "unit", "prior_std", "estimate",
                                        "posterior_std", "resolution"]
     kinds = dict(zip(table["unknown"], table["kind"], strict=True))

@@ -115,13 +115,13 @@ class ClassTransports:
     inverse: bool
 
     def to_frame(self) -> pd.DataFrame:
-        """One row per section x class: section, layer, initial_sv, adjusted_sv, adjusted_err_sv."""
+        """One row per section x class: section, class, initial_sv, adjusted_sv, adjusted_err_sv."""
         rows = []
         for s, section in enumerate(self.sections):
             for i, layer in enumerate(self.layers):
                 rows.append({
                     "section": section,
-                    "layer": layer,
+                    "class": layer,
                     "initial_sv": float(self.initial[s, i]),
                     "adjusted_sv": float(self.adjusted[s, i]),
                     "adjusted_err_sv": float(self.error[s, i]),
@@ -281,6 +281,27 @@ def _solve_key(cfg: Config) -> str:
                  _reference_error_key(cfg), _operator_key(cfg)))
 
 
+def keep_backup(path: Path) -> Path:
+    """Copy a file to the first free numbered backup beside it (``x.autosave.1.toml``, ...).
+
+    Parameters
+    ----------
+    path : Path
+        The file (an autosave that could not be resumed).
+
+    Returns
+    -------
+    Path
+        The backup written.
+    """
+    stem = path.name.removesuffix(".toml")
+    n = 1
+    while (backup := path.with_name(f"{stem}.{n}.toml")).exists():
+        n += 1
+    backup.write_bytes(path.read_bytes())
+    return backup
+
+
 def _portable(cfg: Config, folder: Path) -> Config:
     """A copy whose relative file names are taken from ``folder``."""
     folder = Path(folder).resolve()
@@ -396,11 +417,19 @@ class WorkbenchState:
         state = cls(config, session=path, autosave=autosave)
         previous = state.autosave_path or path.with_name(path.stem + AUTOSAVE_SUFFIX)
         if resume and previous.is_file():
+            sections = dict(state.study.sections)
             try:
                 state.load(previous, record=False, kind="load")
                 state.resumed_from = previous
-            except SectionkitError as exc:
-                state.resume_error = f"could not resume from {previous}: {exc}"
+            except Exception as exc:  # any failure: the work must not be lost, nor the session
+                kept = keep_backup(previous)
+                reason = str(exc) if isinstance(exc, SectionkitError) else (
+                    f"{type(exc).__name__}: {exc}")
+                # a failed load may have been part-way: start again from the configuration
+                state = cls(config, sections, session=path, autosave=autosave)
+                state.resume_error = (
+                    f"could not resume from {previous.name} ({reason}); opened {path.name} "
+                    f"instead, and kept the autosave as {kept.name}")
         return state
 
     # ------------------------------------------------------------ listeners
