@@ -638,7 +638,10 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
 
     def caption(tex: bool) -> str:
         body = ("Net inflow into each box (positive in), initial and adjusted, with the "
-                "constraint's a priori noise; the normalized residual is adjusted / noise. "
+                "constraint's a priori noise; the normalized residual is adjusted / noise, and "
+                "the last column judges the adjusted inflow against the residual std the "
+                "estimate can achieve (the square root of the diagonal of N - E P E-transpose, "
+                "Wunsch 1996). "
                 "Values are rounded to the precision of the noise. Salt rows are salt-anomaly "
                 f"transports of {SALINITY_NAMES[study.config.salt_salinity]} relative to each "
                 "class's mean; a diapycnal transfer carries the mean of its two classes.")
@@ -652,9 +655,11 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
         Column("Adjusted", "Adjusted"),
         Column("Noise", "Noise"),
         Column("Normalized residual", "Normalized residual"),
+        Column("Adjusted / posterior std", "Adjusted / posterior std"),
     ]
     rows = []
     for r in df.itertuples(index=False):
+        posterior = getattr(r, "posterior_normalized_residual", float("nan"))
         unit = _ROW_UNITS.get(str(getattr(r, "unit", "Sv")), "Sv")
         decimals = error_decimals(r.noise)
         if decimals is None:
@@ -667,6 +672,8 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
             Cell(value=format_fixed(r.adjusted, decimals)),
             Cell(value=format_fixed(r.noise, decimals)),
             Cell(value=format_fixed(r.normalized_residual, FIXED_DECIMALS["1"])),
+            Cell(value=format_fixed(posterior, FIXED_DECIMALS["1"])
+                 if np.isfinite(posterior) else "–"),
         ])
     return PaperTable("box_budget", title, caption(True), caption(False), cols, rows,
                       empty_note="No inverse: there are no box constraints.")
