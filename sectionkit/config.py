@@ -21,6 +21,7 @@ import tomli_w
 
 from sectionkit.errors import ConfigError, InputFileError, SectionkitError
 from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
+from sectionkit.io.bottle import tracer_name
 from sectionkit.io.units import pressure_to_dbar, temperature_to_celsius
 from sectionkit.layers import Interface, check_interfaces
 from sectionkit.thermo import SALINITY_KINDS, TEMPERATURE_KINDS
@@ -43,13 +44,14 @@ EKMAN_DEPTH_RANGE = (1.0, 500.0)  # m: the Ekman layer is tens of metres (common
 SCHEMA: dict[str, dict[str, str]] = {
     "": {"title": "string", "grid": "table", "sections": "list of tables",
          "boxes": "list of tables", "reference": "table", "ekman": "table", "classes": "table",
-         "budget": "table", "inverse": "table"},
+         "budget": "table", "tracers": "table", "adcp": "table", "inverse": "table"},
     "grid": {"dp": "number"},
     "sections": {"name": "string", "file": "string or list of strings", "into_box": "boolean",
                  "columns": "table of strings", "bathymetry": "string",
                  "variables": "table of strings", "temperature_kind": "string",
                  "salinity_kind": "string", "pressure_units": "string",
-                 "temperature_units": "string"},
+                 "temperature_units": "string", "bottle": "string",
+                 "stations": "list of strings or list of integers", "adcp": "string"},
     "boxes": {"name": "string", "enters": "list of strings", "leaves": "list of strings"},
     "reference": {"pressure": "number or string", "isopycnal": "table", "velocity": "table",
                   "bottom_triangle": "string", "overrides": "table",
@@ -60,13 +62,16 @@ SCHEMA: dict[str, dict[str, str]] = {
     "classes": {"interfaces": "list of tables", "names": "list of strings"},
     "classes.interfaces": {"sigma": "number", "p_ref": "number"},
     "budget": {"reference_salinity": "number"},
+    "tracers": {"transport": "list of strings"},
+    "adcp": {"pressure_range": "list of numbers", "use": "string", "error": "number"},
     "inverse": {"solver": "string", "rank": "integer", "conserve": "list of strings",
                 "prior_velocity": "number", "prior_diapycnal": "number",
                 "prior_ekman": "number", "noise_total": "number",
                 "noise_class": "list of numbers", "noise_salt": "list of numbers",
                 "noise_heat": "list of numbers", "known": "list of tables",
                 "section_net": "list of tables", "bounds": "table of lists",
-                "salinity": "string", "prior_correlation_km": "number"},
+                "salinity": "string", "prior_correlation_km": "number",
+                "noise_tracer": "table of lists"},
     "inverse.known": {"name": "string", "transport": "number", "noise": "number",
                       "class": "string", "box": "string"},
     "inverse.section_net": {"section": "string", "transport": "number", "noise": "number"},
@@ -280,12 +285,33 @@ class SectionSpec:
     salinity_kind: str = "practical"
     pressure_units: str = "dbar"
     temperature_units: str = "degC"
+    bottle: str | None = None  # WHP-Exchange bottle file (tracers)
+    stations: list[str] | None = None  # station order and subset (by station id)
+    adcp: str | None = None  # direct velocity profiles (LADCP / shipboard ADCP)
 
     def csv_options(self) -> dict[str, Any]:
         """The CSV layout options of this section, as keyword arguments of the readers."""
         return {"columns": self.columns or None, "temperature_kind": self.temperature_kind,
                 "salinity_kind": self.salinity_kind, "pressure_units": self.pressure_units,
                 "temperature_units": self.temperature_units}
+
+
+ADCP_USES = ("prior", "known")
+
+
+@dataclass
+class AdcpSpec:
+    """How direct velocity profiles reference the pairs (``[adcp]``).
+
+    ``pressure_range`` (dbar) is the averaging range; ``use`` is ``"prior"``
+    (prior mean and standard deviation of each pair's adjustment in the
+    inverse) or ``"known"`` (a known reference velocity per pair);
+    ``error`` (m s^-1) is the stated error of a range-mean direct velocity.
+    """
+
+    pressure_range: tuple[float, float] = (0.0, 0.0)
+    use: str = "prior"
+    error: float = 0.02
 
 
 @dataclass
@@ -336,6 +362,7 @@ class InverseSpec:
     bounds: dict[str, list[float]] = field(default_factory=dict)
     salinity: str = "preformed"
     prior_correlation_km: float = 0.0
+    noise_tracer: dict[str, list[float]] = field(default_factory=dict)  # per tracer, per class
 
 
 BUDGET_SALINITIES = ("preformed", "absolute")
@@ -358,6 +385,8 @@ class Config:
     interfaces: list[Interface] = field(default_factory=list)
     layer_names: list[str] = field(default_factory=list)
     reference_salinity: float | None = None
+    tracers: list[str] = field(default_factory=list)  # plain names of [tracers] transport
+    adcp: AdcpSpec | None = None
     inverse: InverseSpec | None = None
     base_dir: Path = field(default_factory=Path.cwd)
 
@@ -409,6 +438,12 @@ class Config:
                                  ("pressure_units", "dbar"), ("temperature_units", "degC")):
                 if getattr(s, key) != default:
                     d[key] = getattr(s, key)
+            if s.bottle:
+                d["bottle"] = s.bottle
+            if s.stations is not None:
+                d["stations"] = list(s.stations)
+            if s.adcp:
+                d["adcp"] = s.adcp
             sections.append(d)
         out["sections"] = sections
         if self.boxes:
@@ -432,6 +467,11 @@ class Config:
         out["classes"] = layers
         if self.reference_salinity is not None:
             out["budget"] = {"reference_salinity": self.reference_salinity}
+        if self.tracers:
+            out["tracers"] = {"transport": list(self.tracers)}
+        if self.adcp is not None:
+            out["adcp"] = {"pressure_range": list(self.adcp.pressure_range),
+                           "use": self.adcp.use, "error": self.adcp.error}
         if self.inverse is not None:
             inv = asdict(self.inverse)
             inv["known"] = [
@@ -440,7 +480,7 @@ class Config:
             inv["known"] = [{("class" if k == "layer" else k): v for k, v in kt.items()}
                             for kt in inv["known"]]
             inv["noise_class"] = inv.pop("noise_layer")
-            for key in ("noise_class", "noise_salt", "noise_heat", "bounds"):
+            for key in ("noise_class", "noise_salt", "noise_heat", "bounds", "noise_tracer"):
                 if not inv[key]:
                     del inv[key]
             if not inv["known"]:
@@ -564,6 +604,9 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
                 bathymetry=sec.get("bathymetry"),
                 variables=variables,
                 **_csv_layout(sec, where),
+                bottle=_optional_text(sec.get("bottle"), f"{where} bottle"),
+                stations=_station_list(sec.get("stations"), f"{where} stations"),
+                adcp=_optional_text(sec.get("adcp"), f"{where} adcp"),
             )
         )
     names = cfg.section_names()
@@ -640,6 +683,23 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
         cfg.reference_salinity = _number(budget["reference_salinity"],
                                          "[budget] reference_salinity", positive=True)
 
+    tracers = data.get("tracers", {})
+    _check_keys(tracers, ("transport",), "[tracers]")
+    transport = tracers.get("transport", [])
+    if not isinstance(transport, list):
+        raise ConfigError("[tracers] transport must be a list of tracer names, e.g. "
+                          '["oxygen", "silicate"]')
+    for name in transport:
+        plain = tracer_name(name)
+        if plain not in cfg.tracers:
+            cfg.tracers.append(plain)
+    if cfg.tracers and not any(s.bottle for s in cfg.sections):
+        raise ConfigError("[tracers] transport names tracers but no [[sections]] has a bottle "
+                          "file; add bottle = \"<file>\" to the sections that have one")
+
+    if "adcp" in data or any(s.adcp for s in cfg.sections):
+        cfg.adcp = _parse_adcp(data.get("adcp"))
+
     if "inverse" in data:
         cfg.inverse = _parse_inverse(data["inverse"], cfg)
     return cfg
@@ -666,6 +726,52 @@ def _csv_layout(sec: dict[str, Any], where: str) -> dict[str, Any]:
             except SectionkitError as exc:
                 raise ConfigError(str(exc)) from None
             out[key] = str(sec[key])
+    return out
+
+
+def _parse_adcp(table: Any) -> AdcpSpec:
+    if table is None:
+        raise ConfigError("a section names an adcp file but there is no [adcp] table; add "
+                          '[adcp] with pressure_range = [top, bottom] (dbar), use = "prior" or '
+                          '"known", and error (m s^-1)')
+    if not isinstance(table, dict):
+        raise ConfigError("[adcp] must be a table")
+    _check_keys(table, ("pressure_range", "use", "error"), "[adcp]")
+    pr = table.get("pressure_range")
+    if not isinstance(pr, list) or len(pr) != 2:
+        raise ConfigError("[adcp] pressure_range must be [top, bottom] in dbar, e.g. "
+                          "[500.0, 1500.0]")
+    top = _number(pr[0], "[adcp] pressure_range[0]", nonneg=True)
+    bottom = _number(pr[1], "[adcp] pressure_range[1]", nonneg=True)
+    if bottom <= top:
+        raise ConfigError(f"[adcp] pressure_range = [{top:g}, {bottom:g}]: the bottom must lie "
+                          "deeper than the top")
+    use = table.get("use", "prior")
+    if use not in ADCP_USES:
+        raise ConfigError(f"[adcp] use = {use!r} must be one of {', '.join(ADCP_USES)}")
+    return AdcpSpec((top, bottom), str(use),
+                    _number(table.get("error", 0.02), "[adcp] error", positive=True))
+
+
+def _optional_text(value: Any, where: str) -> str | None:
+    if value is None:
+        return None
+    if not isinstance(value, str) or not value:
+        raise ConfigError(f"{where} = {value!r} must be a file name (text)")
+    return value
+
+
+def _station_list(value: Any, where: str) -> list[str] | None:
+    if value is None:
+        return None
+    if not isinstance(value, list) or not value:
+        raise ConfigError(f"{where} = {value!r} must be a list of station ids, e.g. "
+                          '["1", "2", "3"] or [1, 2, 3]')
+    out = []
+    for item in value:
+        if isinstance(item, bool) or not isinstance(item, str | int):
+            raise ConfigError(f"{where}: {item!r} is not a station id (text or whole number)")
+        out.append(str(item))
     return out
 
 
@@ -713,7 +819,13 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
         raise ConfigError(f"[inverse] rank = {rank!r} must be a whole number >= 0")
     spec.rank = rank
     spec.conserve = list(inv.get("conserve", spec.conserve))
-    for c in spec.conserve:
+    for n, c in enumerate(spec.conserve):
+        if c not in CONSTRAINT_KINDS and _is_tracer(c):
+            spec.conserve[n] = c = tracer_name(c)
+            if c not in cfg.tracers:
+                raise ConfigError(f"[inverse] conserve: tracer {c!r} must also be listed in "
+                                  "[tracers] transport")
+            continue
         if c not in CONSTRAINT_KINDS:
             raise ConfigError(f"[inverse] conserve: {c!r} is not one of "
                               f"{', '.join(CONSTRAINT_KINDS)}" + did_you_mean(c, CONSTRAINT_KINDS))
@@ -743,10 +855,23 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
         if values and len(values) != n_class:
             raise ConfigError(f"[inverse] {key} has {len(values)} entries; give one per class "
                               f"({n_class}: {', '.join(cfg.layer_names)})")
-        setattr(spec, attr, [_number(v, f"[inverse] {key}[{i}]", positive=True)
+        # noise_salt / noise_heat: 0 for a class keeps the automatic noise of that class
+        setattr(spec, attr, [_number(v, f"[inverse] {key}[{i}]", positive=attr == "noise_layer",
+                                     nonneg=attr != "noise_layer")
                              for i, v in enumerate(values)])
     if not spec.noise_layer:
         spec.noise_layer = [1.0] * n_class
+    noise_tracer = inv.get("noise_tracer", {})
+    if not isinstance(noise_tracer, dict):
+        raise ConfigError("[inverse] noise_tracer must be a table, e.g. "
+                          "{ silicate = [2.0, 1.0, 1.0] } (kmol s^-1 per class)")
+    for name, values in noise_tracer.items():
+        plain = tracer_name(name)
+        if not isinstance(values, list) or len(values) != n_class:
+            raise ConfigError(f"[inverse] noise_tracer {name!r}: give one noise per class "
+                              f"({n_class}: {', '.join(cfg.layer_names)}), kmol s^-1")
+        spec.noise_tracer[plain] = [_number(v, f"[inverse] noise_tracer {name}[{i}]",
+                                            positive=True) for i, v in enumerate(values)]
     box_names = [b.name for b in cfg.effective_boxes()]
     for n, kt in enumerate(inv.get("known", [])):
         where = f"[inverse] known #{n + 1}"
@@ -788,6 +913,14 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
             raise ConfigError(f"[inverse] bounds {label!r}: lower {lo:g} > upper {hi:g}")
         spec.bounds[label] = [lo, hi]
     return spec
+
+
+def _is_tracer(name: str) -> bool:
+    try:
+        tracer_name(name)
+    except ConfigError:
+        return False
+    return True
 
 
 def load_config(path: str | Path) -> Config:

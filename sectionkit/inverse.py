@@ -17,10 +17,11 @@ Constraints (all in Sv, or Sv g/kg, or PW):
   mass transport in its own frame, minus the stated value (a closed basin,
   a known throughflow).
 
-Default salt (heat) noise is ``noise_layer`` times the larger of the class's
-salinity (temperature) spread and half the contrast with its neighbouring
-classes: transfers across interfaces and mixing carry anomalies of that
-size, which the constraints do not model.
+Default salt (heat) noise (no ``noise_salt`` list, or 0 for a class) is
+``noise_layer`` times the larger of the class's salinity (temperature)
+spread and half the contrast with its neighbouring classes: transfers across
+interfaces and mixing carry anomalies of that size, which the constraints do
+not model.
 """
 
 from __future__ import annotations
@@ -35,6 +36,8 @@ from sectionkit.errors import ComputationError, ConfigError
 from sectionkit.geometry import haversine
 from sectionkit.operator import CP0, RHO0, SectionOperator
 from sectionkit.solvers import make_solver
+from sectionkit.tracers import UNIT as TRACER_UNIT
+from sectionkit.tracers import TracerOperator, box_tracer_rows
 
 SALT_NOISE_FLOOR = 0.005  # g/kg: smallest salinity spread used to scale salt-anomaly noise
 TEMPERATURE_NOISE_FLOOR = 0.05  # degC, the same for heat
@@ -62,6 +65,9 @@ class ConstraintSystem:
     prior_covariance : ndarray (unknown, unknown) or None
         Full prior covariance when unknowns are correlated (its diagonal is
         ``prior**2``); None for independent unknowns.
+    prior_mean : ndarray (unknown,) or None
+        Prior mean of each unknown (zero when None), e.g. reference-velocity
+        adjustments from direct velocity measurements, unknown units.
     """
 
     rows: list[tuple[str, str]]
@@ -71,6 +77,7 @@ class ConstraintSystem:
     prior: np.ndarray
     units: list[str]
     prior_covariance: np.ndarray | None = None
+    prior_mean: np.ndarray | None = None
 
     def prior_matrix(self) -> np.ndarray:
         """The prior covariance as a full matrix, unknown units squared."""
@@ -118,6 +125,8 @@ def assemble(
     layout: UnknownLayout,
     layer_names: list[str],
     velocity_prior: np.ndarray | None = None,
+    tracers: dict[str, TracerOperator] | None = None,
+    velocity_prior_mean: np.ndarray | None = None,
 ) -> ConstraintSystem:
     """Build the conservation constraints of every box.
 
@@ -140,6 +149,12 @@ def assemble(
     velocity_prior : ndarray (n_pairs_total,), optional
         Prior standard deviation of each pair's adjustment (m s^-1); the
         global ``prior_velocity`` where None.
+    tracers : dict of str -> TracerOperator, optional
+        Tracer operators by section, for tracers named in ``spec.conserve``
+        (rows ``<tracer>:<class>`` in kmol s^-1, see :mod:`sectionkit.tracers`).
+    velocity_prior_mean : ndarray (n_pairs_total,), optional
+        Prior mean of each pair's adjustment (m s^-1), e.g. from direct
+        velocity profiles; zero where None.
     """
     n_class = len(layer_names)
     rows: list[tuple[str, str]] = []
@@ -205,7 +220,7 @@ def assemble(
                 e_rows.append(salt_g[i] - sa_mean[i] * mass_g[i] + dia_s[i])
                 initial.append(float(salt_v[i] - sa_mean[i] * mass_v[i]))
                 spread = max(sa_std[i], contrast[i], SALT_NOISE_FLOOR)
-                noise.append(spec.noise_salt[i] if spec.noise_salt
+                noise.append(spec.noise_salt[i] if spec.noise_salt and spec.noise_salt[i] > 0
                              else spec.noise_layer[i] * spread)
                 units.append("Sv g/kg")
         if "heat" in spec.conserve:
@@ -218,9 +233,22 @@ def assemble(
                 e_rows.append(heat_g[i] - h * ct_mean[i] * mass_g[i] + dia_h[i])
                 initial.append(float(heat_v[i] - h * ct_mean[i] * mass_v[i]))
                 spread = max(ct_std[i], contrast[i], TEMPERATURE_NOISE_FLOOR)
-                noise.append(spec.noise_heat[i] if spec.noise_heat
+                noise.append(spec.noise_heat[i] if spec.noise_heat and spec.noise_heat[i] > 0
                              else spec.noise_layer[i] * spread * h)
                 units.append("PW")
+        for tracer in [c for c in spec.conserve if c not in ("mass", "salt", "heat")]:
+            area = sum(operators[s].extra["class_moments"][0] for s in sections)
+            t_e, t_v, t_n = box_tracer_rows(
+                tracer, {s: _box_sign(box, s) for s in sections}, tracers or {}, area, offsets,
+                ekman, layout, mass_v, mass_g, dia, spec.noise_layer,
+                spec.noise_tracer.get(tracer),
+            )
+            for i, layer in enumerate(layer_names):
+                rows.append((box.name, f"{tracer}:{layer}"))
+                e_rows.append(t_e[i])
+                initial.append(float(t_v[i]))
+                noise.append(float(t_n[i]))
+                units.append(TRACER_UNIT)
     for net in spec.section_net:
         op = operators[net.section]
         t = op.transports(offsets[net.section], 0.0, ekman[net.section], 1.0)[1].sum() / SV
@@ -248,8 +276,12 @@ def assemble(
             rho = along_section_correlation(op.pairs["lon"].values, op.pairs["lat"].values,
                                             spec.prior_correlation_km)
             covariance[sl, sl] = rho * np.outer(prior[sl], prior[sl])
+    prior_mean = None
+    if velocity_prior_mean is not None and np.any(velocity_prior_mean != 0):
+        prior_mean = np.zeros(layout.size)
+        prior_mean[:n_pairs] = velocity_prior_mean
     return ConstraintSystem(rows, np.vstack(e_rows), np.asarray(initial), np.asarray(noise),
-                            prior, units, covariance)
+                            prior, units, covariance, prior_mean)
 
 
 def along_section_correlation(
@@ -460,7 +492,8 @@ def solve(
         settings["lower"] = None if lower is None else lower[active]
         settings["upper"] = None if upper is None else upper[active]
     solver = make_solver(spec.solver, **settings)
-    solver.fit(e, system.target)
+    mean = None if system.prior_mean is None else system.prior_mean[active]
+    solver.fit(e, system.target, prior_mean=mean)
     estimate = np.zeros(system.prior.size)
     estimate[active] = solver.estimate
     cov = np.zeros((system.prior.size, system.prior.size))

@@ -94,6 +94,9 @@ def input_files(cfg: Config) -> tuple[list[Path], dict[str, list[str]]]:
                 files.append(path)
         if spec.bathymetry:
             files.append(cfg.base_dir / spec.bathymetry)
+        for extra in (spec.bottle, spec.adcp):  # bottle tracers, direct velocities
+            if extra:
+                files.append(cfg.base_dir / extra)
     return files, folders
 
 

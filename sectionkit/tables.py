@@ -114,7 +114,7 @@ def unknowns_table(study: Study, results: Results) -> pd.DataFrame:
     diapycnal transfer crosses (``σ₂ 36.98``; blank for other unknowns).
     """
     columns = ["unknown", "kind", "unit", "prior_std", "estimate", "posterior_std",
-               "resolution", "interface"]
+               "resolution", "interface", "prior_mean"]
     inv = results.inverse
     if inv is None:
         return pd.DataFrame(columns=columns)
@@ -137,6 +137,8 @@ def unknowns_table(study: Study, results: Results) -> pd.DataFrame:
         "posterior_std": np.sqrt(np.maximum(np.diag(inv.covariance), 0.0)),
         "resolution": inv.resolution_diagonal,
         "interface": faces,
+        "prior_mean": (np.zeros(layout.size) if inv.system.prior_mean is None
+                       else inv.system.prior_mean),
     }, columns=columns)
 
 
@@ -168,6 +170,40 @@ def summary_table(study: Study, results: Results) -> pd.DataFrame:
     return pd.DataFrame(rows)[order]
 
 
+PROPERTY_COLUMNS = ["section", "class", "property", "unit", "initial", "adjusted",
+                    "adjusted_err"]
+
+
+def property_table(study: Study, results: Results) -> pd.DataFrame:
+    """property_transports.csv: heat, salt and every bottle tracer per section x class.
+
+    Heat in PW (potential enthalpy), salt in Sv g/kg (rho SA v / rho0), tracers
+    in kmol s^-1 (rho c v); section frame; without an inverse adjusted equals
+    initial and the error is blank.
+    """
+    rows = []
+    for name, op in study.operators.items():
+        out = results.outputs[name]
+        adjusted = out.value(results.estimate)
+        err = out.std(results.covariance)
+        for prop, unit in (("heat", "PW"), ("salt", "Sv g/kg")):
+            for layer in op.layer_names:
+                k = out.index(f"{prop}:{layer}")
+                rows.append([name, layer, prop, unit, out.initial[k], adjusted[k], err[k]])
+        tracer = results.tracers.get(name)
+        if tracer is None:
+            continue
+        t_adjusted = tracer.value(results.estimate)
+        t_err = tracer.std(results.covariance)
+        for k, label in enumerate(tracer.names):
+            prop, _, layer = label.partition(":")
+            if layer == "total":
+                continue
+            rows.append([name, layer, prop, tracer.units[k], tracer.initial[k], t_adjusted[k],
+                         t_err[k]])
+    return pd.DataFrame(rows, columns=PROPERTY_COLUMNS)
+
+
 def tables(study: Study, results: Results) -> dict[str, pd.DataFrame]:
     """All §7 tables by file name."""
     return {
@@ -176,4 +212,5 @@ def tables(study: Study, results: Results) -> dict[str, pd.DataFrame]:
         "box_budget.csv": box_table(results),
         "section_summary.csv": summary_table(study, results),
         "inverse_unknowns.csv": unknowns_table(study, results),
+        "property_transports.csv": property_table(study, results),
     }

@@ -10,6 +10,7 @@ import numpy as np
 import xarray as xr
 
 from sectionkit.errors import Cautions, ComputationError, SectionDataError
+from sectionkit.io.bottle import grid_tracers, read_bottle
 from sectionkit.io.casts import Source, read_profiles, reorder, source_files
 from sectionkit.io.csvfile import check_csv_options
 from sectionkit.io.raw import RawSection
@@ -343,6 +344,7 @@ def load_section(
     variables: Mapping[str, str] | None = None,
     order: Sequence[str] | None = None,
     rules: GriddingRules | None = None,
+    bottle: str | os.PathLike | None = None,
 ) -> tuple[xr.Dataset, Cautions]:
     """Read, check and grid a section: the canonical Dataset and its cautions.
 
@@ -365,6 +367,9 @@ def load_section(
         Station ids in the wanted order.
     rules : GriddingRules, optional
         Gap limits (dbar) and bottom tolerance (m); its dp is replaced by ``dp``.
+    bottle : path, optional
+        A WHP-Exchange bottle file of the same stations: its tracers are
+        gridded by the rule of :mod:`sectionkit.io.bottle`.
 
     Returns
     -------
@@ -372,7 +377,8 @@ def load_section(
         dims (station, pressure); SA (g/kg) and CT (degC) finite from 0 dbar to
         each station's last level floor(bottom_pressure/dp)*dp, NaN below;
         lat, lon, bottom_pressure (dbar), bottom_depth (m); attrs section,
-        source, dp, gridding.
+        source, dp, gridding; with ``bottle``, one umol/kg variable per
+        tracer (attribute ``role = "tracer"``) and attribute ``bottle``.
     cautions : Cautions
         Non-fatal findings (inversions, gaps, short casts, rules applied).
 
@@ -404,4 +410,6 @@ def load_section(
     )
     cautions = validate_section(raw, allow_equator=allow_equator)
     dataset = grid_raw_section(raw, rules, cautions)
+    if bottle is not None:
+        dataset = grid_tracers(dataset, read_bottle(bottle, cautions), cautions)
     return dataset, cautions
