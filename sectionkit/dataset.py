@@ -22,6 +22,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from sectionkit.budget import level_end_pressure
 from sectionkit.outputs import SECTION_OUTPUTS, SIGN, OutputSpec, udunits
 from sectionkit.study import Results, Study
 
@@ -253,6 +254,9 @@ def results_dataset(study: Study, results: Results) -> xr.Dataset:
         "level": ("level", levels, {"standard_name": "sea_water_pressure", "units": "dbar",
                                     "positive": "down", "axis": "Z",
                                     "long_name": "pressure of the common grid"}),
+        "level_end_pressure": ("level", level_end_pressure(levels),
+                               {"units": "dbar", "long_name": "pressure where the depth "
+                                "streamfunction accumulated through the level ends"}),
         **pair_coords,
         **inv_coords,
     }
