@@ -361,7 +361,13 @@ def run_member(study: Study, seed: np.random.SeedSequence, perturb: Perturbation
         system = results.inverse.system
         noise = rng.standard_normal(system.noise.size) * system.noise
         if perturb.constraints == "twin":
-            truth = rng.standard_normal(system.prior.size) * system.prior
+            if system.prior_covariance is None:
+                truth = rng.standard_normal(system.prior.size) * system.prior
+            else:  # correlated pair priors: a draw from the full prior covariance
+                active = system.prior > 0
+                truth = np.zeros(system.prior.size)
+                factor = np.linalg.cholesky(system.prior_covariance[np.ix_(active, active)])
+                truth[active] = factor @ rng.standard_normal(int(active.sum()))
             target = system.matrix @ truth + noise
         else:
             target = system.target + noise

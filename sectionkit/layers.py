@@ -45,6 +45,62 @@ class Interface:
         """Conventional label, e.g. ``sigma_2 = 36.95``."""
         return f"sigma_{self.p_ref / 1000:g} = {self.sigma:g}"
 
+    def display(self, tex: bool = False) -> str:
+        """The label figures, tables and the workbench print, e.g. ``σ₂ 36.98``."""
+        return sigma_label(self.sigma, self.p_ref, tex=tex)
+
+
+_SUBSCRIPT_DIGITS = str.maketrans("0123456789", "₀₁₂₃₄₅₆₇₈₉")
+
+
+def sigma_symbol(p_ref: float, tex: bool = False) -> str:
+    """The potential-density symbol of a reference pressure: σ₀, σ₂, σ₁.₅.
+
+    Parameters
+    ----------
+    p_ref : float
+        Potential-density reference pressure ("σ reference pressure"), dbar.
+    tex : bool
+        LaTeX (``$\\sigma_{2}$``) instead of Unicode.
+
+    Returns
+    -------
+    str
+        Subscript in thousands of dbar; a reference that is not a whole
+        thousand is written out (``σ(1500 dbar)``) in Unicode text.
+    """
+    sub = f"{float(p_ref) / 1000.0:.10g}"
+    if tex:
+        return rf"$\sigma_{{{sub}}}$"
+    if sub.isdigit():
+        return "σ" + sub.translate(_SUBSCRIPT_DIGITS)
+    return f"σ({float(p_ref):.10g} dbar)"
+
+
+def sigma_label(sigma: float, p_ref: float, tex: bool = False) -> str:
+    """One label for a potential-density surface, the same in every figure and table.
+
+    Parameters
+    ----------
+    sigma : float
+        Potential density anomaly, kg m^-3.
+    p_ref : float
+        Its reference pressure, dbar.
+    tex : bool
+        LaTeX instead of Unicode.
+
+    Returns
+    -------
+    str
+        E.g. ``σ₁ 32.15`` or ``σ₂ 36.98``.
+    """
+    return f"{sigma_symbol(p_ref, tex)} {float(sigma):.10g}"
+
+
+def class_display_name(name: str) -> str:
+    """A class name as printed in figures and tables: underscores become spaces."""
+    return str(name).replace("_", " ")
+
 
 def check_interfaces(interfaces: list[Interface], names: list[str] | None) -> list[str]:
     """Validate interfaces and return the class names.

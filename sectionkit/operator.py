@@ -246,6 +246,7 @@ def build_operator(
     bathymetry: list | None = None,
     max_dp: float = 1.0,
     relative_velocity_of_pairs: np.ndarray | None = None,
+    salinity: str = "preformed",
 ) -> SectionOperator:
     """Build the linear transport operator of a section.
 
@@ -270,6 +271,11 @@ def build_operator(
         The velocity relative to the surface of this same section from an
         earlier build (``extra["v_rel"]``), m s^-1: a change of classes,
         bottom-triangle rule or Ekman depth then needs no new dynamic height.
+    salinity : {"preformed", "absolute"}
+        Salinity of the salt transports, class salinities and the freshwater
+        reference: Preformed Salinity S* (gsw.Sstar_from_SA; conserved, which
+        Absolute Salinity is not: IOC, SCOR and IAPSO 2010, TEOS-10 manual;
+        McDougall et al. 2012) or Absolute Salinity SA, g/kg.
 
     Returns
     -------
@@ -302,6 +308,8 @@ def build_operator(
 
     sa_pair = pair_mean(sa)
     ct_pair = pair_mean(ct)
+    salt_pair = pair_mean(budget_salinity(sa, p, section["lon"].values, section["lat"].values,
+                                          salinity))
     rho_pair = pair_mean(gsw.rho(sa, ct, p))
     p_refs = sorted({face.p_ref for face in interfaces}) if interfaces else [0.0]
     sigma_pair = {pr: pair_mean(potential_density_anomaly(sa, ct, pr)) for pr in p_refs}
@@ -319,7 +327,7 @@ def build_operator(
         weights = weights[..., :1, :]
 
     rho0 = _masked(rho_pair)
-    sa0 = _masked(sa_pair)
+    sa0 = _masked(salt_pair)  # the salinity of the salt budgets (S* or SA)
     ct0 = _masked(ct_pair)
     props = {
         "volume": np.ones_like(rho0),
@@ -387,10 +395,44 @@ def build_operator(
         mean_salinity=mean_salinity,
         ekman_depth=float(ekman_depth),
         bottom_triangle=bottom_triangle,
-        extra={"sa_pair": sa_pair, "ct_pair": ct_pair, "rho_pair": rho_pair,
+        extra={"sa_pair": sa_pair, "salt_pair": salt_pair, "salinity": salinity,
+               "ct_pair": ct_pair, "rho_pair": rho_pair,
                "class_moments": class_moments, "station_sa": sa, "station_ct": ct,
                "v_rel": v_rel, "section": section},
     )
+
+
+SALINITY_NAMES = {"preformed": "Preformed Salinity S*", "absolute": "Absolute Salinity SA"}
+
+
+def budget_salinity(
+    sa: np.ndarray, p: np.ndarray, lon: np.ndarray, lat: np.ndarray, salinity: str
+) -> np.ndarray:
+    """The salinity salt budgets are made of, on the station grid.
+
+    Parameters
+    ----------
+    sa : ndarray (..., station, level)
+        Absolute Salinity, g/kg.
+    p : ndarray (level,)
+        Pressure, dbar.
+    lon, lat : ndarray (station,)
+        Station positions, degrees_east and degrees_north.
+    salinity : {"preformed", "absolute"}
+        Preformed Salinity S* (gsw.Sstar_from_SA, TEOS-10) or SA itself.
+
+    Returns
+    -------
+    ndarray (..., station, level)
+        g/kg; NaN where SA is NaN.
+    """
+    if salinity == "absolute":
+        return sa
+    if salinity != "preformed":
+        raise SectionDataError(f"salinity = {salinity!r} is not one of "
+                               f"{', '.join(SALINITY_NAMES)}")
+    return gsw.Sstar_from_SA(sa, p, np.asarray(lon, float)[..., None],
+                             np.asarray(lat, float)[..., None])
 
 
 def _tail_thickness(

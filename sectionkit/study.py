@@ -17,7 +17,7 @@ import pandas as pd
 import xarray as xr
 
 from sectionkit.budget import LinearOutputs, UnknownLayout, make_layout, section_outputs
-from sectionkit.config import Config
+from sectionkit.config import Config, check_pair_labels
 from sectionkit.direct import DirectReference, direct_reference
 from sectionkit.errors import Cautions, ConfigError, InputFileError
 from sectionkit.geometry import great_circle_distance
@@ -25,7 +25,7 @@ from sectionkit.geostrophy import resolve_references
 from sectionkit.inverse import InverseResult, assemble, solve
 from sectionkit.io import load_section
 from sectionkit.io.adcp import read_velocity_profiles
-from sectionkit.io.validate import check_pair_latitudes
+from sectionkit.io.validate import check_gridded_levels, check_pair_latitudes
 from sectionkit.operator import SectionOperator, build_operator
 from sectionkit.tracers import TracerOperator, build_tracer_operator, tracer_outputs
 
@@ -129,6 +129,7 @@ class Study:
                 check_pair_latitudes(spec.name, [str(s) for s in ds["station"].values],
                                      ds["lon"].values, ds["lat"].values, config.allow_equator,
                                      study.load_cautions)
+                check_gridded_levels(ds)
                 study.sections[spec.name] = ds
                 continue
             if progress:
@@ -139,12 +140,14 @@ class Study:
                 name=spec.name,
                 dp=config.dp,
                 allow_equator=config.allow_equator,
-                columns=spec.columns or None,
                 order=spec.stations,
                 bottle=None if not spec.bottle else str(config.base_dir / spec.bottle),
+                **spec.csv_options(),
             )
             study.sections[spec.name] = ds
             study.load_cautions.extend(cautions)
+        check_pair_labels(config, {name: ds.sizes["station"] - 1
+                                   for name, ds in study.sections.items()})
         study.rebuild_operators(progress)
         return study
 
@@ -174,6 +177,7 @@ class Study:
                 ekman_depth=cfg.ekman_depth,
                 bathymetry=_bathymetry(cfg, spec, ds),
                 relative_velocity_of_pairs=None if previous is None else previous.extra["v_rel"],
+                salinity=cfg.salt_salinity,
             )
             present = [t for t in cfg.tracers if t in ds]
             if present:
@@ -227,8 +231,10 @@ class Study:
             if inv.prior_diapycnal > 0 and self.config.interfaces:
                 boxes = [b.name for b in self.config.effective_boxes()]
             if inv.prior_ekman > 0:
-                ekman_sections = [s for s, tau in self.config.ekman_stress.items()
-                                  if tau != (0.0, 0.0)]
+                # in section order, not the stress table's (a provenance rerun sorts it)
+                ekman_sections = [s for s in self.config.section_names()
+                                  if tuple(self.config.ekman_stress.get(s, (0.0, 0.0)))
+                                  != (0.0, 0.0)]
         return make_layout(self.operators, boxes, len(self.config.interfaces), ekman_sections)
 
     def velocity_prior(self, layout: UnknownLayout) -> np.ndarray:

@@ -172,7 +172,8 @@ def test_uniform_flow_gives_closed_form_heat_freshwater_and_overturning():
     section = canonical_section(np.full((n, p.size), sa0), np.full((n, p.size), ct0), p,
                                 np.linspace(-30.0, -29.0, n), np.full(n, 30.0),
                                 np.full(n, 1000.0))
-    op = build_operator(section, [])
+    # freshwater relative to the water's own SA needs salt budgets in SA
+    op = build_operator(section, [], salinity="absolute")
     offset = np.zeros(op.n_pair)
     values = section_values(op, offset, b)
     length = op.pairs["distance"].values.sum()

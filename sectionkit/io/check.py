@@ -224,7 +224,7 @@ def add_check_arguments(parser: argparse.ArgumentParser) -> argparse.ArgumentPar
         "--column",
         action="append",
         metavar="KEY=HEADER",
-        help=f"CSV header for a column; KEY is one of {', '.join(CSV_COLUMNS)}",
+        help=f"CSV only: header for a column; KEY is one of {', '.join(CSV_COLUMNS)}",
     )
     parser.add_argument(
         "--variable",
@@ -232,11 +232,20 @@ def add_check_arguments(parser: argparse.ArgumentParser) -> argparse.ArgumentPar
         metavar="QUANTITY=NAME",
         help="NetCDF variable to use where several share a standard_name",
     )
-    parser.add_argument("--temperature-kind", choices=TEMPERATURE_KINDS, default="in-situ")
-    parser.add_argument("--salinity-kind", choices=SALINITY_KINDS, default="practical")
-    parser.add_argument("--pressure-units", default="dbar", help="CSV pressure units (dbar, Pa)")
     parser.add_argument(
-        "--temperature-units", default="degC", help="CSV temperature units (degC, K)"
+        "--temperature-kind", choices=TEMPERATURE_KINDS, default="in-situ",
+        help="CSV only: what the temperature column holds (default in-situ); NetCDF files say "
+        "it by standard_name")
+    parser.add_argument(
+        "--salinity-kind", choices=SALINITY_KINDS, default="practical",
+        help="CSV only: what the salinity column holds (default practical); NetCDF files say "
+        "it by standard_name")
+    parser.add_argument("--pressure-units", default="dbar",
+                        help="CSV only: pressure units (dbar, Pa, ...); NetCDF files carry "
+                        "units attributes")
+    parser.add_argument(
+        "--temperature-units", default="degC",
+        help="CSV only: temperature units (degC, K); NetCDF files carry units attributes"
     )
     return parser
 
