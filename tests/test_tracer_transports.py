@@ -135,6 +135,24 @@ def test_conserved_uniform_tracer_has_an_empty_anomaly_row():
     assert np.abs(system.initial[rows]).max() < 1e-9 * 40.0 * np.abs(system.initial[mass]).max()
 
 
+def test_tracer_linear_in_salinity_has_the_salt_anomaly_row_scaled():
+    # c = a + b SA: the tracer anomaly inflow T_c - k c_i M_i equals k b times the salt
+    # anomaly inflow S - SA_i M_i (linearity, hand algebra), transfers included
+    ds = thermocline_section(n=6, dp=10.0)
+    a, b = 10.0, 3.0
+    ds = _with_tracer(ds, "silicate", a + b * ds["SA"].values)
+    cfg = _config(inverse={"conserve": ["mass", "salt", "silicate"], "salinity": "absolute",
+                           "noise_layer": [1.0, 1.0, 1.0]}, tracers=["silicate"])
+    system = Study.from_config(cfg, sections={"south": ds}).solve().inverse.system
+    salt = [i for i, r in enumerate(system.rows) if r[1].startswith("salt:")]
+    tracer = [i for i, r in enumerate(system.rows) if r[1].startswith("silicate:")]
+    k = KMOL_PER_SV_UMOL
+    np.testing.assert_allclose(system.matrix[tracer], k * b * system.matrix[salt],
+                               rtol=1e-9, atol=1e-9 * np.abs(system.matrix[tracer]).max())
+    np.testing.assert_allclose(system.initial[tracer], k * b * system.initial[salt],
+                               rtol=1e-9, atol=1e-9 * np.abs(system.initial[tracer]).max())
+
+
 def _write_cruise(tmp_path, sec):
     cs = casts(sec)
     c = cs[1]
@@ -212,3 +230,8 @@ noise = 0.05
     np.testing.assert_allclose(got, csv, rtol=1e-6)
     provenance = (tmp_path / "out" / "provenance.json").read_text()
     assert "cruise_hy1.csv" in provenance and "flagged 4 (bad) were dropped" in provenance
+    # a rerun from the provenance reproduces the property transports byte for byte
+    assert main(["budget", str(tmp_path / "out" / "provenance.json"), "--out",
+                 str(tmp_path / "again"), "--no-figures", "--quiet"]) == 0
+    assert ((tmp_path / "again" / "property_transports.csv").read_bytes()
+            == (tmp_path / "out" / "property_transports.csv").read_bytes())

@@ -286,13 +286,22 @@ def parse_exchange(text: str, file: str) -> ExchangeTable:
         if column in TEXT_COLUMNS:
             table.text[column] = np.array(values, dtype=str)
             continue
-        out = np.empty(len(values))
-        for r, value in enumerate(values):
-            try:
-                out[r] = float(value) if value else np.nan
-            except ValueError:
-                raise fail(numbers_at[r], f"column {column}: {value!r} is not a number; "
-                                          "missing values are -999") from None
+        try:
+            out = np.array([v or "nan" for v in values], dtype=float)
+        except ValueError:
+            for r, value in enumerate(values):  # find the cell to name it
+                try:
+                    float(value or "nan")
+                except ValueError:
+                    raise fail(numbers_at[r], f"column {column}: {value!r} is not a number; "
+                                              "missing values are -999") from None
+            raise
+        bad = ~np.isfinite(out) & np.array([v.lower() not in ("", "nan") for v in values],
+                                            dtype=bool)
+        if bad.any():
+            r = int(np.flatnonzero(bad)[0])
+            raise fail(numbers_at[r], f"column {column}: {values[r]!r} is not a finite number; "
+                                      "missing values are -999")
         out[out <= FILL] = np.nan
         table.numbers[column] = out
     return table
