@@ -209,7 +209,7 @@ def test_changing_classes_rebuilds_without_new_dynamic_height(monkeypatch):
     def refuse(*args, **kwargs):
         raise AssertionError("dynamic height recomputed")
 
-    monkeypatch.setattr(operator_module, "dynamic_height", refuse)
+    monkeypatch.setattr(operator_module, "specific_volume_pass", refuse)
     study.rebuild_operators()
     monkeypatch.undo()
     fresh = Study.from_config(study.config, sections={"south": section})
@@ -217,6 +217,6 @@ def test_changing_classes_rebuilds_without_new_dynamic_height(monkeypatch):
                                fresh.solve().outputs["south"].value(), rtol=1e-12, atol=1e-12)
     # new data are never taken for the old: a replaced section gets its own dynamic height
     study.sections["south"] = thermocline_section(n=6, dp=10.0, tilt=100.0)
-    monkeypatch.setattr(operator_module, "dynamic_height", refuse)
+    monkeypatch.setattr(operator_module, "specific_volume_pass", refuse)
     with pytest.raises(AssertionError, match="dynamic height recomputed"):
         study.rebuild_operators()

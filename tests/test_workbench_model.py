@@ -189,7 +189,8 @@ def test_reference_change_never_recomputes_dynamic_height(state, monkeypatch):
     def refuse(*args, **kwargs):
         raise AssertionError("dynamic height recomputed for a reference change")
 
-    monkeypatch.setattr(sectionkit.operator, "dynamic_height", refuse)
+    # the operator integrates dynamic height in its one equation-of-state pass
+    monkeypatch.setattr(sectionkit.operator, "specific_volume_pass", refuse)
     monkeypatch.setattr(sectionkit.geostrophy, "dynamic_height", refuse)
     operators = dict(state.study.operators)
     state.set_reference_pressure(1200.0)
