@@ -86,6 +86,16 @@ def test_folder_is_recognised_by_content_not_by_file_name(sec, tmp_path):
     assert ds.sizes["station"] == 5
 
 
+def test_of_several_casts_at_a_station_the_deepest_is_used_with_a_caution(sec, tmp_path):
+    cs = casts(sec)
+    shallow = dict(cs[1], cast="2", pressure=cs[1]["pressure"][:50],
+                   temperature=cs[1]["temperature"][:50], salinity=cs[1]["salinity"][:50])
+    ds, cautions = load_section(write_ctd_zip(tmp_path / "cruise.zip", cs + [shallow]))
+    assert ds.sizes["station"] == 5
+    assert np.isfinite(ds["CT"].sel(station="2").values).sum() > 50
+    assert "cast 2" in cautions.of_kind("extra-casts")[0].message
+
+
 def test_station_list_selects_and_orders_stations(sec, tmp_path):
     z = write_ctd_zip(tmp_path / "cruise.zip", casts(sec))
     ds, _ = load_section(z, order=["4", "2", "1"])
