@@ -436,6 +436,14 @@ def ctd_profile(table: ExchangeTable, cautions: Cautions) -> Profile:
         data[column], counts[column] = apply_flags(
             table, column, CTD_USED, CTD_CAUTION, CTD_DROPPED, "CTD"
         )
+    # a scan with a dropped (or not sampled) value is left out whole: it is not an
+    # incomplete sample but a flagged one, and the gap it leaves is gridded as any gap
+    flagged = np.zeros(table.lines.size, dtype=bool)
+    for column in ("CTDPRS", "CTDTMP", "CTDSAL"):
+        codes = flag_codes(table, column)
+        if codes is not None:
+            flagged |= np.isin(codes, list(CTD_DROPPED))
+    data = {c: v[~flagged] for c, v in data.items()}
     temperature = data["CTDTMP"]
     if t_units in _ITS68:
         temperature = temperature / 1.00024  # T90 = T68 / 1.00024 (Saunders 1990; as gsw)
