@@ -63,6 +63,14 @@ def test_hand_written_ctd_file_gives_headers_units_values_and_flags():
     np.testing.assert_array_equal(table.lines, [15, 16, 17])
 
 
+def test_trailing_commas_on_every_line_are_accepted():
+    text = "\n".join(line + "," if line and line[0] in "CD2460" and "," in line else line
+                     for line in HAND_WRITTEN.splitlines())
+    table = parse_exchange(text, "commas.csv")
+    assert table.columns[-1] == "CTDOXY_FLAG_W"
+    np.testing.assert_array_equal(table.numbers["CTDPRS"], [2.0, 4.0, 6.0])
+
+
 def test_zip_of_ctd_files_is_read_in_stnnbr_order_whatever_the_member_order(sec, tmp_path):
     z = write_ctd_zip(tmp_path / "cruise.zip", casts(sec)[::-1])
     ds, _ = load_section(z, name="line")
@@ -166,6 +174,8 @@ def test_check_reports_bottle_flags_and_tracer_profiles(sec, tmp_path):
     assert f"OXYGEN: flag 2: {n - 1}, flag 3: 1" in text
     assert f"SILCAT: flag 2: {n - 1}, flag 4: 1" in text
     assert "oxygen (OXYGEN): profiles at 5 of 5 stations" in text
+    assert "station 1: OXYGEN flag 2: 5, flag 3: 1; SILCAT flag 2: 5, flag 4: 1" in text
+    assert "4 of 5 stations have every bottle flagged 2" in text
 
 
 def test_its68_temperature_is_converted_to_its90(sec, tmp_path):

@@ -148,6 +148,17 @@ class BottleData:
         for column, per_flag in total.items():
             text = ", ".join(f"flag {f}: {n}" for f, n in sorted(per_flag.items()) if f >= 0)
             lines.append(f"    {column}: {text}")
+        clean = 0
+        for st in self.stations.values():
+            flagged = {c: f for c, f in st.flag_counts.items() if set(f) - {2}}
+            if not flagged:
+                clean += 1
+                continue
+            text = "; ".join(
+                f"{c} " + ", ".join(f"flag {f}: {n}" for f, n in sorted(per.items()) if f >= 0)
+                for c, per in flagged.items())
+            lines.append(f"    station {st.station}: {text}")
+        lines.append(f"    {clean} of {len(self.stations)} stations have every bottle flagged 2")
         return lines
 
 

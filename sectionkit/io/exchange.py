@@ -249,10 +249,10 @@ def parse_exchange(text: str, file: str) -> ExchangeTable:
         raise fail(k + 1, "the file ends before its column-name and units lines")
     columns = [c.strip().upper() for c in lines[k].split(",")]
     units_line = [u.strip() for u in lines[k + 1].split(",")]
+    if len(columns) > 1 and columns[-1] == "":  # a trailing comma
+        columns = columns[:-1]
     if units_line and units_line[-1] == "" and len(units_line) == len(columns) + 1:
         units_line = units_line[:-1]
-    if columns and columns[-1] == "":
-        columns = columns[:-1]
     if len(units_line) != len(columns):
         raise fail(k + 2, f"the units line has {len(units_line)} fields but the column line "
                           f"above has {len(columns)}; give one unit (possibly empty) per column")
