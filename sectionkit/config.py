@@ -280,14 +280,14 @@ class SectionSpec:
     into_box: bool = True
     columns: dict[str, str] = field(default_factory=dict)
     bathymetry: str | None = None
-    bottle: str | None = None  # WHP-Exchange bottle file (tracers)
-    stations: list[str] | None = None  # station order and subset (by station id)
-    adcp: str | None = None  # direct velocity profiles (LADCP / shipboard ADCP)
     variables: dict[str, str] = field(default_factory=dict)
     temperature_kind: str = "in-situ"
     salinity_kind: str = "practical"
     pressure_units: str = "dbar"
     temperature_units: str = "degC"
+    bottle: str | None = None  # WHP-Exchange bottle file (tracers)
+    stations: list[str] | None = None  # station order and subset (by station id)
+    adcp: str | None = None  # direct velocity profiles (LADCP / shipboard ADCP)
 
     def csv_options(self) -> dict[str, Any]:
         """The CSV layout options of this section, as keyword arguments of the readers."""
@@ -360,9 +360,9 @@ class InverseSpec:
     known: list[KnownTransport] = field(default_factory=list)
     section_net: list[SectionNet] = field(default_factory=list)
     bounds: dict[str, list[float]] = field(default_factory=dict)
-    noise_tracer: dict[str, list[float]] = field(default_factory=dict)  # per tracer, per class
     salinity: str = "preformed"
     prior_correlation_km: float = 0.0
+    noise_tracer: dict[str, list[float]] = field(default_factory=dict)  # per tracer, per class
 
 
 BUDGET_SALINITIES = ("preformed", "absolute")
@@ -432,18 +432,18 @@ class Config:
                 d["columns"] = dict(s.columns)
             if s.bathymetry:
                 d["bathymetry"] = s.bathymetry
-            if s.bottle:
-                d["bottle"] = s.bottle
-            if s.stations is not None:
-                d["stations"] = list(s.stations)
-            if s.adcp:
-                d["adcp"] = s.adcp
             if s.variables:
                 d["variables"] = dict(s.variables)
             for key, default in (("temperature_kind", "in-situ"), ("salinity_kind", "practical"),
                                  ("pressure_units", "dbar"), ("temperature_units", "degC")):
                 if getattr(s, key) != default:
                     d[key] = getattr(s, key)
+            if s.bottle:
+                d["bottle"] = s.bottle
+            if s.stations is not None:
+                d["stations"] = list(s.stations)
+            if s.adcp:
+                d["adcp"] = s.adcp
             sections.append(d)
         out["sections"] = sections
         if self.boxes:
@@ -602,11 +602,11 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
                 into_box=sec.get("into_box", True),
                 columns=dict(sec.get("columns", {})),
                 bathymetry=sec.get("bathymetry"),
+                variables=variables,
+                **_csv_layout(sec, where),
                 bottle=_optional_text(sec.get("bottle"), f"{where} bottle"),
                 stations=_station_list(sec.get("stations"), f"{where} stations"),
                 adcp=_optional_text(sec.get("adcp"), f"{where} adcp"),
-                variables=variables,
-                **_csv_layout(sec, where),
             )
         )
     names = cfg.section_names()
@@ -684,7 +684,7 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
                                          "[budget] reference_salinity", positive=True)
 
     tracers = data.get("tracers", {})
-    _check_keys(tracers, KEYS["tracers"], "[tracers]")
+    _check_keys(tracers, ("transport",), "[tracers]")
     transport = tracers.get("transport", [])
     if not isinstance(transport, list):
         raise ConfigError("[tracers] transport must be a list of tracer names, e.g. "
@@ -705,6 +705,30 @@ def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
     return cfg
 
 
+def _csv_layout(sec: dict[str, Any], where: str) -> dict[str, Any]:
+    """The CSV layout keys of one ``[[sections]]`` table (what the columns hold)."""
+    out: dict[str, Any] = {}
+    for key, allowed in (("temperature_kind", TEMPERATURE_KINDS),
+                         ("salinity_kind", SALINITY_KINDS)):
+        if key not in sec:
+            continue
+        value = sec[key]
+        if value not in allowed:
+            close = difflib.get_close_matches(str(value), allowed, n=1)
+            raise ConfigError(f"{where}: {key} = {value!r} is not one of {', '.join(allowed)}"
+                              + (f"; did you mean {close[0]!r}?" if close else ""))
+        out[key] = value
+    for key, convert in (("pressure_units", pressure_to_dbar),
+                         ("temperature_units", temperature_to_celsius)):
+        if key in sec:
+            try:  # the readers' own unit tables decide what is understood
+                convert(np.zeros(1), str(sec[key]), f"{where} {key}")
+            except SectionkitError as exc:
+                raise ConfigError(str(exc)) from None
+            out[key] = str(sec[key])
+    return out
+
+
 def _parse_adcp(table: Any) -> AdcpSpec:
     if table is None:
         raise ConfigError("a section names an adcp file but there is no [adcp] table; add "
@@ -712,7 +736,7 @@ def _parse_adcp(table: Any) -> AdcpSpec:
                           '"known", and error (m s^-1)')
     if not isinstance(table, dict):
         raise ConfigError("[adcp] must be a table")
-    _check_keys(table, KEYS["adcp"], "[adcp]")
+    _check_keys(table, ("pressure_range", "use", "error"), "[adcp]")
     pr = table.get("pressure_range")
     if not isinstance(pr, list) or len(pr) != 2:
         raise ConfigError("[adcp] pressure_range must be [top, bottom] in dbar, e.g. "
@@ -748,30 +772,6 @@ def _station_list(value: Any, where: str) -> list[str] | None:
         if isinstance(item, bool) or not isinstance(item, str | int):
             raise ConfigError(f"{where}: {item!r} is not a station id (text or whole number)")
         out.append(str(item))
-    return out
-
-
-def _csv_layout(sec: dict[str, Any], where: str) -> dict[str, Any]:
-    """The CSV layout keys of one ``[[sections]]`` table (what the columns hold)."""
-    out: dict[str, Any] = {}
-    for key, allowed in (("temperature_kind", TEMPERATURE_KINDS),
-                         ("salinity_kind", SALINITY_KINDS)):
-        if key not in sec:
-            continue
-        value = sec[key]
-        if value not in allowed:
-            close = difflib.get_close_matches(str(value), allowed, n=1)
-            raise ConfigError(f"{where}: {key} = {value!r} is not one of {', '.join(allowed)}"
-                              + (f"; did you mean {close[0]!r}?" if close else ""))
-        out[key] = value
-    for key, convert in (("pressure_units", pressure_to_dbar),
-                         ("temperature_units", temperature_to_celsius)):
-        if key in sec:
-            try:  # the readers' own unit tables decide what is understood
-                convert(np.zeros(1), str(sec[key]), f"{where} {key}")
-            except SectionkitError as exc:
-                raise ConfigError(str(exc)) from None
-            out[key] = str(sec[key])
     return out
 
 
@@ -855,7 +855,9 @@ def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:
         if values and len(values) != n_class:
             raise ConfigError(f"[inverse] {key} has {len(values)} entries; give one per class "
                               f"({n_class}: {', '.join(cfg.layer_names)})")
-        setattr(spec, attr, [_number(v, f"[inverse] {key}[{i}]", positive=True)
+        # noise_salt / noise_heat: 0 for a class keeps the automatic noise of that class
+        setattr(spec, attr, [_number(v, f"[inverse] {key}[{i}]", positive=attr == "noise_layer",
+                                     nonneg=attr != "noise_layer")
                              for i, v in enumerate(values)])
     if not spec.noise_layer:
         spec.noise_layer = [1.0] * n_class

@@ -17,10 +17,11 @@ Constraints (all in Sv, or Sv g/kg, or PW):
   mass transport in its own frame, minus the stated value (a closed basin,
   a known throughflow).
 
-Default salt (heat) noise is ``noise_layer`` times the larger of the class's
-salinity (temperature) spread and half the contrast with its neighbouring
-classes: transfers across interfaces and mixing carry anomalies of that
-size, which the constraints do not model.
+Default salt (heat) noise (no ``noise_salt`` list, or 0 for a class) is
+``noise_layer`` times the larger of the class's salinity (temperature)
+spread and half the contrast with its neighbouring classes: transfers across
+interfaces and mixing carry anomalies of that size, which the constraints do
+not model.
 """
 
 from __future__ import annotations
@@ -224,7 +225,7 @@ def assemble(
                 e_rows.append(salt_g[i] - sa_mean[i] * mass_g[i] + dia_s[i])
                 initial.append(float(salt_v[i] - sa_mean[i] * mass_v[i]))
                 spread = max(sa_std[i], contrast[i], SALT_NOISE_FLOOR)
-                noise.append(spec.noise_salt[i] if spec.noise_salt
+                noise.append(spec.noise_salt[i] if spec.noise_salt and spec.noise_salt[i] > 0
                              else spec.noise_layer[i] * spread)
                 units.append("Sv g/kg")
         if "heat" in spec.conserve:
@@ -237,7 +238,7 @@ def assemble(
                 e_rows.append(heat_g[i] - h * ct_mean[i] * mass_g[i] + dia_h[i])
                 initial.append(float(heat_v[i] - h * ct_mean[i] * mass_v[i]))
                 spread = max(ct_std[i], contrast[i], TEMPERATURE_NOISE_FLOOR)
-                noise.append(spec.noise_heat[i] if spec.noise_heat
+                noise.append(spec.noise_heat[i] if spec.noise_heat and spec.noise_heat[i] > 0
                              else spec.noise_layer[i] * spread * h)
                 units.append("PW")
         for tracer in [c for c in spec.conserve if c not in CONSTRAINT_KINDS]:
@@ -278,10 +279,6 @@ def assemble(
         prior[idx] = spec.prior_diapycnal
     for idx in layout.ekman.values():
         prior[idx] = spec.prior_ekman
-    prior_mean = None
-    if velocity_prior_mean is not None and np.any(velocity_prior_mean != 0):
-        prior_mean = np.zeros(layout.size)
-        prior_mean[:n_pairs] = velocity_prior_mean
     covariance = None
     if spec.prior_correlation_km > 0:
         covariance = np.diag(prior**2)
@@ -290,8 +287,12 @@ def assemble(
             rho = along_section_correlation(op.pairs["lon"].values, op.pairs["lat"].values,
                                             spec.prior_correlation_km)
             covariance[sl, sl] = rho * np.outer(prior[sl], prior[sl])
+    prior_mean = None
+    if velocity_prior_mean is not None and np.any(velocity_prior_mean != 0):
+        prior_mean = np.zeros(layout.size)
+        prior_mean[:n_pairs] = velocity_prior_mean
     return ConstraintSystem(rows, np.vstack(e_rows), np.asarray(initial), np.asarray(noise),
-                            prior, units, covariance, prior_mean=prior_mean)
+                            prior, units, covariance, prior_mean)
 
 
 def along_section_correlation(

@@ -140,9 +140,9 @@ class Study:
                 name=spec.name,
                 dp=config.dp,
                 allow_equator=config.allow_equator,
+                **spec.csv_options(),
                 order=spec.stations,
                 bottle=None if not spec.bottle else str(config.base_dir / spec.bottle),
-                **spec.csv_options(),
             )
             study.sections[spec.name] = ds
             study.load_cautions.extend(cautions)
