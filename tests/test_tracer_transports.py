@@ -11,7 +11,7 @@ from _synthetic import canonical_section, thermocline_section
 
 from sectionkit.cli import main
 from sectionkit.config import load_config, parse_config
-from sectionkit.errors import SectionDataError
+from sectionkit.errors import ConfigError, SectionDataError
 from sectionkit.io.exchange_write import write_bottle, write_ctd_zip
 from sectionkit.study import Study
 
@@ -235,3 +235,25 @@ noise = 0.05
                  str(tmp_path / "again"), "--no-figures", "--quiet"]) == 0
     assert ((tmp_path / "again" / "property_transports.csv").read_bytes()
             == (tmp_path / "out" / "property_transports.csv").read_bytes())
+
+
+@pytest.mark.parametrize(
+    "change, words",
+    [
+        ({"tracers": {"transport": ["argon"]}}, "tracer 'argon' is not known"),
+        ({"sections": [{"name": "south", "file": "x.nc"}]}, "no [[sections]] has a bottle"),
+        ({"inverse": {"conserve": ["mass", "nitrate"]}},
+         "tracer 'nitrate' must also be listed in [tracers] transport"),
+        ({"inverse": {"noise_tracer": {"oxygen": [1.0]}}}, "give one noise per class"),
+    ],
+)
+def test_tracer_configuration_mistakes_are_named(change, words):
+    data = {
+        "sections": [{"name": "south", "file": "x.nc", "bottle": "b.csv"}],
+        "classes": {"interfaces": list(FACES)},
+        "tracers": {"transport": ["oxygen"]},
+    }
+    data.update(change)
+    with pytest.raises(ConfigError) as info:
+        parse_config(data)
+    assert words in str(info.value)
