@@ -9,11 +9,17 @@ import gsw
 import numpy as np
 import pytest
 
-from sectionkit.errors import InputFileError, SectionDataError
+from sectionkit.errors import Cautions, InputFileError, SectionDataError
 from sectionkit.io import check_main, load_section
 from sectionkit.io.bottle import read_bottle, tracer_name
 from sectionkit.io.exchange import parse_exchange
-from sectionkit.io.exchange_write import ctd_text, write_bottle, write_ctd_folder, write_ctd_zip
+from sectionkit.io.exchange_write import (
+    bottle_text,
+    ctd_text,
+    write_bottle,
+    write_ctd_folder,
+    write_ctd_zip,
+)
 
 try:
     from tests._exchange import bottle_rows, casts, rounded_section
@@ -281,6 +287,24 @@ def test_bad_bottles_and_fill_values_never_reach_the_grid(sec, tmp_path):
     assert any(c.variable == "SILCAT" for c in cautions.of_kind("flagged-dropped"))
     counts = read_bottle(path).stations["1"].flag_counts["SILCAT"]
     assert counts == {2: sum(1 for s in rows["STNNBR"] if s == "1") - 2, 4: 1, 9: 1}
+
+
+def test_a_bottle_that_did_not_trip_gives_no_samples(sec, tmp_path):
+    rows = bottle_rows(sec)
+    rows["OXYGEN"][2] = 999.0  # the bottle closed somewhere else
+    text = bottle_text(rows).splitlines()
+    # add the bottle's own flag column: 4 (did not trip correctly) on the third sample
+    text[2] += ",BTLNBR_FLAG_W"
+    text[3] += ","
+    for k in range(4, len(text) - 1):
+        text[k] += ",4" if k == 6 else ",2"
+    path = tmp_path / "btl.csv"
+    path.write_text("\n".join(text) + "\n")
+    cautions = Cautions()
+    bottles = read_bottle(path, cautions)
+    p, c = bottles.stations["1"].samples["oxygen"]
+    assert 999.0 not in c and rows["CTDPRS"][2] not in p
+    assert cautions.of_kind("bottle-mistrip")
 
 
 def test_pchip_does_not_overshoot_a_step_between_bottles(sec, tmp_path):
