@@ -121,8 +121,8 @@ def build_tracer_operator(
             stations = [str(s) for s in section["station"].values[bad.any(axis=1)]]
             raise SectionDataError(
                 f"section {op.name}, variable {name}: stations {', '.join(stations)} have no "
-                f"{name} profile (fewer than two good bottles); drop them with the section's "
-                f"stations key or drop {name} from [tracers] transport"
+                f"{name} profile (no bottles, or fewer than two good ones); drop them with "
+                f"the section's stations key or drop {name} from [tracers] transport"
             )
         fields.append(c)
     c_pair = np.stack([_masked(pair_mean(c)) for c in fields])  # (tracer, pair, level)
