@@ -457,9 +457,9 @@ def _direct_phrase(study: Study, tex: bool) -> str:
         return ""
     span = (f"{_num(adcp.pressure_range[0])}–{_num(adcp.pressure_range[1])} dbar"
             if not tex else f"{_num(adcp.pressure_range[0])}--{_num(adcp.pressure_range[1])} dbar")
-    role = ("prior means (standard deviation the stated error "
-            f"{_num(adcp.error)} {_unit('m/s', tex)} and the standard error of the average)"
-            if adcp.use == "prior" else "known reference velocities")
+    role = ("the prior means of their reference velocities (standard deviation the stated "
+            f"error {_num(adcp.error)} {_unit('m/s', tex)} combined with the standard error of "
+            "the average)" if adcp.use == "prior" else "their known reference velocities")
     return (f"; direct velocity profiles (LADCP/ADCP), rotated into the section normal and "
             f"averaged over {span}, give {pairs} pairs {role}")
 

@@ -1399,7 +1399,13 @@ class WorkbenchState:
             initial_rows = system.initial + system.matrix[:, :n_pairs] @ shift
             active = system.prior > 0
             x = np.zeros(layout.size)
-            x[active] = base.inverse.solver.gain @ (-initial_rows)
+            # prior means (direct velocities) follow the references: x0 = direct - offset
+            x0 = np.zeros(layout.size)
+            mean = self.study.velocity_prior_mean(refs)
+            if mean is not None:
+                x0[:n_pairs] = mean
+            x[active] = x0[active] + base.inverse.solver.gain @ (
+                -initial_rows - system.matrix[:, active] @ x0[active])
             # the posterior covariance does not depend on the data: same residual std
             box = BoxBudget(tuple(system.rows), initial_rows, initial_rows + system.matrix @ x,
                             system.noise.copy(), tuple(system.units),
