@@ -30,6 +30,9 @@ else:  # pragma: no cover
     import tomli as tomllib
 
 SOLVER_NAMES = ("gauss-markov", "svd", "bounded")
+#: How each solver is named in figures, tables and the workbench.
+SOLVER_DISPLAY = {"gauss-markov": "Gauss–Markov", "svd": "truncated SVD",
+                  "bounded": "bounded least squares"}
 CONSTRAINT_KINDS = ("mass", "salt", "heat")
 DEEPEST_COMMON = "deepest_common"  # the reference at each pair's deepest common level
 

@@ -209,3 +209,51 @@ def pair_geometry(section: xr.Dataset) -> xr.Dataset:
         },
         coords={"pair": pair},
     )
+
+
+_COMPASS = ("northward", "north-westward", "westward", "south-westward", "southward",
+            "south-eastward", "eastward", "north-eastward")
+
+
+def positive_direction(lon: np.ndarray, lat: np.ndarray) -> str:
+    """Compass word of the positive transport direction of a line, e.g. ``"northward"``.
+
+    Positive transport is to the left of increasing station order; here the
+    line's overall direction is taken from its first to its last station.
+
+    Parameters
+    ----------
+    lon : ndarray (station,)
+        Longitude, degrees_east.
+    lat : ndarray (station,)
+        Latitude, degrees_north.
+
+    Returns
+    -------
+    str
+        One of eight compass directions (``"north-eastward"``, ...).
+    """
+    lon = np.asarray(lon, dtype=float)
+    lat = np.asarray(lat, dtype=float)
+    ends_lon, ends_lat = lon[[0, -1]], lat[[0, -1]]
+    t_east, t_north = (float(c[0]) for c in along_line_direction(ends_lon, ends_lat))
+    # left normal (-t_north, t_east); angle counter-clockwise from north
+    angle = np.degrees(np.arctan2(t_north, t_east))  # of the left normal measured from north
+    return _COMPASS[int(np.round(angle / 45.0)) % 8]
+
+
+def sign_convention(lon: np.ndarray, lat: np.ndarray, first: str, last: str) -> str:
+    """The sign convention of a line in words: ``"positive = northward across S01→S47"``.
+
+    Parameters
+    ----------
+    lon, lat : ndarray (station,)
+        Station positions, degrees_east and degrees_north.
+    first, last : str
+        Ids of the first and last station.
+
+    Returns
+    -------
+    str
+    """
+    return f"positive = {positive_direction(lon, lat)} across {first}→{last}"

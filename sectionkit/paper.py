@@ -30,8 +30,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from sectionkit.config import SOLVER_DISPLAY
 from sectionkit.geostrophy import ReferenceChoice
-from sectionkit.layers import class_display_name, sigma_symbol
+from sectionkit.layers import class_display_name, constraint_display_name, sigma_symbol
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.tables import tables
 
@@ -381,11 +382,8 @@ _TRIANGLE_PHRASE = {
     "zero": "zero velocity below the deepest common level",
     "shear": "shear extrapolated linearly below the deepest common level",
 }
-_SOLVER_PHRASE = {
-    "gauss-markov": "Gauss–Markov estimate",
-    "svd": "truncated SVD",
-    "bounded": "bounded least squares",
-}
+_SOLVER_PHRASE = {key: name + (" estimate" if key == "gauss-markov" else "")
+                  for key, name in SOLVER_DISPLAY.items()}
 
 
 def reference_description(study: Study, results: Results, tex: bool = False) -> str:
@@ -626,12 +624,6 @@ _REFERENCE_KIND_TEXT = {"pressure": "pressure", "bottom": "deepest common",
                         "isopycnal": "isopycnal", "velocity": "known velocity"}
 
 
-def _constraint_text(constraint: str) -> str:
-    """``mass:deep_water`` as printed: ``mass, deep water``."""
-    kind, _, what = constraint.partition(":")
-    return f"{kind}, {class_display_name(what)}" if what else kind
-
-
 def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
     title = "Box constraints before and after the inverse."
 
@@ -659,7 +651,7 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
             decimals = FIXED_DECIMALS[unit]
         rows.append([
             Cell.text(r.box),
-            Cell.text(_constraint_text(str(r.constraint))),
+            Cell.text(constraint_display_name(str(r.constraint))),
             Cell.text("", _unit(unit, True), _unit(unit, False)),
             Cell(value=format_fixed(r.initial, decimals)),
             Cell(value=format_fixed(r.adjusted, decimals)),
