@@ -5,6 +5,11 @@ configuration, so the configuration holds every choice: grid, sections,
 boxes, references and overrides, Ekman stress, density classes and the
 inverse's priors. Unknown keys are errors naming the key and the closest
 valid one.
+
+Every key, with its type, unit, default and an example, is in the user guide:
+docs/configuration.md. The keys the parser accepts are :data:`KEYS` (a test
+checks that the guide lists each of them); old names still read are
+:data:`ALIASES`.
 """
 
 from __future__ import annotations
@@ -349,6 +354,9 @@ TOP_KEYS = KEYS[""]
 
 def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
     """Build and validate a :class:`Config` from a TOML dictionary.
+
+    The format (every key, type, unit, default) is documented in
+    docs/configuration.md.
 
     Parameters
     ----------

@@ -14,7 +14,7 @@ Two layers:
 Everything is drawn on :class:`matplotlib.figure.Figure` objects with an
 explicit Agg canvas, so pyplot's global state is never touched. Saved files
 carry no timestamps or software versions, so rerunning a study writes
-identical files where matplotlib allows.
+identical files where matplotlib allows. Sign conventions: docs/conventions.md.
 """
 
 from __future__ import annotations
