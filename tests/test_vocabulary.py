@@ -163,3 +163,13 @@ def test_ensemble_options_reach_the_perturbation():
     assert (p.temperature, p.salinity, p.pressure, p.mode) == (0.003, 0.004, 2.0, "level")
     assert p.reference_range == (2000.0, 3500.0) and p.prior_factor == (0.5, 2.0)
     assert p.constraints == "twin"
+
+
+def test_csv_only_flags_on_a_netcdf_file_are_an_error(tmp_path, capsys):
+    sec = invented_section(4, dp=10.0, lat0=30.0, bottoms=[800, 1200, 1200, 800])
+    path = write_netcdf(tmp_path / "line.nc", sec)
+    assert main(["check", str(path)]) == 0
+    capsys.readouterr()
+    assert main(["check", "--temperature-kind", "conservative", str(path)]) == 1
+    message = capsys.readouterr().err
+    assert "--temperature-kind applies to CSV files only" in message and "standard_name" in message
