@@ -24,9 +24,11 @@ def run_budget(config_path: Path, out_dir: Path, *, figures: bool = True,
                quiet: bool = False) -> int:
     """Run the whole chain of one configuration and write its outputs."""
     from sectionkit.config import load_config
+    from sectionkit.outdir import check_output_folder
     from sectionkit.report import default_writers, load_provenance, write_outputs
     from sectionkit.study import Study
 
+    check_output_folder(out_dir)  # before any computation
     progress = None if quiet else _progress
     if Path(config_path).suffix.lower() == ".json":
         config = load_provenance(config_path)

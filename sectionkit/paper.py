@@ -33,6 +33,7 @@ import pandas as pd
 from sectionkit.config import SOLVER_DISPLAY
 from sectionkit.geostrophy import ReferenceChoice
 from sectionkit.layers import class_display_name, constraint_display_name, sigma_symbol
+from sectionkit.operator import SALINITY_NAMES
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.tables import tables
 
@@ -49,6 +50,7 @@ FIXED_DECIMALS: dict[str, int] = {
     "deg": 2,
     "dbar": 0,
     "1": 2,
+    "kmol/s": 0,
 }
 #: Most decimals ever quoted (guards against a vanishing error).
 MAX_DECIMALS = 8
@@ -82,6 +84,7 @@ _UNITS: dict[str, tuple[str, str]] = {
     "dbar": ("dbar", "dbar"),
     "kg/m3": (r"kg\,m$^{-3}$", "kg m⁻³"),
     "1": ("", ""),
+    "kmol/s": (r"kmol\,s$^{-1}$", "kmol s⁻¹"),
 }
 
 
@@ -444,6 +447,21 @@ def reference_description(study: Study, results: Results, tex: bool = False) -> 
     return text
 
 
+def _direct_phrase(study: Study, tex: bool) -> str:
+    """How direct velocity profiles entered (empty when none did)."""
+    adcp = study.config.adcp
+    pairs = sum(int(np.isfinite(d.velocity).sum()) for d in study.direct.values())
+    if adcp is None or not pairs:
+        return ""
+    span = (f"{_num(adcp.pressure_range[0])}–{_num(adcp.pressure_range[1])} dbar"
+            if not tex else f"{_num(adcp.pressure_range[0])}--{_num(adcp.pressure_range[1])} dbar")
+    role = ("prior means (standard deviation the stated error "
+            f"{_num(adcp.error)} {_unit('m/s', tex)} and the standard error of the average)"
+            if adcp.use == "prior" else "known reference velocities")
+    return (f"; direct velocity profiles (LADCP/ADCP), rotated into the section normal and "
+            f"averaged over {span}, give {pairs} pairs {role}")
+
+
 def inverse_description(study: Study, results: Results, tex: bool = False) -> str:
     """Sentence on the inverse: solver, constraints, priors, noise, known transports.
 
@@ -497,6 +515,7 @@ def inverse_description(study: Study, results: Results, tex: bool = False) -> st
         text += f"; net transport constrained across {listed}"
     if inv.noise_salt:
         text += f"; salt-anomaly noise {', '.join(_num(x) for x in inv.noise_salt)} Sv g/kg"
+    text += _direct_phrase(study, tex)
     text += ". Errors are one posterior standard deviation."
     return text
 
@@ -631,7 +650,8 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
         body = ("Net inflow into each box (positive in), initial and adjusted, with the "
                 "constraint's a priori noise; the normalized residual is adjusted / noise. "
                 "Values are rounded to the precision of the noise. Salt rows are salt-anomaly "
-                "transports relative to each class's mean salinity.")
+                f"transports of {SALINITY_NAMES[study.config.salt_salinity]} relative to each "
+                "class's mean; a diapycnal transfer carries the mean of its two classes.")
         return _caption(title, body, study, results, tex)
 
     cols = [
@@ -672,9 +692,10 @@ def _summary_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTab
         body = ("Net volume transport and net mass transport divided by ρ₀ = 1025 kg m⁻³; "
                 "heat is the "
                 "potential-enthalpy transport; freshwater is relative to "
-                + ("the section's mean Absolute Salinity"
+                + (f"the section's mean {SALINITY_NAMES[study.config.salt_salinity]}"
                    if study.config.reference_salinity is None
-                   else f"{_num(study.config.reference_salinity)} g kg⁻¹")
+                   else f"{_num(study.config.reference_salinity)} g kg⁻¹ of "
+                   + SALINITY_NAMES[study.config.salt_salinity])
                 + "; overturning is the extreme of the streamfunction accumulated from the "
                 "surface in depth and from the lightest class in density. Section frame: "
                 "positive to the left of increasing station order.")
@@ -763,6 +784,44 @@ def _transfer_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTa
                       empty_note="No diapycnal or Ekman unknowns in this inverse.")
 
 
+def _property_table(study: Study, results: Results) -> PaperTable:
+    """Bottle-tracer transports by class, with each section's total."""
+    title = "Tracer transports by density class across each section."
+
+    def caption(tex: bool) -> str:
+        unit = _unit("kmol/s", tex)
+        body = (f"Transport of each bottle tracer ({unit}): in-situ density times "
+                "concentration (µmol kg⁻¹) times the absolute velocity, integrated over the "
+                "class, through the same operator as volume and salt; bottle profiles are "
+                "PCHIP interpolations between good bottles (WOCE flags 2 and 6; 3, 7 and 8 "
+                "with a caution), extended unchanged above the shallowest and below the "
+                "deepest bottle. Section frame: positive to the left of increasing station "
+                "order.")
+        return _caption(title, body, study, results, tex)
+
+    cols = [
+        Column("Section", "Section", False),
+        Column("Tracer", "Tracer", False),
+        Column("Class", "Class", False),
+        Column(f"Initial ({_unit('kmol/s', True)})", f"Initial ({_unit('kmol/s', False)})"),
+        Column(f"Adjusted ({_unit('kmol/s', True)})", f"Adjusted ({_unit('kmol/s', False)})"),
+    ]
+    rows = []
+    for name, out in results.tracers.items():
+        adjusted = out.value(results.estimate)
+        err = out.std(results.covariance)
+        for k, label in enumerate(out.names):
+            tracer, _, layer = label.partition(":")
+            rows.append([
+                Cell.text(name),
+                Cell.text(tracer),
+                Cell.text("all classes" if layer == "total" else layer),
+                Cell.number(out.initial[k], None, "kmol/s"),
+                Cell.number(adjusted[k], _err(err[k]), "kmol/s"),
+            ])
+    return PaperTable("property_transports", title, caption(True), caption(False), cols, rows)
+
+
 def paper_tables(study: Study, results: Results) -> list[PaperTable]:
     """The four §7 tables, rounded and captioned, in the order of DESIGN.md §7.
 
@@ -777,7 +836,8 @@ def paper_tables(study: Study, results: Results) -> list[PaperTable]:
     -------
     list of PaperTable
         Class transports, pair adjustments, box budget, section summary, and
-        (when an inverse ran) its diapycnal transfers and Ekman adjustments.
+        (when an inverse ran) its diapycnal transfers and Ekman adjustments,
+        and (when tracers are configured) the tracer transports.
     """
     frames = tables(study, results)
     out = [
@@ -789,6 +849,8 @@ def paper_tables(study: Study, results: Results) -> list[PaperTable]:
     out.append(_summary_table(frames["section_summary.csv"], study, results))
     if results.inverse is not None:
         out.append(_transfer_table(frames["inverse_unknowns.csv"], study, results))
+    if results.tracers:
+        out.append(_property_table(study, results))
     return out
 
 

@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from sectionkit.operator import SALINITY_NAMES
 from sectionkit.outputs import REGISTRY
 from sectionkit.study import Results, Study
 
@@ -84,7 +85,8 @@ def pair_table(study: Study, results: Results) -> pd.DataFrame:
 def box_table(results: Results) -> pd.DataFrame:
     """box_budget.csv: one row per box constraint (net inflow, positive in)."""
     inv = results.inverse
-    columns = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual", "unit",
+    columns = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual",
+               "posterior_residual_std", "posterior_normalized_residual", "unit",
                "initial_normalized_residual"]
     if inv is None:
         return pd.DataFrame(columns=columns)
@@ -97,6 +99,8 @@ def box_table(results: Results) -> pd.DataFrame:
         "adjusted": adjusted,
         "noise": sys_.noise,
         "normalized_residual": adjusted / sys_.noise,
+        "posterior_residual_std": inv.posterior_residual_std,
+        "posterior_normalized_residual": inv.posterior_normalized_residuals,
         "unit": sys_.units,
         "initial_normalized_residual": sys_.initial / sys_.noise,
     }, columns=columns)
@@ -111,7 +115,7 @@ def unknowns_table(study: Study, results: Results) -> pd.DataFrame:
     diapycnal transfer crosses (``σ₂ 36.98``; blank for other unknowns).
     """
     columns = ["unknown", "kind", "unit", "prior_std", "estimate", "posterior_std",
-               "resolution", "interface"]
+               "resolution", "interface", "prior_mean"]
     inv = results.inverse
     if inv is None:
         return pd.DataFrame(columns=columns)
@@ -134,6 +138,8 @@ def unknowns_table(study: Study, results: Results) -> pd.DataFrame:
         "posterior_std": np.sqrt(np.maximum(np.diag(inv.covariance), 0.0)),
         "resolution": inv.resolution_diagonal,
         "interface": faces,
+        "prior_mean": (np.zeros(layout.size) if inv.system.prior_mean is None
+                       else inv.system.prior_mean),
     }, columns=columns)
 
 
@@ -150,13 +156,53 @@ def summary_table(study: Study, results: Results) -> pd.DataFrame:
             row[col.replace("_sv", "_err_sv").replace("_pw", "_err_pw")] = results.error(name, key)
         row["net_mass_sv"] = results.value(name, "net_mass")
         row["net_mass_err_sv"] = results.error(name, "net_mass")
+        op = study.operators[name]
+        row["freshwater_ref_salinity"] = (float(op.mean_salinity)
+                                          if study.config.reference_salinity is None
+                                          else study.config.reference_salinity)
+        row["freshwater_ref_kind"] = SALINITY_NAMES[study.config.salt_salinity]
         row["overturning_density_sv"] = results.value(name, "overturning_density")
         row["overturning_density_err_sv"] = results.error(name, "overturning_density")
         rows.append(row)
     order = ["section", "net_sv", "net_err_sv", "heat_pw", "heat_err_pw", "freshwater_sv",
              "freshwater_err_sv", "overturning_sv", "overturning_err_sv", "net_mass_sv",
-             "overturning_density_sv", "overturning_density_err_sv", "net_mass_err_sv"]
+             "overturning_density_sv", "overturning_density_err_sv", "net_mass_err_sv",
+             "freshwater_ref_salinity", "freshwater_ref_kind"]
     return pd.DataFrame(rows)[order]
+
+
+PROPERTY_COLUMNS = ["section", "class", "property", "unit", "initial", "adjusted",
+                    "adjusted_err"]
+
+
+def property_table(study: Study, results: Results) -> pd.DataFrame:
+    """property_transports.csv: heat, salt and every bottle tracer per section x class.
+
+    Heat in PW (potential enthalpy), salt in Sv g/kg (rho SA v / rho0), tracers
+    in kmol s^-1 (rho c v); section frame; without an inverse adjusted equals
+    initial and the error is blank.
+    """
+    rows = []
+    for name, op in study.operators.items():
+        out = results.outputs[name]
+        adjusted = out.value(results.estimate)
+        err = out.std(results.covariance)
+        for prop, unit in (("heat", "PW"), ("salt", "Sv g/kg")):
+            for layer in op.layer_names:
+                k = out.index(f"{prop}:{layer}")
+                rows.append([name, layer, prop, unit, out.initial[k], adjusted[k], err[k]])
+        tracer = results.tracers.get(name)
+        if tracer is None:
+            continue
+        t_adjusted = tracer.value(results.estimate)
+        t_err = tracer.std(results.covariance)
+        for k, label in enumerate(tracer.names):
+            prop, _, layer = label.partition(":")
+            if layer == "total":
+                continue
+            rows.append([name, layer, prop, tracer.units[k], tracer.initial[k], t_adjusted[k],
+                         t_err[k]])
+    return pd.DataFrame(rows, columns=PROPERTY_COLUMNS)
 
 
 def tables(study: Study, results: Results) -> dict[str, pd.DataFrame]:
@@ -167,4 +213,5 @@ def tables(study: Study, results: Results) -> dict[str, pd.DataFrame]:
         "box_budget.csv": box_table(results),
         "section_summary.csv": summary_table(study, results),
         "inverse_unknowns.csv": unknowns_table(study, results),
+        "property_transports.csv": property_table(study, results),
     }

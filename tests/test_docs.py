@@ -1,7 +1,7 @@
 """The user guide in docs/ covers what the program accepts and writes.
 
 The key list comes from the configuration parser's own schema
-(``sectionkit.config.KEYS``, the tables ``parse_config`` checks keys against),
+(``sectionkit.config.SCHEMA``, the typed tables ``parse_config`` checks against),
 the column lists from the tables a run writes: a key or column added without
 documentation fails here.
 """
@@ -15,7 +15,7 @@ import pytest
 from _synthetic import invented_line
 
 from sectionkit import config as config_module
-from sectionkit.config import ALIASES, KEYS, parse_config
+from sectionkit.config import ALIASES, SCHEMA, parse_config
 from sectionkit.errors import ConfigError
 from sectionkit.outputs import SECTION_OUTPUTS
 from sectionkit.study import Study
@@ -38,7 +38,7 @@ def _sections(text: str) -> dict[str, str]:
 def test_every_configuration_key_is_in_the_reference():
     sections = _sections((DOCS / "configuration.md").read_text())
     missing = []
-    for table, keys in KEYS.items():
+    for table, keys in SCHEMA.items():
         body = sections.get(table or "(top)")
         if body is None:
             missing.append(f"section for [{table or 'top level'}]")
@@ -65,11 +65,12 @@ def test_every_old_key_name_is_documented():
                                                     "box": "box"}]}}),
 ])
 def test_the_schema_is_what_the_parser_checks(monkeypatch, table, key, data):
-    # KEYS is not a documentation list kept beside the parser: take a key out of it and the
-    # parser refuses that key
+    # SCHEMA is not a documentation list kept beside the parser: take a key out of it and
+    # the parser refuses that key
     data = {"sections": [{"name": "a", "file": "a.nc"}], **data}
     parse_config(data)
-    monkeypatch.setitem(config_module.KEYS, table, tuple(k for k in KEYS[table] if k != key))
+    monkeypatch.setitem(config_module.SCHEMA, table,
+                        {k: v for k, v in SCHEMA[table].items() if k != key})
     with pytest.raises(ConfigError, match=f"unknown key '{key}'"):
         parse_config(data)
 

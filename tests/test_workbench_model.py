@@ -189,7 +189,8 @@ def test_reference_change_never_recomputes_dynamic_height(state, monkeypatch):
     def refuse(*args, **kwargs):
         raise AssertionError("dynamic height recomputed for a reference change")
 
-    monkeypatch.setattr(sectionkit.operator, "dynamic_height", refuse)
+    # the operator integrates dynamic height in its one equation-of-state pass
+    monkeypatch.setattr(sectionkit.operator, "specific_volume_pass", refuse)
     monkeypatch.setattr(sectionkit.geostrophy, "dynamic_height", refuse)
     operators = dict(state.study.operators)
     state.set_reference_pressure(1200.0)
@@ -221,7 +222,7 @@ def test_new_interfaces_rebuild_and_equal_batch(state, box_dir):
 
 
 def test_interfaces_that_orphan_a_known_transport_are_refused(state, box_dir):
-    with pytest.raises(ConfigError, match="class 'upper' does not exist"):
+    with pytest.raises(ConfigError, match="known transport 'strait' enters the class 'upper'"):
         state.set_interfaces([(26.8, 0.0), (36.95, 2000.0)], names=["light", "mid", "dense"])
     assert state.layer_names == ["upper", "intermediate", "deep"]
     assert_same(state, batch(box_dir, BASE))
@@ -456,7 +457,7 @@ def test_view_slider_moves_the_reference_and_the_table(view, box_dir):
     view.slider.value = 1500.0
     assert view.state.config.reference.pressure == 1500.0
     assert view.class_table.value != before
-    assert view.status.value.endswith(f"drawn ({view.draws})") and "1500 dbar" in view.status.value
+    assert f"drawn ({view.draws})" in view.status.value and "1500 dbar" in view.status.value
     assert_same(view.state, batch(box_dir, settings(reference={"pressure": 1500.0})))
 
 
@@ -476,20 +477,41 @@ def test_view_controls_reach_the_state(view):
     assert view.state.config.ekman_stress["north"] == (0.04, 0.0)
     view.prior_velocity.value = 0.01
     view.noise_total.value = 0.4
+    view.noise_salt["deep"].value = 0.03
     view.inverse_apply.click()  # one change for all inverse settings
-    assert view.state.config.inverse.prior_velocity == 0.01
+    inv = view.state.config.inverse
+    assert inv.prior_velocity == 0.01 and inv.noise_salt == [0.0, 0.0, 0.03]
+    assert [(k.name, k.transport, k.layer) for k in inv.known] == [("strait", 0.5, "upper")]
     view.undo_button.click()
     assert view.state.config.inverse.prior_velocity == 0.02
     assert view.prior_velocity.value == 0.02  # the controls follow an undo
+    assert "undid: inverse" in view.status.value
     view.inverse_on.value = False
     assert view.state.config.inverse is None and view.inverse_box.layout.display == "none"
 
 
-def test_view_shows_a_refusal_instead_of_raising(view):
+def test_view_keeps_a_refused_input_and_shows_why_beside_it(view):
     view.interfaces.value = "27.5 @ 0\n27.0 @ 0"  # not light to dense
     view.interfaces_apply.click()
-    assert view.status.value.startswith("refused:")
-    assert view.interfaces.value == "27.2 @ 0\n36.9 @ 2000"  # the controls show the state
+    error = view.errors["classes"]
+    assert "sk-error" in error._dom_classes and error.layout.display != "none"
+    assert "increase in density" in error.value
+    assert view.interfaces.value == "27.5 @ 0\n27.0 @ 0"  # kept for correction
+    assert "refused" in view.status.value
+    view.interfaces.value = "27.2 @ 0\n36.9 @ 2000"
+    view.interfaces_apply.click()
+    assert error.layout.display == "none"
+
+
+def test_view_ctrl_z_undoes_outside_text_fields(view):
+    view.slider.value = 1500.0
+    view._on_key({"key": "z", "ctrlKey": True, "target": {"tagName": "INPUT"}})
+    assert view.state.config.reference.pressure == 1500.0  # the text field's own undo
+    view._on_key({"key": "z", "ctrlKey": True, "target": {"tagName": "DIV"}})
+    assert view.state.config.reference.pressure == 2000.0
+    view._on_key({"key": "Z", "ctrlKey": True, "shiftKey": True, "target": {"tagName": "DIV"}})
+    assert view.state.config.reference.pressure == 1500.0
+    assert "redid: reference" in view.status.value
 
 
 def test_view_saves_and_exports(view, tmp_path):
@@ -501,4 +523,51 @@ def test_view_saves_and_exports(view, tmp_path):
     view.export_figures.value = False
     view.export_button.click()
     assert (tmp_path / "out" / "class_transports.csv").is_file()
-    assert view.status.value.startswith("exported")
+    assert "exported" in view.status.value
+    assert view.export_progress.value == 1.0
+
+
+# --------------------------------------------------------------- resuming never loses work
+def _session_with_autosave(box_dir, tmp_path, autosave_text: str):
+    session = tmp_path / "box.toml"
+    session.write_text((box_dir / "box.toml").read_text())
+    for name in ("south.nc", "north.nc"):
+        (tmp_path / name).symlink_to(box_dir / name)
+    autosave = tmp_path / "box.autosave.toml"
+    autosave.write_text(autosave_text)
+    return session, autosave
+
+
+def test_unresumable_autosave_opens_the_configuration_and_says_why(box_dir, tmp_path):
+    session, autosave = _session_with_autosave(box_dir, tmp_path, "[grid\ndp = ")
+    state = WorkbenchState.open(session, resume=True)
+    assert state.resumed_from is None
+    assert "could not resume from box.autosave.toml" in state.resume_error
+    assert "opened box.toml" in state.resume_error
+    assert state.config.reference == load_config(session).reference
+
+
+def test_unresumable_autosave_is_kept_as_a_numbered_backup_before_overwriting(box_dir, tmp_path):
+    text = "[grid\ndp = "
+    session, autosave = _session_with_autosave(box_dir, tmp_path, text)
+    (tmp_path / "box.autosave.1.toml").write_text("an older backup")
+    state = WorkbenchState.open(session, resume=True)
+    assert "box.autosave.2.toml" in state.resume_error
+    state.set_reference_pressure(1500.0)  # overwrites the autosave
+    assert state.flush_autosave()
+    assert (tmp_path / "box.autosave.2.toml").read_text() == text
+    assert (tmp_path / "box.autosave.1.toml").read_text() == "an older backup"
+
+
+def test_any_error_while_resuming_is_caught_not_only_sectionkit_errors(box_dir, tmp_path,
+                                                                        monkeypatch):
+    session, autosave = _session_with_autosave(box_dir, tmp_path, "")
+    autosave.write_text(session.read_text())  # a valid autosave; resuming it fails below
+
+    def broken(self, *args, **kwargs):
+        raise ZeroDivisionError("float division by zero")
+
+    monkeypatch.setattr(WorkbenchState, "_apply", broken)
+    resumed = WorkbenchState.open(session, resume=True)
+    assert "ZeroDivisionError: float division by zero" in resumed.resume_error
+    assert (tmp_path / "box.autosave.1.toml").is_file()

@@ -15,6 +15,7 @@ import numpy as np
 import xarray as xr
 
 from sectionkit.errors import Cautions, InputFileError, SectionDataError, where
+from sectionkit.io.classic import check_classic_length
 from sectionkit.io.raw import Profile
 from sectionkit.io.units import (
     check_salinity_units,
@@ -69,6 +70,7 @@ def open_netcdf(path: str) -> xr.Dataset:
     xarray.Dataset
         Decoded (missing values as NaN, scale factors applied), loaded, closed.
     """
+    check_classic_length(path)
     try:
         with xr.open_dataset(path, decode_times=False, decode_timedelta=False) as ds:
             return ds.load()

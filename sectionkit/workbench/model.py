@@ -42,6 +42,8 @@ from sectionkit.budget import SV, UnknownLayout
 from sectionkit.config import (
     Config,
     InverseSpec,
+    KnownTransport,
+    SectionNet,
     _reference_to_toml,
     load_config,
     parse_config,
@@ -49,13 +51,24 @@ from sectionkit.config import (
 )
 from sectionkit.errors import Cautions, ConfigError, SectionkitError
 from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
-from sectionkit.layers import Interface
-from sectionkit.study import Results, Study
+from sectionkit.layers import Interface, check_interfaces
+from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
+from sectionkit.workbench.snapshot import (
+    InverseView,
+    LineDirection,
+    ReferenceSensitivity,
+    class_names_by_bounds,
+    inverse_view,
+    line_direction,
+    map_class_settings,
+    reference_sensitivity,
+)
 
 REFERENCE_MODES = ("pressure", "bottom", "isopycnal")
 LINEAR_SOLVERS = ("gauss-markov", "svd")  # estimate = gain @ data, gain independent of data
 AUTOSAVE_SUFFIX = ".autosave.toml"
 AUTOSAVE_COALESCE = 0.05  # s a change waits for newer ones before the autosave is written
+GESTURE_GAP = 1.0  # s: changes of one control closer than this are one undo step (a drag)
 
 Listener = Callable[["Change"], None]
 
@@ -72,16 +85,20 @@ class Change:
         ``"undo"`` or ``"redo"``.
     description : str
         One line for a status bar, e.g. ``"reference: level of no motion at
-        2000 dbar"``.
+        2000 dbar"``; an undo says ``"undid: <what>"``.
     linear : bool
         True when the class table was updated by the linear reference update
         (the full budget is computed on demand); False when everything was
         recomputed.
+    gesture : str or None
+        The control being dragged when the change is one step of a drag
+        (its steps form one undo step), else None.
     """
 
     kind: str
     description: str
     linear: bool
+    gesture: str | None = None
 
 
 @dataclass(frozen=True)
@@ -146,6 +163,9 @@ class BoxBudget:
         inverse).
     units : tuple of str
         ``"Sv"``, ``"Sv g/kg"`` or ``"PW"`` per row.
+    posterior_std : ndarray (row,) or None
+        Residual std the estimate can achieve, sqrt(diag(N - E P E^T)) in
+        ``units`` (Wunsch 1996, ch. 3); None without an inverse.
     """
 
     rows: tuple[tuple[str, str], ...]
@@ -153,12 +173,21 @@ class BoxBudget:
     adjusted: np.ndarray
     noise: np.ndarray
     units: tuple[str, ...]
+    posterior_std: np.ndarray | None = None
 
     @property
     def normalized_residual(self) -> np.ndarray:
         """Adjusted inflow over its noise, dimensionless (DESIGN.md §7)."""
         with np.errstate(invalid="ignore", divide="ignore"):
             return self.adjusted / self.noise
+
+    @property
+    def posterior_normalized_residual(self) -> np.ndarray:
+        """Adjusted inflow over its posterior residual std (NaN without an inverse)."""
+        if self.posterior_std is None:
+            return np.full(len(self.rows), np.nan)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(self.posterior_std > 0, self.adjusted / self.posterior_std, np.nan)
 
     def to_frame(self) -> pd.DataFrame:
         """One row per constraint, the columns of box_budget.csv."""
@@ -169,6 +198,9 @@ class BoxBudget:
             "adjusted": self.adjusted,
             "noise": self.noise,
             "normalized_residual": self.normalized_residual,
+            "posterior_residual_std": (np.full(len(self.rows), np.nan)
+                                       if self.posterior_std is None else self.posterior_std),
+            "posterior_normalized_residual": self.posterior_normalized_residual,
             "unit": list(self.units),
         })
 
@@ -200,6 +232,9 @@ class VelocitySection:
         The global reference in words.
     adjusted : bool
         Whether inverse adjustments are included.
+    interface_pressure : tuple of (str, ndarray (pair,))
+        Each interface's label and the pressure where each pair's density
+        first reaches it (dbar, NaN where it does not).
     """
 
     section: str
@@ -211,6 +246,7 @@ class VelocitySection:
     interfaces: tuple[tuple[str, np.ndarray, float], ...]
     reference: str
     adjusted: bool
+    interface_pressure: tuple[tuple[str, np.ndarray], ...] = ()
 
     @property
     def pair_distance(self) -> np.ndarray:
@@ -264,6 +300,27 @@ def _solve_key(cfg: Config) -> str:
     ref = d.pop("reference")
     return repr((d, ref.get("bottom_triangle"), ref.get("allow_equator"),
                  _reference_error_key(cfg), _operator_key(cfg)))
+
+
+def keep_backup(path: Path) -> Path:
+    """Copy a file to the first free numbered backup beside it (``x.autosave.1.toml``, ...).
+
+    Parameters
+    ----------
+    path : Path
+        The file (an autosave that could not be resumed).
+
+    Returns
+    -------
+    Path
+        The backup written.
+    """
+    stem = path.name.removesuffix(".toml")
+    n = 1
+    while (backup := path.with_name(f"{stem}.{n}.toml")).exists():
+        n += 1
+    backup.write_bytes(path.read_bytes())
+    return backup
 
 
 def _portable(cfg: Config, folder: Path) -> Config:
@@ -338,8 +395,11 @@ class WorkbenchState:
             self.autosave_path = None
         self._writer = _AutosaveWriter(self.autosave_path) if self.autosave_path else None
         self._listeners: list[Listener] = []
-        self._undo: list[Config] = []
-        self._redo: list[Config] = []
+        self._undo: list[tuple[Config, str]] = []  # (configuration before, what changed)
+        self._redo: list[tuple[Config, str]] = []
+        self._gesture: str | None = None
+        self._gesture_time = 0.0
+        self.clock: Callable[[], float] = time.monotonic
         self._stashed_inverse: InverseSpec | None = None
         self.resumed_from: Path | None = None
         self.resume_error: str | None = None
@@ -347,6 +407,7 @@ class WorkbenchState:
         self.study = study if study is not None else Study.from_config(config, sections=sections)
         self.study.config = config
         self._config = config
+        self._reviewed: set[str] = set(config.layer_names)
         self._full: Results | None = None
         self._base: Results | None = None
         self._base_key = ""
@@ -381,11 +442,19 @@ class WorkbenchState:
         state = cls(config, session=path, autosave=autosave)
         previous = state.autosave_path or path.with_name(path.stem + AUTOSAVE_SUFFIX)
         if resume and previous.is_file():
+            sections = dict(state.study.sections)
             try:
                 state.load(previous, record=False, kind="load")
                 state.resumed_from = previous
-            except SectionkitError as exc:
-                state.resume_error = f"could not resume from {previous}: {exc}"
+            except Exception as exc:  # any failure: the work must not be lost, nor the session
+                kept = keep_backup(previous)
+                reason = str(exc) if isinstance(exc, SectionkitError) else (
+                    f"{type(exc).__name__}: {exc}")
+                # a failed load may have been part-way: start again from the configuration
+                state = cls(config, sections, session=path, autosave=autosave)
+                state.resume_error = (
+                    f"could not resume from {previous.name} ({reason}); opened {path.name} "
+                    f"instead, and kept the autosave as {kept.name}")
         return state
 
     # ------------------------------------------------------------ listeners
@@ -483,7 +552,51 @@ class WorkbenchState:
         """Net, heat, freshwater and overturning of each section with errors (section_summary)."""
         from sectionkit.tables import summary_table
 
-        return summary_table(self.study, self.results)
+        table = summary_table(self.study, self.results)
+        hot = table["net_mass_sv"].abs() > NET_MASS_HEAT_TOLERANCE
+        table["heat_kind"] = np.where(hot, "temperature transport", "heat transport")
+        return table
+
+    def direction(self, section: str) -> LineDirection:
+        """What positive transport means for a line ("northward across S01→S47", boxes)."""
+        return line_direction(self.study, self._config, section)
+
+    def reference_sensitivity(self) -> ReferenceSensitivity:
+        """Class transports (no inverse) for a global level of no motion at every pressure."""
+        key = (self._key, repr(sorted(self._config.overrides.items())))
+        cache = getattr(self, "_sensitivity_cache", None)
+        if cache is None or cache[0] != key:
+            ekman = self._base.ekman if self._base is not None else self.study.ekman()
+            cache = (key, reference_sensitivity(self.study, ekman, self._snap.offsets))
+            self._sensitivity_cache = cache
+        return dataclasses.replace(cache[1], current=self._current_pressure())
+
+    def _current_pressure(self) -> float | None:
+        ref = self._config.reference
+        return float(ref.pressure) if ref.kind == "pressure" and ref.pressure is not None else None
+
+    def inverse_view(self) -> InverseView | None:
+        """The inverse's adjustments, transfers, singular values and residuals (None if off)."""
+        return inverse_view(self.study, self.results)
+
+    def rank_used(self) -> int | None:
+        """Singular values the truncated SVD kept (None for the other solvers or no inverse)."""
+        base = self._base
+        if base is None or base.inverse is None:
+            return None
+        rank = getattr(base.inverse.solver, "rank", None)
+        return None if rank is None else int(rank)
+
+    @property
+    def flagged_classes(self) -> list[str]:
+        """Classes whose inverse settings are defaults given by a change of classes.
+
+        A class is flagged when a change of interfaces created it; editing
+        the per-class settings (or loading a file) clears the flags.
+        """
+        if self._config.inverse is None and self._stashed_inverse is None:
+            return []
+        return [n for n in self._config.layer_names if n not in self._reviewed]
 
     def velocity_section(self, section: str) -> VelocitySection:
         """Absolute velocity of a section for the current references and adjustments."""
@@ -498,6 +611,14 @@ class WorkbenchState:
             (face.label(), op.sigma_pair[face.p_ref], float(face.sigma))
             for face in self._config.interfaces
         )
+        cache = getattr(self, "_interface_cache", {})
+        if cache.get(section, (None,))[0] is not op:
+            from sectionkit.figures import interface_field, interface_pressure
+
+            cache[section] = (op, tuple(
+                (label, interface_pressure(interface_field(field), op.pressure, value))
+                for label, field, value in faces))
+            self._interface_cache = cache
         return VelocitySection(
             section=section,
             station_distance=distance,
@@ -508,7 +629,13 @@ class WorkbenchState:
             interfaces=faces,
             reference=self._config.reference.describe(),
             adjusted=snap.estimate is not None,
+            interface_pressure=cache[section][1],
         )
+
+    def station_positions(self, section: str) -> tuple[np.ndarray, np.ndarray]:
+        """Longitude and latitude of each station, degrees."""
+        ds = self.study.sections[section]
+        return ds["lon"].values.astype(float), ds["lat"].values.astype(float)
 
     def describe_reference(self, label: str | None = None) -> str:
         """The global reference (or one pair's) in words."""
@@ -520,7 +647,8 @@ class WorkbenchState:
         return dict(self._config.overrides)
 
     # ------------------------------------------------------------ controls: reference
-    def set_reference(self, choice: ReferenceChoice | float | str | dict) -> Change:
+    def set_reference(self, choice: ReferenceChoice | float | str | dict, *,
+                      gesture: str | None = None) -> Change:
         """Set the global reference of every pair without an override.
 
         Parameters
@@ -529,15 +657,31 @@ class WorkbenchState:
             A reference, a pressure (dbar), ``"bottom"`` (deepest common
             level) or the TOML table form (``{sigma, p_ref}`` or
             ``{velocity, pressure, error}``).
+        gesture : str, optional
+            Name of a control being dragged: consecutive changes of the
+            same gesture less than ``GESTURE_GAP`` apart are one undo step.
         """
         ref = _as_reference(choice, "global reference")
         return self._change_reference(f"reference: {ref.describe()}",
                                       dataclasses.replace(self._config, reference=ref),
-                                      global_only=True)
+                                      global_only=True, gesture=gesture)
 
-    def set_reference_pressure(self, pressure: float) -> Change:
-        """Level of no motion at ``pressure`` dbar (the deepest common level where shallower)."""
-        return self.set_reference(ReferenceChoice("pressure", pressure=float(pressure)))
+    def set_reference_pressure(self, pressure: float, *, gesture: str | None = None) -> Change:
+        """Level of no motion at ``pressure`` dbar (the deepest common level where shallower).
+
+        Parameters
+        ----------
+        pressure : float
+            dbar.
+        gesture : str, optional
+            As for :meth:`set_reference` (a dragged slider passes its name).
+        """
+        return self.set_reference(ReferenceChoice("pressure", pressure=float(pressure)),
+                                  gesture=gesture)
+
+    def end_gesture(self) -> None:
+        """End a drag: the next change is a new undo step even if it comes at once."""
+        self._gesture = None
 
     def set_reference_bottom(self) -> Change:
         """Level of no motion at each pair's deepest common level."""
@@ -649,21 +793,35 @@ class WorkbenchState:
 
         Notes
         -----
-        When the number of classes changes, per-class noise settings of the
-        inverse return to their defaults.
+        Nothing changes silently: per-class settings of the inverse (mass,
+        salt and heat noise, known transports) follow their class by name.
+        Without names, a class bounded by the same interfaces as before keeps
+        its name. New classes get the default settings and are listed in
+        :attr:`flagged_classes` until their settings are edited.
         """
         faces = [_as_interface(f, n) for n, f in enumerate(interfaces)]
+        check_interfaces(faces, None)  # light to dense, before any naming
         n_class = len(faces) + 1
+        old_names = list(self._config.layer_names)
         if names is None:
-            names = (self._config.layer_names if len(self._config.layer_names) == n_class
-                     else [f"class_{i}" for i in range(n_class)])
-        inverse = self._config.inverse
-        if inverse is not None and len(self._config.layer_names) != n_class:
-            inverse = dataclasses.replace(inverse, noise_layer=[], noise_salt=[], noise_heat=[])
-        text = ", ".join(f.label() for f in faces) or "none"
-        return self._change("classes", f"interfaces: {text}",
-                            dataclasses.replace(self._config, interfaces=faces,
-                                                layer_names=list(names), inverse=inverse))
+            names = class_names_by_bounds(self._config.interfaces, old_names, faces)
+        names = [str(n) for n in names]
+        if len(names) != n_class:
+            raise ConfigError(f"{len(faces)} interfaces make {n_class} classes; "
+                              f"{len(names)} names were given ({', '.join(names)})")
+        if len(set(names)) != len(names):
+            raise ConfigError(f"class names must differ; got {', '.join(names)}")
+        inverse = map_class_settings(self._config.inverse, old_names, names)
+        stashed = map_class_settings(self._stashed_inverse, old_names, names)
+        new = [n for n in names if n not in old_names]
+        text = "interfaces: " + (", ".join(f.label() for f in faces) or "none")
+        if new and (inverse is not None or stashed is not None):
+            text += f"; new class(es) {', '.join(new)} with default inverse settings"
+        change = self._change("classes", text,
+                              dataclasses.replace(self._config, interfaces=faces,
+                                                  layer_names=names, inverse=inverse))
+        self._stashed_inverse = stashed
+        return change
 
     def set_ekman_depth(self, depth: float) -> Change:
         """Depth of the Ekman layer, m (rebuilds the operators)."""
@@ -802,6 +960,11 @@ class WorkbenchState:
         prior_ekman: float | None = None,
         noise_total: float | None = None,
         noise_layer: Sequence[float] | None = None,
+        noise_salt: Sequence[float] | None = None,
+        noise_heat: Sequence[float] | None = None,
+        known: Sequence[dict | KnownTransport] | None = None,
+        section_net: Sequence[dict | SectionNet] | None = None,
+        bounds: dict[str, Sequence[float]] | None = None,
     ) -> Change:
         """Several inverse settings as one change (None keeps a value).
 
@@ -823,6 +986,21 @@ class WorkbenchState:
             Noise of the total mass row, Sv.
         noise_layer : sequence of float, optional
             Noise of each class's mass row, Sv.
+        noise_salt, noise_heat : sequence of float, optional
+            Noise of each class's salt (Sv g/kg) and heat (PW) row; 0 for a
+            class (or an empty list) keeps the automatic value.
+        known : sequence of dict or KnownTransport, optional
+            Transports entering a box elsewhere: ``{name, transport, noise,
+            layer (or class), box}``, Sv.
+        section_net : sequence of dict or SectionNet, optional
+            Net-transport constraints ``{section, transport, noise}``, Sv.
+        bounds : dict of str -> (float, float), optional
+            Lower and upper bound of a pair's adjustment (bounded solver), m s^-1.
+
+        Notes
+        -----
+        Setting any per-class value marks every class as reviewed (clears
+        :attr:`flagged_classes`).
         """
         given = {
             "solver": None if solver is None else str(solver),
@@ -833,12 +1011,22 @@ class WorkbenchState:
             "prior_ekman": None if prior_ekman is None else float(prior_ekman),
             "noise_total": None if noise_total is None else float(noise_total),
             "noise_layer": None if noise_layer is None else [float(v) for v in noise_layer],
+            "noise_salt": None if noise_salt is None else [float(v) for v in noise_salt],
+            "noise_heat": None if noise_heat is None else [float(v) for v in noise_heat],
+            "known": None if known is None else [_as_known(k) for k in known],
+            "section_net": None if section_net is None else [_as_net(n) for n in section_net],
+            "bounds": None if bounds is None else {str(k): [float(v) for v in b]
+                                                   for k, b in bounds.items()},
         }
         inv = self._config.inverse
         changes = {k: v for k, v in given.items()
                    if v is not None and (inv is None or getattr(inv, k) != v)}
-        text = ", ".join(f"{k} = {v}" for k, v in changes.items()) or "unchanged"
-        return self._set_inverse(f"inverse: {text}", **changes)
+        text = ", ".join(_setting_text(k, v) for k, v in changes.items()) or "unchanged"
+        change = self._set_inverse(f"inverse: {text}", **changes)
+        if any(given[k] is not None for k in ("noise_layer", "noise_salt", "noise_heat",
+                                              "known")):
+            self._reviewed |= set(self._config.layer_names)
+        return change
 
     def _set_inverse(self, text: str, **changes: Any) -> Change:
         if self._config.inverse is None:
@@ -861,13 +1049,15 @@ class WorkbenchState:
         """Return to the configuration before the last change."""
         if not self._undo:
             raise ConfigError("nothing to undo")
-        return self._apply(self._undo[-1], "undo", "undo", history="undo")
+        config, text = self._undo[-1]
+        return self._apply(config, "undo", f"undid: {text}", history="undo")
 
     def redo(self) -> Change:
         """Apply the last undone change again."""
         if not self._redo:
             raise ConfigError("nothing to redo")
-        return self._apply(self._redo[-1], "redo", "redo", history="redo")
+        config, text = self._redo[-1]
+        return self._apply(config, "redo", f"redid: {text}", history="redo")
 
     # ------------------------------------------------------------ files
     def save(self, path: str | Path) -> Path:
@@ -893,10 +1083,13 @@ class WorkbenchState:
             Record the change for undo.
         """
         config = self._validated(load_config(path))
-        return self._apply(config, kind, f"loaded {Path(path).name}",
-                           history="new" if record else None)
+        change = self._apply(config, kind, f"loaded {Path(path).name}",
+                             history="new" if record else None)
+        self._reviewed = set(config.layer_names)
+        return change
 
-    def export(self, folder: str | Path, *, figures: bool = True) -> list[Path]:
+    def export(self, folder: str | Path, *, figures: bool = True,
+               progress: Callable[[int, int, str], None] | None = None) -> list[Path]:
         """Write the batch outputs of the current state, as ``sectionkit budget`` would.
 
         The same writers as the command line (CSV tables, paper tables,
@@ -909,15 +1102,63 @@ class WorkbenchState:
             Output folder (written atomically).
         figures : bool
             Write the figures too (False is ``sectionkit budget --no-figures``).
+        progress : callable, optional
+            ``progress(done, total, what)`` before each step and at the end.
 
         Returns
         -------
         list of Path
             Files written, relative to ``folder``.
         """
+        return self.prepare_export(folder, figures=figures)(progress)
+
+    def prepare_export(self, folder: str | Path, *, figures: bool = True
+                       ) -> Callable[[Callable[[int, int, str], None] | None], list[Path]]:
+        """The export of the current state as a function to run later, e.g. on a thread.
+
+        The full results are computed here (on the caller's thread); the
+        returned ``run(progress)`` only writes files from the study and
+        results of this moment, which later changes replace but never modify.
+
+        Parameters
+        ----------
+        folder : str or Path
+            Output folder (written atomically).
+        figures : bool
+            Write the figures too.
+        """
         from sectionkit.report import default_writers, write_outputs
 
-        return write_outputs(self.study, self.results, folder, default_writers(figures))
+        study = dataclasses.replace(self.study, config=self._config,
+                                    operators=dict(self.study.operators),
+                                    sections=dict(self.study.sections))
+        results = self.results
+        writers = default_writers(figures)
+        names = {"write_paper_tables": "paper tables", "write_figures": "figures"}
+
+        def run(progress: Callable[[int, int, str], None] | None = None) -> list[Path]:
+            total = len(writers) + 1
+            step = [0]
+
+            def tell(what: str) -> None:
+                if progress is not None:
+                    progress(step[0], total, what)
+                step[0] += 1
+
+            def announced(writer: Callable, what: str) -> Callable:
+                def write(study_: Study, results_: Results, where: Path) -> None:
+                    tell(what)
+                    writer(study_, results_, where)
+                return write
+
+            tell("tables")
+            written = write_outputs(study, results, folder, [
+                announced(w, names.get(getattr(w, "__name__", ""), "files")) for w in writers])
+            if progress is not None:
+                progress(total, total, "done")
+            return written
+
+        return run
 
     # ------------------------------------------------------------ machinery
     def _check_label(self, label: str) -> None:
@@ -934,7 +1175,8 @@ class WorkbenchState:
     def _change(self, kind: str, text: str, candidate: Config) -> Change:
         return self._apply(self._validated(candidate), kind, text, history="new")
 
-    def _change_reference(self, text: str, candidate: Config, global_only: bool = False) -> Change:
+    def _change_reference(self, text: str, candidate: Config, global_only: bool = False,
+                          gesture: str | None = None) -> Change:
         """A change of references only: operators, Ekman and inverse settings are untouched.
 
         ``candidate`` shares everything but its references with the current
@@ -944,13 +1186,15 @@ class WorkbenchState:
         unchanged).
         """
         return self._apply(candidate, "reference", text, history="new", references_only=True,
-                           global_only=global_only)
+                           global_only=global_only, gesture=gesture)
 
     def _apply(self, new: Config, kind: str, text: str, *, history: str | None,
-               references_only: bool = False, global_only: bool = False) -> Change:
+               references_only: bool = False, global_only: bool = False,
+               gesture: str | None = None) -> Change:
         """Make the validated configuration ``new`` current, recomputing what depends on it.
 
-        ``history`` is "new" (record for undo), "undo", "redo" or None.
+        ``history`` is "new" (record for undo), "undo", "redo" or None;
+        ``gesture`` names a dragged control (see :meth:`set_reference`).
         """
         old = self._config
         old_study = self.study
@@ -979,17 +1223,23 @@ class WorkbenchState:
                 self.study.rebuild_operators()
             raise
         self._key = key
+        now = self.clock()
+        continued = (gesture is not None and gesture == self._gesture and bool(self._undo)
+                     and now - self._gesture_time <= GESTURE_GAP)
         if history == "new":
-            self._undo.append(old)
+            if continued:  # one more step of a drag: the drag is one undo step
+                self._undo[-1] = (self._undo[-1][0], text)
+            else:
+                self._undo.append((old, text))
             self._redo.clear()
         elif history == "undo":
-            self._undo.pop()
-            self._redo.append(old)
+            self._redo.append((old, self._undo.pop()[1]))
         elif history == "redo":
-            self._redo.pop()
-            self._undo.append(old)
+            self._undo.append((old, self._redo.pop()[1]))
+        self._gesture = gesture if history == "new" else None
+        self._gesture_time = now
         self._autosave()
-        change = Change(kind, text, linear)
+        change = Change(kind, text, linear, gesture)
         for listener in list(self._listeners):
             listener(change)
         return change
@@ -1042,7 +1292,8 @@ class WorkbenchState:
         if results.inverse is not None:
             sys_ = results.inverse.system
             box = BoxBudget(tuple(sys_.rows), sys_.initial.copy(), results.inverse.adjusted,
-                            sys_.noise.copy(), tuple(sys_.units))
+                            sys_.noise.copy(), tuple(sys_.units),
+                            results.inverse.posterior_residual_std)
         else:
             mass = {n: results.outputs[n].value(None)[
                 [results.outputs[n].index(f"mass:{layer}") for layer in layers]]
@@ -1086,14 +1337,24 @@ class WorkbenchState:
         return cache[1][name]
 
     def _mass_box(self, mass: dict[str, np.ndarray], layers: tuple[str, ...]) -> BoxBudget:
-        """Net mass inflow of each box by class, without an inverse (Sv)."""
+        """Net mass inflow of each box by class, without an inverse (Sv).
+
+        Known transports entering a box elsewhere count here as in the
+        inverse's constraints, so the initial budget is the same with the
+        inverse on or off.
+        """
         rows, values = [], []
+        inverse = self._config.inverse or self._stashed_inverse
+        known = inverse.known if inverse is not None else []
         for box in self._config.effective_boxes():
             inflow = np.zeros(len(layers))
             for name in box.enters:
                 inflow = inflow + mass[name]
             for name in box.leaves:
                 inflow = inflow - mass[name]
+            for kt in known:  # counted as the inverse counts them (inverse.assemble)
+                if (kt.box or box.name) == box.name and kt.layer in layers:
+                    inflow[layers.index(kt.layer)] += kt.transport
             for i, layer in enumerate(layers):
                 rows.append((box.name, f"mass:{layer}"))
                 values.append(inflow[i])
@@ -1139,8 +1400,10 @@ class WorkbenchState:
             active = system.prior > 0
             x = np.zeros(layout.size)
             x[active] = base.inverse.solver.gain @ (-initial_rows)
+            # the posterior covariance does not depend on the data: same residual std
             box = BoxBudget(tuple(system.rows), initial_rows, initial_rows + system.matrix @ x,
-                            system.noise.copy(), tuple(system.units))
+                            system.noise.copy(), tuple(system.units),
+                            base.inverse.posterior_residual_std)
         initial = np.zeros((len(sections), len(layers)))
         adjusted = np.zeros_like(initial)
         mass = {}
@@ -1267,6 +1530,45 @@ def _as_reference(choice: ReferenceChoice | float | str | dict, where: str) -> R
     if isinstance(choice, ReferenceChoice):
         choice = _reference_to_toml(choice)
     return parse_reference(choice, where)
+
+
+def _as_known(item: dict | KnownTransport) -> KnownTransport:
+    """A known transport from its TOML table form (``class`` or ``layer`` names its class)."""
+    if isinstance(item, KnownTransport):
+        return item
+    item = dict(item)
+    if "class" in item:
+        item["layer"] = item.pop("class")
+    unknown = set(item) - {"name", "transport", "noise", "layer", "box"}
+    if unknown:
+        raise ConfigError(f"known transport: unknown key(s) {', '.join(sorted(unknown))}; use "
+                          "name, transport (Sv), noise (Sv), class, box")
+    return KnownTransport(name=str(item.get("name", "known")), transport=item.get("transport"),
+                          noise=item.get("noise"), layer=str(item.get("layer", "")),
+                          box=item.get("box"))
+
+
+def _as_net(item: dict | SectionNet) -> SectionNet:
+    """A net-transport constraint from its TOML table form."""
+    if isinstance(item, SectionNet):
+        return item
+    unknown = set(item) - {"section", "transport", "noise"}
+    if unknown:
+        raise ConfigError(f"section net transport: unknown key(s) {', '.join(sorted(unknown))}; "
+                          "use section, transport (Sv), noise (Sv)")
+    return SectionNet(section=str(item.get("section", "")), transport=item.get("transport"),
+                      noise=item.get("noise"))
+
+
+def _setting_text(key: str, value: Any) -> str:
+    """One inverse setting for the status line."""
+    if key == "known":
+        return "known: " + (", ".join(f"{k.name} {k.transport:g}±{k.noise:g} Sv ({k.layer})"
+                                      for k in value) or "none")
+    if key == "section_net":
+        return "net: " + (", ".join(f"{n.section} {n.transport:g}±{n.noise:g} Sv"
+                                    for n in value) or "none")
+    return f"{key} = {value}"
 
 
 def _as_interface(face: Interface | tuple[float, float] | dict, n: int) -> Interface:

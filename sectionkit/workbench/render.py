@@ -1,23 +1,23 @@
-"""Drawing the workbench's outputs: PNG figures and HTML tables from the state's value objects.
+"""The workbench's tables as HTML, and its colour scale: no widgets, no physics.
 
-Pure functions with no widgets and no physics: each takes what
+Pure functions: each takes what
 :class:`~sectionkit.workbench.model.WorkbenchState` hands out (a
-:class:`VelocitySection`, a :class:`ClassTransports`, a :class:`BoxBudget`,
-a section summary table, caution texts) and returns PNG bytes or an HTML
-string. Figures are drawn on a bare matplotlib ``Figure`` with the Agg
-canvas (no pyplot state), so they work in any kernel and thread.
+:class:`ClassTransports`, a :class:`BoxBudget`, a section summary table, the
+inverse's view, caution texts) and returns an HTML string. The interactive
+figures are drawn by :mod:`sectionkit.workbench.plots`.
 """
 
 from __future__ import annotations
 
 import html
-import io
 import math
+from collections.abc import Mapping
 
 import numpy as np
 import pandas as pd
 
-from sectionkit.workbench.model import BoxBudget, ClassTransports, VelocitySection
+from sectionkit.workbench.model import BoxBudget, ClassTransports
+from sectionkit.workbench.snapshot import InverseView, LineDirection
 
 TABLE_STYLE = (
     "border-collapse:collapse;font-size:12px;font-variant-numeric:tabular-nums;"
@@ -26,7 +26,8 @@ TABLE_STYLE = (
 CELL = "padding:1px 8px;border-bottom:1px solid #ddd;"
 NUM = CELL + "text-align:right;white-space:nowrap;"
 HEAD = "padding:2px 8px;border-bottom:2px solid #888;text-align:left;font-weight:600;"
-MAX_ROWS = 400  # pressure levels drawn in a velocity section
+SCALE_PERCENTILE = 97.0  # the colour scale spans this percentile of |velocity|
+MIN_SCALE = 0.5  # cm s^-1: the smallest colour-scale limit
 LARGE_RESIDUAL = 2.0  # |adjusted / noise| above which a constraint row is flagged
 
 
@@ -40,89 +41,10 @@ def _pm(value: float, error: float, digits: int = 2) -> str:
     return f"{_fmt(value, digits)} ± {error:.{digits}f}"
 
 
-# ---------------------------------------------------------------- figure
-def velocity_png(
-    section: VelocitySection,
-    *,
-    selected_pair: int | None = None,
-    size: tuple[float, float] = (8.0, 3.9),
-    dpi: int = 90,
-) -> bytes:
-    """The velocity section as a PNG image.
-
-    Pair x pressure cells coloured by velocity (diverging colormap centred
-    on zero), class interfaces as contours, each pair's reference level
-    marked, the sea floor shaded, and the selected pair outlined.
-
-    Parameters
-    ----------
-    section : VelocitySection
-        What to draw (velocity in m s^-1, shown in cm s^-1).
-    selected_pair : int, optional
-        Index of a pair to outline.
-    size : (float, float)
-        Figure size, inches.
-    dpi : int
-        Resolution, dots per inch.
-
-    Returns
-    -------
-    bytes
-        PNG image.
-    """
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=size, dpi=dpi)
-    FigureCanvasAgg(fig)
-    fig.subplots_adjust(left=0.09, right=0.99, bottom=0.13, top=0.92)
-    ax = fig.add_subplot()
-    xs = section.station_distance
-    xp = section.pair_distance
-    # a figure a few hundred pixels high needs no more than MAX_ROWS levels
-    stride = max(1, int(np.ceil(section.pressure.size / MAX_ROWS)))
-    p = section.pressure[::stride]
-    dp = float(p[1] - p[0]) if p.size > 1 else 1.0
-    p_edges = np.concatenate([[p[0]], 0.5 * (p[:-1] + p[1:]), [p[-1] + 0.5 * dp]])
-    v = section.velocity[:, ::stride] * 100.0  # cm s^-1
-    finite = np.abs(v[np.isfinite(v)])
-    limit = float(np.percentile(finite, 97)) if finite.size else 1.0
-    limit = max(limit, 0.5)
-    mesh = ax.pcolormesh(xs, p_edges, np.ma.masked_invalid(v.T), cmap="RdBu_r",
-                         vmin=-limit, vmax=limit, shading="flat", rasterized=True)
-    bar = fig.colorbar(mesh, ax=ax, pad=0.01, extend="both")
-    bar.set_label("velocity (cm s$^{-1}$), + to the left")
-    if xp.size >= 2:
-        for label, sigma, value in section.interfaces:
-            field = np.ma.masked_invalid(sigma[:, ::stride].T)
-            if field.count() == 0 or not (field.min() < value < field.max()):
-                continue
-            cs = ax.contour(xp, p, field, levels=[value], colors="k", linewidths=0.9)
-            ax.clabel(cs, fmt={value: label}, fontsize=7, inline=True)
-    ax.plot(xp, section.reference_pressure, ls="none", marker="o", ms=3.5, mfc="gold",
-            mec="k", mew=0.5, label="reference level", zorder=5)
-    bottom_limit = float(np.nanmax(section.bottom_pressure)) * 1.03
-    ax.fill_between(xs, section.bottom_pressure, bottom_limit, color="0.45", zorder=4,
-                    label="sea floor")
-    if selected_pair is not None and 0 <= selected_pair < xp.size:
-        ax.axvspan(xs[selected_pair], xs[selected_pair + 1], fill=False, edgecolor="#d0a",
-                   lw=1.4, zorder=6, label="selected pair")
-    ax.set_xlim(xs[0], xs[-1])
-    ax.set_ylim(bottom_limit, 0.0)
-    ax.set_xlabel("distance along the line (km)")
-    ax.set_ylabel("pressure (dbar)")
-    title = f"{section.section}: {section.reference}"
-    if section.adjusted:
-        title += ", with the inverse's adjustments"
-    ax.set_title(title, fontsize=10)
-    ax.legend(loc="lower left", fontsize=7, framealpha=0.85)
-    buffer = io.BytesIO()
-    fig.savefig(buffer, format="png")
-    return buffer.getvalue()
-
-
 # ---------------------------------------------------------------- tables
-def class_table_html(table: ClassTransports) -> str:
+def class_table_html(table: ClassTransports,
+                     directions: Mapping[str, LineDirection] | None = None,
+                     flagged: list[str] | None = None) -> str:
     """Class transports of every section, before and after the inverse, with errors.
 
     Parameters
@@ -130,12 +52,18 @@ def class_table_html(table: ClassTransports) -> str:
     table : ClassTransports
         Transports in Sv (section frame: positive to the left of increasing
         station order).
+    directions : mapping of str -> LineDirection, optional
+        What positive means for each line, written under its name.
+    flagged : list of str, optional
+        Classes whose inverse settings are new defaults (marked "new").
 
     Returns
     -------
     str
         An HTML table.
     """
+    directions = directions or {}
+    flagged = flagged or []
     after = "after inverse (Sv)" if table.inverse else "after (no inverse)"
     rows = [
         f"<table style='{TABLE_STYLE}'><tr><th style='{HEAD}'>section</th>"
@@ -143,13 +71,18 @@ def class_table_html(table: ClassTransports) -> str:
         f"<th style='{HEAD}'>{after}</th><th style='{HEAD}'>change (Sv)</th></tr>"
     ]
     for s, section in enumerate(table.sections):
+        d = directions.get(section)
+        sign = (f"<br><span class='sk-direction' style='font-size:11px;color:#555'>"
+                f"{html.escape(d.describe())}</span>" if d is not None else "")
+        rows.append(f"<tr><td style='{CELL}' colspan='5'><b>{html.escape(section)}</b>"
+                    f"{sign}</td></tr>")
         for i, layer in enumerate(table.layers):
-            first = (f"<td style='{CELL}' rowspan='{len(table.layers) + 1}'>"
-                     f"<b>{html.escape(section)}</b></td>" if i == 0 else "")
             initial = float(table.initial[s, i])
             adjusted = float(table.adjusted[s, i])
+            mark = (" <span class='sk-flag' style='color:#b35900' title='new class: inverse "
+                    "settings are defaults'>new</span>" if layer in flagged else "")
             rows.append(
-                f"<tr>{first}<td style='{CELL}'>{html.escape(layer)}</td>"
+                f"<tr><td style='{CELL}'></td><td style='{CELL}'>{html.escape(layer)}{mark}</td>"
                 f"<td style='{NUM}'>{_fmt(initial)}</td>"
                 f"<td style='{NUM}'>{_pm(adjusted, float(table.error[s, i]))}</td>"
                 f"<td style='{NUM}'>{_fmt(adjusted - initial)}</td></tr>"
@@ -157,7 +90,8 @@ def class_table_html(table: ClassTransports) -> str:
         total0 = float(table.initial[s].sum())
         total1 = float(table.adjusted[s].sum())
         rows.append(
-            f"<tr><td style='{CELL}'><i>sum</i></td><td style='{NUM}'><i>{_fmt(total0)}</i></td>"
+            f"<tr><td style='{CELL}'></td><td style='{CELL}'><i>sum</i></td>"
+            f"<td style='{NUM}'><i>{_fmt(total0)}</i></td>"
             f"<td style='{NUM}'><i>{_fmt(total1)}</i></td>"
             f"<td style='{NUM}'><i>{_fmt(total1 - total0)}</i></td></tr>"
         )
@@ -180,10 +114,13 @@ def box_budget_html(budget: BoxBudget, inverse: bool) -> str:
     str
         An HTML table; rows with ``|residual| > 2`` are flagged.
     """
-    head = ("box", "constraint", "initial", "adjusted", "noise", "adjusted/noise", "unit")
+    ratio_head = "adjusted/posterior std" if inverse else "adjusted/noise"
+    head = ("box", "constraint", "initial", "adjusted", "noise", ratio_head, "unit")
     rows = [f"<div style='overflow-x:auto'><table style='{TABLE_STYLE}'><tr>"
             + "".join(f"<th style='{HEAD}white-space:nowrap'>{h}</th>" for h in head) + "</tr>"]
-    ratio = budget.normalized_residual
+    # judged against what the estimate can achieve, sqrt(diag(N - E P E^T)) (Wunsch 1996,
+    # ch. 3); without an inverse the initial inflow over the noise
+    ratio = budget.posterior_normalized_residual if inverse else budget.normalized_residual
     for k, (box, constraint) in enumerate(budget.rows):
         r = float(ratio[k])
         flag = math.isfinite(r) and abs(r) > LARGE_RESIDUAL
@@ -204,19 +141,25 @@ def box_budget_html(budget: BoxBudget, inverse: bool) -> str:
     return "".join(rows) + note
 
 
-def section_numbers_html(summary: pd.DataFrame) -> str:
+def section_numbers_html(summary: pd.DataFrame,
+                         directions: Mapping[str, LineDirection] | None = None) -> str:
     """Net, heat, freshwater and overturning of each section with errors.
 
     Parameters
     ----------
     summary : DataFrame
-        The section_summary table (``report.summary_table``).
+        The section_summary table (``report.summary_table``) with a
+        ``heat_kind`` column ("heat transport" or "temperature transport").
+    directions : mapping of str -> LineDirection, optional
+        What positive means for each line, written under its name.
 
     Returns
     -------
     str
-        An HTML table.
+        An HTML table; beside a heat number whose line carries net mass the
+        words "temperature transport".
     """
+    directions = directions or {}
     items = (
         ("net (Sv)", "net_sv", "net_err_sv", 2),
         ("heat (PW)", "heat_pw", "heat_err_pw", 3),
@@ -224,17 +167,116 @@ def section_numbers_html(summary: pd.DataFrame) -> str:
         ("overturning, depth (Sv)", "overturning_sv", "overturning_err_sv", 2),
         ("overturning, density (Sv)", "overturning_density_sv", "overturning_density_err_sv", 2),
     )
-    rows = [f"<table style='{TABLE_STYLE}'><tr><th style='{HEAD}'></th>"
-            + "".join(f"<th style='{HEAD}'>{html.escape(str(s))}</th>"
-                      for s in summary["section"]) + "</tr>"]
+    heads = []
+    for s in summary["section"]:
+        d = directions.get(str(s))
+        sign = (f"<br><span style='font-weight:400;font-size:11px;color:#555'>"
+                f"{html.escape(d.across)}</span>" if d is not None else "")
+        heads.append(f"<th style='{HEAD}'>{html.escape(str(s))}{sign}</th>")
+    rows = [f"<table style='{TABLE_STYLE}'><tr><th style='{HEAD}'></th>" + "".join(heads)
+            + "</tr>"]
     for label, col, err, digits in items:
-        cells = "".join(
-            f"<td style='{NUM}'>{_pm(float(row[col]), float(row[err]), digits)}</td>"
-            for _, row in summary.iterrows()
-        )
-        rows.append(f"<tr><td style='{CELL}'>{label}</td>{cells}</tr>")
+        cells = []
+        for _, row in summary.iterrows():
+            text = _pm(float(row[col]), float(row[err]), digits)
+            if col == "heat_pw" and row.get("heat_kind") == "temperature transport":
+                text += (" <span class='sk-heat-kind' style='color:#b35900;font-size:11px'>"
+                         f"temperature transport (net mass {float(row['net_mass_sv']):+.2f} Sv)"
+                         "</span>")
+            cells.append(f"<td style='{NUM}'>{text}</td>")
+        rows.append(f"<tr><td style='{CELL}white-space:nowrap'>{label}</td>{''.join(cells)}</tr>")
     rows.append("</table>")
     return "".join(rows)
+
+
+def transfers_html(view: InverseView) -> str:
+    """Diapycnal transfers W ± posterior std with their resolution.
+
+    Parameters
+    ----------
+    view : InverseView
+        The inverse's estimates (W in Sv, positive from the lighter to the
+        denser class).
+    """
+    if not view.transfers:
+        return "<div style='font-size:12px'>No diapycnal transfers are solved for.</div>"
+    rows = [f"<table style='{TABLE_STYLE}'><tr><th style='{HEAD}'>interface</th>"
+            f"<th style='{HEAD}'>W (Sv, + light→dense)</th>"
+            f"<th style='{HEAD}'>resolution</th></tr>"]
+    for label, w, err, res in view.transfers:
+        rows.append(f"<tr><td style='{CELL}white-space:nowrap'>{html.escape(label)}</td>"
+                    f"<td style='{NUM}'>{_pm(w, err)}</td><td style='{NUM}'>{res:.2f}</td></tr>")
+    rows.append("</table>")
+    return "".join(rows)
+
+
+def residuals_html(view: InverseView) -> str:
+    """Constraint residuals before and after the inverse, each over its standard deviation.
+
+    Parameters
+    ----------
+    view : InverseView
+        ``before``: initial inflow / noise; ``after``: adjusted inflow /
+        posterior residual std (dimensionless).
+    """
+    rows = [f"<table style='{TABLE_STYLE}'><tr><th style='{HEAD}'>constraint</th>"
+            f"<th style='{HEAD}'>before / noise</th>"
+            f"<th style='{HEAD}'>after / posterior std</th></tr>"]
+    for k, label in enumerate(view.rows):
+        b, a = float(view.before[k]), float(view.after[k])
+        flag = math.isfinite(a) and abs(a) > LARGE_RESIDUAL
+        style = " style='background:#fde2c8'" if flag else ""
+        rows.append(f"<tr{style}><td style='{CELL}white-space:nowrap'>{html.escape(label)}</td>"
+                    f"<td style='{NUM}'>{_fmt(b)}</td><td style='{NUM}'>{_fmt(a)}</td></tr>")
+    rows.append("</table>")
+    return "".join(rows)
+
+
+# ---------------------------------------------------------------- colour scale
+class ColourScale:
+    """A symmetric colour-scale limit that changes only when it should.
+
+    The limit spans the ``SCALE_PERCENTILE`` percentile of |value|. It is
+    fixed while a control is dragged (so one colour means one speed during
+    the drag), fixed for good when locked, and set again on request.
+
+    Attributes
+    ----------
+    limit : float or None
+        Current limit, in the unit of the values (None before the first use).
+    locked : bool
+        Whether the limit is kept whatever the values.
+    """
+
+    def __init__(self) -> None:
+        self.limit: float | None = None
+        self.locked = False
+
+    @staticmethod
+    def fit(values: np.ndarray) -> float:
+        """The limit the values call for."""
+        finite = np.abs(values[np.isfinite(values)])
+        limit = float(np.percentile(finite, SCALE_PERCENTILE)) if finite.size else 1.0
+        return max(limit, MIN_SCALE)
+
+    def update(self, values: np.ndarray, *, dragging: bool) -> float:
+        """The limit for a redraw of ``values``.
+
+        Parameters
+        ----------
+        values : ndarray
+            What is about to be drawn.
+        dragging : bool
+            Whether a control is being dragged (keeps the limit).
+        """
+        if self.limit is None or not (self.locked or dragging):
+            self.limit = self.fit(values)
+        return self.limit
+
+    def reset(self, values: np.ndarray) -> float:
+        """Fit the limit to ``values`` now (also when locked)."""
+        self.limit = self.fit(values)
+        return self.limit
 
 
 def cautions_html(cautions: list[str], notes: list[str] | None = None) -> str:
