@@ -30,12 +30,15 @@ UDUNITS: dict[str, str] = {
     "km": "km",
     "km2": "km2",
     "kg m-3": "kg m-3",
+    "kmol s-1": "kmol s-1",
+    "kmol/s": "kmol s-1",
     "1": "1",
 }
 
 #: SI value of one display unit (the scale from SI to the reported number).
 SCALE: dict[str, float] = {"Sv": 1e6, "Sv g/kg": 1e6, "PW": 1e15, "m s-1": 1.0, "m/s": 1.0,
-                           "dbar": 1.0, "km": 1e3, "km2": 1e6, "kg m-3": 1.0, "1": 1.0}
+                           "dbar": 1.0, "km": 1e3, "km2": 1e6, "kg m-3": 1.0, "kmol s-1": 1e3,
+                           "kmol/s": 1e3, "1": 1.0}
 
 
 def udunits(display: str) -> str:
