@@ -161,7 +161,8 @@ def section_numbers_html(summary: pd.DataFrame,
     """
     directions = directions or {}
     items = (
-        ("net (Sv)", "net_sv", "net_err_sv", 2),
+        ("net volume (Sv)", "net_sv", "net_err_sv", 2),
+        ("net mass / ρ₀ (Sv)", "net_mass_sv", "net_mass_err_sv", 2),
         ("heat (PW)", "heat_pw", "heat_err_pw", 3),
         ("freshwater (Sv)", "freshwater_sv", "freshwater_err_sv", 3),
         ("overturning, depth (Sv)", "overturning_sv", "overturning_err_sv", 2),
