@@ -211,15 +211,33 @@ def pair_geometry(section: xr.Dataset) -> xr.Dataset:
     )
 
 
-_COMPASS = ("northward", "north-westward", "westward", "south-westward", "southward",
-            "south-eastward", "eastward", "north-eastward")
+COMPASS = ("northward", "north-eastward", "eastward", "south-eastward", "southward",
+           "south-westward", "westward", "north-westward")
+
+
+def compass_name(east: float, north: float) -> str:
+    """Eight-point compass name of a direction given by its components.
+
+    Parameters
+    ----------
+    east, north : float
+        Components of the direction, any common unit.
+
+    Returns
+    -------
+    str
+        ``"northward"``, ``"north-eastward"``, ... ``"north-westward"``.
+    """
+    bearing = float(np.degrees(np.arctan2(east, north))) % 360.0  # clockwise from north
+    return COMPASS[int(((bearing + 22.5) % 360.0) // 45.0)]
 
 
 def positive_direction(lon: np.ndarray, lat: np.ndarray) -> str:
     """Compass word of the positive transport direction of a line, e.g. ``"northward"``.
 
-    Positive transport is to the left of increasing station order; here the
-    line's overall direction is taken from its first to its last station.
+    Positive transport is to the left of increasing station order (DESIGN.md
+    §4). The line's direction is the distance-weighted mean of its pairs'
+    along-line unit vectors; "left" is that vector turned 90° counter-clockwise.
 
     Parameters
     ----------
@@ -235,11 +253,11 @@ def positive_direction(lon: np.ndarray, lat: np.ndarray) -> str:
     """
     lon = np.asarray(lon, dtype=float)
     lat = np.asarray(lat, dtype=float)
-    ends_lon, ends_lat = lon[[0, -1]], lat[[0, -1]]
-    t_east, t_north = (float(c[0]) for c in along_line_direction(ends_lon, ends_lat))
-    # left normal (-t_north, t_east); angle counter-clockwise from north
-    angle = np.degrees(np.arctan2(t_north, t_east))  # of the left normal measured from north
-    return _COMPASS[int(np.round(angle / 45.0)) % 8]
+    t_east, t_north = along_line_direction(lon, lat)
+    w = great_circle_distance(lon, lat)
+    east = float(np.nansum(w * t_east))
+    north = float(np.nansum(w * t_north))
+    return compass_name(-north, east)
 
 
 def sign_convention(lon: np.ndarray, lat: np.ndarray, first: str, last: str) -> str:

@@ -16,6 +16,7 @@ from collections.abc import Mapping
 import numpy as np
 import pandas as pd
 
+from sectionkit.layers import class_display_name
 from sectionkit.workbench.model import BoxBudget, ClassTransports
 from sectionkit.workbench.snapshot import InverseView, LineDirection
 
@@ -82,7 +83,8 @@ def class_table_html(table: ClassTransports,
             mark = (" <span class='sk-flag' style='color:#b35900' title='new class: inverse "
                     "settings are defaults'>new</span>" if layer in flagged else "")
             rows.append(
-                f"<tr><td style='{CELL}'></td><td style='{CELL}'>{html.escape(layer)}{mark}</td>"
+                f"<tr><td style='{CELL}'></td>"
+                f"<td style='{CELL}'>{html.escape(class_display_name(layer))}{mark}</td>"
                 f"<td style='{NUM}'>{_fmt(initial)}</td>"
                 f"<td style='{NUM}'>{_pm(adjusted, float(table.error[s, i]))}</td>"
                 f"<td style='{NUM}'>{_fmt(adjusted - initial)}</td></tr>"
