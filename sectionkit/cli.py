@@ -118,7 +118,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("budget", help="compute the budgets of a TOML configuration",
                        description="Compute class transports, the box inverse (when [inverse] is "
-                       "configured) and write the tables, figures and provenance to --out.")
+                       "configured) and write the tables, results.nc, figures and provenance "
+                       "to --out (docs/outputs.md describes every file).")
     p.add_argument("config", help="configuration file (.toml), or the provenance.json of an "
                    "earlier run to reproduce it (its input files must be unchanged)")
     p.add_argument("--out", required=True, help="output folder")
