@@ -1,7 +1,7 @@
 """The workbench in a real browser: JupyterLab, headless Chromium, a moved slider.
 
 A JupyterLab server is started on 127.0.0.1 with a temporary root holding a
-copy of ``notebooks/workbench.ipynb`` and of the demo box (so autosaves land
+copy of ``sectionkit/notebooks/workbench.ipynb`` and of the demo box (so autosaves land
 in the copy), Chromium (Debian's, driven by Playwright) runs the notebook once
 the kernel is really idle, moves the reference-level slider with the
 keyboard, and the class transport table must change. A screenshot of the
@@ -63,7 +63,7 @@ def lab(tmp_path: Path):
     root = tmp_path / "root"
     shutil.copytree(ROOT / "demo_sections", root / "demo_sections",
                     ignore=shutil.ignore_patterns("*.autosave.toml"))
-    notebook = json.loads((ROOT / "notebooks" / "workbench.ipynb").read_text())
+    notebook = json.loads((ROOT / "sectionkit" / "notebooks" / "workbench.ipynb").read_text())
     opened = 0
     for cell in notebook["cells"]:
         source = "".join(cell["source"])

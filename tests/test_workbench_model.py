@@ -571,3 +571,11 @@ def test_any_error_while_resuming_is_caught_not_only_sectionkit_errors(box_dir, 
     resumed = WorkbenchState.open(session, resume=True)
     assert "ZeroDivisionError: float division by zero" in resumed.resume_error
     assert (tmp_path / "box.autosave.1.toml").is_file()
+
+
+def test_view_shows_why_an_autosave_was_not_resumed(box_dir, tmp_path):
+    from sectionkit.workbench.view import WorkbenchView
+
+    session, _ = _session_with_autosave(box_dir, tmp_path, "[grid\ndp = ")
+    view = WorkbenchView(WorkbenchState.open(session, resume=True), redraw_delay=0.0)
+    assert "could not resume from box.autosave.toml" in view.cautions.value
