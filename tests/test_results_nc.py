@@ -164,3 +164,17 @@ def test_tracer_transports_are_in_results_nc_in_kmol_per_second():
     # / 1e9 umol per kmol = 205 kmol s-1 per Sv of mass transport / rho0 (hand calculation)
     np.testing.assert_allclose(var.values[0, 0], 205.0 * out["class_mass_transport_adjusted"]
                                .values[0], rtol=1e-9)
+
+
+def test_every_registered_unit_spelling_parses_and_scales_as_its_display_unit():
+    # every CF spelling the registry hands out (results.nc, the xarray layer, ensemble.nc)
+    # is read by UDUNITS, and its SI value is the display unit's (1 Sv = 1e6 m3 s-1, 1 PW =
+    # 1e15 W, common practice; 1 km2 = 1e6 m2; 1 kmol = 1e3 mol)
+    from sectionkit.outputs import SCALE
+
+    si = {"1e6 m3 s-1": "m3 s-1", "1e6 m3 s-1 g kg-1": "m3 s-1 g kg-1", "1e15 W": "W",
+          "m s-1": "m s-1", "dbar": "dbar", "km": "m", "km2": "m2", "kg m-3": "kg m-3",
+          "kmol s-1": "mol s-1", "1": "1"}
+    for display, cf in UDUNITS.items():
+        unit = cf_units.Unit(cf)
+        assert unit.convert(1.0, cf_units.Unit(si[cf])) == pytest.approx(SCALE[display]), display
