@@ -804,21 +804,26 @@ def _property_table(study: Study, results: Results) -> PaperTable:
         Column("Tracer", "Tracer", False),
         Column("Class", "Class", False),
         Column(f"Initial ({_unit('kmol/s', True)})", f"Initial ({_unit('kmol/s', False)})"),
-        Column(f"Adjusted ({_unit('kmol/s', True)})", f"Adjusted ({_unit('kmol/s', False)})"),
     ]
+    inverse = results.inverse is not None
+    if inverse:  # without an inverse, adjusted equals initial: no column of copies
+        cols.append(Column(f"Adjusted ({_unit('kmol/s', True)})",
+                           f"Adjusted ({_unit('kmol/s', False)})"))
     rows = []
     for name, out in results.tracers.items():
         adjusted = out.value(results.estimate)
         err = out.std(results.covariance)
         for k, label in enumerate(out.names):
             tracer, _, layer = label.partition(":")
-            rows.append([
+            row = [
                 Cell.text(name),
                 Cell.text(tracer),
-                Cell.text("all classes" if layer == "total" else layer),
+                Cell.text("all classes" if layer == "total" else class_display_name(layer)),
                 Cell.number(out.initial[k], None, "kmol/s"),
-                Cell.number(adjusted[k], _err(err[k]), "kmol/s"),
-            ])
+            ]
+            if inverse:
+                row.append(Cell.number(adjusted[k], _err(err[k]), "kmol/s"))
+            rows.append(row)
     return PaperTable("property_transports", title, caption(True), caption(False), cols, rows)
 
 
