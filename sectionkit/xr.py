@@ -32,7 +32,6 @@ cautions here: the kernel runs inside dask tasks.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -45,7 +44,7 @@ from sectionkit.geometry import pair_geometry
 from sectionkit.geostrophy import ReferenceChoice, resolve_references
 from sectionkit.layers import Interface, check_interfaces
 from sectionkit.operator import build_operator
-from sectionkit.outputs import udunits
+from sectionkit.outputs import KERNEL_OUTPUTS, OutputSpec
 
 __all__ = [
     "OUTPUTS",
@@ -58,60 +57,10 @@ __all__ = [
 CORE_DIMS = ("station", "pressure")
 
 
-@dataclass(frozen=True)
-class OutputSpec:
-    """One output of the budget kernel.
+#: Every output of :func:`budget_kernel`, in the order the wrapper returns them
+#: (the registry :data:`sectionkit.outputs.KERNEL_OUTPUTS`).
+OUTPUTS: tuple[OutputSpec, ...] = KERNEL_OUTPUTS
 
-    Attributes
-    ----------
-    name : str
-        Variable name in the result Dataset.
-    dims : tuple of str
-        Core (trailing) dimensions of the output.
-    units : str
-        Display unit (``Sv``, ``PW``); the ``units`` attribute is its CF /
-        UDUNITS spelling (``sectionkit.outputs.udunits``), this one goes to
-        ``display_units``.
-    long_name : str
-        Long name attribute.
-    """
-
-    name: str
-    dims: tuple[str, ...]
-    units: str
-    long_name: str
-
-
-#: Every output of :func:`budget_kernel`, in the order the wrapper returns them.
-#: Transports are positive to the left of increasing station order (DESIGN.md §4).
-OUTPUTS: tuple[OutputSpec, ...] = (
-    OutputSpec("volume_transport", ("class",), "Sv", "volume transport by density class"),
-    OutputSpec("mass_transport", ("class",), "Sv",
-               "mass transport by density class divided by rho0 = 1025 kg m-3"),
-    OutputSpec("salt_transport", ("class",), "Sv g/kg",
-               "salt transport by density class (rho SA v / rho0)"),
-    OutputSpec("heat_transport", ("class",), "PW",
-               "potential enthalpy transport by density class (rho c_p0 CT v)"),
-    OutputSpec("pair_volume_transport", ("pair", "class"), "Sv",
-               "volume transport of each station pair by density class"),
-    OutputSpec("net", (), "Sv", "net volume transport"),
-    OutputSpec("net_mass", (), "Sv", "net mass transport divided by rho0"),
-    OutputSpec("heat", (), "PW",
-               "net potential enthalpy transport (a heat transport only when net_mass is ~0)"),
-    OutputSpec("freshwater", (), "Sv", "freshwater transport relative to the reference salinity"),
-    OutputSpec("overturning", (), "Sv",
-               "depth-space overturning: signed extremum of the cumulative transport from the "
-               "surface"),
-    OutputSpec("overturning_pressure", (), "dbar", "pressure of the depth-space overturning"),
-    OutputSpec("overturning_density", (), "Sv",
-               "density-space overturning: signed extremum of the cumulative class transport "
-               "from the light side"),
-    OutputSpec("psi_depth", ("pressure",), "Sv",
-               "cumulative volume transport from the surface down to each level"),
-    OutputSpec("psi_density", ("interface",), "Sv",
-               "cumulative volume transport of the classes lighter than each interface"),
-    OutputSpec("reference_pressure", ("pair",), "dbar", "reference pressure actually used"),
-)
 
 ReferenceLike = ReferenceChoice | float | str
 
@@ -447,7 +396,7 @@ def section_budget(
     data = {}
     for spec, value in zip(OUTPUTS, results, strict=True):
         # CF / UDUNITS units that unit libraries read ("Sv" is the sievert to them)
-        data[spec.name] = value.assign_attrs(units=udunits(spec.units), display_units=spec.units,
+        data[spec.name] = value.assign_attrs(units=spec.units, display_units=spec.display,
                                              long_name=spec.long_name)
     ds = xr.Dataset(data)
     coords: dict[str, Any] = {

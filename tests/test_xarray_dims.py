@@ -91,8 +91,8 @@ def test_leading_dimensions_pass_through_with_units_and_layer_names():
     assert list(out["class"].values) == LAYERS
     assert out.sizes["pair"] == ds.sizes["station"] - 1
     for spec in OUTPUTS:
-        assert out[spec.name].attrs["units"] == udunits(spec.units)  # CF spelling, never "Sv"
-        assert out[spec.name].attrs["display_units"] == spec.units
+        assert out[spec.name].attrs["units"] == udunits(spec.display)  # CF spelling, never Sv
+        assert out[spec.name].attrs["display_units"] == spec.display
     assert np.all(np.isfinite(out["volume_transport"].values))
 
 
