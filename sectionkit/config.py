@@ -412,6 +412,11 @@ class Config:
         """Salinity of salt transports and budgets: ``[inverse] salinity`` or "preformed"."""
         return self.inverse.salinity if self.inverse is not None else "preformed"
 
+    @property
+    def class_names(self) -> list[str]:
+        """Names of the density classes, lightest first (``[classes] names``)."""
+        return self.layer_names
+
     def section_names(self) -> list[str]:
         """Names of the sections, in configuration order."""
         return [s.name for s in self.sections]
