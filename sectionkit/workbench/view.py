@@ -34,8 +34,16 @@ from ipyevents import Event
 
 from sectionkit.errors import SectionkitError
 from sectionkit.workbench import render
+from sectionkit.workbench.keys import UndoKeys
 from sectionkit.workbench.model import Change, WorkbenchState
-from sectionkit.workbench.plots import InverseFigures, SectionFigure, SensitivityFigure, StationMap
+from sectionkit.workbench.plots import (
+    CLASS_COLOURS,
+    SELECTED,
+    InverseFigures,
+    SectionFigure,
+    SensitivityFigure,
+    StationMap,
+)
 
 SLIDER_STEP = 10.0  # dbar per slider step (one arrow-key press)
 REDRAW_DELAY = 0.3  # s of quiet before the slower outputs are redrawn
@@ -44,6 +52,11 @@ SLIDER_GESTURE = "reference-slider"
 PANEL_WIDTH = "360px"
 ERROR_GROUPS = ("reference", "pair", "classes", "wind", "inverse", "session", "history")
 STYLE = {"description_width": "initial"}
+#: Page style of the workbench (ipywidgets draws HTML with a tall line height).
+PAGE_CSS = """<style>
+.sk-workbench .widget-html-content { line-height: 1.35; }
+.sk-workbench .widget-html { margin-top: 1px; margin-bottom: 1px; }
+</style>"""
 
 #: CSS class of each widget, by role.
 CSS_CLASSES = {
@@ -195,7 +208,8 @@ def _note(text: str) -> widgets.HTML:
 
 
 def _wide(**kwargs: Any) -> widgets.Layout:
-    return widgets.Layout(width="100%", **kwargs)
+    """Full width of the parent, less the 2 px margin ipywidgets puts on each side."""
+    return widgets.Layout(width="calc(100% - 4px)", **kwargs)
 
 
 class Collapsible(widgets.VBox):
@@ -257,12 +271,12 @@ class WorkbenchView(widgets.VBox):
 
         # ---------------------------------------------------------- Reference panel
         self.mode = _css(widgets.ToggleButtons(
-            options=[("pressure", "pressure"), ("deepest common", "bottom"),
+            options=[("pressure", "pressure"), ("deepest level", "bottom"),
                      ("isopycnal", "isopycnal")],
             tooltips=["a level of no motion at the pressure of the slider",
                       "a level of no motion at each pair's deepest common level",
                       "a level of no motion on the isopycnal below"],
-            style={"button_width": "108px"}, layout=_wide()), "reference_mode")
+            style={"button_width": "auto"}, layout=_wide()), "reference_mode")
         _, deepest, _ = state.pressure_range()
         self.slider = _css(widgets.FloatSlider(
             min=0.0, max=float(deepest), step=SLIDER_STEP, description="level (dbar)",
@@ -461,6 +475,7 @@ class WorkbenchView(widgets.VBox):
                                               layout=widgets.Layout(width="auto")), "zoom")
         self.zoom_reset = _css(widgets.Button(description="whole section",
                                               layout=widgets.Layout(width="auto")), "zoom_reset")
+        self.section_caption = _note("")
         self.readout = _css(widgets.HTML(value="<span style='font-size:12px;color:#555'>point "
                                                "at the section for values</span>",
                                          layout=_wide(min_height="20px")), "readout")
@@ -471,6 +486,7 @@ class WorkbenchView(widgets.VBox):
             [(b.name, b.enters + b.leaves) for b in state.config.effective_boxes()],
             self._pick_pair)
         self.sensitivity_plot = SensitivityFigure()
+        self.sensitivity_legend = _note("")
         self.inverse_plots = InverseFigures()
         self.class_table = _css(widgets.HTML(layout=_wide(overflow="auto", max_height="320px")),
                                 "class_table")
@@ -492,10 +508,13 @@ class WorkbenchView(widgets.VBox):
             Collapsible("Velocity section", [
                 widgets.HBox([self.colour_lock, self.colour_reset, self.zoom, self.zoom_reset],
                              layout=widgets.Layout(flex_flow="row wrap")),
-                self.readout, self.figure]),
-            Collapsible("Station map", [self.map_plot.figure]),
+                self.section_caption, self.readout, self.figure]),
+            Collapsible("Station map", [_note("Stations (small dots) and pairs (large dots) of "
+                                              "each line; click a pair to select it. Arrows "
+                                              "point to positive flow."), self.map_plot.figure]),
             Collapsible("Transports by class", [self.class_table]),
-            Collapsible("Sensitivity to the level of no motion", [self.sensitivity_plot.figure]),
+            Collapsible("Sensitivity to the level of no motion",
+                        [self.sensitivity_legend, self.sensitivity_plot.figure]),
             Collapsible("Budgets of each line", [self.section_numbers]),
             Collapsible("Box constraints (net inflow, + = into the box)", [self.box_budget]),
             self.inverse_block,
@@ -503,9 +522,12 @@ class WorkbenchView(widgets.VBox):
         ], layout=widgets.Layout(flex="3 1 460px", min_width="0", padding="0 0 0 10px")),
             "outputs")
 
+        self.undo_keys = UndoKeys(lambda: self._act(state.undo, "history"),
+                             lambda: self._act(state.redo, "history"))
         super().__init__([
-            widgets.HBox([self.title, self.undo_button, self.redo_button, self.hide_controls],
-                         layout=_wide(align_items="center")),
+            widgets.HBox([self.title, self.undo_button, self.redo_button, self.hide_controls,
+                          self.undo_keys, widgets.HTML(PAGE_CSS, layout=widgets.Layout(
+                              display="none"))], layout=_wide(align_items="center")),
             self.status, self.errors["history"],
             widgets.HBox([self.panels, self.outputs],
                          layout=_wide(flex_flow="row wrap", align_items="flex-start")),
@@ -539,8 +561,6 @@ class WorkbenchView(widgets.VBox):
         self.colour_reset.on_click(lambda _: self._fit_colours())
         self.zoom.observe(self._on_zoom, names="value")
         self.zoom_reset.on_click(lambda _: self.section_plot.reset_zoom())
-        self._keys = Event(source=self, watched_events=["keydown"])
-        self._keys.on_dom_event(self._on_key)
         self._pointer = Event(source=self.figure, watched_events=["mousemove", "click"],
                               throttle_or_debounce="throttle", wait=60)
         self._pointer.on_dom_event(self._on_pointer)
@@ -594,12 +614,25 @@ class WorkbenchView(widgets.VBox):
             section = self.state.velocity_section(name)
             direction = self.state.direction(name)
             limit = self.colours.update(section.velocity * 100.0, dragging=False)
-            self.section_plot.draw(section, limit, self.pair.value, direction)
+            self.section_plot.draw(section, limit, self.pair.value)
+            self.section_caption.value = (
+                f"<div style='font-size:12px'><b>{html.escape(name)}</b>: "
+                f"{html.escape(section.reference)}"
+                + (", with the inverse's adjustments" if section.adjusted else "")
+                + f"; velocity in cm/s, {html.escape(direction.describe())}; gold dots: "
+                "reference level of each pair; black lines: class interfaces</div>")
             self.map_plot.select(name, self.pair.value)
             self._update_tables()  # exact values of the full budget
             self.section_numbers.value = render.section_numbers_html(
                 self.state.section_numbers(), self._directions())
-            self.sensitivity_plot.draw(self.state.reference_sensitivity(), name, direction)
+            sens = self.state.reference_sensitivity()
+            self.sensitivity_plot.draw(sens, name, direction)
+            self.sensitivity_legend.value = (
+                "<div style='font-size:12px'>" + " ".join(
+                    f"<span style='color:{CLASS_COLOURS[i % len(CLASS_COLOURS)]}'>━ "
+                    f"{html.escape(layer)}</span>" for i, layer in enumerate(sens.layers))
+                + f" <span>╌ sum</span> <span style='color:{SELECTED}'>┃ current level</span>"
+                + "; click the plot to choose a level</div>")
             self._draw_inverse()
             self.cautions.value = render.cautions_html(self.state.cautions(), self._notes())
             self.draws += 1
@@ -1027,19 +1060,6 @@ class WorkbenchView(widgets.VBox):
         plot = self.section_plot
         self.figure.interaction = (bq.interacts.PanZoom(scales={"x": [plot.x], "y": [plot.y]})
                                    if change["new"] else None)
-
-    def _on_key(self, event: dict) -> None:
-        """Ctrl+Z undoes, Ctrl+Shift+Z redoes (text fields keep their own undo)."""
-        if str(event.get("key", "")).lower() != "z":
-            return
-        if not (event.get("ctrlKey") or event.get("metaKey")):
-            return
-        if str(event.get("target", {}).get("tagName", "")).upper() in ("INPUT", "TEXTAREA"):
-            return
-        if event.get("shiftKey"):
-            self._act(self.state.redo, "history")
-        else:
-            self._act(self.state.undo, "history")
 
     def _on_pointer(self, event: dict) -> None:
         """Hover readout (pair, pressure, velocity, σ); a click selects the pair."""
