@@ -343,6 +343,81 @@ def ensemble_scaling(quick: bool = False) -> Measurement:
     )
 
 
+#: Members per second of the demo-box ensemble on 2 local workers, measured with
+#: :func:`demo_ensemble_throughput` (200 members) on the engine before the one-pass
+#: changes (commit af7f1fd), on this 2-core machine: the figure the goal multiplies.
+DEMO_ENSEMBLE_BASELINE_MEMBERS_PER_S = 16.36  # fastest of 2 runs (13.46, 16.36), load 0.1-1.3
+#: Required gain in members per second over that figure.
+DEMO_ENSEMBLE_GOAL_FACTOR = 3.0
+
+
+def demo_ensemble_throughput(quick: bool = False, members: int | None = None,
+                             compare: int | None = None, progress: bool = True) -> Measurement:
+    """Members per second of a demo-box ensemble on 2 worker processes.
+
+    Every member perturbs the CTD sensors (per station), the global reference
+    pressure (2000-3500 dbar) and the prior standard deviations (factor
+    0.5-2), so it rebuilds both operators and solves the inverse. The
+    cluster comes from :func:`sectionkit.ensemble.local_cluster` (as the
+    ``sectionkit ensemble`` command makes it); cluster start-up and a
+    warm-up ensemble are not timed. The first ``compare`` members are then
+    run serially in this process and must equal the cluster's bit for bit
+    (a member's draws do not depend on the ensemble size).
+
+    Parameters
+    ----------
+    quick : bool
+        100 members instead of 1000 (and 20 compared instead of 100).
+    members, compare : int, optional
+        Override the number of members and of serially compared members.
+    progress : bool
+        Show the ensemble's text progress bar on stderr.
+
+    Returns
+    -------
+    Measurement
+        Members per second; the goal is ``DEMO_ENSEMBLE_GOAL_FACTOR`` times
+        the recorded figure of the earlier engine.
+    """
+    from distributed import Client
+
+    from sectionkit.cli import demo_config_path
+    from sectionkit.config import load_config
+    from sectionkit.ensemble import Perturbation, local_cluster, members_equal, run_ensemble
+
+    config = load_config(demo_config_path())
+    perturb = Perturbation(reference_range=(2000.0, 3500.0), prior_factor=(0.5, 2.0))
+    n = members or (100 if quick else 1000)
+    n_cmp = min(compare or (20 if quick else 100), n)
+    load_before = os.getloadavg()[0]
+    with local_cluster(2) as cluster, Client(cluster) as client:
+        run_ensemble(config, 4, seed=99, client=client, perturb=perturb)  # warm-up
+        start = time.perf_counter()
+        ens = run_ensemble(config, n, seed=1, client=client, perturb=perturb,
+                           progress=progress)
+        elapsed = time.perf_counter() - start
+    load_after = os.getloadavg()[0]
+    start = time.perf_counter()
+    serial = run_ensemble(config, n_cmp, seed=1, perturb=perturb)
+    t_serial = time.perf_counter() - start
+    names = [v for v in serial.data_vars if "member" in serial[v].dims]
+    first = ens.isel(member=slice(0, n_cmp))
+    same = members_equal(first, serial, names)
+    rate = n / elapsed
+    baseline = DEMO_ENSEMBLE_BASELINE_MEMBERS_PER_S
+    return Measurement(
+        f"demo-box ensemble, 2 workers ({n} members): members per second",
+        rate, DEMO_ENSEMBLE_GOAL_FACTOR * baseline, kind=">=", unit="members/s",
+        details={"seconds": elapsed, "members": n,
+                 "earlier_engine_members_per_s": baseline,
+                 "gain_over_earlier_engine_x": rate / baseline,
+                 "serial_members_per_s (in this process)": n_cmp / t_serial,
+                 f"max_rel_diff_vs_serial (first {n_cmp} members)": same,
+                 "load_average_1min_before": load_before,
+                 "load_average_1min_after": load_after},
+    )
+
+
 def _capacity_work(n: int) -> float:
     """CPU-bound numpy work of a fixed size (what two cores can do at once)."""
     rng = np.random.default_rng(n)

@@ -22,9 +22,11 @@ def run_budget(config_path: Path, out_dir: Path, *, figures: bool = True,
                quiet: bool = False) -> int:
     """Run the whole chain of one configuration and write its outputs."""
     from sectionkit.config import load_config
+    from sectionkit.outdir import check_output_folder
     from sectionkit.report import default_writers, load_provenance, write_outputs
     from sectionkit.study import Study
 
+    check_output_folder(out_dir)  # before any computation
     progress = None if quiet else _progress
     if Path(config_path).suffix.lower() == ".json":
         config = load_provenance(config_path)
@@ -137,7 +139,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("ensemble", help="Monte Carlo ensemble on dask.distributed",
                        description="Perturb measurements, references and priors and run the "
-                       "chain per member on a dask.distributed cluster.")
+                       "chain per member on a dask.distributed cluster. Every perturbation is "
+                       "an option below; see docs/cli.md.")
     p.add_argument("config", help="configuration file (.toml)")
     p.add_argument("--members", type=int, default=100, help="ensemble size (default 100)")
     p.add_argument("--out", required=True, help="output folder")
@@ -145,6 +148,26 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--workers", type=int, default=2, help="local workers (default 2)")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.add_argument("--serial", action="store_true", help="run without dask (same results)")
+    g = p.add_argument_group("perturbations (standard deviations; defaults in brackets)")
+    g.add_argument("--temperature", type=float, metavar="DEGC",
+                   help="temperature sensor accuracy, degC [0.002]")
+    g.add_argument("--salinity", type=float, metavar="G_KG",
+                   help="salinity accuracy, g/kg [0.002]")
+    g.add_argument("--pressure", type=float, metavar="DBAR",
+                   help="pressure sensor accuracy, dbar, one offset per station [1]")
+    g.add_argument("--mode", choices=("station", "level"),
+                   help="station: one temperature and salinity offset per station (calibration "
+                   "bias) [station]; level: independent at every station and level")
+    g.add_argument("--reference-range", type=float, nargs=2, metavar=("LOW", "HIGH"),
+                   help="draw the global reference pressure uniformly in [LOW, HIGH] dbar "
+                   "(the configuration's global reference must be a pressure) [off]")
+    g.add_argument("--prior-factor", type=float, nargs=2, metavar=("LOW", "HIGH"),
+                   help="multiply every prior standard deviation of the inverse by a "
+                   "log-uniform factor in [LOW, HIGH] [off]")
+    g.add_argument("--constraints", choices=("none", "noise", "twin"),
+                   help="perturb the inverse's data: none; noise adds a draw of the "
+                   "constraints' own noise; twin replaces the data by a twin experiment with a "
+                   "recorded true state [none]")
     p.set_defaults(func=_cmd_ensemble)
     return parser
 

@@ -78,6 +78,7 @@ from scipy.interpolate import PchipInterpolator
 
 from sectionkit.errors import ComputationError
 from sectionkit.geostrophy import ReferenceChoice, resolve_references
+from sectionkit.inverse import interface_transfers, transfer_anomaly
 from sectionkit.layers import Interface
 from sectionkit.operator import QUANTITIES, SectionOperator, build_operator
 
@@ -897,13 +898,17 @@ class DemoTruth:
         return float(self.box_inflow("salt").sum() / SV + self.known.sum() * self.strait_salinity)
 
     def class_mean_salinity(self) -> np.ndarray:
-        """Area-weighted mean Absolute Salinity of each class over both lines, g kg^-1."""
+        """Area-weighted mean salinity of each class over both lines, g kg^-1.
+
+        The salinity of the salt budgets (Preformed Salinity S* by default,
+        ``extra["salt_pair"]`` of the operators).
+        """
         num = 0.0
         den = 0.0
         for line in self.scenario.lines:
             op = self.operators[line.name]
             w = op.weights * op.pairs["distance"].values[:, None, None]  # (pair, class, level) m^2
-            sa = np.nan_to_num(op.extra["sa_pair"])[:, None, :]
+            sa = np.nan_to_num(op.extra["salt_pair"])[:, None, :]
             num = num + (w * sa).sum(axis=(0, 2))
             den = den + w.sum(axis=(0, 2))
         return np.asarray(num / den)
@@ -925,11 +930,7 @@ class DemoTruth:
         """
         s_mean = self.class_mean_salinity()
         sections = (self.box_inflow("salt") - s_mean * self.box_inflow("mass")) / SV
-        transfers = np.zeros_like(s_mean)
-        for k, w in enumerate(self.diapycnal):
-            carried = 0.5 * (s_mean[k] + s_mean[k + 1])
-            transfers[k] -= w * (carried - s_mean[k])
-            transfers[k + 1] += w * (carried - s_mean[k + 1])
+        transfers = transfer_anomaly(interface_transfers(s_mean.size), s_mean) @ self.diapycnal
         return sections, transfers
 
     def salt_anomaly_residual(self) -> np.ndarray:
@@ -1263,7 +1264,7 @@ def _toml_config(scenario: DemoScenario, files: dict[str, str]) -> str:
         f"depth = {_tf(scenario.ekman_depth)}",
         f"stress = {{ {stress} }}   # N m^-2, (east, north)",
         "",
-        "[layers]",
+        "[classes]",
         f"interfaces = [\n  {faces},\n]",
         f"names = [{names}]",
         "",
@@ -1274,12 +1275,12 @@ def _toml_config(scenario: DemoScenario, files: dict[str, str]) -> str:
         f"prior_diapycnal = {_tf(scenario.inverse_prior_diapycnal)}         # Sv per interface",
         f"prior_ekman = {_tf(scenario.inverse_prior_ekman)}             # fractional",
         f"noise_total = {_tf(scenario.noise_total)}             # Sv",
-        f"noise_layer = [{noise_layer}]   # Sv, one per class",
+        f"noise_class = [{noise_layer}]   # Sv, one per class",
         f"noise_salt = [{noise_salt}]   # Sv g/kg, one per class (includes model error)",
         (
             f'known = [ {{ name = "{strait}", transport = {_tf(scenario.strait_transport)}, '
             f"noise = {_tf(scenario.strait_noise)}, "
-            f'layer = "{scenario.strait_layer}", box = "interior" }} ]'
+            f'class = "{scenario.strait_layer}", box = "interior" }} ]'
         ),
         "# the basin south of the southern line is closed: no net flow across it",
         'section_net = [ { section = "south", transport = 0.0, noise = 1.0 } ]',

@@ -73,7 +73,9 @@ __all__ = [
     "perturb_section",
     "resolve_with_data",
     "run_ensemble",
+    "member_batch_size",
     "run_member",
+    "run_members",
     "shift_profiles",
     "summary_rows",
     "unperturbed",
@@ -193,11 +195,29 @@ def shift_profiles(values: np.ndarray, pressure: np.ndarray, shift: np.ndarray) 
         and the NaN mask (the sea floor) is unchanged.
     """
     out = np.array(values, dtype=float, copy=True)
+    pressure = np.asarray(pressure, dtype=float)
+    shift = np.asarray(shift, dtype=float)
+    ok = np.isfinite(out)
+    count = ok.sum(axis=-1)
+    step = np.diff(pressure)
+    # casts valid from the surface down on an even grid: one vectorised interpolation
+    if (out.ndim == 2 and step.size and np.all(step > 0)
+            and np.all(np.abs(step - step[0]) <= 1e-12 * step[0])
+            and np.array_equal(ok, np.arange(out.shape[-1]) < count[:, None])):
+        top = np.maximum(count - 1, 0)[:, None]
+        u = np.clip(np.arange(out.shape[-1]) - (shift / step[0])[:, None], 0.0, top)
+        j = np.minimum(np.floor(u).astype(np.intp), np.maximum(top - 1, 0))
+        w = u - j
+        v0 = np.take_along_axis(out, j, axis=-1)
+        v1 = np.take_along_axis(out, np.minimum(j + 1, top), axis=-1)
+        moved = ok & (count >= 2)[:, None] & (shift != 0.0)[:, None]
+        out = np.where(moved, v0 + w * (v1 - v0), out)
+        return out
     for s in range(values.shape[0]):
-        ok = np.isfinite(values[s])
-        if ok.sum() < 2 or shift[s] == 0.0:
+        ok_s = ok[s]
+        if count[s] < 2 or shift[s] == 0.0:
             continue
-        out[s, ok] = np.interp(pressure[ok] - shift[s], pressure[ok], values[s, ok])
+        out[s, ok_s] = np.interp(pressure[ok_s] - shift[s], pressure[ok_s], values[s, ok_s])
     return out
 
 
@@ -233,8 +253,11 @@ def perturb_section(
         sa = shift_profiles(sa, p, dp)
         ct = shift_profiles(ct, p, dp)
     out = section.copy()
-    out["SA"] = (("station", "pressure"), sa + ds, section["SA"].attrs)
-    out["CT"] = (("station", "pressure"), ct + dt, section["CT"].attrs)
+    for name, value in (("SA", sa + ds), ("CT", ct + dt)):
+        if section[name].dims == ("station", "pressure"):
+            out[name].variable.values = value  # the copy's own variable: no re-alignment
+        else:
+            out[name] = (("station", "pressure"), value, section[name].attrs)
     return out
 
 
@@ -361,7 +384,13 @@ def run_member(study: Study, seed: np.random.SeedSequence, perturb: Perturbation
         system = results.inverse.system
         noise = rng.standard_normal(system.noise.size) * system.noise
         if perturb.constraints == "twin":
-            truth = rng.standard_normal(system.prior.size) * system.prior
+            if system.prior_covariance is None:
+                truth = rng.standard_normal(system.prior.size) * system.prior
+            else:  # correlated pair priors: a draw from the full prior covariance
+                active = system.prior > 0
+                truth = np.zeros(system.prior.size)
+                factor = np.linalg.cholesky(system.prior_covariance[np.ix_(active, active)])
+                truth[active] = factor @ rng.standard_normal(int(active.sum()))
             target = system.matrix @ truth + noise
         else:
             target = system.target + noise
@@ -443,17 +472,24 @@ def _run_members(
     needed = Study(config=study.config, sections=study.sections) if perturb.sensors else study
     shared = client.scatter(needed, broadcast=True, hash=False)
     token = f"{os.getpid()}-{time.time_ns()}"
-    futures = client.map(run_member, [shared] * n, list(seeds), [perturb] * n,
-                         key=[f"sectionkit-member-{token}-{m}" for m in range(n)], pure=False)
+    # several members per task: fewer round trips to the scheduler, same numbers
+    size = member_batch_size(n, len(client.scheduler_info().get("workers", {})) or 1)
+    starts = list(range(0, n, size))
+    batches = [list(seeds[a : a + size]) for a in starts]
+    futures = client.map(run_members, [shared] * len(batches), batches,
+                         [perturb] * len(batches),
+                         key=[f"sectionkit-members-{token}-{a}" for a in starts], pure=False)
     base_future = client.submit(unperturbed, shared, key=f"sectionkit-base-{token}",
                                 pure=False)
-    order = {f.key: m for m, f in enumerate(futures)}
+    first = {f.key: a for a, f in zip(starts, futures, strict=True)}
     results: list[dict[str, np.ndarray] | None] = [None] * n
     done = 0
     try:
         for future in as_completed(futures):
-            results[order[future.key]] = future.result()
-            done += 1
+            records = future.result()
+            a = first[future.key]
+            results[a : a + len(records)] = records
+            done += len(records)
             if progress:
                 progress(done)
         base = base_future.result()
@@ -461,6 +497,45 @@ def _run_members(
         client.cancel([*futures, base_future])
         raise
     return [r for r in results if r is not None], base
+
+
+def member_batch_size(members: int, workers: int) -> int:
+    """Members per dask task: about eight tasks per worker, at most 16 members each.
+
+    Parameters
+    ----------
+    members : int
+        Ensemble size.
+    workers : int
+        Number of workers.
+
+    Returns
+    -------
+    int
+        Members per task, >= 1.
+    """
+    return max(1, min(16, members // (8 * max(workers, 1))))
+
+
+def run_members(study: Study, seeds: Sequence[np.random.SeedSequence], perturb: Perturbation
+                ) -> list[dict[str, np.ndarray]]:
+    """Run several ensemble members in turn (one dask task); see :func:`run_member`.
+
+    Parameters
+    ----------
+    study : Study
+        The unperturbed study.
+    seeds : sequence of numpy.random.SeedSequence
+        One seed sequence per member.
+    perturb : Perturbation
+        What to perturb.
+
+    Returns
+    -------
+    list of dict
+        One record per member, in the order of ``seeds``.
+    """
+    return [run_member(study, seq, perturb) for seq in seeds]
 
 
 def _stack(records: list[dict[str, np.ndarray]]) -> dict[str, np.ndarray]:

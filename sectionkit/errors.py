@@ -37,6 +37,10 @@ class ConfigError(SectionkitError):
     """The configuration is malformed, inconsistent, or names unknown things."""
 
 
+class OutputError(SectionkitError):
+    """The output folder cannot be used as asked (a file, not writable, holds other files)."""
+
+
 class ComputationError(SectionkitError):
     """A computation cannot go on with the data and choices given."""
 

@@ -31,6 +31,7 @@ from matplotlib.colors import TwoSlopeNorm
 from matplotlib.figure import Figure
 from matplotlib.ticker import FixedLocator, FuncFormatter, MaxNLocator, NullLocator
 
+from sectionkit.layers import sigma_label
 from sectionkit.operator import SectionOperator
 from sectionkit.study import Results, Study
 
@@ -220,17 +221,6 @@ def interface_pressure(field: np.ndarray, pressure: np.ndarray, value: float) ->
     return out
 
 
-_SUBSCRIPT_DIGITS = str.maketrans("0123456789", "₀₁₂₃₄₅₆₇₈₉")
-
-
-def _sigma_label(p_ref: float, sigma: float) -> str:
-    """``σ₂ 36.9``: Unicode subscripts (no mathtext font), mathtext for 1.5 etc."""
-    sub = f"{p_ref / 1000:g}"
-    if sub.isdigit():
-        return f"σ{sub.translate(_SUBSCRIPT_DIGITS)} {sigma:g}"
-    return f"σ$_{{{sub}}}$ {sigma:g}"
-
-
 def _spaced(x: np.ndarray, gap: float) -> list[int]:
     """Indices of increasing positions ``x`` kept at least ``gap`` apart (first and last kept)."""
     keep = [0]
@@ -366,7 +356,7 @@ def plot_velocity_section(
             ok = np.flatnonzero(np.isfinite(depth))
             if ok.size:
                 j = ok[np.argmin(np.abs(xp[ok] - target))]
-                ax.clabel(cs, fmt={face.sigma: _sigma_label(face.p_ref, face.sigma)},
+                ax.clabel(cs, fmt={face.sigma: sigma_label(face.sigma, face.p_ref)},
                           fontsize=7.5, inline=True, inline_spacing=3,
                           manual=[(xp[j], depth[j])])
 
@@ -936,7 +926,7 @@ def overturning_figure(study: Study, results: Results) -> Figure:
         n_face = len(op.interfaces)
         if n_face and ax_r is not None:
             # from nothing lighter (0) through each interface to all classes (net transport)
-            labels = ["top", *(_sigma_label(f.p_ref, f.sigma) for f in op.interfaces), "all"]
+            labels = ["top", *(sigma_label(f.sigma, f.p_ref) for f in op.interfaces), "all"]
             ini, adj, err = output_block(results, name, [f"psi_density:{n}"
                                                          for n in range(n_face)] + ["net"])
             ini, adj, err = (np.concatenate([[0.0], a]) for a in (ini, adj, err))

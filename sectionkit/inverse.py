@@ -32,12 +32,16 @@ import numpy as np
 
 from sectionkit.budget import PW, SV, UnknownLayout, class_transport_gradient
 from sectionkit.config import BoxSpec, InverseSpec, KnownTransport
-from sectionkit.errors import ConfigError
+from sectionkit.errors import ComputationError, ConfigError
+from sectionkit.geometry import haversine
 from sectionkit.operator import CP0, RHO0, SectionOperator
 from sectionkit.solvers import make_solver
+from sectionkit.tracers import UNIT as TRACER_UNIT
+from sectionkit.tracers import TracerOperator, box_tracer_rows
 
 SALT_NOISE_FLOOR = 0.005  # g/kg: smallest salinity spread used to scale salt-anomaly noise
 TEMPERATURE_NOISE_FLOOR = 0.05  # degC, the same for heat
+CORRELATION_NUGGET = 1e-6  # white fraction of correlated pair priors (positive definite)
 
 
 @dataclass
@@ -58,6 +62,12 @@ class ConstraintSystem:
         One standard deviation of each unknown's prior.
     units : list of str
         Unit of each row.
+    prior_covariance : ndarray (unknown, unknown) or None
+        Full prior covariance when unknowns are correlated (its diagonal is
+        ``prior**2``); None for independent unknowns.
+    prior_mean : ndarray (unknown,) or None
+        Prior mean of each unknown (zero when None), e.g. reference-velocity
+        adjustments from direct velocity measurements, unknown units.
     """
 
     rows: list[tuple[str, str]]
@@ -66,6 +76,14 @@ class ConstraintSystem:
     noise: np.ndarray
     prior: np.ndarray
     units: list[str]
+    prior_covariance: np.ndarray | None = None
+    prior_mean: np.ndarray | None = None
+
+    def prior_matrix(self) -> np.ndarray:
+        """The prior covariance as a full matrix, unknown units squared."""
+        if self.prior_covariance is not None:
+            return self.prior_covariance
+        return np.diag(self.prior**2)
 
     @property
     def target(self) -> np.ndarray:
@@ -107,6 +125,8 @@ def assemble(
     layout: UnknownLayout,
     layer_names: list[str],
     velocity_prior: np.ndarray | None = None,
+    tracers: dict[str, TracerOperator] | None = None,
+    velocity_prior_mean: np.ndarray | None = None,
 ) -> ConstraintSystem:
     """Build the conservation constraints of every box.
 
@@ -129,6 +149,12 @@ def assemble(
     velocity_prior : ndarray (n_pairs_total,), optional
         Prior standard deviation of each pair's adjustment (m s^-1); the
         global ``prior_velocity`` where None.
+    tracers : dict of str -> TracerOperator, optional
+        Tracer operators by section, for tracers named in ``spec.conserve``
+        (rows ``<tracer>:<class>`` in kmol s^-1, see :mod:`sectionkit.tracers`).
+    velocity_prior_mean : ndarray (n_pairs_total,), optional
+        Prior mean of each pair's adjustment (m s^-1), e.g. from direct
+        velocity profiles; zero where None.
     """
     n_class = len(layer_names)
     rows: list[tuple[str, str]] = []
@@ -161,11 +187,11 @@ def assemble(
 
         mass_v, mass_g = net("mass")
         dia = np.zeros((n_class, layout.size))
+        per_interface = interface_transfers(n_class)
         for n in range(n_class - 1):
             idx = layout.diapycnal.get((box.name, n))
             if idx is not None:
-                dia[n, idx] -= 1.0  # leaves the lighter class
-                dia[n + 1, idx] += 1.0  # enters the denser class
+                dia[:, idx] = per_interface[:, n]
         known_v = np.zeros(n_class)
         known_var = np.zeros(n_class)
         for kt in known:
@@ -187,7 +213,7 @@ def assemble(
             units.append("Sv")
         if "salt" in spec.conserve:
             salt_v, salt_g = net("salt")
-            dia_s = _transfer_anomaly(dia, sa_mean)
+            dia_s = transfer_anomaly(dia, sa_mean)
             contrast = _neighbour_contrast(sa_mean)
             for i, layer in enumerate(layer_names):
                 rows.append((box.name, f"salt:{layer}"))
@@ -200,7 +226,7 @@ def assemble(
         if "heat" in spec.conserve:
             heat_v, heat_g = net("heat")
             h = RHO0 * CP0 * SV / PW  # PW per (Sv degC)
-            dia_h = _transfer_anomaly(dia, ct_mean) * h
+            dia_h = transfer_anomaly(dia, ct_mean) * h
             contrast = _neighbour_contrast(ct_mean)
             for i, layer in enumerate(layer_names):
                 rows.append((box.name, f"heat:{layer}"))
@@ -210,6 +236,19 @@ def assemble(
                 noise.append(spec.noise_heat[i] if spec.noise_heat and spec.noise_heat[i] > 0
                              else spec.noise_layer[i] * spread * h)
                 units.append("PW")
+        for tracer in [c for c in spec.conserve if c not in ("mass", "salt", "heat")]:
+            area = sum(operators[s].extra["class_moments"][0] for s in sections)
+            t_e, t_v, t_n = box_tracer_rows(
+                tracer, {s: _box_sign(box, s) for s in sections}, tracers or {}, area, offsets,
+                ekman, layout, mass_v, mass_g, dia, spec.noise_layer,
+                spec.noise_tracer.get(tracer),
+            )
+            for i, layer in enumerate(layer_names):
+                rows.append((box.name, f"{tracer}:{layer}"))
+                e_rows.append(t_e[i])
+                initial.append(float(t_v[i]))
+                noise.append(float(t_n[i]))
+                units.append(TRACER_UNIT)
     for net in spec.section_net:
         op = operators[net.section]
         t = op.transports(offsets[net.section], 0.0, ekman[net.section], 1.0)[1].sum() / SV
@@ -229,8 +268,53 @@ def assemble(
         prior[idx] = spec.prior_diapycnal
     for idx in layout.ekman.values():
         prior[idx] = spec.prior_ekman
+    covariance = None
+    if spec.prior_correlation_km > 0:
+        covariance = np.diag(prior**2)
+        for name, op in operators.items():
+            sl = layout.pair_slices[name]
+            rho = along_section_correlation(op.pairs["lon"].values, op.pairs["lat"].values,
+                                            spec.prior_correlation_km)
+            covariance[sl, sl] = rho * np.outer(prior[sl], prior[sl])
+    prior_mean = None
+    if velocity_prior_mean is not None and np.any(velocity_prior_mean != 0):
+        prior_mean = np.zeros(layout.size)
+        prior_mean[:n_pairs] = velocity_prior_mean
     return ConstraintSystem(rows, np.vstack(e_rows), np.asarray(initial), np.asarray(noise),
-                            prior, units)
+                            prior, units, covariance, prior_mean)
+
+
+def along_section_correlation(
+    lon: np.ndarray, lat: np.ndarray, correlation_km: float
+) -> np.ndarray:
+    """Gaussian correlation of the reference-velocity priors of one section's pairs.
+
+    ``rho_jk = (1 - eps) exp(-d_jk^2 / (2 L^2)) + eps delta_jk`` with ``d_jk``
+    the great-circle distance between the mid-points of pairs j and k, ``L``
+    the correlation length (common practice for smooth reference-velocity
+    errors) and ``eps = CORRELATION_NUGGET`` a small white part.
+
+    Parameters
+    ----------
+    lon, lat : ndarray (pair,)
+        Pair mid-points, degrees_east and degrees_north.
+    correlation_km : float
+        Correlation length L, km; 0 gives the identity (independent pairs).
+
+    Returns
+    -------
+    ndarray (pair, pair)
+        Correlation matrix, dimensionless.
+    """
+    lon = np.asarray(lon, float)
+    lat = np.asarray(lat, float)
+    if correlation_km <= 0:
+        return np.eye(lon.size)
+    d = haversine(lon[:, None], lat[:, None], lon[None, :], lat[None, :]) / 1e3
+    # a white part of CORRELATION_NUGGET keeps the matrix positive definite when L is
+    # long against the pair spacing (a Gaussian kernel is then numerically singular)
+    return ((1.0 - CORRELATION_NUGGET) * np.exp(-0.5 * (d / correlation_km) ** 2)
+            + CORRELATION_NUGGET * np.eye(lon.size))
 
 
 def _neighbour_contrast(class_mean: np.ndarray) -> np.ndarray:
@@ -241,18 +325,64 @@ def _neighbour_contrast(class_mean: np.ndarray) -> np.ndarray:
     return 0.5 * np.maximum(left, right)
 
 
-def _transfer_anomaly(dia: np.ndarray, class_mean: np.ndarray) -> np.ndarray:
-    """Property anomaly carried by the transfers, relative to each class mean.
+def interface_transfers(n_class: int) -> np.ndarray:
+    """Mass coefficients of one transfer per interface, Sv per Sv.
 
-    A transfer across interface n carries the mean of classes n and n + 1.
+    W_n is positive from the lighter class n to the denser class n + 1: it
+    leaves class n (-1) and enters class n + 1 (+1).
+
+    Parameters
+    ----------
+    n_class : int
+        Number of classes, dimensionless.
+
+    Returns
+    -------
+    ndarray (class, interface)
     """
-    out = np.zeros_like(dia)
-    n_class = dia.shape[0]
+    out = np.zeros((n_class, max(n_class - 1, 0)))
     for n in range(n_class - 1):
-        carried = 0.5 * (class_mean[n] + class_mean[n + 1])
-        out[n] += dia[n] * (carried - class_mean[n])
-        out[n + 1] += dia[n + 1] * (carried - class_mean[n + 1])
+        out[n, n] = -1.0
+        out[n + 1, n] = 1.0
     return out
+
+
+def transfer_anomaly(dia: np.ndarray, class_mean: np.ndarray) -> np.ndarray:
+    """Property anomaly carried by the diapycnal transfers, relative to each class mean.
+
+    A transfer joins two classes and carries the mean of their two class means
+    (layered box budget: Wunsch 1996, *The Ocean Circulation Inverse Problem*,
+    ch. 2; Ganachaud 2003, J. Geophys. Res.). Transfer W_n, from class n to
+    class n + 1, carries ``k_n = (C_n + C_{n+1}) / 2``; in its column class n's
+    anomaly row holds ``-(k_n - C_n)`` and class n + 1's ``+(k_n - C_{n+1})``;
+    no other row holds anything.
+
+    Parameters
+    ----------
+    dia : ndarray (class, unknown)
+        Mass coefficients of the transfers: in each transfer's column -1 in the
+        class it leaves and +1 in the class it enters (Sv per Sv); other
+        columns all zero.
+    class_mean : ndarray (class,)
+        Box-class mean of the property (g/kg, degC, ...).
+
+    Returns
+    -------
+    ndarray (class, unknown)
+        Anomaly coefficient of every transfer in every class row, property
+        unit per Sv of transfer.
+    """
+    dia = np.asarray(dia, float)
+    class_mean = np.asarray(class_mean, float)
+    joined = dia != 0.0
+    n_joined = joined.sum(axis=0)
+    used = n_joined > 0
+    if np.any(n_joined[used] != 2):
+        raise ComputationError("a diapycnal transfer column must join exactly two classes; "
+                               "this is a bug in the constraint assembly, please report it")
+    carried = np.zeros(dia.shape[1])
+    carried[used] = (joined[:, used] * class_mean[:, None]).sum(axis=0) / 2.0
+    return np.where(joined, dia * (carried[None, :] - class_mean[:, None]), 0.0)
 
 
 @dataclass
@@ -350,8 +480,10 @@ def solve(
     """
     active = system.prior > 0
     e = system.matrix[:, active]
+    prior_variance = (system.prior[active] ** 2 if system.prior_covariance is None
+                      else system.prior_covariance[np.ix_(active, active)])
     settings: dict = {
-        "prior_variance": system.prior[active] ** 2,
+        "prior_variance": prior_variance,
         "noise_variance": system.noise**2,
     }
     if spec.solver == "svd":
@@ -360,7 +492,8 @@ def solve(
         settings["lower"] = None if lower is None else lower[active]
         settings["upper"] = None if upper is None else upper[active]
     solver = make_solver(spec.solver, **settings)
-    solver.fit(e, system.target)
+    mean = None if system.prior_mean is None else system.prior_mean[active]
+    solver.fit(e, system.target, prior_mean=mean)
     estimate = np.zeros(system.prior.size)
     estimate[active] = solver.estimate
     cov = np.zeros((system.prior.size, system.prior.size))

@@ -45,6 +45,62 @@ class Interface:
         """Conventional label, e.g. ``sigma_2 = 36.95``."""
         return f"sigma_{self.p_ref / 1000:g} = {self.sigma:g}"
 
+    def display(self, tex: bool = False) -> str:
+        """The label figures, tables and the workbench print, e.g. ``σ₂ 36.98``."""
+        return sigma_label(self.sigma, self.p_ref, tex=tex)
+
+
+_SUBSCRIPT_DIGITS = str.maketrans("0123456789", "₀₁₂₃₄₅₆₇₈₉")
+
+
+def sigma_symbol(p_ref: float, tex: bool = False) -> str:
+    """The potential-density symbol of a reference pressure: σ₀, σ₂, σ₁.₅.
+
+    Parameters
+    ----------
+    p_ref : float
+        Potential-density reference pressure ("σ reference pressure"), dbar.
+    tex : bool
+        LaTeX (``$\\sigma_{2}$``) instead of Unicode.
+
+    Returns
+    -------
+    str
+        Subscript in thousands of dbar; a reference that is not a whole
+        thousand is written out (``σ(1500 dbar)``) in Unicode text.
+    """
+    sub = f"{float(p_ref) / 1000.0:.10g}"
+    if tex:
+        return rf"$\sigma_{{{sub}}}$"
+    if sub.isdigit():
+        return "σ" + sub.translate(_SUBSCRIPT_DIGITS)
+    return f"σ({float(p_ref):.10g} dbar)"
+
+
+def sigma_label(sigma: float, p_ref: float, tex: bool = False) -> str:
+    """One label for a potential-density surface, the same in every figure and table.
+
+    Parameters
+    ----------
+    sigma : float
+        Potential density anomaly, kg m^-3.
+    p_ref : float
+        Its reference pressure, dbar.
+    tex : bool
+        LaTeX instead of Unicode.
+
+    Returns
+    -------
+    str
+        E.g. ``σ₁ 32.15`` or ``σ₂ 36.98``.
+    """
+    return f"{sigma_symbol(p_ref, tex)} {float(sigma):.10g}"
+
+
+def class_display_name(name: str) -> str:
+    """A class name as printed in figures and tables: underscores become spaces."""
+    return str(name).replace("_", " ")
+
 
 def check_interfaces(interfaces: list[Interface], names: list[str] | None) -> list[str]:
     """Validate interfaces and return the class names.
@@ -108,6 +164,141 @@ def potential_density_anomaly(sa: np.ndarray, ct: np.ndarray, p_ref: float) -> n
         rho(SA, CT, p_ref) - 1000, kg m^-3 (TEOS-10, gsw.rho).
     """
     return gsw.rho(sa, ct, p_ref) - 1000.0
+
+
+#: Upper bounds of |d rho / d SA| (kg m^-3 per g/kg) and |d rho / d CT| (kg m^-3 per degC)
+#: of TEOS-10 potential density over ``DECIDING_RANGE``: the largest values there are
+#: 0.83 and 0.49 (gsw.rho_alpha_beta on a dense grid, checked in the tests).
+DRHO_DSA_BOUND = 1.0
+DRHO_DCT_BOUND = 0.75
+#: Where those bounds hold: SA (g/kg), CT (degC) and reference pressure (dbar) ranges.
+DECIDING_RANGE = {"SA": (0.0, 42.0), "CT": (-2.5, 40.0), "p_ref": (0.0, 11000.0)}
+#: Round-off allowance of a pair-mean density, kg m^-3.
+_ROUNDING = 1e-9
+
+
+def _pair_of(a: np.ndarray) -> np.ndarray:
+    """Pair mean along axis 1 of station values, as :func:`geostrophy.pair_mean` forms it."""
+    x = a[:, :-1]
+    y = a[:, 1:]
+    mean = 0.5 * (x + y)
+    return np.where(np.isnan(mean), np.where(np.isnan(x), y, x), mean)
+
+
+def _block_reduce(blocks: np.ndarray, op: np.ufunc) -> np.ndarray:
+    """``op`` (np.maximum, np.minimum, np.fmax) over the last axis, a power of two long,
+    as a tree of element-wise operations (much faster than a reduction along a short axis)."""
+    x = op(blocks[..., 0::2], blocks[..., 1::2])
+    while x.shape[-1] > 1:
+        x = op(x[..., 0::2], x[..., 1::2])
+    return x[..., 0]
+
+
+def deciding_densities(
+    sa: np.ndarray,
+    ct: np.ndarray,
+    interfaces: dict[float, Sequence[float]],
+    stride: int = 16,
+) -> dict[float, np.ndarray]:
+    """Pair-mean potential density wherever it can decide a class, for class weights.
+
+    Potential density is evaluated exactly at every ``stride``-th level. Within
+    a block of levels between two such levels, it cannot move further from
+    its value at the top of the block than ``DRHO_DSA_BOUND`` times the largest
+    change of SA plus ``DRHO_DCT_BOUND`` times the largest change of CT in the
+    block. Where that range holds no interface value, every level of the
+    block lies on the same side of every interface, and the block gets the
+    (exact) pair-mean value of its top level; everywhere else (a possible
+    crossing, the sea floor, water outside ``DECIDING_RANGE``) the density
+    is evaluated exactly. :func:`class_weights` of the result is therefore
+    identical to that of the full evaluation (``pair_mean`` of
+    :func:`potential_density_anomaly`), at a fraction of its cost; the values
+    themselves are exact only where they can decide a class.
+
+    Parameters
+    ----------
+    sa : ndarray (..., station, level)
+        Absolute Salinity, g/kg; NaN below the bottom.
+    ct : ndarray (..., station, level)
+        Conservative Temperature, degC; NaN below the bottom.
+    interfaces : dict of float -> sequence of float
+        Interface values (kg m^-3) by their reference pressure (dbar).
+    stride : int
+        Levels per block, a power of two.
+
+    Returns
+    -------
+    dict of float -> ndarray (..., pair, level)
+        Pair-mean potential density anomaly by reference pressure, kg m^-3:
+        exact where a class can change, a value of the same classes elsewhere.
+    """
+    sa = np.asarray(sa, dtype=float)
+    ct = np.asarray(ct, dtype=float)
+    shape = sa.shape
+    n_st, n_lev = shape[-2], shape[-1]
+    a_sa = sa.reshape(-1, n_st, n_lev)
+    a_ct = ct.reshape(-1, n_st, n_lev)
+    n_lead = a_sa.shape[0]
+    out_shape = shape[:-2] + (n_st - 1, n_lev)
+    n_blk = (n_lev - 1) // stride if stride > 1 and stride & (stride - 1) == 0 else 0
+    lo_p, hi_p = DECIDING_RANGE["p_ref"]
+    result = {}
+    if n_blk < 2 or n_st < 2:
+        for pr in interfaces:
+            sig = potential_density_anomaly(a_sa, a_ct, pr)
+            result[pr] = _pair_of(sig).reshape(out_shape)
+        return result
+    body = n_blk * stride
+    # station blocks [b s, (b+1) s], both ends included
+    e_sa = a_sa[..., 0 : body + 1 : stride]
+    e_ct = a_ct[..., 0 : body + 1 : stride]
+    blocks_sa = a_sa[..., :body].reshape(a_sa.shape[:2] + (n_blk, stride))
+    blocks_ct = a_ct[..., :body].reshape(a_ct.shape[:2] + (n_blk, stride))
+    # fmax skips NaN: NaN only for a block without any data (below the station's bottom);
+    # minimum keeps NaN, so a block with any missing value gets no bound
+    sa_max = np.fmax(_block_reduce(blocks_sa, np.fmax), e_sa[..., 1:])
+    empty = np.isnan(sa_max)
+    sa_min = np.minimum(_block_reduce(blocks_sa, np.minimum), e_sa[..., 1:])
+    ct_max = np.maximum(_block_reduce(blocks_ct, np.maximum), e_ct[..., 1:])
+    ct_min = np.minimum(_block_reduce(blocks_ct, np.minimum), e_ct[..., 1:])
+    top_sa, top_ct = e_sa[..., :-1], e_ct[..., :-1]
+    reach = (DRHO_DSA_BOUND * np.maximum(sa_max - top_sa, top_sa - sa_min)
+             + DRHO_DCT_BOUND * np.maximum(ct_max - top_ct, top_ct - ct_min) + _ROUNDING)
+    inside = ((sa_min >= DECIDING_RANGE["SA"][0]) & (sa_max <= DECIDING_RANGE["SA"][1])
+              & (ct_min >= DECIDING_RANGE["CT"][0]) & (ct_max <= DECIDING_RANGE["CT"][1]))
+    full = inside & np.isfinite(reach)  # data on every level of the block, bounds valid
+    emp_a, emp_b = empty[:, :-1], empty[:, 1:]
+    no_data = emp_a & emp_b
+    for pr, values in interfaces.items():
+        out = np.empty((n_lead, n_st - 1, n_lev))
+        # the levels after the last whole block, exactly
+        out[..., body:] = _pair_of(potential_density_anomaly(a_sa[..., body:], a_ct[..., body:],
+                                                             pr))
+        sig_top = potential_density_anomaly(top_sa, top_ct, pr)
+        out_blocks = out[..., :body].reshape(n_lead, n_st - 1, n_blk, stride)
+        out_blocks[...] = _pair_of(sig_top)[..., None]
+        if not lo_p <= pr <= hi_p:
+            undecided = np.ones(no_data.shape, dtype=bool)
+        else:
+            lo = np.where(full, sig_top - reach, np.nan)
+            hi = np.where(full, sig_top + reach, np.nan)
+            # pair blocks: both stations, or the one with data where the other has none
+            lo_a, lo_b, hi_a, hi_b = lo[:, :-1], lo[:, 1:], hi[:, :-1], hi[:, 1:]
+            pair_lo = np.where(emp_a, lo_b, np.where(emp_b, lo_a, 0.5 * (lo_a + lo_b)))
+            pair_hi = np.where(emp_a, hi_b, np.where(emp_b, hi_a, 0.5 * (hi_a + hi_b)))
+            with np.errstate(invalid="ignore"):
+                sides = np.ones(pair_lo.shape, dtype=bool)
+                for v in values:
+                    sides &= (pair_lo > v) | (pair_hi <= v)
+            undecided = ~(no_data | sides)
+        lead, pair, blk = np.nonzero(undecided)
+        if lead.size:
+            st = np.stack([pair, pair + 1], axis=-1)  # (block, 2)
+            rows = (lead[:, None], st, blk[:, None])
+            sig = potential_density_anomaly(blocks_sa[rows], blocks_ct[rows], pr)
+            out_blocks[lead, pair, blk] = _pair_of(sig)[:, 0]
+        result[pr] = out.reshape(out_shape)
+    return result
 
 
 def cell_thickness(p: np.ndarray, lat: np.ndarray) -> np.ndarray:

@@ -25,7 +25,6 @@ import xarray as xr
 from sectionkit.errors import SectionDataError
 from sectionkit.geometry import pair_geometry
 from sectionkit.geostrophy import (
-    dynamic_height,
     extend_into_bottom_triangle,
     last_valid_level,
     pair_level_limits,
@@ -38,8 +37,10 @@ from sectionkit.layers import (
     cell_thickness,
     check_interfaces,
     class_weights,
+    deciding_densities,
     potential_density_anomaly,
 )
+from sectionkit.thermo import specific_volume_pass
 
 RHO0 = 1025.0  # kg m^-3, Boussinesq reference density of DESIGN.md §4 (common practice)
 CP0 = 3991.86795711963  # J kg^-1 K^-1, TEOS-10 c_p0 (IOC, SCOR and IAPSO 2010; gsw.cp0 in C)
@@ -50,6 +51,26 @@ QUANTITY_UNITS = {
     "salt": "g kg-1 m3 s-1",  # rho SA v / RHO0
     "heat": "W",  # rho c_p0 CT v (potential enthalpy)
 }
+
+
+class PairDensities(dict):
+    """Pair-mean potential density anomaly by reference pressure, computed when first asked.
+
+    A dict of float -> ndarray (..., pair, level), kg m^-3 (``pair_mean`` of
+    :func:`sectionkit.layers.potential_density_anomaly` of the stations' SA
+    and CT); a missing reference pressure is computed on first access and kept.
+    """
+
+    def __init__(self, sa: np.ndarray, ct: np.ndarray) -> None:
+        super().__init__()
+        self.station_sa = sa
+        self.station_ct = ct
+
+    def __missing__(self, p_ref: float) -> np.ndarray:
+        value = pair_mean(potential_density_anomaly(self.station_sa, self.station_ct,
+                                                    float(p_ref)))
+        self[p_ref] = value
+        return value
 
 
 @dataclass
@@ -95,7 +116,9 @@ class SectionOperator:
     level_ekman : ndarray (pair, level)
         Fraction of each pair's Ekman volume transport carried at each level.
     sigma_pair : dict of float -> ndarray (..., pair, level)
-        Pair-mean potential density anomaly by reference pressure, kg m^-3.
+        Pair-mean potential density anomaly by reference pressure, kg m^-3
+        (a :class:`PairDensities`: each reference pressure is computed when
+        first asked for).
     class_salinity, class_temperature : ndarray (..., class)
         Area-weighted mean SA (g/kg) and CT (degC) of each class.
     """
@@ -207,9 +230,11 @@ class SectionOperator:
             ``sigma_pair``, completed; kg m^-3.
         """
         for pr in {c.sigma_p_ref for c in choices if c.kind == "isopycnal"} - set(self.sigma_pair):
-            self.sigma_pair[pr] = pair_mean(
-                potential_density_anomaly(self.extra["station_sa"], self.extra["station_ct"], pr)
-            )
+            if isinstance(self.sigma_pair, PairDensities):
+                self.sigma_pair[pr]  # computed on first access
+            else:
+                self.sigma_pair[pr] = pair_mean(potential_density_anomaly(
+                    self.extra["station_sa"], self.extra["station_ct"], pr))
         return self.sigma_pair
 
     def absolute_velocity(self, offset: np.ndarray, adjustment: np.ndarray | float = 0.0):
@@ -246,6 +271,7 @@ def build_operator(
     bathymetry: list | None = None,
     max_dp: float = 1.0,
     relative_velocity_of_pairs: np.ndarray | None = None,
+    salinity: str = "preformed",
 ) -> SectionOperator:
     """Build the linear transport operator of a section.
 
@@ -270,6 +296,11 @@ def build_operator(
         The velocity relative to the surface of this same section from an
         earlier build (``extra["v_rel"]``), m s^-1: a change of classes,
         bottom-triangle rule or Ekman depth then needs no new dynamic height.
+    salinity : {"preformed", "absolute"}
+        Salinity of the salt transports, class salinities and the freshwater
+        reference: Preformed Salinity S* (gsw.Sstar_from_SA; conserved, which
+        Absolute Salinity is not: IOC, SCOR and IAPSO 2010, TEOS-10 manual;
+        McDougall et al. 2012) or Absolute Salinity SA, g/kg.
 
     Returns
     -------
@@ -293,20 +324,33 @@ def build_operator(
     last = last_valid_level(sa + ct)
     common, deepest = pair_level_limits(last)
     if relative_velocity_of_pairs is None:
-        psi = dynamic_height(sa, ct, p, max_dp=max_dp)
-        v_rel = relative_velocity(psi, distance, f)
+        # one pass of the equation of state: dynamic height integrated from the specific
+        # volume anomaly, in-situ density as the reciprocal of the same specific volume
+        eos = specific_volume_pass(sa, ct, p, max_dp=max_dp)
+        v_rel = relative_velocity(eos.dynamic_height, distance, f)
         v_rel = np.where(np.arange(p.size) <= common[..., None], v_rel, np.nan)
+        rho_station = eos.in_situ_density(out=eos.anomaly)
+        del eos
     else:
         v_rel = relative_velocity_of_pairs
+        rho_station = gsw.rho(sa, ct, p)
     v_eff, response = extend_into_bottom_triangle(v_rel, p, common, deepest, bottom_triangle)
 
     sa_pair = pair_mean(sa)
     ct_pair = pair_mean(ct)
-    rho_pair = pair_mean(gsw.rho(sa, ct, p))
-    p_refs = sorted({face.p_ref for face in interfaces}) if interfaces else [0.0]
-    sigma_pair = {pr: pair_mean(potential_density_anomaly(sa, ct, pr)) for pr in p_refs}
+    salt_pair = pair_mean(budget_salinity(sa, p, section["lon"].values, section["lat"].values,
+                                          salinity))
+    rho_pair = pair_mean(rho_station)
+    del rho_station
+    # potential density only where it can decide a class (class weights identical to the
+    # full evaluation); the full pair-mean fields are computed when first asked for
+    by_p_ref: dict[float, list[float]] = {}
+    for face in interfaces:
+        by_p_ref.setdefault(face.p_ref, []).append(face.sigma)
+    deciding = deciding_densities(sa, ct, by_p_ref or {0.0: []})
     # one array per interface (no stacked copy of the large fields)
-    sigma_if = [sigma_pair[face.p_ref] for face in interfaces] or [sigma_pair[0.0]]
+    sigma_if = [deciding[face.p_ref] for face in interfaces] or [deciding[0.0]]
+    sigma_pair = PairDensities(sa, ct)
     # without interfaces one class holds everything: compare with an unreachable density
     values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([1e9])
 
@@ -319,7 +363,7 @@ def build_operator(
         weights = weights[..., :1, :]
 
     rho0 = _masked(rho_pair)
-    sa0 = _masked(sa_pair)
+    sa0 = _masked(salt_pair)  # the salinity of the salt budgets (S* or SA)
     ct0 = _masked(ct_pair)
     props = {
         "volume": np.ones_like(rho0),
@@ -387,10 +431,44 @@ def build_operator(
         mean_salinity=mean_salinity,
         ekman_depth=float(ekman_depth),
         bottom_triangle=bottom_triangle,
-        extra={"sa_pair": sa_pair, "ct_pair": ct_pair, "rho_pair": rho_pair,
+        extra={"sa_pair": sa_pair, "salt_pair": salt_pair, "salinity": salinity,
+               "ct_pair": ct_pair, "rho_pair": rho_pair,
                "class_moments": class_moments, "station_sa": sa, "station_ct": ct,
                "v_rel": v_rel, "section": section},
     )
+
+
+SALINITY_NAMES = {"preformed": "Preformed Salinity S*", "absolute": "Absolute Salinity SA"}
+
+
+def budget_salinity(
+    sa: np.ndarray, p: np.ndarray, lon: np.ndarray, lat: np.ndarray, salinity: str
+) -> np.ndarray:
+    """The salinity salt budgets are made of, on the station grid.
+
+    Parameters
+    ----------
+    sa : ndarray (..., station, level)
+        Absolute Salinity, g/kg.
+    p : ndarray (level,)
+        Pressure, dbar.
+    lon, lat : ndarray (station,)
+        Station positions, degrees_east and degrees_north.
+    salinity : {"preformed", "absolute"}
+        Preformed Salinity S* (gsw.Sstar_from_SA, TEOS-10) or SA itself.
+
+    Returns
+    -------
+    ndarray (..., station, level)
+        g/kg; NaN where SA is NaN.
+    """
+    if salinity == "absolute":
+        return sa
+    if salinity != "preformed":
+        raise SectionDataError(f"salinity = {salinity!r} is not one of "
+                               f"{', '.join(SALINITY_NAMES)}")
+    return gsw.Sstar_from_SA(sa, p, np.asarray(lon, float)[..., None],
+                             np.asarray(lat, float)[..., None])
 
 
 def _tail_thickness(

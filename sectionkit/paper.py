@@ -31,6 +31,8 @@ import numpy as np
 import pandas as pd
 
 from sectionkit.geostrophy import ReferenceChoice
+from sectionkit.layers import class_display_name, sigma_symbol
+from sectionkit.operator import SALINITY_NAMES
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.tables import tables
 
@@ -41,11 +43,13 @@ FIXED_DECIMALS: dict[str, int] = {
     "PW": 2,
     "Sv g/kg": 2,
     "m/s": 3,
+    "cm/s": 1,
     "km2": 0,
     "km": 1,
     "deg": 2,
     "dbar": 0,
     "1": 2,
+    "kmol/s": 0,
 }
 #: Most decimals ever quoted (guards against a vanishing error).
 MAX_DECIMALS = 8
@@ -71,6 +75,7 @@ _UNITS: dict[str, tuple[str, str]] = {
     "PW": ("PW", "PW"),
     "Sv g/kg": (r"Sv\,g\,kg$^{-1}$", "Sv g kg⁻¹"),
     "m/s": (r"m\,s$^{-1}$", "m s⁻¹"),
+    "cm/s": (r"cm\,s$^{-1}$", "cm s⁻¹"),
     "km2": (r"km$^{2}$", "km²"),
     "km": ("km", "km"),
     "degE": (r"$^{\circ}$E", "°E"),
@@ -78,14 +83,19 @@ _UNITS: dict[str, tuple[str, str]] = {
     "dbar": ("dbar", "dbar"),
     "kg/m3": (r"kg\,m$^{-3}$", "kg m⁻³"),
     "1": ("", ""),
+    "kmol/s": (r"kmol\,s$^{-1}$", "kmol s⁻¹"),
 }
-_SUBSCRIPT_DIGITS = str.maketrans("0123456789", "₀₁₂₃₄₅₆₇₈₉")
 
 
 # --------------------------------------------------------------------------- rounding
 def _leading_digit_and_exponent(x: float) -> tuple[int, int]:
-    """First significant digit and decimal exponent of ``x`` after rounding to 2 digits."""
-    mantissa, exponent = f"{abs(x):.1e}".split("e")
+    """First significant digit and decimal exponent of ``x`` itself (not of a rounded ``x``).
+
+    ``0.019993`` gives ``(1, -2)``: its first significant digit is 1, so it is
+    quoted with two significant digits (``0.020``), not rounded first to
+    ``0.02`` and quoted with one.
+    """
+    mantissa, exponent = f"{abs(x):.15e}".split("e")
     return int(mantissa[0]), int(exponent)
 
 
@@ -243,6 +253,8 @@ _TEX_UNICODE = {
     "°": r"$^{\circ}$",
     "⁻³": r"$^{-3}$",
     "⁻¹": r"$^{-1}$",
+    "ρ₀": r"$\rho_0$",
+    "σ₀": r"$\sigma_0$",
 }
 
 
@@ -262,20 +274,10 @@ def _num(x: float) -> str:
     return f"{float(x):.10g}"
 
 
-def _sigma_symbol(p_ref: float, tex: bool) -> str:
-    """Potential-density symbol for a reference pressure: sigma_0, sigma_2, sigma_1.5."""
-    sub = _num(p_ref / 1000.0)
-    if tex:
-        return rf"$\sigma_{{{sub}}}$"
-    if sub.isdigit():
-        return "σ" + sub.translate(_SUBSCRIPT_DIGITS)
-    return f"σ({_num(p_ref)} dbar)"
-
-
 def _interface_text(sigma: float, p_ref: float, tex: bool) -> str:
     if not np.isfinite(sigma):
         return "---" if tex else "—"
-    return f"{_sigma_symbol(p_ref, tex)} {_num(sigma)}"
+    return f"{sigma_symbol(p_ref, tex)} {_num(sigma)}"
 
 
 @dataclass
@@ -370,7 +372,7 @@ def _reference_phrase(ref: ReferenceChoice, tex: bool) -> str:
     if ref.kind == "bottom":
         return "level of no motion at the deepest common level"
     if ref.kind == "isopycnal":
-        return (f"level of no motion on the {_sigma_symbol(ref.sigma_p_ref, tex)} "
+        return (f"level of no motion on the {sigma_symbol(ref.sigma_p_ref, tex)} "
                 f"= {_num(ref.sigma)} {_unit('kg/m3', tex)} isopycnal")
     pm = r"$\pm$" if tex else "±"
     return (f"known velocity {_num(ref.velocity)} {pm} {_num(ref.velocity_error)} "
@@ -447,6 +449,21 @@ def reference_description(study: Study, results: Results, tex: bool = False) -> 
     return text
 
 
+def _direct_phrase(study: Study, tex: bool) -> str:
+    """How direct velocity profiles entered (empty when none did)."""
+    adcp = study.config.adcp
+    pairs = sum(int(np.isfinite(d.velocity).sum()) for d in study.direct.values())
+    if adcp is None or not pairs:
+        return ""
+    span = (f"{_num(adcp.pressure_range[0])}–{_num(adcp.pressure_range[1])} dbar"
+            if not tex else f"{_num(adcp.pressure_range[0])}--{_num(adcp.pressure_range[1])} dbar")
+    role = ("prior means (standard deviation the stated error "
+            f"{_num(adcp.error)} {_unit('m/s', tex)} and the standard error of the average)"
+            if adcp.use == "prior" else "known reference velocities")
+    return (f"; direct velocity profiles (LADCP/ADCP), rotated into the section normal and "
+            f"averaged over {span}, give {pairs} pairs {role}")
+
+
 def inverse_description(study: Study, results: Results, tex: bool = False) -> str:
     """Sentence on the inverse: solver, constraints, priors, noise, known transports.
 
@@ -486,12 +503,13 @@ def inverse_description(study: Study, results: Results, tex: bool = False) -> st
     text += "; prior standard deviations " + ", ".join(priors)
     noise = [f"{_num(inv.noise_total)} Sv (total mass)"]
     if inv.noise_layer:
-        names = ", ".join(esc(n) for n in study.config.layer_names) or "classes"
+        names = ", ".join(esc(class_display_name(n)) for n in study.config.layer_names) \
+            or "classes"
         noise.append(f"{', '.join(_num(x) for x in inv.noise_layer)} Sv ({names})")
     text += "; noise " + ", ".join(noise)
     if inv.known:
         listed = "; ".join(f"{esc(k.name)} {_num(k.transport)} {pm} {_num(k.noise)} Sv "
-                           f"({esc(k.layer)})" for k in inv.known)
+                           f"({esc(class_display_name(k.layer))})" for k in inv.known)
         text += f"; known transports {listed}"
     if inv.section_net:
         listed = "; ".join(f"{esc(n.section)} {_num(n.transport)} {pm} {_num(n.noise)} Sv"
@@ -499,15 +517,20 @@ def inverse_description(study: Study, results: Results, tex: bool = False) -> st
         text += f"; net transport constrained across {listed}"
     if inv.noise_salt:
         text += f"; salt-anomaly noise {', '.join(_num(x) for x in inv.noise_salt)} Sv g/kg"
+    text += _direct_phrase(study, tex)
     text += ". Errors are one posterior standard deviation."
     return text
 
 
+def study_setup(study: Study, results: Results, tex: bool = False) -> str:
+    """The study setup (references, bottom triangles, Ekman, inverse), said once for all tables."""
+    text = " ".join([reference_description(study, results, tex),
+                     inverse_description(study, results, tex)]).strip()
+    return _tex_text(text) if tex else text
+
+
 def _caption(first: str, body: str, study: Study, results: Results, tex: bool) -> str:
-    text = " ".join(
-        [first, body, reference_description(study, results, tex),
-         inverse_description(study, results, tex)]
-    ).strip()
+    text = " ".join([first, body, "Setup: see the note under the tables."]).strip()
     return _tex_text(text) if tex else text
 
 
@@ -520,79 +543,112 @@ def _err(value: float) -> float | None:
     return None if value is None or not np.isfinite(value) else float(value)
 
 
-def _layer_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
-    title = "Transport by density class across each section."
+def _class_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
+    title = "Volume transport by density class across each section."
+    inverse = results.inverse is not None
 
     def caption(tex: bool) -> str:
         sigma = r"$\sigma_n$" if tex else "σₙ"
-        body = ("Initial values use the chosen references; adjusted values include the "
-                "inverse's reference-velocity adjustments. Transports are in the section's "
-                "own frame (positive to the left of increasing station order). Class bounds "
-                f"are potential density anomalies ({_unit('kg/m3', tex)}), {sigma} referenced "
-                f"to n × 1000 dbar; area is the cross-sectional area of the class.")
+        rho0 = r"$\rho_0$" if tex else "ρ₀"
+        body = ("These are volume transports; the inverse balances mass transports "
+                f"(divided by {rho0} = 1025 {_unit('kg/m3', tex)}), which differ from them "
+                "by the density variations within each class. "
+                + ("Initial values use the chosen references; adjusted values include the "
+                   "inverse's reference-velocity adjustments. " if inverse else
+                   "Values use the chosen references (no inverse). ")
+                + "Transports are in the section's own frame (positive to the left of "
+                "increasing station order). Class bounds are potential density anomalies "
+                f"({_unit('kg/m3', tex)}), {sigma} referenced to n × 1000 dbar; the lighter "
+                "bound is the top of the class. Area is the cross-sectional area of the class.")
         return _caption(title, body, study, results, tex)
 
     cols = [
         Column("Section", "Section", False),
         Column("Class", "Class", False),
-        Column(f"Upper bound ({_unit('kg/m3', True)})", f"Upper bound ({_unit('kg/m3', False)})",
-               False),
-        Column(f"Lower bound ({_unit('kg/m3', True)})", f"Lower bound ({_unit('kg/m3', False)})",
-               False),
+        Column(f"Lighter bound ({_unit('kg/m3', True)})",
+               f"Lighter bound ({_unit('kg/m3', False)})", False),
+        Column(f"Denser bound ({_unit('kg/m3', True)})",
+               f"Denser bound ({_unit('kg/m3', False)})", False),
         Column(f"Area ({_unit('km2', True)})", f"Area ({_unit('km2', False)})"),
-        Column("Initial (Sv)", "Initial (Sv)"),
-        Column("Adjusted (Sv)", "Adjusted (Sv)"),
+        Column("Initial volume (Sv)" if inverse else "Volume (Sv)",
+               "Initial volume (Sv)" if inverse else "Volume (Sv)"),
     ]
+    if inverse:
+        cols.append(Column("Adjusted volume (Sv)", "Adjusted volume (Sv)"))
     rows = []
-    for r in df.itertuples(index=False):
-        rows.append([
+    for r in df.rename(columns={"class": "class_name"}).itertuples(index=False):
+        row = [
             Cell.text(r.section),
-            Cell.text(r.layer),
+            Cell.text(class_display_name(r.class_name)),
             Cell.text("", *_both(_interface_text, r.sigma_top, r.p_ref_top)),
             Cell.text("", *_both(_interface_text, r.sigma_bottom, r.p_ref_bottom)),
             Cell.number(r.area_km2, None, "km2"),
             Cell.number(r.initial_sv, None, "Sv"),
-            Cell.number(r.adjusted_sv, _err(r.adjusted_err_sv), "Sv"),
-        ])
-    return PaperTable("layer_transports", title, caption(True), caption(False), cols, rows)
+        ]
+        if inverse:
+            row.append(Cell.number(r.adjusted_sv, _err(r.adjusted_err_sv), "Sv"))
+        rows.append(row)
+    return PaperTable("class_transports", title, caption(True), caption(False), cols, rows)
 
 
 def _pair_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
-    title = "Reference-velocity adjustment of each station pair."
+    inverse = results.inverse is not None
+    title = ("Reference level and reference-velocity adjustment of each station pair."
+             if inverse else "Reference level of each station pair.")
 
     def caption(tex: bool) -> str:
-        body = ("Position is the pair mid-point; the reference pressure is the one actually "
-                "used (the deepest common level where the chosen one lies deeper). The "
-                "adjustment is added to the velocity at every level the reference reaches, "
-                "positive to the left of increasing station order.")
+        body = ("Pair k lies between the two stations named; position is the pair mid-point; "
+                "the reference pressure is the level of the reference actually used (the "
+                "deepest common level where the chosen one lies deeper).")
+        if inverse:
+            body += (" The adjustment is added to the velocity at every level, positive to the "
+                     "left of increasing station order.")
         return _caption(title, body, study, results, tex)
 
     cols = [
         Column("Section", "Section", False),
         Column("Pair", "Pair"),
+        Column("Stations", "Stations", False),
         Column(f"Longitude ({_unit('degE', True)})", f"Longitude ({_unit('degE', False)})"),
         Column(f"Latitude ({_unit('degN', True)})", f"Latitude ({_unit('degN', False)})"),
         Column("Spacing (km)", "Spacing (km)"),
         Column("Reference", "Reference", False),
-        Column(r"$p_{\mathrm{ref}}$ (dbar)", "p_ref (dbar)"),
-        Column(f"Adjustment ({_unit('m/s', True)})", f"Adjustment ({_unit('m/s', False)})"),
+        Column("Reference pressure (dbar)", "Reference pressure (dbar)"),
     ]
+    if inverse:
+        cols.append(Column(f"Adjustment ({_unit('cm/s', True)})",
+                           f"Adjustment ({_unit('cm/s', False)})"))
     rows = []
     for r in df.itertuples(index=False):
-        rows.append([
+        row = [
             Cell.text(r.section),
             Cell(value=str(int(r.pair))),
+            Cell.text(f"{r.first_station}–{r.second_station}",
+                      f"{latex_escape(str(r.first_station))}--"
+                      f"{latex_escape(str(r.second_station))}"),
             Cell.number(r.lon, None, "deg"),
             Cell.number(r.lat, None, "deg"),
             Cell.number(r.distance_km, None, "km"),
-            Cell.text(r.ref_kind),
+            Cell.text(_REFERENCE_KIND_TEXT.get(str(r.ref_kind), str(r.ref_kind))),
             Cell.number(r.ref_pressure, None, "dbar"),
-            Cell.number(r.adjustment_m_s, _err(r.adjustment_err_m_s), "m/s"),
-        ])
+        ]
+        if inverse:  # m s^-1 in the CSV, cm s^-1 in print
+            err = _err(r.adjustment_err_m_s)
+            row.append(Cell.number(100.0 * r.adjustment_m_s,
+                                   None if err is None else 100.0 * err, "cm/s"))
+        rows.append(row)
     return PaperTable("pair_adjustments", title, caption(True), caption(False), cols, rows)
 
 
 _ROW_UNITS = {"Sv": "Sv", "Sv g/kg": "Sv g/kg", "PW": "PW"}
+_REFERENCE_KIND_TEXT = {"pressure": "pressure", "bottom": "deepest common",
+                        "isopycnal": "isopycnal", "velocity": "known velocity"}
+
+
+def _constraint_text(constraint: str) -> str:
+    """``mass:deep_water`` as printed: ``mass, deep water``."""
+    kind, _, what = constraint.partition(":")
+    return f"{kind}, {class_display_name(what)}" if what else kind
 
 
 def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
@@ -602,7 +658,8 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
         body = ("Net inflow into each box (positive in), initial and adjusted, with the "
                 "constraint's a priori noise; the normalized residual is adjusted / noise. "
                 "Values are rounded to the precision of the noise. Salt rows are salt-anomaly "
-                "transports relative to each class's mean salinity.")
+                f"transports of {SALINITY_NAMES[study.config.salt_salinity]} relative to each "
+                "class's mean; a diapycnal transfer carries the mean of its two classes.")
         return _caption(title, body, study, results, tex)
 
     cols = [
@@ -622,7 +679,7 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
             decimals = FIXED_DECIMALS[unit]
         rows.append([
             Cell.text(r.box),
-            Cell.text(r.constraint),
+            Cell.text(_constraint_text(str(r.constraint))),
             Cell.text("", _unit(unit, True), _unit(unit, False)),
             Cell(value=format_fixed(r.initial, decimals)),
             Cell(value=format_fixed(r.adjusted, decimals)),
@@ -640,11 +697,13 @@ def _summary_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTab
 
     def caption(tex: bool) -> str:
         esc = latex_escape if tex else markdown_escape
-        body = ("Net volume and mass (divided by 1025 kg m⁻³) transports; heat is the "
+        body = ("Net volume transport and net mass transport divided by ρ₀ = 1025 kg m⁻³; "
+                "heat is the "
                 "potential-enthalpy transport; freshwater is relative to "
-                + ("the section's mean Absolute Salinity"
+                + (f"the section's mean {SALINITY_NAMES[study.config.salt_salinity]}"
                    if study.config.reference_salinity is None
-                   else f"{_num(study.config.reference_salinity)} g kg⁻¹")
+                   else f"{_num(study.config.reference_salinity)} g kg⁻¹ of "
+                   + SALINITY_NAMES[study.config.salt_salinity])
                 + "; overturning is the extreme of the streamfunction accumulated from the "
                 "surface in depth and from the lightest class in density. Section frame: "
                 "positive to the left of increasing station order.")
@@ -656,8 +715,8 @@ def _summary_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTab
 
     cols = [
         Column("Section", "Section", False),
-        Column("Net (Sv)", "Net (Sv)"),
-        Column("Net mass (Sv)", "Net mass (Sv)"),
+        Column("Net volume (Sv)", "Net volume (Sv)"),
+        Column(r"Net mass$/\rho_0$ (Sv)", "Net mass/ρ₀ (Sv)"),
         Column("Heat (PW)", "Heat (PW)"),
         Column("Freshwater (Sv)", "Freshwater (Sv)"),
         Column("Overturning, depth (Sv)", "Overturning, depth (Sv)"),
@@ -668,7 +727,7 @@ def _summary_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTab
         rows.append([
             Cell.text(r.section),
             Cell.number(r.net_sv, _err(r.net_err_sv), "Sv"),
-            Cell.number(r.net_mass_sv, None, "Sv"),
+            Cell.number(r.net_mass_sv, _err(getattr(r, "net_mass_err_sv", np.nan)), "Sv"),
             Cell.number(r.heat_pw, _err(r.heat_err_pw), "PW"),
             Cell.number(r.freshwater_sv, _err(r.freshwater_err_sv), "freshwater Sv"),
             Cell.number(r.overturning_sv, _err(r.overturning_err_sv), "Sv"),
@@ -694,7 +753,7 @@ def _transfer_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTa
     cols = [
         Column("Unknown", "Unknown", False),
         Column("Between", "Between", False),
-        Column("Prior", "Prior"),
+        Column("Prior std", "Prior std"),
         Column("Estimate", "Estimate"),
         Column("Resolution", "Resolution"),
     ]
@@ -704,9 +763,10 @@ def _transfer_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTa
             continue
         if r.kind == "diapycnal_transfer":
             n = int(str(r.unknown).rsplit(":W", 1)[1])
-            between = f"{names[n]} / {names[n + 1]}"
-            between_tex = f"{latex_escape(names[n])} / {latex_escape(names[n + 1])}"
-            between_md = f"{markdown_escape(names[n])} / {markdown_escape(names[n + 1])}"
+            lighter, denser = class_display_name(names[n]), class_display_name(names[n + 1])
+            between = f"{lighter} / {denser}"
+            between_tex = f"{latex_escape(lighter)} / {latex_escape(denser)}"
+            between_md = f"{markdown_escape(lighter)} / {markdown_escape(denser)}"
             label = f"W across {_interface_text(faces[n].sigma, faces[n].p_ref, False)}"
             label_tex = (f"$W$ across {_interface_text(faces[n].sigma, faces[n].p_ref, True)}")
             box = str(r.unknown).rsplit(":W", 1)[0]
@@ -732,6 +792,44 @@ def _transfer_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTa
                       empty_note="No diapycnal or Ekman unknowns in this inverse.")
 
 
+def _property_table(study: Study, results: Results) -> PaperTable:
+    """Bottle-tracer transports by class, with each section's total."""
+    title = "Tracer transports by density class across each section."
+
+    def caption(tex: bool) -> str:
+        unit = _unit("kmol/s", tex)
+        body = (f"Transport of each bottle tracer ({unit}): in-situ density times "
+                "concentration (µmol kg⁻¹) times the absolute velocity, integrated over the "
+                "class, through the same operator as volume and salt; bottle profiles are "
+                "PCHIP interpolations between good bottles (WOCE flags 2 and 6; 3, 7 and 8 "
+                "with a caution), extended unchanged above the shallowest and below the "
+                "deepest bottle. Section frame: positive to the left of increasing station "
+                "order.")
+        return _caption(title, body, study, results, tex)
+
+    cols = [
+        Column("Section", "Section", False),
+        Column("Tracer", "Tracer", False),
+        Column("Class", "Class", False),
+        Column(f"Initial ({_unit('kmol/s', True)})", f"Initial ({_unit('kmol/s', False)})"),
+        Column(f"Adjusted ({_unit('kmol/s', True)})", f"Adjusted ({_unit('kmol/s', False)})"),
+    ]
+    rows = []
+    for name, out in results.tracers.items():
+        adjusted = out.value(results.estimate)
+        err = out.std(results.covariance)
+        for k, label in enumerate(out.names):
+            tracer, _, layer = label.partition(":")
+            rows.append([
+                Cell.text(name),
+                Cell.text(tracer),
+                Cell.text("all classes" if layer == "total" else layer),
+                Cell.number(out.initial[k], None, "kmol/s"),
+                Cell.number(adjusted[k], _err(err[k]), "kmol/s"),
+            ])
+    return PaperTable("property_transports", title, caption(True), caption(False), cols, rows)
+
+
 def paper_tables(study: Study, results: Results) -> list[PaperTable]:
     """The four §7 tables, rounded and captioned, in the order of DESIGN.md §7.
 
@@ -746,17 +844,21 @@ def paper_tables(study: Study, results: Results) -> list[PaperTable]:
     -------
     list of PaperTable
         Class transports, pair adjustments, box budget, section summary, and
-        (when an inverse ran) its diapycnal transfers and Ekman adjustments.
+        (when an inverse ran) its diapycnal transfers and Ekman adjustments,
+        and (when tracers are configured) the tracer transports.
     """
     frames = tables(study, results)
     out = [
-        _layer_table(frames["layer_transports.csv"], study, results),
+        _class_table(frames["class_transports.csv"], study, results),
         _pair_table(frames["pair_adjustments.csv"], study, results),
-        _box_table(frames["box_budget.csv"], study, results),
-        _summary_table(frames["section_summary.csv"], study, results),
     ]
+    if results.inverse is not None:  # inverse-only tables: nothing to show without one
+        out.append(_box_table(frames["box_budget.csv"], study, results))
+    out.append(_summary_table(frames["section_summary.csv"], study, results))
     if results.inverse is not None:
         out.append(_transfer_table(frames["inverse_unknowns.csv"], study, results))
+    if results.tracers:
+        out.append(_property_table(study, results))
     return out
 
 
@@ -874,7 +976,7 @@ def _latex_table(table: PaperTable, number: int) -> str:
     return "\n".join(out) + "\n"
 
 
-def to_latex(tables: Sequence[PaperTable], title: str = "") -> str:
+def to_latex(tables: Sequence[PaperTable], title: str = "", note: str = "") -> str:
     """All tables as one LaTeX fragment (booktabs rules, siunitx S columns).
 
     Parameters
@@ -883,6 +985,8 @@ def to_latex(tables: Sequence[PaperTable], title: str = "") -> str:
         From :func:`paper_tables`.
     title : str
         Study title, written in a comment.
+    note : str
+        LaTeX text of the study setup, printed once under the tables.
 
     Returns
     -------
@@ -900,6 +1004,9 @@ def to_latex(tables: Sequence[PaperTable], title: str = "") -> str:
     parts = ["\n".join(head)]
     for n, t in enumerate(tables, start=1):
         parts.append(_latex_table(t, n))
+    if note:
+        parts.append("% Study setup, common to every table above\n"
+                     rf"\paragraph{{Note on the tables.}} {note}" + "\n")
     return "\n".join(parts)
 
 
@@ -915,7 +1022,7 @@ def _markdown_table(table: PaperTable, number: int) -> str:
     return "\n".join(lines) + "\n"
 
 
-def to_markdown(tables: Sequence[PaperTable], title: str = "") -> str:
+def to_markdown(tables: Sequence[PaperTable], title: str = "", note: str = "") -> str:
     """All tables as Markdown pipe tables with their captions.
 
     Parameters
@@ -924,6 +1031,8 @@ def to_markdown(tables: Sequence[PaperTable], title: str = "") -> str:
         From :func:`paper_tables`.
     title : str
         Study title, used as the heading.
+    note : str
+        Markdown text of the study setup, printed once under the tables.
 
     Returns
     -------
@@ -932,6 +1041,8 @@ def to_markdown(tables: Sequence[PaperTable], title: str = "") -> str:
     parts = [f"# {markdown_escape(title) or 'sectionkit'}: tables", ""]
     for n, t in enumerate(tables, start=1):
         parts.append(_markdown_table(t, n))
+    if note:
+        parts.append(f"**Note on the tables.** {note}\n")
     return "\n".join(parts)
 
 
@@ -958,8 +1069,10 @@ def write_paper_tables(study: Study, results: Results, folder: str | Path) -> li
     title = " ".join(study.config.title.split())  # one line: it goes into a comment
     tex = folder / "tables.tex"
     md = folder / "tables.md"
-    tex.write_text(to_latex(tables, title), encoding="utf-8", newline="\n")
-    md.write_text(to_markdown(tables, title), encoding="utf-8", newline="\n")
+    tex.write_text(to_latex(tables, title, study_setup(study, results, True)), encoding="utf-8",
+                   newline="\n")
+    md.write_text(to_markdown(tables, title, study_setup(study, results, False)),
+                  encoding="utf-8", newline="\n")
     return [tex, md]
 
 

@@ -12,10 +12,8 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
 import platform
 import shutil
-import tempfile
 from collections.abc import Callable
 from datetime import datetime, timezone
 from importlib import metadata
@@ -24,13 +22,16 @@ from pathlib import Path
 import pandas as pd
 
 from sectionkit.config import Config, parse_config
+from sectionkit.dataset import write_results_nc
 from sectionkit.errors import InputFileError
 from sectionkit.figures import write_figures
+from sectionkit.operator import SALINITY_NAMES
+from sectionkit.outdir import PROVENANCE, check_output_folder, new_partial_folder, swap_in
 from sectionkit.paper import write_paper_tables
 from sectionkit.study import Results, Study
 from sectionkit.tables import (  # noqa: F401  (re-exported: the §7 tables)
     box_table,
-    layer_table,
+    class_table,
     pair_table,
     summary_table,
     tables,
@@ -60,27 +61,74 @@ def _package_versions() -> dict[str, str]:
     return out
 
 
-def provenance(study: Study, results: Results) -> dict:
-    """Full resolved configuration, input hashes, package versions and time."""
-    cfg = study.config
-    files = {}
+def input_files(cfg: Config) -> tuple[list[Path], dict[str, list[str]]]:
+    """Every input file a configuration reads, and the file list of each folder it names.
+
+    Parameters
+    ----------
+    cfg : Config
+        The configuration.
+
+    Returns
+    -------
+    files : list of Path
+        Section files (each file of a per-cast folder), bathymetry tracks, in
+        configuration order.
+    folders : dict of str -> list of str
+        Per-cast folder to the names of the files read from it, in reading order.
+    """
+    from sectionkit.io.casts import source_files
+
+    files: list[Path] = []
+    folders: dict[str, list[str]] = {}
     for spec in cfg.sections:
         for path in cfg.section_paths(spec):
             if path.is_dir():
-                for p in sorted(path.iterdir()):
-                    if p.is_file():
-                        files[str(p)] = sha256(p)
-            elif path.exists():
-                files[str(path)] = sha256(path)
-    return {
+                try:
+                    names = [Path(f) for f in source_files(str(path))]
+                except InputFileError:
+                    names = []
+                folders[str(path)] = [f.name for f in names]
+                files.extend(names)
+            else:
+                files.append(path)
+        if spec.bathymetry:
+            files.append(cfg.base_dir / spec.bathymetry)
+        for extra in (spec.bottle, spec.adcp):  # bottle tracers, direct velocities
+            if extra:
+                files.append(cfg.base_dir / extra)
+    return files, folders
+
+
+def provenance(study: Study, results: Results, outputs: list[str] | None = None) -> dict:
+    """Full resolved configuration, input hashes, package versions and time.
+
+    Parameters
+    ----------
+    study : Study
+        The study.
+    results : Results
+        Its results.
+    outputs : list of str, optional
+        The files of the result set (relative paths), this one included.
+    """
+    cfg = study.config
+    paths, folders = input_files(cfg)
+    files = {str(p): sha256(p) for p in paths if p.is_file()}
+    record = {
         "configuration": cfg.to_dict(),
         "configuration_dir": str(cfg.base_dir),
         "input_sha256": files,
+        "input_folders": folders,
         "packages": _package_versions(),
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
         "cautions": [str(c) for c in results.cautions],
         "inverse": results.inverse.summary() if results.inverse else None,
+        "salt_salinity": SALINITY_NAMES[cfg.salt_salinity],
     }
+    if outputs is not None:
+        record["outputs"] = sorted(outputs)
+    return record
 
 
 def load_provenance(path: str | Path, check_inputs: bool = True) -> Config:
@@ -111,6 +159,8 @@ def load_provenance(path: str | Path, check_inputs: bool = True) -> Config:
             "provenance.json or a TOML configuration"
         ) from None
     if check_inputs:
+        for folder, names in (record.get("input_folders") or {}).items():
+            _check_folder(path, folder, names)
         for name, digest in record.get("input_sha256", {}).items():
             if not Path(name).is_file():
                 raise InputFileError(f"{path}: input file {name} of the recorded run is missing; "
@@ -122,6 +172,28 @@ def load_provenance(path: str | Path, check_inputs: bool = True) -> Config:
                     "to reproduce the run"
                 )
     return parse_config(data, base_dir=base)
+
+
+def _check_folder(record_path: Path, folder: str, names: list[str]) -> None:
+    """Refuse a per-cast folder whose list of files differs from the recorded run's."""
+    from sectionkit.io.casts import source_files
+
+    if not Path(folder).is_dir():
+        raise InputFileError(f"{record_path}: input folder {folder} of the recorded run is "
+                             "missing; restore it to reproduce the run")
+    try:
+        now = [Path(f).name for f in source_files(folder)]
+    except InputFileError:
+        now = []
+    added = [n for n in now if n not in names]
+    missing = [n for n in names if n not in now]
+    if added or missing:
+        what = "; ".join(part for part in (
+            f"added since: {', '.join(added)}" if added else "",
+            f"missing now: {', '.join(missing)}" if missing else "") if part)
+        raise InputFileError(f"{record_path}: the files of input folder {folder} differ from "
+                             f"the recorded run ({what}); restore the folder as it was to "
+                             "reproduce the run")
 
 
 def _write_csv(df: pd.DataFrame, path: Path) -> None:
@@ -150,9 +222,10 @@ def write_outputs(
 ) -> list[Path]:
     """Write every §7 file into ``out_dir`` atomically.
 
-    Everything is written into a temporary folder beside ``out_dir``; only
-    when all writers succeeded are the files moved into ``out_dir``. A failure
-    leaves ``out_dir`` as it was.
+    Everything is written into a temporary folder beside ``out_dir`` that
+    replaces ``out_dir`` as a whole when all writers succeeded
+    (:mod:`sectionkit.outdir`): a failure leaves ``out_dir`` as it was, and
+    ``out_dir`` never mixes two runs.
 
     Parameters
     ----------
@@ -161,7 +234,8 @@ def write_outputs(
     results : Results
         Its results.
     out_dir : str or Path
-        Destination folder (created when missing).
+        Destination folder (created when missing; refused when it holds files
+        sectionkit did not write).
     extras : list of callables, optional
         Further writers ``f(study, results, folder)`` (tables, figures).
 
@@ -170,23 +244,20 @@ def write_outputs(
     list of Path
         The files written, relative to ``out_dir``.
     """
-    out_dir = Path(out_dir).resolve()
-    out_dir.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+    out = check_output_folder(out_dir)
+    tmp = new_partial_folder(out)
     try:
         for name, df in tables(study, results).items():
             _write_csv(df, tmp / name)
+        write_results_nc(study, results, tmp)
         for writer in extras or []:
             writer(study, results, tmp)
-        (tmp / "provenance.json").write_text(
-            json.dumps(provenance(study, results), indent=2, sort_keys=True, default=str) + "\n"
-        )
         written = sorted(p.relative_to(tmp) for p in tmp.rglob("*") if p.is_file())
-        out_dir.mkdir(exist_ok=True)
-        for rel in written:
-            target = out_dir / rel
-            target.parent.mkdir(parents=True, exist_ok=True)
-            os.replace(tmp / rel, target)
+        written = sorted(written + [Path(PROVENANCE)])
+        record = provenance(study, results, [p.as_posix() for p in written])
+        # keys in configuration order: the order of [ekman] stress sets the Ekman unknowns
+        (tmp / PROVENANCE).write_text(json.dumps(record, indent=2, default=str) + "\n")
+        swap_in(tmp, out)
         return written
     finally:
         shutil.rmtree(tmp, ignore_errors=True)

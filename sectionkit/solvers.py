@@ -413,7 +413,9 @@ class _LinearSolver:
 
     # -- public ------------------------------------------------------------
 
-    def fit(self: _SolverT, E: ArrayLike, y: ArrayLike) -> _SolverT:
+    def fit(
+        self: _SolverT, E: ArrayLike, y: ArrayLike, prior_mean: ArrayLike | None = None
+    ) -> _SolverT:
         """Estimate the unknowns from ``E x + n = y``.
 
         Parameters
@@ -423,6 +425,12 @@ class _LinearSolver:
             each unknown, units of ``y`` per unit of ``x``.
         y : array_like (M,)
             Constraint data (what ``E x`` should equal up to noise), units of ``y``.
+        prior_mean : array_like (K,), optional
+            Prior mean ``x0`` of the unknowns (zero when None), units of ``x``.
+            The solver estimates ``x - x0`` from ``y - E x0`` with the same
+            prior covariance, so for Gauss–Markov
+            ``x_hat = x0 + R E^T (E R E^T + N)^-1 (y - E x0)`` and ``P`` is
+            unchanged (Wunsch 1996, chapter 3); bounds still apply to ``x``.
 
         Returns
         -------
@@ -452,9 +460,26 @@ class _LinearSolver:
             "constraint",
             f"E has {m} rows (constraints) and y has {m} values",
         )
-        estimate, covariance, gain = self._solve(E, y, prior, noise)
-        self._finish(E, y, prior, noise, estimate, covariance, gain)
+        x0 = self._check_prior_mean(prior_mean, k)
+        self._prior_mean = x0
+        estimate, covariance, gain = self._solve(E, y - E @ x0, prior, noise)
+        self._finish(E, y, prior, noise, estimate + x0, covariance, gain)
         return self
+
+    @staticmethod
+    def _check_prior_mean(prior_mean: ArrayLike | None, k: int) -> Array:
+        if prior_mean is None:
+            return np.zeros(k)
+        x0 = np.asarray(prior_mean, dtype=float)
+        if x0.shape != (k,):
+            raise ConfigError(
+                f"prior_mean has shape {x0.shape} but E has {k} columns; give one prior mean "
+                f"per unknown (shape ({k},))"
+            )
+        if not np.all(np.isfinite(x0)):
+            i = int(np.flatnonzero(~np.isfinite(x0))[0])
+            raise ConfigError(f"prior_mean[{i}] = {float(x0[i])} is not finite")
+        return x0
 
     # -- to implement ------------------------------------------------------
 
@@ -527,7 +552,8 @@ class _LinearSolver:
         resid_factor = data_factor - self.data_resolution @ data_factor  # (I - T_u) L
         self.residual_covariance = resid_factor @ resid_factor.T
         chi_res = float(np.sum(noise.factor_solve(self.residuals) ** 2))
-        chi_est = float(np.sum(prior.factor_solve(estimate) ** 2))
+        # the estimate measured against the prior: its departure from the prior mean
+        chi_est = float(np.sum(prior.factor_solve(estimate - self._prior_mean) ** 2))
         exp_res = float(np.sum(noise.factor_solve(resid_factor) ** 2))
         exp_est = float(np.sum(prior.factor_solve(gain @ data_factor) ** 2))
         self.chi2 = ChiSquared(
@@ -862,6 +888,8 @@ class BoundedLeastSquares(_LinearSolver):
     ) -> tuple[Array, Array, Array]:
         m, k = E.shape
         lower, upper = self._bounds(k)
+        # fit() hands over the departure from the prior mean: shift the bounds with it
+        lower, upper = lower - self._prior_mean, upper - self._prior_mean
         z = noise.factor_solve(E)  # W^-1 E
         stacked = np.vstack([z, prior.inverse_factor()])  # [W^-1 E; S^-1]
         rhs = np.concatenate([noise.factor_solve(y), np.zeros(k)])

@@ -17,14 +17,17 @@ import pandas as pd
 import xarray as xr
 
 from sectionkit.budget import LinearOutputs, UnknownLayout, make_layout, section_outputs
-from sectionkit.config import Config
+from sectionkit.config import Config, check_pair_labels
+from sectionkit.direct import DirectReference, direct_reference
 from sectionkit.errors import Cautions, ConfigError, InputFileError
 from sectionkit.geometry import great_circle_distance
 from sectionkit.geostrophy import resolve_references
 from sectionkit.inverse import InverseResult, assemble, solve
 from sectionkit.io import load_section
-from sectionkit.io.validate import check_pair_latitudes
+from sectionkit.io.adcp import read_velocity_profiles
+from sectionkit.io.validate import check_gridded_levels, check_pair_latitudes
 from sectionkit.operator import SectionOperator, build_operator
+from sectionkit.tracers import TracerOperator, build_tracer_operator, tracer_outputs
 
 NET_MASS_HEAT_TOLERANCE = 0.1  # Sv: above it, heat is reported as a temperature transport
 
@@ -48,6 +51,7 @@ class Results:
     outputs: dict[str, LinearOutputs]
     inverse: InverseResult | None
     cautions: Cautions
+    tracers: dict[str, LinearOutputs] = field(default_factory=dict)  # kmol s^-1 per section
 
     @property
     def estimate(self) -> np.ndarray:
@@ -96,6 +100,8 @@ class Study:
     sections: dict[str, xr.Dataset] = field(default_factory=dict)
     operators: dict[str, SectionOperator] = field(default_factory=dict)
     load_cautions: Cautions = field(default_factory=Cautions)
+    tracer_operators: dict[str, TracerOperator] = field(default_factory=dict)
+    direct: dict[str, DirectReference] = field(default_factory=dict)
 
     @classmethod
     def from_config(
@@ -123,6 +129,7 @@ class Study:
                 check_pair_latitudes(spec.name, [str(s) for s in ds["station"].values],
                                      ds["lon"].values, ds["lat"].values, config.allow_equator,
                                      study.load_cautions)
+                check_gridded_levels(ds)
                 study.sections[spec.name] = ds
                 continue
             if progress:
@@ -133,10 +140,14 @@ class Study:
                 name=spec.name,
                 dp=config.dp,
                 allow_equator=config.allow_equator,
-                columns=spec.columns or None,
+                **spec.csv_options(),
+                order=spec.stations,
+                bottle=None if not spec.bottle else str(config.base_dir / spec.bottle),
             )
             study.sections[spec.name] = ds
             study.load_cautions.extend(cautions)
+        check_pair_labels(config, {name: ds.sizes["station"] - 1
+                                   for name, ds in study.sections.items()})
         study.rebuild_operators(progress)
         return study
 
@@ -166,7 +177,21 @@ class Study:
                 ekman_depth=cfg.ekman_depth,
                 bathymetry=_bathymetry(cfg, spec, ds),
                 relative_velocity_of_pairs=None if previous is None else previous.extra["v_rel"],
+                salinity=cfg.salt_salinity,
             )
+            present = [t for t in cfg.tracers if t in ds]
+            if present:
+                self.tracer_operators[spec.name] = build_tracer_operator(
+                    self.operators[spec.name], ds, present
+                )
+            else:
+                self.tracer_operators.pop(spec.name, None)
+            if spec.adcp and cfg.adcp is not None:
+                profiles = read_velocity_profiles(cfg.base_dir / spec.adcp)
+                self.direct[spec.name] = direct_reference(
+                    self.operators[spec.name], profiles, cfg.adcp.pressure_range,
+                    cfg.adcp.error, self.load_cautions,
+                )
 
     # ------------------------------------------------------------ references
     def references(self, cautions: Cautions | None = None) -> dict[str, ReferenceState]:
@@ -178,7 +203,15 @@ class Study:
                 choices, op.v_eff, op.pressure, op.common, op.sigma_for(choices),
                 cautions, op.pair_labels,
             )
-            out[name] = ReferenceState([c.kind for c in choices], p_used, offset)
+            kinds = [c.kind for c in choices]
+            direct = self.direct.get(name)
+            if direct is not None and self.config.adcp.use == "known":
+                # the pair's reference is the direct velocity averaged over the range
+                have = np.isfinite(direct.velocity)
+                offset = np.where(have, direct.velocity, offset)
+                p_used = np.where(have, direct.pressure, p_used)
+                kinds = ["velocity" if h else k for h, k in zip(have, kinds, strict=True)]
+            out[name] = ReferenceState(kinds, p_used, offset)
         return out
 
     def ekman(self) -> dict[str, np.ndarray]:
@@ -198,8 +231,10 @@ class Study:
             if inv.prior_diapycnal > 0 and self.config.interfaces:
                 boxes = [b.name for b in self.config.effective_boxes()]
             if inv.prior_ekman > 0:
-                ekman_sections = [s for s, tau in self.config.ekman_stress.items()
-                                  if tau != (0.0, 0.0)]
+                # in section order, not the stress table's (a provenance rerun sorts it)
+                ekman_sections = [s for s in self.config.section_names()
+                                  if tuple(self.config.ekman_stress.get(s, (0.0, 0.0)))
+                                  != (0.0, 0.0)]
         return make_layout(self.operators, boxes, len(self.config.interfaces), ekman_sections)
 
     def velocity_prior(self, layout: UnknownLayout) -> np.ndarray:
@@ -209,14 +244,35 @@ class Study:
         """
         inv = self.config.inverse
         prior = []
-        for op in self.operators.values():
-            for label in op.pair_labels:
+        for name, op in self.operators.items():
+            direct = self.direct.get(name)
+            for k, label in enumerate(op.pair_labels):
                 ref = self.config.reference_for(label)
-                if ref.kind == "velocity" and ref.velocity_error > 0:
+                if direct is not None and np.isfinite(direct.error[k]):
+                    prior.append(direct.error[k])
+                elif ref.kind == "velocity" and ref.velocity_error > 0:
                     prior.append(ref.velocity_error)
                 else:
                     prior.append(inv.prior_velocity)
         return np.asarray(prior)
+
+    def velocity_prior_mean(self, refs: dict[str, ReferenceState]) -> np.ndarray | None:
+        """Prior mean of each pair's adjustment from direct velocities, m s^-1 (or None).
+
+        With ``[adcp] use = "prior"`` a pair with a direct reference velocity
+        ``r`` gets the prior mean ``r - offset`` (the adjustment that would
+        make its geostrophic velocity match the measured range mean).
+        """
+        if not self.direct or self.config.adcp is None or self.config.adcp.use != "prior":
+            return None
+        mean = []
+        for name, op in self.operators.items():
+            direct = self.direct.get(name)
+            if direct is None:
+                mean.append(np.zeros(op.n_pair))
+                continue
+            mean.append(np.nan_to_num(direct.velocity - refs[name].offset))
+        return np.concatenate(mean)
 
     # ------------------------------------------------------------ results
     def solve(self, inverse: bool = True) -> Results:
@@ -237,7 +293,9 @@ class Study:
         if inverse and cfg.inverse is not None:
             offsets = {n: r.offset for n, r in refs.items()}
             system = assemble(self.operators, offsets, ekman, cfg.effective_boxes(), cfg.inverse,
-                              layout, cfg.layer_names, self.velocity_prior(layout))
+                              layout, cfg.layer_names, self.velocity_prior(layout),
+                              tracers=self.tracer_operators,
+                              velocity_prior_mean=self.velocity_prior_mean(refs))
             lower = upper = None
             if cfg.inverse.bounds:
                 lower = np.full(layout.size, -np.inf)
@@ -260,12 +318,24 @@ class Study:
                     f"section {name}: net mass transport is {net_mass:+.2f} Sv, so heat_pw is a "
                     "temperature transport relative to 0 degC, not a heat transport",
                 )
+        if self.direct and cfg.adcp.use == "prior" and (cfg.inverse is None or not inverse):
+            cautions.add(
+                "direct-velocity-unused",
+                "direct velocities are prior means of the inverse ([adcp] use = \"prior\"), "
+                "but no inverse was run, so they change nothing; use = \"known\" makes them "
+                "the pairs' references",
+            )
         cautions.add(
             "reference-dependence",
             "transports depend on the reference choices and priors; geostrophy excludes "
             "ageostrophic flow other than the stated Ekman transport",
         )
-        return Results(refs, ekman, layout, outputs, result, cautions)
+        tracers = {
+            name: tracer_outputs(top, self.operators[name].layer_names, refs[name].offset,
+                                 ekman[name], layout)
+            for name, top in self.tracer_operators.items()
+        }
+        return Results(refs, ekman, layout, outputs, result, cautions, tracers)
 
 
 def _pair_index(layout: UnknownLayout, label: str) -> int:

@@ -10,11 +10,17 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from sectionkit.operator import SALINITY_NAMES
+from sectionkit.outputs import REGISTRY
 from sectionkit.study import Results, Study
 
 
-def layer_table(study: Study, results: Results) -> pd.DataFrame:
-    """layer_transports.csv: one row per section x class (section frame, Sv)."""
+def class_table(study: Study, results: Results) -> pd.DataFrame:
+    """class_transports.csv: one row per section x density class (section frame, Sv).
+
+    Columns and units: docs/outputs.md. The volume transport of each class;
+    ``sigma_top`` is the lighter bound, ``sigma_bottom`` the denser one.
+    """
     cfg = study.config
     faces = cfg.interfaces
     rows = []
@@ -30,7 +36,7 @@ def layer_table(study: Study, results: Results) -> pd.DataFrame:
             bottom = faces[i] if i < len(faces) else None
             rows.append({
                 "section": name,
-                "layer": layer,
+                "class": layer,
                 "sigma_top": top.sigma if top else np.nan,
                 "sigma_bottom": bottom.sigma if bottom else np.nan,
                 "p_ref_top": top.p_ref if top else np.nan,
@@ -53,6 +59,8 @@ def pair_table(study: Study, results: Results) -> pd.DataFrame:
         sl = results.layout.pair_slices[name]
         ref = results.references[name]
         g = op.pairs
+        stations = [str(s) for s in study.sections[name]["station"].values] \
+            if name in study.sections else [str(k) for k in range(op.n_pair + 1)]
         for k in range(op.n_pair):
             idx = sl.start + k
             rows.append({
@@ -67,6 +75,8 @@ def pair_table(study: Study, results: Results) -> pd.DataFrame:
                 "adjustment_err_m_s": float(np.sqrt(cov[idx, idx])) if cov is not None
                 else np.nan,
                 "resolution": float(resolution[idx]) if resolution is not None else np.nan,
+                "first_station": stations[k],
+                "second_station": stations[k + 1],
             })
     return pd.DataFrame(rows)
 
@@ -74,7 +84,8 @@ def pair_table(study: Study, results: Results) -> pd.DataFrame:
 def box_table(results: Results) -> pd.DataFrame:
     """box_budget.csv: one row per box constraint (net inflow, positive in)."""
     inv = results.inverse
-    columns = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual", "unit",
+    columns = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual",
+               "posterior_residual_std", "posterior_normalized_residual", "unit",
                "initial_normalized_residual"]
     if inv is None:
         return pd.DataFrame(columns=columns)
@@ -87,28 +98,34 @@ def box_table(results: Results) -> pd.DataFrame:
         "adjusted": adjusted,
         "noise": sys_.noise,
         "normalized_residual": adjusted / sys_.noise,
+        "posterior_residual_std": inv.posterior_residual_std,
+        "posterior_normalized_residual": inv.posterior_normalized_residuals,
         "unit": sys_.units,
         "initial_normalized_residual": sys_.initial / sys_.noise,
     }, columns=columns)
 
 
-def unknowns_table(results: Results) -> pd.DataFrame:
+def unknowns_table(study: Study, results: Results) -> pd.DataFrame:
     """inverse_unknowns.csv: every unknown of the inverse with prior, estimate and error.
 
     Reference-velocity adjustments in m s^-1, diapycnal transfers (positive
     from the lighter to the denser class) in Sv, Ekman adjustments as a
-    fraction of the stated Ekman transport.
+    fraction of the stated Ekman transport. ``interface`` names the surface a
+    diapycnal transfer crosses (``σ₂ 36.98``; blank for other unknowns).
     """
     columns = ["unknown", "kind", "unit", "prior_std", "estimate", "posterior_std",
-               "resolution"]
+               "resolution", "interface", "prior_mean"]
     inv = results.inverse
     if inv is None:
         return pd.DataFrame(columns=columns)
     layout = results.layout
     kinds = ["reference_velocity"] * layout.size
     units = ["m s-1"] * layout.size
-    for idx in layout.diapycnal.values():
+    faces = [""] * layout.size
+    for (_, n), idx in layout.diapycnal.items():
         kinds[idx], units[idx] = "diapycnal_transfer", "Sv"
+        face = study.config.interfaces[n]
+        faces[idx] = face.display()
     for idx in layout.ekman.values():
         kinds[idx], units[idx] = "ekman_fraction", "1"
     return pd.DataFrame({
@@ -119,6 +136,9 @@ def unknowns_table(results: Results) -> pd.DataFrame:
         "estimate": inv.estimate,
         "posterior_std": np.sqrt(np.maximum(np.diag(inv.covariance), 0.0)),
         "resolution": inv.resolution_diagonal,
+        "interface": faces,
+        "prior_mean": (np.zeros(layout.size) if inv.system.prior_mean is None
+                       else inv.system.prior_mean),
     }, columns=columns)
 
 
@@ -127,26 +147,70 @@ def summary_table(study: Study, results: Results) -> pd.DataFrame:
     rows = []
     for name in study.operators:
         row = {"section": name}
-        for col, key in (("net_sv", "net"), ("heat_pw", "heat"), ("freshwater_sv", "freshwater"),
-                         ("overturning_sv", "overturning")):
+        for col, output in (("net_sv", "net_volume_transport"), ("heat_pw", "heat_transport"),
+                            ("freshwater_sv", "freshwater_transport"),
+                            ("overturning_sv", "overturning_depth")):
+            key = REGISTRY[output].key
             row[col] = results.value(name, key)
             row[col.replace("_sv", "_err_sv").replace("_pw", "_err_pw")] = results.error(name, key)
         row["net_mass_sv"] = results.value(name, "net_mass")
+        row["net_mass_err_sv"] = results.error(name, "net_mass")
+        op = study.operators[name]
+        row["freshwater_ref_salinity"] = (float(op.mean_salinity)
+                                          if study.config.reference_salinity is None
+                                          else study.config.reference_salinity)
+        row["freshwater_ref_kind"] = SALINITY_NAMES[study.config.salt_salinity]
         row["overturning_density_sv"] = results.value(name, "overturning_density")
         row["overturning_density_err_sv"] = results.error(name, "overturning_density")
         rows.append(row)
     order = ["section", "net_sv", "net_err_sv", "heat_pw", "heat_err_pw", "freshwater_sv",
              "freshwater_err_sv", "overturning_sv", "overturning_err_sv", "net_mass_sv",
-             "overturning_density_sv", "overturning_density_err_sv"]
+             "overturning_density_sv", "overturning_density_err_sv", "net_mass_err_sv",
+             "freshwater_ref_salinity", "freshwater_ref_kind"]
     return pd.DataFrame(rows)[order]
+
+
+PROPERTY_COLUMNS = ["section", "class", "property", "unit", "initial", "adjusted",
+                    "adjusted_err"]
+
+
+def property_table(study: Study, results: Results) -> pd.DataFrame:
+    """property_transports.csv: heat, salt and every bottle tracer per section x class.
+
+    Heat in PW (potential enthalpy), salt in Sv g/kg (rho SA v / rho0), tracers
+    in kmol s^-1 (rho c v); section frame; without an inverse adjusted equals
+    initial and the error is blank.
+    """
+    rows = []
+    for name, op in study.operators.items():
+        out = results.outputs[name]
+        adjusted = out.value(results.estimate)
+        err = out.std(results.covariance)
+        for prop, unit in (("heat", "PW"), ("salt", "Sv g/kg")):
+            for layer in op.layer_names:
+                k = out.index(f"{prop}:{layer}")
+                rows.append([name, layer, prop, unit, out.initial[k], adjusted[k], err[k]])
+        tracer = results.tracers.get(name)
+        if tracer is None:
+            continue
+        t_adjusted = tracer.value(results.estimate)
+        t_err = tracer.std(results.covariance)
+        for k, label in enumerate(tracer.names):
+            prop, _, layer = label.partition(":")
+            if layer == "total":
+                continue
+            rows.append([name, layer, prop, tracer.units[k], tracer.initial[k], t_adjusted[k],
+                         t_err[k]])
+    return pd.DataFrame(rows, columns=PROPERTY_COLUMNS)
 
 
 def tables(study: Study, results: Results) -> dict[str, pd.DataFrame]:
     """All §7 tables by file name."""
     return {
-        "layer_transports.csv": layer_table(study, results),
+        "class_transports.csv": class_table(study, results),
         "pair_adjustments.csv": pair_table(study, results),
         "box_budget.csv": box_table(results),
         "section_summary.csv": summary_table(study, results),
-        "inverse_unknowns.csv": unknowns_table(results),
+        "inverse_unknowns.csv": unknowns_table(study, results),
+        "property_transports.csv": property_table(study, results),
     }

@@ -235,6 +235,228 @@ def conservative_temperature_da(
 
 
 # ---------------------------------------------------------------------------
+# One pass of the equation of state: specific volume, density, dynamic height
+# ---------------------------------------------------------------------------
+
+#: Pascal per decibar, as gsw's dynamic height integrates (db2pa).
+_DB2PA = 1.0e4
+#: Largest number of interpolated points handled in one block (bounds memory).
+_BLOCK_POINTS = 2_000_000
+
+
+@dataclass
+class SpecificVolumePass:
+    """The equation of state evaluated once on a gridded section.
+
+    Attributes
+    ----------
+    anomaly : ndarray (..., station, level)
+        Specific volume anomaly relative to the standard ocean (SSO, 0 degC),
+        m^3 kg^-1 (gsw.specvol_anom_standard); NaN below the bottom.
+    standard : ndarray (level,)
+        Specific volume of the standard ocean at each level, m^3 kg^-1
+        (gsw.specvol_SSO_0).
+    dynamic_height : ndarray (..., station, level)
+        Dynamic height anomaly relative to the sea surface, m^2 s^-2, as
+        gsw.geo_strf_dyn_height (p_ref = 0) computes it; NaN below the bottom.
+    """
+
+    anomaly: np.ndarray
+    standard: np.ndarray
+    dynamic_height: np.ndarray
+
+    def in_situ_density(self, out: np.ndarray | None = None) -> np.ndarray:
+        """In-situ density as the reciprocal of the specific volume, kg m^-3.
+
+        Parameters
+        ----------
+        out : ndarray (..., station, level), optional
+            Buffer to write into.
+
+        Returns
+        -------
+        ndarray (..., station, level)
+            1 / (anomaly + standard), kg m^-3 (equals gsw.rho to round-off).
+        """
+        out = np.add(self.anomaly, self.standard, out=out)
+        return np.reciprocal(out, out=out)
+
+
+def _uniform_refinement(p: np.ndarray, max_dp: float) -> int | None:
+    """Points per grid step gsw's dynamic height integrates on, when the fast path applies.
+
+    The fast path needs a grid 0, dp, 2 dp, ... with dp an integer multiple
+    of ``max_dp``; otherwise None.
+    """
+    if p.ndim != 1 or p.size < 2 or p[0] != 0.0 or not max_dp > 0:
+        return None
+    step = np.diff(p)
+    dp = float(step[0])
+    if dp <= 0 or np.any(np.abs(step - dp) > 1e-9 * dp):
+        return None
+    if dp <= max_dp:
+        return 1
+    n = int(round(dp / max_dp))
+    if abs(n * max_dp - dp) > 1e-9 * dp:
+        return None
+    return n
+
+
+def _pchip_edge(h0: np.ndarray, h1: np.ndarray, m0: np.ndarray, m1: np.ndarray) -> np.ndarray:
+    """End-point derivative of the shape-preserving cubic (the scipy/gsw rule)."""
+    d = ((2 * h0 + h1) * m0 - h0 * m1) / (h0 + h1)
+    d = np.where(np.sign(d) != np.sign(m0), 0.0, d)
+    big = (np.sign(m0) != np.sign(m1)) & (np.abs(d) > 3.0 * np.abs(m0))
+    return np.where(big, 3.0 * m0, d)
+
+
+def _pchip_slopes(y: np.ndarray, h: float, count: np.ndarray) -> np.ndarray:
+    """Derivatives of the shape-preserving cubic through each profile's valid points.
+
+    ``y`` (profile, level) is valid on its first ``count`` levels (grid step
+    ``h``); the derivatives follow gsw's pchip (interior harmonic mean of the
+    neighbouring slopes, zero at extrema; end points by the edge rule; a
+    two-point profile is a straight line).
+    """
+    m = (y[:, 1:] - y[:, :-1]) / h  # slopes, (profile, level - 1)
+    mm, mp = m[:, :-1], m[:, 1:]
+    w1 = 2 * h + h
+    w2 = h + 2 * h
+    with np.errstate(invalid="ignore", divide="ignore"):
+        inner = (w1 + w2) / (w1 / mm + w2 / mp)
+    flat = (np.sign(mm) != np.sign(mp)) | (mm == 0) | (mp == 0)
+    d = np.empty_like(y)
+    d[:, 1:-1] = np.where(flat, 0.0, inner)
+    rows = np.arange(y.shape[0])
+    hh = np.full(y.shape[0], h)
+    three = count >= 3
+    last = np.clip(count - 1, 1, None)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        m_last = m[rows, last - 1]
+        m_prev = m[rows, np.clip(last - 2, 0, None)]
+        first = _pchip_edge(hh, hh, m[:, 0], m[:, 1] if m.shape[1] > 1 else m[:, 0])
+        end = _pchip_edge(hh, hh, m_last, m_prev)
+    d[:, 0] = np.where(three, first, m[:, 0])
+    d[rows, last] = np.where(three, end, m_last)
+    return d
+
+
+def _fast_block(sa: np.ndarray, ct: np.ndarray, p: np.ndarray, n: int, max_dp: float,
+                count: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Anomaly and dynamic height of a block of (profile, level) on a uniform grid."""
+    n_prof, n_lev = sa.shape
+    if n == 1:
+        b = gsw.specvol_anom_standard(sa, ct, p)
+        dp_fine = np.diff(p)
+        b_fine = b
+    else:
+        # gsw inserts p[0] + max_dp * i between the grid levels and interpolates SA and CT
+        # there with the shape-preserving cubic of each profile's valid levels
+        h = float(p[1] - p[0])
+        n_fine = (n_lev - 1) * n + 1
+        p_fine = p[0] + max_dp * np.arange(n_fine, dtype=float)
+        p_fine[::n] = p  # the grid levels themselves
+        sa_f = np.empty((n_prof, n_fine))
+        ct_f = np.empty((n_prof, n_fine))
+        sa_f[:, ::n] = sa
+        ct_f[:, ::n] = ct
+        for y, y_f in ((sa, sa_f), (ct, ct_f)):
+            d = _pchip_slopes(y, h, count)
+            d *= h
+            y0, y1 = y[:, :-1], y[:, 1:]
+            d0, d1 = d[:, :-1], d[:, 1:]
+            tmp = np.empty(y0.shape)
+            for j in range(1, n):
+                t = (p_fine[j:-1:n] - p[:-1]) / h
+                tt = t * t
+                ttt = tt * t
+                # same terms and order of addition as gsw's Hermite evaluation
+                out = y_f[:, j::n]
+                np.multiply(y0, 2 * ttt - 3 * tt + 1, out=out)
+                out += np.multiply(d0, ttt - 2 * tt + t, out=tmp)
+                out += np.multiply(y1, -2 * ttt + 3 * tt, out=tmp)
+                out += np.multiply(d1, ttt - tt, out=tmp)
+        b_fine = gsw.specvol_anom_standard(sa_f, ct_f, p_fine)
+        del sa_f, ct_f
+        b = np.ascontiguousarray(b_fine[:, ::n])
+        dp_fine = np.diff(p_fine)
+    # trapezoid steps -0.5 (b[i] + b[i+1]) dp db2pa, summed from the surface in gsw's order
+    step = np.add(b_fine[:, 1:], b_fine[:, :-1])
+    step *= 0.5
+    step *= dp_fine
+    step *= _DB2PA
+    np.negative(step, out=step)
+    psi_fine = np.empty(b_fine.shape)
+    psi_fine[:, 0] = 0.0
+    np.cumsum(step, axis=-1, out=psi_fine[:, 1:])  # NaN from the first level below the bottom
+    del step
+    psi = np.ascontiguousarray(psi_fine[:, ::n]) if n > 1 else psi_fine
+    psi[count < 2] = np.nan
+    return b, psi
+
+
+def specific_volume_pass(
+    sa: np.ndarray, ct: np.ndarray, p: np.ndarray, max_dp: float = 1.0
+) -> SpecificVolumePass:
+    """Specific volume anomaly, and dynamic height integrated from it, in one pass.
+
+    The specific volume anomaly of every grid point is evaluated once
+    (gsw.specvol_anom_standard); dynamic height is its pressure integral
+    from the sea surface, exactly as gsw.geo_strf_dyn_height does it (the
+    trapezoid rule on the grid when the grid step is at most ``max_dp``;
+    otherwise on a finer grid of step ``max_dp`` with SA and CT interpolated
+    by the shape-preserving cubic); in-situ density follows as the
+    reciprocal of the specific volume. Profiles must be valid from the
+    surface down (NaN only below the bottom) on a uniform grid starting at
+    0 dbar with a step that is a multiple of ``max_dp``; other input is
+    passed to gsw.geo_strf_dyn_height unchanged (two evaluations).
+
+    Parameters
+    ----------
+    sa : ndarray (..., station, level)
+        Absolute Salinity, g/kg; NaN below the bottom.
+    ct : ndarray (..., station, level)
+        Conservative Temperature, degC; NaN below the bottom.
+    p : ndarray (level,)
+        Sea pressure, dbar, increasing.
+    max_dp : float
+        Largest pressure step of the integration, dbar (gsw's ``max_dp``).
+
+    Returns
+    -------
+    SpecificVolumePass
+    """
+    sa = np.asarray(sa, dtype=float)
+    ct = np.asarray(ct, dtype=float)
+    p = np.asarray(p, dtype=float)
+    shape = sa.shape
+    sa2 = sa.reshape(-1, shape[-1])
+    ct2 = ct.reshape(-1, shape[-1])
+    gap = np.isnan(sa2 + ct2)
+    n_lev = shape[-1]
+    count = n_lev - np.count_nonzero(gap, axis=-1)
+    # the fast path needs each profile valid from the surface down without gaps
+    first_gap = np.where(gap[:, -1], np.argmax(gap, axis=-1), n_lev)
+    n = _uniform_refinement(p, max_dp)
+    standard = gsw.specvol_SSO_0(p)
+    if n is None or np.any(first_gap != count):
+        anomaly = gsw.specvol_anom_standard(sa, ct, p)
+        psi = gsw.geo_strf_dyn_height(sa2, ct2, p, p_ref=0.0, axis=1, max_dp=max_dp)
+        return SpecificVolumePass(anomaly, standard, np.asarray(psi, float).reshape(shape))
+    per_block = max(1, _BLOCK_POINTS // ((n_lev - 1) * n + 1))
+    if per_block >= sa2.shape[0]:
+        anomaly, psi = _fast_block(sa2, ct2, p, n, max_dp, count)
+    else:
+        anomaly = np.empty(sa2.shape)
+        psi = np.empty(sa2.shape)
+        for start in range(0, sa2.shape[0], per_block):
+            rows = slice(start, start + per_block)
+            anomaly[rows], psi[rows] = _fast_block(sa2[rows], ct2[rows], p, n, max_dp,
+                                                   count[rows])
+    return SpecificVolumePass(anomaly.reshape(shape), standard, psi.reshape(shape))
+
+
+# ---------------------------------------------------------------------------
 # Density inversions
 # ---------------------------------------------------------------------------
 

@@ -192,6 +192,7 @@ def budget_kernel(
     bathymetry: list | None = None,
     max_dp: float = 1.0,
     station: Sequence[str] | None = None,
+    salinity: str = "preformed",
     name: str = "section",
 ) -> dict[str, np.ndarray]:
     """The whole chain on plain arrays: operator, references, Ekman, outputs.
@@ -235,6 +236,9 @@ def budget_kernel(
         Station ids.
     name : str
         Section name (for messages).
+    salinity : {"preformed", "absolute"}
+        Salinity of the salt and freshwater transports (see
+        :func:`sectionkit.operator.build_operator`).
 
     Returns
     -------
@@ -248,7 +252,7 @@ def budget_kernel(
     section = _as_section(sa, ct, pressure, lon, lat, bottom_pressure, station, name)
     op = build_operator(section, list(interfaces), list(layer_names) if layer_names else None,
                         bottom_triangle=bottom_triangle, ekman_depth=ekman_depth,
-                        bathymetry=bathymetry, max_dp=max_dp)
+                        bathymetry=bathymetry, max_dp=max_dp, salinity=salinity)
     choices = _pair_choices(reference, overrides, op.n_pair)
     p_used, offset = resolve_references(choices, op.v_eff, op.pressure, op.common,
                                         op.sigma_for(choices))
@@ -328,6 +332,7 @@ def section_budget(
     reference_salinity: float | None = None,
     bathymetry: list | None = None,
     max_dp: float = 1.0,
+    salinity: str = "preformed",
 ) -> xr.Dataset:
     """Class transports, net, heat, freshwater and overturning of a section.
 
@@ -369,6 +374,9 @@ def section_budget(
         Per-pair sampled sea-floor pressures (dbar) for the bottom triangles.
     max_dp : float
         Integration step of gsw's dynamic height, dbar.
+    salinity : {"preformed", "absolute"}
+        Salinity of the salt and freshwater transports: Preformed Salinity S*
+        (TEOS-10, conserved) or Absolute Salinity.
 
     Returns
     -------
@@ -410,6 +418,7 @@ def section_budget(
         "reference_salinity": reference_salinity,
         "bathymetry": bathymetry,
         "max_dp": float(max_dp),
+        "salinity": salinity,
         "station": [str(s) for s in section["station"].values],
         "name": str(section.attrs.get("section", "section")),
     }
@@ -454,6 +463,7 @@ def section_budget(
         section=static["name"],
         sign_convention="positive to the left of increasing station order",
         bottom_triangle=bottom_triangle,
+        salinity=salinity,
     )
     return ds
 
@@ -535,4 +545,5 @@ def budget_from_config(
         adjustment=adjustment,
         reference_salinity=config.reference_salinity,
         bathymetry=bathymetry,
+        salinity=config.salt_salinity,
     )

@@ -172,7 +172,8 @@ def test_uniform_flow_gives_closed_form_heat_freshwater_and_overturning():
     section = canonical_section(np.full((n, p.size), sa0), np.full((n, p.size), ct0), p,
                                 np.linspace(-30.0, -29.0, n), np.full(n, 30.0),
                                 np.full(n, 1000.0))
-    op = build_operator(section, [])
+    # freshwater relative to the water's own SA needs salt budgets in SA
+    op = build_operator(section, [], salinity="absolute")
     offset = np.zeros(op.n_pair)
     values = section_values(op, offset, b)
     length = op.pairs["distance"].values.sum()
@@ -208,7 +209,7 @@ def test_changing_classes_rebuilds_without_new_dynamic_height(monkeypatch):
     def refuse(*args, **kwargs):
         raise AssertionError("dynamic height recomputed")
 
-    monkeypatch.setattr(operator_module, "dynamic_height", refuse)
+    monkeypatch.setattr(operator_module, "specific_volume_pass", refuse)
     study.rebuild_operators()
     monkeypatch.undo()
     fresh = Study.from_config(study.config, sections={"south": section})
@@ -216,6 +217,6 @@ def test_changing_classes_rebuilds_without_new_dynamic_height(monkeypatch):
                                fresh.solve().outputs["south"].value(), rtol=1e-12, atol=1e-12)
     # new data are never taken for the old: a replaced section gets its own dynamic height
     study.sections["south"] = thermocline_section(n=6, dp=10.0, tilt=100.0)
-    monkeypatch.setattr(operator_module, "dynamic_height", refuse)
+    monkeypatch.setattr(operator_module, "specific_volume_pass", refuse)
     with pytest.raises(AssertionError, match="dynamic height recomputed"):
         study.rebuild_operators()

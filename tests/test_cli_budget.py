@@ -11,7 +11,7 @@ from _sections import invented_section, write_netcdf
 
 from sectionkit.cli import main
 
-LAYER_COLUMNS = ["section", "layer", "sigma_top", "sigma_bottom", "p_ref_top", "p_ref_bottom",
+CLASS_COLUMNS = ["section", "class", "sigma_top", "sigma_bottom", "p_ref_top", "p_ref_bottom",
                  "area_km2", "initial_sv", "adjusted_sv", "adjusted_err_sv"]
 PAIR_COLUMNS = ["section", "pair", "lon", "lat", "distance_km", "ref_kind", "ref_pressure",
                 "adjustment_m_s", "adjustment_err_m_s"]
@@ -20,7 +20,7 @@ SUMMARY_COLUMNS = ["section", "net_sv", "net_err_sv", "heat_pw", "heat_err_pw", 
 BOX_COLUMNS = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual"]
 
 
-def _write_study(tmp_path: Path, inverse: bool) -> Path:
+def _write_study(tmp_path: Path, inverse: bool, old_names: bool = False) -> Path:
     south = invented_section(6, dp=10.0, lat0=24.0, bottoms=[900, 1500, 2000, 2000, 1600, 900])
     north = invented_section(5, dp=10.0, lat0=36.0, bottoms=[800, 1400, 1900, 1500, 800])
     write_netcdf(tmp_path / "south.nc", south)
@@ -38,10 +38,10 @@ file = "north.nc"
 into_box = false
 [reference]
 pressure = 800.0
-overrides = { "south:2" = "bottom", "north:1" = { sigma = 27.3, p_ref = 0.0 } }
+overrides = { "south:2" = "deepest_common", "north:1" = { sigma = 27.3, p_ref = 0.0 } }
 [ekman]
 stress = { south = [-0.05, 0.0] }
-[layers]
+[classes]
 interfaces = [ { sigma = 26.0, p_ref = 0.0 }, { sigma = 27.2, p_ref = 0.0 } ]
 names = ["warm", "thermocline", "cold"]
 """
@@ -49,9 +49,13 @@ names = ["warm", "thermocline", "cold"]
         text += """
 [inverse]
 prior_velocity = 0.01
-noise_layer = [1.0, 1.0, 0.5]
-known = [ { name = "gap", transport = 0.3, noise = 0.1, layer = "warm" } ]
+noise_class = [1.0, 1.0, 0.5]
+known = [ { name = "gap", transport = 0.3, noise = 0.1, class = "warm" } ]
 """
+    if old_names:  # the names before "density class" was used throughout; still accepted
+        for new, old in (("[classes]", "[layers]"), ("noise_class", "noise_layer"),
+                         ("class = ", "layer = "), ('"deepest_common"', '"bottom"')):
+            text = text.replace(new, old)
     path = tmp_path / "study.toml"
     path.write_text(text)
     return path
@@ -61,13 +65,13 @@ def test_budget_without_inverse_writes_initial_budgets(tmp_path):
     config = _write_study(tmp_path, inverse=False)
     out = tmp_path / "out"
     assert main(["budget", str(config), "--out", str(out), "--no-figures", "--quiet"]) == 0
-    layers = pd.read_csv(out / "layer_transports.csv")
-    assert list(layers.columns)[: len(LAYER_COLUMNS)] == LAYER_COLUMNS
+    layers = pd.read_csv(out / "class_transports.csv")
+    assert list(layers.columns)[: len(CLASS_COLUMNS)] == CLASS_COLUMNS
     np.testing.assert_allclose(layers["adjusted_sv"], layers["initial_sv"])
     assert layers["adjusted_err_sv"].isna().all()
     # open bounds are blank
-    assert layers.loc[layers["layer"] == "warm", "sigma_top"].isna().all()
-    assert layers.loc[layers["layer"] == "cold", "sigma_bottom"].isna().all()
+    assert layers.loc[layers["class"] == "warm", "sigma_top"].isna().all()
+    assert layers.loc[layers["class"] == "cold", "sigma_bottom"].isna().all()
     pairs = pd.read_csv(out / "pair_adjustments.csv")
     assert list(pairs.columns)[: len(PAIR_COLUMNS)] == PAIR_COLUMNS
     assert (pairs["adjustment_m_s"] == 0).all()
@@ -82,7 +86,7 @@ def test_budget_with_inverse_fills_errors_and_box_budget(tmp_path):
     config = _write_study(tmp_path, inverse=True)
     out = tmp_path / "out"
     assert main(["budget", str(config), "--out", str(out), "--no-figures", "--quiet"]) == 0
-    layers = pd.read_csv(out / "layer_transports.csv")
+    layers = pd.read_csv(out / "class_transports.csv")
     assert (layers["adjusted_err_sv"] > 0).all()
     box = pd.read_csv(out / "box_budget.csv")
     assert list(box.columns)[: len(BOX_COLUMNS)] == BOX_COLUMNS
@@ -91,6 +95,25 @@ def test_budget_with_inverse_fills_errors_and_box_budget(tmp_path):
                                rtol=1e-6)
     summary = pd.read_csv(out / "section_summary.csv")
     assert np.isfinite(summary[SUMMARY_COLUMNS[1:]].to_numpy()).all()
+
+
+def test_old_key_names_give_identical_results(tmp_path):
+    # [layers], noise_layer, known.layer and "bottom" are the old names of [classes],
+    # noise_class, known.class and "deepest_common": the same study, the same numbers
+    outputs = {}
+    for tag, old in (("new", False), ("old", True)):
+        folder = tmp_path / tag
+        folder.mkdir()
+        config = _write_study(folder, inverse=True, old_names=old)
+        assert ("[layers]" in config.read_text()) is old
+        assert main(["budget", str(config), "--out", str(folder / "out"), "--no-figures",
+                     "--quiet"]) == 0
+        outputs[tag] = {name: pd.read_csv(folder / "out" / name) for name in
+                        ("class_transports.csv", "pair_adjustments.csv", "box_budget.csv",
+                         "section_summary.csv", "inverse_unknowns.csv")}
+    for name, frame in outputs["new"].items():
+        pd.testing.assert_frame_equal(frame, outputs["old"][name], check_exact=False,
+                                      rtol=1e-9)
 
 
 def test_failed_run_leaves_no_files(tmp_path, capsys):

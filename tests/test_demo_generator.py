@@ -235,8 +235,8 @@ def test_truth_read_back_from_the_files_closes_the_budgets(small_files):
     # through the reader, and b_true from truth_pairs.csv
     io = pytest.importorskip("sectionkit.io")
     config = tomllib.loads(small_files["config"].read_text())
-    faces = [Interface(f["sigma"], f["p_ref"]) for f in config["layers"]["interfaces"]]
-    names = config["layers"]["names"]
+    faces = [Interface(f["sigma"], f["p_ref"]) for f in config["classes"]["interfaces"]]
+    names = config["classes"]["names"]
     with small_files["truth_pairs"].open() as fh:
         rows = list(csv.DictReader(fh))
     folder = small_files["config"].parent
@@ -256,7 +256,7 @@ def test_truth_read_back_from_the_files_closes_the_budgets(small_files):
         w = np.array([0.0] + [float(r["w_true_sv"]) for r in csv.DictReader(fh)] + [0.0])
     known = np.zeros(len(names))
     for k in config["inverse"]["known"]:
-        known[names.index(k["layer"])] += k["transport"]
+        known[names.index(k["class"])] += k["transport"]
     np.testing.assert_allclose(total + known + w[:-1] - w[1:], 0.0, atol=1e-5)
 
 
@@ -349,14 +349,14 @@ def test_demo_toml_follows_the_configuration_contract(small_files):
     for spec in config["sections"]:
         assert (small_files["config"].parent / spec["file"]).is_file()
     assert config["reference"]["pressure"] == 3000.0
-    faces = config["layers"]["interfaces"]
-    assert len(config["layers"]["names"]) == len(faces) + 1
+    faces = config["classes"]["interfaces"]
+    assert len(config["classes"]["names"]) == len(faces) + 1
     inverse = config["inverse"]
     assert inverse["solver"] == "gauss-markov"
     assert inverse["conserve"] == ["mass", "salt"]
-    assert len(inverse["noise_layer"]) == len(faces) + 1
+    assert len(inverse["noise_class"]) == len(faces) + 1
     (strait,) = inverse["known"]
-    assert strait["transport"] == 0.8 and strait["layer"] == "upper"
+    assert strait["transport"] == 0.8 and strait["class"] == "upper"
     assert set(config["ekman"]["stress"]) == set(names)
 
 

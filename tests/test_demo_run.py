@@ -13,7 +13,7 @@ from sectionkit.config import load_config
 from sectionkit.demo import BUNDLED_DIR as DEMO_DIR
 from sectionkit.study import Study
 
-CSV_FILES = ["layer_transports.csv", "pair_adjustments.csv", "box_budget.csv",
+CSV_FILES = ["class_transports.csv", "pair_adjustments.csv", "box_budget.csv",
              "section_summary.csv"]
 
 
@@ -71,7 +71,7 @@ def test_rerun_from_provenance_reproduces_identical_tables(demo_run, tmp_path):
     rerun = tmp_path / "rerun"
     assert main(["budget", str(demo_run / "provenance.json"), "--out", str(rerun), "--quiet",
                  "--no-figures"]) == 0
-    for name in CSV_FILES:
+    for name in CSV_FILES + ["inverse_unknowns.csv", "results.nc"]:
         assert (rerun / name).read_bytes() == (demo_run / name).read_bytes(), name
 
 

@@ -140,6 +140,21 @@ def test_sensor_draws_have_the_stated_spread_per_station():
     assert abs(d_ct.std() / 0.002 - 1) < 5 / np.sqrt(2 * d_ct.size)
 
 
+def test_cluster_tasks_of_several_members_equal_serial(client):
+    # 35 members on 2 workers run as tasks of 2 members (the last one alone)
+    from sectionkit.ensemble import member_batch_size
+
+    assert member_batch_size(35, 2) == 2
+    cfg, sections = _config(), _sections()
+    perturb = Perturbation(reference_range=(2000.0, 3500.0), prior_factor=(0.5, 2.0))
+    seen = []
+    on_cluster = run_ensemble(cfg, 35, seed=3, client=client, perturb=perturb,
+                              sections=sections, progress=seen.append)
+    serial = run_ensemble(cfg, 35, seed=3, client=None, perturb=perturb, sections=sections)
+    assert members_equal(on_cluster, serial) == 0.0
+    assert seen[0] == 0 and seen[-1] == 35 and seen == sorted(seen)
+
+
 def test_pressure_error_moves_the_cast():
     # a cast whose pressure sensor reads p + dp reports at p the water from p - dp
     section = _sections()["south"]

@@ -119,9 +119,9 @@ def test_inverse_moves_imbalance_consistent_with_priors_to_within_noise():
 
 
 def test_known_transport_naming_a_missing_class_is_refused():
-    with pytest.raises(ConfigError, match="layer 'uper' does not exist.*did you mean 'upper'"):
+    with pytest.raises(ConfigError, match="class 'uper' does not exist.*did you mean 'upper'"):
         _two_box_config(known=[{"name": "strait", "transport": 1.0, "noise": 0.1,
-                                "layer": "uper", "box": "lower"}])
+                                "class": "uper", "box": "lower"}])
 
 
 def test_box_naming_a_missing_section_is_refused():

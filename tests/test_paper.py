@@ -37,15 +37,15 @@ CONFIG = {
         {"name": "south", "file": "south.nc"},
         {"name": "north", "file": "north.nc", "into_box": False},
     ],
-    "reference": {"pressure": 2000.0, "overrides": {"south:2": "bottom"}},
+    "reference": {"pressure": 2000.0, "overrides": {"south:2": "deepest_common"}},
     "ekman": {"stress": {"south": [-0.06, 0.0]}},
-    "layers": {
+    "classes": {
         "interfaces": [{"sigma": 26.8, "p_ref": 0.0}, {"sigma": 36.9, "p_ref": 2000.0}],
         "names": ["upper", "mid", "deep_water"],
     },
     "inverse": {
-        "noise_layer": [1.0, 1.0, 1.0],
-        "known": [{"name": "strait", "transport": 0.8, "noise": 0.2, "layer": "upper"}],
+        "noise_class": [1.0, 1.0, 1.0],
+        "known": [{"name": "strait", "transport": 0.8, "noise": 0.2, "class": "upper"}],
     },
 }
 
@@ -107,6 +107,14 @@ def test_error_starting_with_one_keeps_two_digits():
     assert round_with_error(5.0, 0.96) == ("5.0", "1.0")
 
 
+def test_error_digits_come_from_the_unrounded_error():
+    # the rule is applied to the error as computed: 0.019993 starts with 1, so two significant
+    # digits (0.020), not one digit of the already rounded 0.02
+    assert round_with_error(0.5, 0.019993) == ("0.500", "0.020")
+    assert error_decimals(0.019993) == 3
+    assert round_with_error(0.5, 0.0996) == ("0.50", "0.10")
+
+
 def test_rounding_is_half_away_from_zero_on_the_printed_decimal():
     # binary floats would round 0.15 and 2.675 down
     assert format_fixed(0.15, 1) == "0.2"
@@ -150,13 +158,12 @@ def test_latex_has_booktabs_rules_errors_and_captions(solved, tmp_path):
     assert "S[table-format=" in tex
     for unit in (r"km$^{2}$", r"m\,s$^{-1}$", "(Sv)", "(PW)"):
         assert unit in tex
-    captions = re.findall(r"\\caption\{(.*)\}", tex)
-    for caption in captions:
-        assert "level of no motion at 2000 dbar with 1 pair override" in caption
-        assert "Bottom triangles: velocity held constant" in caption
-        assert "Inverse: Gauss--Markov estimate conserving mass and salt" in caption
-        assert r"0.02 m\,s$^{-1}$ (reference velocity)" in caption
-    assert r"deep\_water" in tex and "deep_water" not in tex.replace(r"deep\_water", "")
+    note = tex.split(r"\paragraph{Note on the tables.}")[1]
+    assert "level of no motion at 2000 dbar with 1 pair override" in note
+    assert "Bottom triangles: velocity held constant" in note
+    assert "Inverse: Gauss--Markov estimate conserving mass and salt" in note
+    assert r"0.02 m\,s$^{-1}$ (reference velocity)" in note
+    assert "deep water" in tex and "deep_water" not in tex  # class names without underscores
     assert not re.search(r"\d\.\d{5,}", tex), "no raw float noise in the tables"
 
 
@@ -165,17 +172,64 @@ def test_caption_says_when_no_inverse_ran(unsolved, tmp_path):
     write_paper_tables(study, results, tmp_path)
     tex = (tmp_path / "tables.tex").read_text()
     md = (tmp_path / "tables.md").read_text()
-    assert tex.count("No inverse: initial budgets") == 4
-    assert md.count("No inverse: initial budgets") == 4
-    assert "±" not in md.split("No inverse")[-1]  # no errors in the rows
-    assert "No inverse: there are no box constraints." in md
+    assert tex.count("No inverse: initial budgets") == 1  # said once, in the note
+    assert md.count("No inverse: initial budgets") == 1
+    assert "±" not in md  # no errors anywhere
+
+
+def test_study_setup_is_said_once_under_the_tables(solved, tmp_path):
+    study, results = solved
+    write_paper_tables(study, results, tmp_path)
+    md = (tmp_path / "tables.md").read_text()
+    assert md.count("level of no motion at 2000 dbar") == 1
+    assert md.index("**Note on the tables.**") > md.rindex("**Table ")
+
+
+def test_run_without_inverse_omits_inverse_only_tables_and_columns(unsolved, tmp_path):
+    study, results = unsolved
+    write_paper_tables(study, results, tmp_path)
+    md = (tmp_path / "tables.md").read_text()
+    assert md.count("**Table ") == 3  # classes, pairs, section totals: no box, no unknowns
+    assert "box constraints" not in md.lower()
+    assert "Adjust" not in md  # no adjusted column and no adjustment column
+
+
+def test_pair_table_names_both_stations_and_adjustments_in_cm_per_s(solved, tmp_path):
+    study, results = solved
+    write_paper_tables(study, results, tmp_path)
+    md = (tmp_path / "tables.md").read_text()
+    pairs = md_tables(md)[1]
+    df = tables(study, results)["pair_adjustments.csv"]
+    assert [r[2] for r in pairs] == [f"{a}–{b}" for a, b in
+                                     zip(df.first_station, df.second_station, strict=True)]
+    assert "Adjustment (cm s⁻¹)" in md
+    # 1 m s^-1 = 100 cm s^-1 (definition); the printed value is the CSV value x 100
+    assert [r[-1] for r in pairs] == [
+        format_with_error(100 * v, 100 * e, "cm/s")
+        for v, e in zip(df.adjustment_m_s, df.adjustment_err_m_s, strict=True)]
+
+
+def test_class_bounds_are_lighter_and_denser_and_names_have_no_underscores(solved, tmp_path):
+    study, results = solved
+    write_paper_tables(study, results, tmp_path)
+    md = (tmp_path / "tables.md").read_text()
+    assert "Lighter bound" in md and "Denser bound" in md and "Upper bound" not in md
+    assert "deep water" in md and "deep_water" not in md.replace("deep\\_water", "deep_water")
+
+
+def test_transfer_rows_name_their_interface_and_prior_std(solved, tmp_path):
+    study, results = solved
+    write_paper_tables(study, results, tmp_path)
+    md = (tmp_path / "tables.md").read_text()
+    assert "W across σ₂ 36.9" in md and "W across σ₀ 26.8" in md
+    assert "Prior std" in md
 
 
 def test_markdown_rows_match_the_csv_tables(solved, tmp_path):
     study, results = solved
     write_paper_tables(study, results, tmp_path)
     md = (tmp_path / "tables.md").read_text()
-    layers, pairs, box, summary, unknowns = md_tables(md)
+    classes, pairs, box, summary, unknowns = md_tables(md)
     frames = tables(study, results)
 
     df = frames["inverse_unknowns.csv"]
@@ -186,25 +240,32 @@ def test_markdown_rows_match_the_csv_tables(solved, tmp_path):
         for v, e, k in zip(df.estimate, df.posterior_std, df.kind, strict=True)
     ]
 
-    df = frames["layer_transports.csv"]
-    assert [(r[0], r[1]) for r in layers] == list(zip(df.section, df.layer, strict=True))
-    assert [r[-1] for r in layers] == [
+    df = frames["class_transports.csv"]
+    assert [(r[0], r[1]) for r in classes] == list(
+        zip(df.section, [c.replace("_", " ") for c in df["class"]], strict=True))
+    assert [r[-1] for r in classes] == [
         format_with_error(v, e) for v, e in zip(df.adjusted_sv, df.adjusted_err_sv, strict=True)
     ]
 
     df = frames["pair_adjustments.csv"]
     assert [(r[0], int(r[1])) for r in pairs] == list(zip(df.section, df.pair, strict=True))
-    assert [r[5] for r in pairs] == list(df.ref_kind)
-    assert [float(r[6]) for r in pairs] == pytest.approx(list(df.ref_pressure), abs=0.5)
+    kinds = {"pressure": "pressure", "bottom": "deepest common"}
+    assert [r[6] for r in pairs] == [kinds[k] for k in df.ref_kind]
+    assert [float(r[7]) for r in pairs] == pytest.approx(list(df.ref_pressure), abs=0.5)
 
     df = frames["box_budget.csv"]
-    assert [(r[0], r[1]) for r in box] == list(zip(df.box, df.constraint, strict=True))
+    assert [(r[0], r[1]) for r in box] == [
+        (b, c.replace(":", ", ").replace("_", " ")) for b, c in zip(df.box, df.constraint,
+                                                                   strict=True)]
     assert [float(r[6]) for r in box] == pytest.approx(list(df.normalized_residual), abs=0.006)
 
     df = frames["section_summary.csv"]
     assert [r[0] for r in summary] == list(df.section)
     assert [r[1] for r in summary] == [
         format_with_error(v, e) for v, e in zip(df.net_sv, df.net_err_sv, strict=True)
+    ]
+    assert [r[2] for r in summary] == [  # net mass / rho0 with its error too
+        format_with_error(v, e) for v, e in zip(df.net_mass_sv, df.net_mass_err_sv, strict=True)
     ]
     assert [r[3] for r in summary] == [
         format_with_error(v, e, "PW") for v, e in zip(df.heat_pw, df.heat_err_pw, strict=True)

@@ -113,9 +113,9 @@ def settings(**changes) -> dict:
 def assert_same(state: WorkbenchState, expected: dict[str, pd.DataFrame]) -> None:
     """The quick class table agrees to rounding; the full tables agree exactly."""
     quick = state.class_table().to_frame()
-    layers = expected["layer_transports.csv"]
+    layers = expected["class_transports.csv"]
     assert list(quick["section"]) == list(layers["section"])
-    assert list(quick["layer"]) == list(layers["layer"])
+    assert list(quick["class"]) == list(layers["class"])
     for col in ("initial_sv", "adjusted_sv", "adjusted_err_sv"):
         np.testing.assert_allclose(quick[col], layers[col], rtol=1e-9, atol=1e-9,
                                    equal_nan=True, err_msg=col)
@@ -189,7 +189,8 @@ def test_reference_change_never_recomputes_dynamic_height(state, monkeypatch):
     def refuse(*args, **kwargs):
         raise AssertionError("dynamic height recomputed for a reference change")
 
-    monkeypatch.setattr(sectionkit.operator, "dynamic_height", refuse)
+    # the operator integrates dynamic height in its one equation-of-state pass
+    monkeypatch.setattr(sectionkit.operator, "specific_volume_pass", refuse)
     monkeypatch.setattr(sectionkit.geostrophy, "dynamic_height", refuse)
     operators = dict(state.study.operators)
     state.set_reference_pressure(1200.0)
@@ -520,6 +521,52 @@ def test_view_saves_and_exports(view, tmp_path):
     view.export_folder.value = str(tmp_path / "out")
     view.export_figures.value = False
     view.export_button.click()
-    assert (tmp_path / "out" / "layer_transports.csv").is_file()
+    assert (tmp_path / "out" / "class_transports.csv").is_file()
     assert "exported" in view.status.value
     assert view.export_progress.value == 1.0
+
+
+# --------------------------------------------------------------- resuming never loses work
+def _session_with_autosave(box_dir, tmp_path, autosave_text: str):
+    session = tmp_path / "box.toml"
+    session.write_text((box_dir / "box.toml").read_text())
+    for name in ("south.nc", "north.nc"):
+        (tmp_path / name).symlink_to(box_dir / name)
+    autosave = tmp_path / "box.autosave.toml"
+    autosave.write_text(autosave_text)
+    return session, autosave
+
+
+def test_unresumable_autosave_opens_the_configuration_and_says_why(box_dir, tmp_path):
+    session, autosave = _session_with_autosave(box_dir, tmp_path, "[grid\ndp = ")
+    state = WorkbenchState.open(session, resume=True)
+    assert state.resumed_from is None
+    assert "could not resume from box.autosave.toml" in state.resume_error
+    assert "opened box.toml" in state.resume_error
+    assert state.config.reference == load_config(session).reference
+
+
+def test_unresumable_autosave_is_kept_as_a_numbered_backup_before_overwriting(box_dir, tmp_path):
+    text = "[grid\ndp = "
+    session, autosave = _session_with_autosave(box_dir, tmp_path, text)
+    (tmp_path / "box.autosave.1.toml").write_text("an older backup")
+    state = WorkbenchState.open(session, resume=True)
+    assert "box.autosave.2.toml" in state.resume_error
+    state.set_reference_pressure(1500.0)  # overwrites the autosave
+    assert state.flush_autosave()
+    assert (tmp_path / "box.autosave.2.toml").read_text() == text
+    assert (tmp_path / "box.autosave.1.toml").read_text() == "an older backup"
+
+
+def test_any_error_while_resuming_is_caught_not_only_sectionkit_errors(box_dir, tmp_path,
+                                                                        monkeypatch):
+    session, autosave = _session_with_autosave(box_dir, tmp_path, "")
+    autosave.write_text(session.read_text())  # a valid autosave; resuming it fails below
+
+    def broken(self, *args, **kwargs):
+        raise ZeroDivisionError("float division by zero")
+
+    monkeypatch.setattr(WorkbenchState, "_apply", broken)
+    resumed = WorkbenchState.open(session, resume=True)
+    assert "ZeroDivisionError: float division by zero" in resumed.resume_error
+    assert (tmp_path / "box.autosave.1.toml").is_file()

@@ -132,7 +132,7 @@ def test_known_net_bounds_and_heat_noise_reach_the_engine_as_a_file_would(state,
 
 
 def test_a_known_transport_into_a_missing_class_is_refused_by_name(state):
-    with pytest.raises(ConfigError, match="layer 'abyssal' does not exist"):
+    with pytest.raises(ConfigError, match="class 'abyssal' does not exist"):
         state.set_inverse_settings(
             known=[{"name": "strait", "transport": 0.7, "noise": 0.1, "class": "abyssal"}])
     assert state.config.inverse.known[0].layer == "upper"
@@ -243,7 +243,7 @@ def test_sensitivity_at_a_level_is_the_batch_run_at_that_level(state, box_dir):
     assert sens.current == 2000.0
     k = int(np.argmin(np.abs(sens.pressure - 1200.0)))
     p = float(sens.pressure[k])
-    expected = batch(box_dir, settings(reference={"pressure": p}))["layer_transports.csv"]
+    expected = batch(box_dir, settings(reference={"pressure": p}))["class_transports.csv"]
     for s, name in enumerate(sens.sections):
         want = expected[expected["section"] == name]["initial_sv"].to_numpy()
         np.testing.assert_allclose(sens.transports[s, k], want, rtol=1e-9, atol=1e-9)

@@ -9,6 +9,7 @@ from typing import Any
 
 from sectionkit.errors import Cautions, InputFileError, SectionDataError
 from sectionkit.io.csvfile import read_csv
+from sectionkit.io.exchange import file_kind, read_exchange_ctd, station_sort_key
 from sectionkit.io.formats import CSV_SUFFIXES, NETCDF_SUFFIXES, file_format
 from sectionkit.io.netcdf import read_netcdf
 from sectionkit.io.raw import Profile
@@ -38,15 +39,16 @@ def source_files(source: Source) -> list[str]:
     if isinstance(source, (str, os.PathLike)):
         path = os.fspath(source)
         if os.path.isdir(path):
-            names = [
-                n
-                for n in os.listdir(path)
-                if not n.startswith(".") and n.lower().endswith(NETCDF_SUFFIXES + CSV_SUFFIXES)
+            listed = [n for n in os.listdir(path) if not n.startswith(".")]
+            # exchange CTD files are recognised by their first line, whatever their name
+            exchange = [n for n in listed if file_kind(os.path.join(path, n)) == "CTD"]
+            names = exchange or [
+                n for n in listed if n.lower().endswith(NETCDF_SUFFIXES + CSV_SUFFIXES)
             ]
             if not names:
                 raise InputFileError(
-                    f"folder {path}: holds no section files (.nc or .csv); point to the folder "
-                    "of per-cast files or to a section file"
+                    f"folder {path}: holds no section files (.nc, .csv or WHP-Exchange CTD "
+                    "files); point to the folder of per-cast files or to a section file"
                 )
             return [os.path.join(path, n) for n in sorted(names, key=natural_key)]
         return [path]
@@ -78,7 +80,7 @@ def read_profiles(
     Parameters
     ----------
     files : list of str
-        Section or per-cast files, NetCDF or CSV.
+        Section or per-cast files: NetCDF, CSV, WHP-Exchange CTD files or zips of them.
     cautions : Cautions
         Collects reading findings.
     variables : mapping, optional
@@ -89,15 +91,36 @@ def read_profiles(
     Returns
     -------
     list of Profile
-        All stations, file by file.
+        All stations, file by file; WHP-Exchange CTD casts (files or zips,
+        recognised by their first line) ordered by STNNBR.
     """
     profiles: list[Profile] = []
+    exchange = 0
     for f in files:
-        if file_format(f) == "netcdf":
+        kind = file_kind(f) if os.path.isfile(f) else None
+        if kind in ("CTD", "ZIP"):
+            profiles.extend(read_exchange_ctd(f, cautions))
+            exchange += 1
+        elif kind == "BOTTLE":
+            raise InputFileError(
+                f"file {f}: is a WHP-Exchange bottle file, not CTD casts; give the CTD files "
+                "(a folder or zip) as the section and the bottle file as its bottle key"
+            )
+        elif file_format(f) == "netcdf":
             profiles.extend(read_netcdf(f, variables=variables, cautions=cautions))
         else:
             profiles.extend(read_csv(f, cautions=cautions, **dict(csv_options or {})))
+    if exchange == len(files):
+        # exchange casts: station order by STNNBR (then CASTNO), not by file name
+        profiles.sort(key=lambda p: (station_sort_key(str(p.station)), p.cast))
     return profiles
+
+
+def _numeric_id(station: str) -> str:
+    try:
+        return f"{float(station):g}"
+    except ValueError:
+        return station.strip()
 
 
 def reorder(profiles: list[Profile], order: Sequence[str]) -> list[Profile]:
@@ -116,6 +139,10 @@ def reorder(profiles: list[Profile], order: Sequence[str]) -> list[Profile]:
         The named stations in the given order.
     """
     by_id = {str(p.station): p for p in profiles}
+    # "7" also finds a station written "007" or "7.0" (STNNBR of exchange files)
+    for p in profiles:
+        by_id.setdefault(_numeric_id(str(p.station)), p)
+    order = [s if str(s) in by_id else _numeric_id(str(s)) for s in order]
     missing = [str(s) for s in order if str(s) not in by_id]
     if missing:
         raise SectionDataError(

@@ -13,6 +13,7 @@ import xarray as xr
 
 from sectionkit.errors import Cautions, SectionkitError
 from sectionkit.geometry import great_circle_distance
+from sectionkit.io.bottle import grid_tracers, read_bottle, tracer_variables
 from sectionkit.io.casts import Source
 from sectionkit.io.csvfile import CSV_COLUMNS
 from sectionkit.io.raw import RawSection
@@ -73,6 +74,7 @@ def format_report(raw: RawSection, ds: xr.Dataset, cautions: Cautions) -> str:
         f"  grid:      0 .. {pressure[-1]:g} dbar every {ds.attrs['dp']:g} dbar "
         f"({pressure.size} levels)",
     ]
+    lines.extend(flag_report(raw))
     if cautions:
         lines.append(f"  cautions ({len(cautions)}):")
         lines.extend(f"    {c}" for c in cautions)
@@ -81,12 +83,57 @@ def format_report(raw: RawSection, ds: xr.Dataset, cautions: Cautions) -> str:
     return "\n".join(lines)
 
 
+def _flag_text(per_flag: dict[int, int]) -> str:
+    return ", ".join(
+        f"{'no flag' if flag < 0 else f'flag {flag}'}: {n}" for flag, n in sorted(per_flag.items())
+    )
+
+
+def flag_report(raw: RawSection) -> list[str]:
+    """Lines counting WOCE quality flags per variable, in total and per station.
+
+    Parameters
+    ----------
+    raw : RawSection
+        Profiles as read; only WHP-Exchange casts carry flag counts.
+
+    Returns
+    -------
+    list of str
+        Empty when no profile has flags. Stations whose samples are all
+        flagged 2 (acceptable) are summarised, the others listed.
+    """
+    flagged = [p for p in raw.profiles if p.flag_counts]
+    if not flagged:
+        return []
+    total: dict[str, dict[int, int]] = {}
+    for p in flagged:
+        for column, per_flag in p.flag_counts.items():
+            into = total.setdefault(column, {})
+            for flag, n in per_flag.items():
+                into[flag] = into.get(flag, 0) + n
+    lines = ["  WOCE flags (2 used; 1, 3 used with a caution; 6, 7 used; 4, 5, 9 dropped):"]
+    lines += [f"    {column}: {_flag_text(per_flag)}" for column, per_flag in total.items()]
+    clean = 0
+    for p in flagged:
+        if all(set(per_flag) <= {2} for per_flag in p.flag_counts.values()):
+            clean += 1
+            continue
+        text = "; ".join(
+            f"{c} {_flag_text(f)}" for c, f in p.flag_counts.items() if set(f) - {2}
+        )
+        lines.append(f"    station {p.station}: {text}")
+    lines.append(f"    {clean} of {len(flagged)} stations have every sample flagged 2")
+    return lines
+
+
 def describe_section(
     source: Source,
     dp: float = 2.0,
     *,
     allow_equator: bool = False,
     rules: GriddingRules | None = None,
+    bottle: str | None = None,
     **read_options: Any,
 ) -> str:
     """Read, check and grid a section, and describe it for the command line.
@@ -101,6 +148,9 @@ def describe_section(
         Keep pairs near the equator with a caution instead of refusing them.
     rules : GriddingRules, optional
         Gap limits (dbar) and bottom tolerance (m).
+    bottle : str, optional
+        A WHP-Exchange bottle file of the same stations: its flags and tracers
+        are reported too.
     **read_options
         Passed to :func:`sectionkit.io.read_section` (name, columns,
         temperature_kind, salinity_kind, pressure_units, temperature_units,
@@ -120,7 +170,18 @@ def describe_section(
     raw = read_section(source, **read_options)
     cautions = validate_section(raw, allow_equator=allow_equator)
     ds = grid_raw_section(raw, rules, cautions)
-    return format_report(raw, ds, cautions)
+    if bottle is None:
+        return format_report(raw, ds, cautions)
+    bottles = read_bottle(bottle, cautions)
+    ds = grid_tracers(ds, bottles, cautions)
+    text = format_report(raw, ds, cautions)
+    head, sep, tail = text.partition("\n  cautions")
+    lines = bottles.flag_report()
+    for name in tracer_variables(ds):
+        have = int(np.isfinite(ds[name].values).any(axis=1).sum())
+        lines.append(f"    {name} ({ds[name].attrs['exchange_name']}): profiles at {have} of "
+                     f"{ds.sizes['station']} stations (PCHIP between good bottles)")
+    return "\n".join([head, *lines]) + sep + tail
 
 
 def _pairs(items: Sequence[str] | None, what: str) -> dict[str, str]:
@@ -154,13 +215,16 @@ def add_check_arguments(parser: argparse.ArgumentParser) -> argparse.ArgumentPar
     )
     parser.add_argument("--dp", type=float, default=2.0, help="grid step, dbar (default 2)")
     parser.add_argument(
+        "--bottle", metavar="FILE", help="WHP-Exchange bottle file of the stations (tracers)"
+    )
+    parser.add_argument(
         "--allow-equator", action="store_true", help="keep pairs within 2 degrees of the equator"
     )
     parser.add_argument(
         "--column",
         action="append",
         metavar="KEY=HEADER",
-        help=f"CSV header for a column; KEY is one of {', '.join(CSV_COLUMNS)}",
+        help=f"CSV only: header for a column; KEY is one of {', '.join(CSV_COLUMNS)}",
     )
     parser.add_argument(
         "--variable",
@@ -168,11 +232,20 @@ def add_check_arguments(parser: argparse.ArgumentParser) -> argparse.ArgumentPar
         metavar="QUANTITY=NAME",
         help="NetCDF variable to use where several share a standard_name",
     )
-    parser.add_argument("--temperature-kind", choices=TEMPERATURE_KINDS, default="in-situ")
-    parser.add_argument("--salinity-kind", choices=SALINITY_KINDS, default="practical")
-    parser.add_argument("--pressure-units", default="dbar", help="CSV pressure units (dbar, Pa)")
     parser.add_argument(
-        "--temperature-units", default="degC", help="CSV temperature units (degC, K)"
+        "--temperature-kind", choices=TEMPERATURE_KINDS, default="in-situ",
+        help="CSV only: what the temperature column holds (default in-situ); NetCDF files say "
+        "it by standard_name")
+    parser.add_argument(
+        "--salinity-kind", choices=SALINITY_KINDS, default="practical",
+        help="CSV only: what the salinity column holds (default practical); NetCDF files say "
+        "it by standard_name")
+    parser.add_argument("--pressure-units", default="dbar",
+                        help="CSV only: pressure units (dbar, Pa, ...); NetCDF files carry "
+                        "units attributes")
+    parser.add_argument(
+        "--temperature-units", default="degC",
+        help="CSV only: temperature units (degC, K); NetCDF files carry units attributes"
     )
     return parser
 
@@ -213,7 +286,8 @@ def run_check(
         if i:
             print(file=out)
         try:
-            text = describe_section(file, args.dp, allow_equator=args.allow_equator, **options)
+            text = describe_section(file, args.dp, allow_equator=args.allow_equator,
+                                    bottle=getattr(args, "bottle", None), **options)
         except SectionkitError as exc:
             print(f"error: {file}: {exc}", file=err)
             status = 1

@@ -15,6 +15,7 @@ import numpy as np
 import xarray as xr
 
 from sectionkit.errors import Cautions, InputFileError, SectionDataError, where
+from sectionkit.io.classic import check_classic_length
 from sectionkit.io.raw import Profile
 from sectionkit.io.units import (
     check_salinity_units,
@@ -69,6 +70,7 @@ def open_netcdf(path: str) -> xr.Dataset:
     xarray.Dataset
         Decoded (missing values as NaN, scale factors applied), loaded, closed.
     """
+    check_classic_length(path)
     try:
         with xr.open_dataset(path, decode_times=False, decode_timedelta=False) as ds:
             return ds.load()
@@ -146,6 +148,15 @@ def find_variable(
         ]
         if matches:
             return matches[0], "sea pressure"
+        # CF conventions §4.3: a coordinate variable (1-D, named as its dimension) whose
+        # units are a pressure is the vertical coordinate, without axis or standard_name
+        matches = [
+            n
+            for n, v in ds.variables.items()
+            if v.dims == (n,) and is_pressure_units(v.attrs.get("units"))
+        ]
+        if len(matches) == 1:
+            return matches[0], "sea pressure"
     if quantity in _POSITION_UNITS:
         matches = [
             n
@@ -164,7 +175,8 @@ def _require(
     if found is None:
         names = " or ".join(STANDARD_NAMES[quantity])
         extra = (
-            ' (or a vertical coordinate with axis = "Z" and pressure units)'
+            ' (or a vertical coordinate with pressure units: axis = "Z", or a coordinate '
+            "variable named as its dimension, CF §4.3)"
             if (quantity == "pressure")
             else ""
         )

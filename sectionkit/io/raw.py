@@ -42,6 +42,11 @@ class Profile:
         column name it was read from, for messages.
     units : dict
         Quantity to the units as labelled in the file (before conversion).
+    flag_counts : dict
+        Exchange files: variable (CTDTMP, ...) to the number of samples per
+        WOCE flag, as read (before dropping); empty for other files.
+    cast : str
+        Exchange files: the CASTNO header; empty for other files.
     """
 
     station: str | None
@@ -56,6 +61,8 @@ class Profile:
     temperature_kind: str = "in-situ"
     names: dict[str, str] = field(default_factory=dict)
     units: dict[str, str] = field(default_factory=dict)
+    flag_counts: dict[str, dict[int, int]] = field(default_factory=dict)
+    cast: str = ""
 
     def where(self, quantity: str | None = None) -> str:
         """Location text for messages, e.g. ``station 7 (file north.nc), variable TEMP``."""

@@ -33,6 +33,7 @@ import numpy as np
 from sectionkit.errors import Cautions, EquatorError, SectionDataError
 from sectionkit.geometry import (
     EQUATOR_BAND,
+    along_line_direction,
     equatorial_pairs,
     great_circle_distance,
     haversine,
@@ -53,6 +54,7 @@ MAX_BOTTOM_DEPTH = 11500.0  # m
 SAME_POSITION = 10.0  # m
 GAP_FACTOR = 3.0
 SHORT_CAST = 200.0  # m
+TURN_BACK = 135.0  # degrees: a line turning back sharper than this is out of station order
 
 
 def _first(mask: np.ndarray) -> int:
@@ -112,6 +114,22 @@ def check_present(profile: Profile) -> None:
         raise SectionDataError(
             f"{profile.where()}: no sample has pressure, salinity and temperature all present; "
             "drop the station or supply its data"
+        )
+
+
+def check_not_zero(profile: Profile) -> None:
+    """No sample exactly 0 in both temperature and salinity (zeros in place of data).
+
+    Water of salinity 0 is not sea water, so a sample holding exactly 0 in both
+    is the zero fill of a cut-short file or of unwritten data, not a measurement.
+    """
+    zero = (profile.temperature == 0.0) & (profile.salinity == 0.0)
+    if zero.any():
+        k = _first(zero)
+        raise SectionDataError(
+            f"{profile.where()}: {int(zero.sum())} sample(s) from {_at(profile, k)} on are "
+            "exactly 0 in both temperature and salinity, which is not data (a cut-short file, "
+            "or missing values written as 0?); declare missing values as _FillValue or NaN"
         )
 
 
@@ -244,6 +262,7 @@ def check_profile(profile: Profile, cautions: Cautions) -> None:
     check_position(profile)
     check_finite(profile)
     check_present(profile)
+    check_not_zero(profile)
     check_pressure(profile)
     check_temperature(profile)
     check_salinity(profile, cautions)
@@ -432,6 +451,92 @@ def check_spacing(raw: RawSection, cautions: Cautions) -> np.ndarray:
     return spacing
 
 
+def check_station_order(raw: RawSection, cautions: Cautions) -> None:
+    """Caution for stations out of geographic order along the line (a zigzag).
+
+    The line from station k to k + 1 and on to k + 2 turning back by more
+    than TURN_BACK degrees means station k + 1 lies beyond its neighbours:
+    pairs then overlap and their transports count the same water twice or
+    with opposite signs.
+    """
+    t_east, t_north = along_line_direction(raw.lon, raw.lat)
+    if t_east.size < 2:
+        return
+    turn = t_east[:-1] * t_east[1:] + t_north[:-1] * t_north[1:]
+    back = np.flatnonzero(turn < np.cos(np.radians(TURN_BACK)))
+    if back.size:
+        ids = raw.stations
+        names = ", ".join(f"{ids[k]}-{ids[k + 1]}-{ids[k + 2]}" for k in back)
+        cautions.add(
+            "station-order",
+            f"section {raw.name}: the line turns back at stations {names} (by more than "
+            f"{TURN_BACK:g} degrees); stations look out of geographic order, so pairs overlap "
+            "and count water twice or with opposite signs — order the stations along the line",
+            station=ids[int(back[0]) + 1],
+        )
+
+
+def check_not_surface_only(raw: RawSection, dp: float) -> None:
+    """Refuse a grid step larger than the profiles, or stations sampled only at the surface.
+
+    Parameters
+    ----------
+    raw : RawSection
+        Checked profiles (dbar).
+    dp : float
+        Grid step, dbar.
+    """
+    deepest = np.array([float(p.pressure[p.complete()].max()) for p in raw.profiles])
+    if np.all(deepest < dp):
+        raise SectionDataError(
+            f"{raw.name} ({', '.join(raw.sources)}): the grid step dp = {dp:g} dbar is larger "
+            f"than the profiles (deepest sample {deepest.max():g} dbar), so every station has "
+            "data only at the surface level; use a step of a few dbar (e.g. dp = 2.0)"
+        )
+    shallow = np.flatnonzero(deepest < dp)
+    if shallow.size:
+        profile = raw.profiles[int(shallow[0])]
+        others = "" if shallow.size == 1 else (
+            " (also stations " + ", ".join(raw.stations[k] for k in shallow[1:]) + ")")
+        raise SectionDataError(
+            f"{profile.where()}: its deepest sample is at {deepest[shallow[0]]:g} dbar, so on "
+            f"the {dp:g} dbar grid it has data only at the surface{others}; geostrophic shear "
+            "needs a profile — drop the station or supply its data"
+        )
+
+
+def check_gridded_levels(ds, file: str | None = None) -> None:
+    """Refuse stations or pairs of a gridded section with data only at the surface level.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Canonical gridded section (SA, CT on station x pressure).
+    file : str, optional
+        Its source, for messages.
+    """
+    finite = np.isfinite(ds["SA"].values) & np.isfinite(ds["CT"].values)
+    stations = [str(s) for s in ds["station"].values]
+    name = ds.attrs.get("section", "section")
+    source = f" ({file})" if file else ""
+    levels = finite.sum(axis=-1)
+    if np.any(levels < 2):
+        k = int(np.flatnonzero(levels < 2)[0])
+        raise SectionDataError(
+            f"station {stations[k]} of section {name}{source}: has data at "
+            f"{int(levels[k])} grid level(s) only; geostrophic shear needs a profile — drop "
+            "the station or use a smaller grid step dp"
+        )
+    common = (finite[:-1] & finite[1:]).sum(axis=-1)
+    if np.any(common < 2):
+        k = int(np.flatnonzero(common < 2)[0])
+        raise SectionDataError(
+            f"pair {name}:{k} (stations {stations[k]}-{stations[k + 1]}){source}: its deepest "
+            "common level is the surface, so there is no shear to reference; drop one of the "
+            "stations or check their profiles"
+        )
+
+
 def inversion_cautions(
     raw: RawSection, inversions: list[Inversion], span: float, threshold: float, cautions: Cautions
 ) -> None:
@@ -472,4 +577,5 @@ def validate_section(raw: RawSection, *, allow_equator: bool = False) -> Caution
     check_same_positions(raw)
     check_equator(raw, allow_equator, cautions)
     check_spacing(raw, cautions)
+    check_station_order(raw, cautions)
     return cautions

@@ -132,13 +132,13 @@ class ClassTransports:
     inverse: bool
 
     def to_frame(self) -> pd.DataFrame:
-        """One row per section x class: section, layer, initial_sv, adjusted_sv, adjusted_err_sv."""
+        """One row per section x class: section, class, initial_sv, adjusted_sv, adjusted_err_sv."""
         rows = []
         for s, section in enumerate(self.sections):
             for i, layer in enumerate(self.layers):
                 rows.append({
                     "section": section,
-                    "layer": layer,
+                    "class": layer,
                     "initial_sv": float(self.initial[s, i]),
                     "adjusted_sv": float(self.adjusted[s, i]),
                     "adjusted_err_sv": float(self.error[s, i]),
@@ -163,6 +163,9 @@ class BoxBudget:
         inverse).
     units : tuple of str
         ``"Sv"``, ``"Sv g/kg"`` or ``"PW"`` per row.
+    posterior_std : ndarray (row,) or None
+        Residual std the estimate can achieve, sqrt(diag(N - E P E^T)) in
+        ``units`` (Wunsch 1996, ch. 3); None without an inverse.
     """
 
     rows: tuple[tuple[str, str], ...]
@@ -170,12 +173,21 @@ class BoxBudget:
     adjusted: np.ndarray
     noise: np.ndarray
     units: tuple[str, ...]
+    posterior_std: np.ndarray | None = None
 
     @property
     def normalized_residual(self) -> np.ndarray:
         """Adjusted inflow over its noise, dimensionless (DESIGN.md §7)."""
         with np.errstate(invalid="ignore", divide="ignore"):
             return self.adjusted / self.noise
+
+    @property
+    def posterior_normalized_residual(self) -> np.ndarray:
+        """Adjusted inflow over its posterior residual std (NaN without an inverse)."""
+        if self.posterior_std is None:
+            return np.full(len(self.rows), np.nan)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(self.posterior_std > 0, self.adjusted / self.posterior_std, np.nan)
 
     def to_frame(self) -> pd.DataFrame:
         """One row per constraint, the columns of box_budget.csv."""
@@ -186,6 +198,9 @@ class BoxBudget:
             "adjusted": self.adjusted,
             "noise": self.noise,
             "normalized_residual": self.normalized_residual,
+            "posterior_residual_std": (np.full(len(self.rows), np.nan)
+                                       if self.posterior_std is None else self.posterior_std),
+            "posterior_normalized_residual": self.posterior_normalized_residual,
             "unit": list(self.units),
         })
 
@@ -285,6 +300,27 @@ def _solve_key(cfg: Config) -> str:
     ref = d.pop("reference")
     return repr((d, ref.get("bottom_triangle"), ref.get("allow_equator"),
                  _reference_error_key(cfg), _operator_key(cfg)))
+
+
+def keep_backup(path: Path) -> Path:
+    """Copy a file to the first free numbered backup beside it (``x.autosave.1.toml``, ...).
+
+    Parameters
+    ----------
+    path : Path
+        The file (an autosave that could not be resumed).
+
+    Returns
+    -------
+    Path
+        The backup written.
+    """
+    stem = path.name.removesuffix(".toml")
+    n = 1
+    while (backup := path.with_name(f"{stem}.{n}.toml")).exists():
+        n += 1
+    backup.write_bytes(path.read_bytes())
+    return backup
 
 
 def _portable(cfg: Config, folder: Path) -> Config:
@@ -406,11 +442,19 @@ class WorkbenchState:
         state = cls(config, session=path, autosave=autosave)
         previous = state.autosave_path or path.with_name(path.stem + AUTOSAVE_SUFFIX)
         if resume and previous.is_file():
+            sections = dict(state.study.sections)
             try:
                 state.load(previous, record=False, kind="load")
                 state.resumed_from = previous
-            except SectionkitError as exc:
-                state.resume_error = f"could not resume from {previous}: {exc}"
+            except Exception as exc:  # any failure: the work must not be lost, nor the session
+                kept = keep_backup(previous)
+                reason = str(exc) if isinstance(exc, SectionkitError) else (
+                    f"{type(exc).__name__}: {exc}")
+                # a failed load may have been part-way: start again from the configuration
+                state = cls(config, sections, session=path, autosave=autosave)
+                state.resume_error = (
+                    f"could not resume from {previous.name} ({reason}); opened {path.name} "
+                    f"instead, and kept the autosave as {kept.name}")
         return state
 
     # ------------------------------------------------------------ listeners
@@ -1248,7 +1292,8 @@ class WorkbenchState:
         if results.inverse is not None:
             sys_ = results.inverse.system
             box = BoxBudget(tuple(sys_.rows), sys_.initial.copy(), results.inverse.adjusted,
-                            sys_.noise.copy(), tuple(sys_.units))
+                            sys_.noise.copy(), tuple(sys_.units),
+                            results.inverse.posterior_residual_std)
         else:
             mass = {n: results.outputs[n].value(None)[
                 [results.outputs[n].index(f"mass:{layer}") for layer in layers]]
@@ -1355,8 +1400,10 @@ class WorkbenchState:
             active = system.prior > 0
             x = np.zeros(layout.size)
             x[active] = base.inverse.solver.gain @ (-initial_rows)
+            # the posterior covariance does not depend on the data: same residual std
             box = BoxBudget(tuple(system.rows), initial_rows, initial_rows + system.matrix @ x,
-                            system.noise.copy(), tuple(system.units))
+                            system.noise.copy(), tuple(system.units),
+                            base.inverse.posterior_residual_std)
         initial = np.zeros((len(sections), len(layers)))
         adjusted = np.zeros_like(initial)
         mass = {}

@@ -114,10 +114,13 @@ def box_budget_html(budget: BoxBudget, inverse: bool) -> str:
     str
         An HTML table; rows with ``|residual| > 2`` are flagged.
     """
-    head = ("box", "constraint", "initial", "adjusted", "noise", "adjusted/noise", "unit")
+    ratio_head = "adjusted/posterior std" if inverse else "adjusted/noise"
+    head = ("box", "constraint", "initial", "adjusted", "noise", ratio_head, "unit")
     rows = [f"<div style='overflow-x:auto'><table style='{TABLE_STYLE}'><tr>"
             + "".join(f"<th style='{HEAD}white-space:nowrap'>{h}</th>" for h in head) + "</tr>"]
-    ratio = budget.normalized_residual
+    # judged against what the estimate can achieve, sqrt(diag(N - E P E^T)) (Wunsch 1996,
+    # ch. 3); without an inverse the initial inflow over the noise
+    ratio = budget.posterior_normalized_residual if inverse else budget.normalized_residual
     for k, (box, constraint) in enumerate(budget.rows):
         r = float(ratio[k])
         flag = math.isfinite(r) and abs(r) > LARGE_RESIDUAL

@@ -1,0 +1,108 @@
+"""Potential density evaluated only where it can decide a class (sectionkit.layers)."""
+
+from __future__ import annotations
+
+import gsw
+import numpy as np
+
+from sectionkit.geostrophy import pair_mean
+from sectionkit.layers import (
+    DECIDING_RANGE,
+    DRHO_DCT_BOUND,
+    DRHO_DSA_BOUND,
+    class_weights,
+    deciding_densities,
+)
+from sectionkit.operator import PairDensities
+
+# two interfaces at 0 dbar, one each at 2000 and 4000 dbar (light to dense)
+FACES = [(26.6, 0.0), (27.2, 0.0), (36.9, 2000.0), (45.85, 4000.0)]
+
+
+def _casts(n_lead: int = 2, n_station: int = 9, n_lev: int = 801, dp: float = 5.0, seed=0):
+    """Invented casts: a thermocline with a wandering depth, level noise that makes density
+    inversions, and bottoms from the full depth up to a few levels."""
+    rng = np.random.default_rng(seed)
+    p = np.arange(n_lev) * dp
+    shape = (n_lead, n_station, n_lev)
+    shift = rng.uniform(-300.0, 300.0, size=shape[:2])[..., None]
+    ct = 1.5 + 19.0 * np.exp(-np.clip(p + shift, 0, None) / 800.0) + 0.05 * rng.normal(
+        size=shape)
+    sa = 34.75 + 0.9 * np.exp(-np.clip(p + shift, 0, None) / 600.0) + 0.004 * rng.normal(
+        size=shape)
+    # a strong inversion: a warm salty lens at mid depth in one cast
+    sa[0, 3, 300:330] += 0.3
+    ct[0, 3, 300:330] += 2.0
+    bottoms = [n_lev, n_lev, 700, 640, 3, 0, 0, n_lev - 17, 500][:n_station]
+    for s, k in enumerate(bottoms):
+        sa[:, s, k:] = np.nan
+        ct[:, s, k:] = np.nan
+    return sa, ct, p
+
+
+def _full(sa, ct, p_ref):
+    # the full evaluation: TEOS-10 potential density on every level, then pair means
+    return pair_mean(gsw.rho(sa, ct, p_ref) - 1000.0)
+
+
+def _weights(faces_density, p, n_pair):
+    values = np.array([v for v, _ in FACES])
+    thickness = np.broadcast_to(np.diff(p), (n_pair, p.size - 1)) * 1.01
+    width = np.ones((n_pair, p.size - 1))
+    return class_weights(faces_density, values, thickness, width, np.full(n_pair, 3.0))
+
+
+def test_class_weights_equal_the_full_evaluation_bit_for_bit():
+    # no BLAS involved: the weights must be identical, including inversions and bottoms
+    sa, ct, p = _casts()
+    by_p_ref = {}
+    for v, pr in FACES:
+        by_p_ref.setdefault(pr, []).append(v)
+    deciding = deciding_densities(sa, ct, by_p_ref)
+    n_pair = sa.shape[-2] - 1
+    ours = _weights([deciding[pr] for _, pr in FACES], p, n_pair)
+    full = _weights([_full(sa, ct, pr) for _, pr in FACES], p, n_pair)
+    assert np.array_equal(ours, full)
+
+
+def test_values_are_exact_at_every_crossing_and_nan_below_the_bottom():
+    sa, ct, p = _casts(seed=1)
+    deciding = deciding_densities(sa, ct, {0.0: [26.6, 27.2]})[0.0]
+    full = _full(sa, ct, 0.0)
+    assert np.array_equal(np.isnan(deciding), np.isnan(full))
+    for value in (26.6, 27.2):
+        crossed = ((full[..., :-1] > value) != (full[..., 1:] > value)) & np.isfinite(
+            full[..., :-1] + full[..., 1:])
+        assert crossed.any()
+        k = np.nonzero(crossed)
+        assert np.array_equal(deciding[..., :-1][k], full[..., :-1][k])
+        assert np.array_equal(deciding[..., 1:][k], full[..., 1:][k])
+
+
+def test_water_outside_the_bounded_range_is_evaluated_exactly():
+    # hypersaline water (SA above the range where the derivative bounds were checked)
+    sa, ct, p = _casts(n_lead=1, seed=2)
+    sa[0, :2, 100:] += 10.0
+    deciding = deciding_densities(sa, ct, {0.0: [26.6]})[0.0]
+    full = _full(sa, ct, 0.0)
+    assert np.array_equal(deciding[0, 0, 100:-16], full[0, 0, 100:-16])
+
+
+def test_derivative_bounds_hold_over_the_deciding_range():
+    # TEOS-10 (gsw.rho_alpha_beta): rho*beta = d rho / d SA and rho*alpha = -d rho / d CT
+    sa_lo, sa_hi = DECIDING_RANGE["SA"]
+    ct_lo, ct_hi = DECIDING_RANGE["CT"]
+    p_lo, p_hi = DECIDING_RANGE["p_ref"]
+    sa, ct, p = np.meshgrid(np.linspace(sa_lo, sa_hi, 85), np.linspace(ct_lo, ct_hi, 86),
+                            np.linspace(p_lo, p_hi, 23), indexing="ij")
+    rho, alpha, beta = gsw.rho_alpha_beta(sa, ct, p)
+    assert np.nanmax(rho * beta) < 0.9 * DRHO_DSA_BOUND
+    assert np.nanmax(np.abs(rho * alpha)) < 0.9 * DRHO_DCT_BOUND
+
+
+def test_pair_densities_are_computed_on_first_access():
+    sa, ct, p = _casts(n_lead=1, seed=3)
+    densities = PairDensities(sa, ct)
+    assert 2000.0 not in densities
+    np.testing.assert_array_equal(densities[2000.0], _full(sa, ct, 2000.0))
+    assert 2000.0 in densities

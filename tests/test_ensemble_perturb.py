@@ -1,0 +1,51 @@
+"""Sensor perturbations of ensemble members against numpy's own interpolation."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from sectionkit.ensemble import NO_PERTURBATION, Perturbation, perturb_section, shift_profiles
+from sectionkit.modelsection import synthetic_section
+
+
+def _interp_loop(values, p, shift):
+    # the definition: each cast moved with numpy.interp over its own valid levels
+    out = values.copy()
+    for s in range(values.shape[0]):
+        ok = np.isfinite(values[s])
+        if ok.sum() >= 2 and shift[s] != 0.0:
+            out[s, ok] = np.interp(p[ok] - shift[s], p[ok], values[s, ok])
+    return out
+
+
+def test_shifted_casts_equal_numpy_interp():
+    rng = np.random.default_rng(0)
+    p = np.arange(300) * 2.0
+    values = np.cumsum(rng.normal(size=(9, 300)), axis=-1)
+    for s, count in enumerate([0, 1, 2, 3, 100, 299, 300, 300, 250]):
+        values[s, count:] = np.nan
+    shift = rng.normal(size=9) * 3.0
+    shift[7] = 0.0
+    shift[6] = 700.0  # further than the cast is long: the end value is held
+    np.testing.assert_allclose(shift_profiles(values, p, shift), _interp_loop(values, p, shift),
+                               rtol=1e-13, atol=1e-13)
+
+
+def test_shift_on_an_uneven_grid_equals_numpy_interp():
+    rng = np.random.default_rng(1)
+    p = np.cumsum(rng.uniform(1.0, 3.0, 120))
+    values = np.cumsum(rng.normal(size=(4, 120)), axis=-1)
+    values[2, 60:] = np.nan
+    shift = rng.normal(size=4) * 2.0
+    np.testing.assert_array_equal(shift_profiles(values, p, shift),
+                                  _interp_loop(values, p, shift))
+
+
+def test_perturbing_a_section_leaves_the_original_unchanged():
+    section = synthetic_section(6, 10.0, 2000.0, lat=30.0, seed=3, name="x", noise=5.0)
+    before = section.copy(deep=True)
+    out = perturb_section(section, np.random.default_rng(5), Perturbation())
+    assert section.identical(before)
+    assert not np.array_equal(out["SA"].values, section["SA"].values, equal_nan=True)
+    same = perturb_section(section, np.random.default_rng(5), NO_PERTURBATION)
+    np.testing.assert_array_equal(same["CT"].values, section["CT"].values)

@@ -1,0 +1,94 @@
+"""One pass of the equation of state (sectionkit.thermo.specific_volume_pass) against gsw."""
+
+from __future__ import annotations
+
+import os
+
+import gsw
+import numpy as np
+import pytest
+
+from sectionkit.thermo import specific_volume_pass
+
+
+def _profiles(n_lead: int, n_lev: int, dp: float, seed: int = 0):
+    """Invented casts: a thermocline with noise (some density inversions) and every bottom
+    depth from no data at all to the full grid."""
+    rng = np.random.default_rng(seed)
+    p = np.arange(n_lev) * dp
+    shape = (n_lead, 7, n_lev)
+    ct = (2.0 + 18.0 * np.exp(-p / 700.0) + 0.3 * rng.normal(size=shape))
+    sa = 34.7 + 0.8 * np.exp(-p / 500.0) + 0.01 * np.cumsum(rng.normal(size=shape), axis=-1)
+    for i, count in enumerate([0, 1, 2, 3, 4, n_lev - 1, n_lev]):
+        sa[:, i, count:] = np.nan
+        ct[:, i, count:] = np.nan
+    return sa, ct, p
+
+
+def _gsw_dynamic_height(sa, ct, p, max_dp=1.0):
+    flat = gsw.geo_strf_dyn_height(sa.reshape(-1, p.size), ct.reshape(-1, p.size), p,
+                                   p_ref=0.0, axis=1, max_dp=max_dp)
+    return np.asarray(flat).reshape(sa.shape)
+
+
+def _assert_same(ours, theirs, rtol):
+    assert np.array_equal(np.isnan(ours), np.isnan(theirs))
+    ok = np.isfinite(theirs)
+    scale = np.max(np.abs(theirs[ok]))
+    assert np.max(np.abs(ours[ok] - theirs[ok])) <= rtol * scale
+
+
+def test_dynamic_height_on_a_1_dbar_grid_equals_gsw():
+    # gsw.geo_strf_dyn_height (p_ref = 0, max_dp = 1): trapezoid rule on the data grid
+    sa, ct, p = _profiles(3, 400, 1.0)
+    eos = specific_volume_pass(sa, ct, p)
+    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p), 1e-13)
+
+
+@pytest.mark.parametrize("dp", [2.0, 5.0])
+def test_dynamic_height_on_a_coarser_grid_equals_gsw_with_its_interpolation(dp):
+    # gsw interpolates SA and CT with its shape-preserving cubic to max_dp = 1 dbar first
+    sa, ct, p = _profiles(2, 300, dp, seed=1)
+    eos = specific_volume_pass(sa, ct, p)
+    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p), 1e-13)
+
+
+def test_dynamic_height_with_max_dp_equal_to_the_grid_step_skips_interpolation():
+    # gsw.geo_strf_dyn_height with max_dp = dp integrates on the 4 dbar grid itself
+    sa, ct, p = _profiles(1, 200, 4.0, seed=2)
+    eos = specific_volume_pass(sa, ct, p, max_dp=4.0)
+    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p, max_dp=4.0), 1e-13)
+
+
+def test_irregular_grid_and_interior_gaps_fall_back_to_gsw():
+    # a grid that is not 0, dp, 2 dp ... and a cast with a gap: gsw's own integration
+    sa, ct, p = _profiles(1, 120, 2.0, seed=3)
+    p_odd = p + np.linspace(0.0, 0.5, p.size) ** 2
+    eos = specific_volume_pass(sa, ct, p_odd)
+    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p_odd), 1e-13)
+    sa[0, 6, 50:53] = np.nan
+    eos = specific_volume_pass(sa, ct, p)
+    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p), 1e-13)
+
+
+def test_in_situ_density_is_gsw_rho():
+    # the reciprocal of the specific volume is gsw.rho (TEOS-10 75-term expression)
+    sa, ct, p = _profiles(2, 300, 2.0, seed=4)
+    eos = specific_volume_pass(sa, ct, p)
+    _assert_same(eos.in_situ_density(), gsw.rho(sa, ct, p), 1e-14)
+
+
+def test_anomaly_and_density_match_teos10_check_values():
+    # TEOS-10 check values (IOC, SCOR and IAPSO 2010) shipped in gsw/tests: the check
+    # casts, specvol_anom_standard and rho, each within its stated tolerance
+    path = os.path.join(os.path.dirname(gsw.__file__), "tests", "gsw_cv_v3_0.npz")
+    if not os.path.exists(path):
+        pytest.skip("gsw check-value file not installed")
+    with np.load(path) as cv:
+        sa, ct = cv["SA_chck_cast"].T, cv["CT_chck_cast"].T
+        p = cv["p_chck_cast"][:, 0]
+        eos = specific_volume_pass(sa, ct, p)
+        ok = np.isfinite(cv["rho"].T)
+        assert np.max(np.abs(eos.anomaly - cv["specvol_anom_standard"].T)[ok]) \
+            < cv["specvol_anom_standard_ca"]
+        assert np.max(np.abs(eos.in_situ_density() - cv["rho"].T)[ok]) < cv["rho_ca"]
