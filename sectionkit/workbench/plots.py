@@ -17,8 +17,12 @@ import bqplot as bq
 import ipywidgets as widgets
 import numpy as np
 
-from sectionkit.workbench.model import VelocitySection
-from sectionkit.workbench.snapshot import InverseView, LineDirection, ReferenceSensitivity
+from sectionkit.workbench.snapshot import (
+    InverseView,
+    LineDirection,
+    ReferenceSensitivity,
+    VelocitySection,
+)
 
 MAX_ROWS = 300  # pressure levels sent to the browser for a velocity section
 LINE_COLOURS = ("#1f77b4", "#d62728", "#2ca02c", "#9467bd", "#8c564b", "#e377c2")

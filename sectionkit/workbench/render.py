@@ -16,8 +16,7 @@ from collections.abc import Mapping
 import numpy as np
 import pandas as pd
 
-from sectionkit.workbench.model import BoxBudget, ClassTransports
-from sectionkit.workbench.snapshot import InverseView, LineDirection
+from sectionkit.workbench.snapshot import BoxBudget, ClassTransports, InverseView, LineDirection
 
 TABLE_STYLE = (
     "border-collapse:collapse;font-size:12px;font-variant-numeric:tabular-nums;"

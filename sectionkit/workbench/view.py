@@ -1083,7 +1083,7 @@ class WorkbenchView(widgets.VBox):
             seen.add(key)
             value = field[pair, level]
             if value == value:
-                parts.append(f"{html.escape(label.split('=')[0].strip())} {value:.3f}")
+                parts.append(f"{html.escape(key)} {value:.3f}")
         self.readout.value = "<span style='font-size:12px'>" + " · ".join(parts) + "</span>"
 
     def _on_sensitivity_click(self, event: dict) -> None:
