@@ -570,3 +570,31 @@ def test_any_error_while_resuming_is_caught_not_only_sectionkit_errors(box_dir, 
     resumed = WorkbenchState.open(session, resume=True)
     assert "ZeroDivisionError: float division by zero" in resumed.resume_error
     assert (tmp_path / "box.autosave.1.toml").is_file()
+
+
+def _event(fig, fx: float, fy: float, kind: str = "mousemove") -> dict:
+    """An ipyevents mouse event at fractions (fx, fy) of a figure's plot area."""
+    width, height = 640.0, 360.0
+    m = fig.fig_margin
+    return {"event": kind, "boundingRectWidth": width, "boundingRectHeight": height,
+            "relativeX": m["left"] + fx * (width - m["left"] - m["right"]),
+            "relativeY": m["top"] + fy * (height - m["top"] - m["bottom"])}
+
+
+def test_view_hover_reads_out_the_velocity_under_the_pointer(view):
+    section = view.state.velocity_section("south")
+    x = section.station_distance[0] + 0.5 * (section.station_distance[-1]
+                                             - section.station_distance[0])
+    p = 0.25 * float(np.nanmax(section.bottom_pressure)) * 1.03  # the y axis ends 3 % deeper
+    pair = int(np.searchsorted(section.station_distance, x) - 1)
+    level = int(np.searchsorted(section.pressure, p))
+    view._on_pointer(_event(view.figure, 0.5, 0.25))
+    assert f"south:{pair}" in view.readout.value
+    assert f"velocity {section.velocity[pair, level] * 100:+.2f} cm/s" in view.readout.value
+
+
+def test_view_click_on_the_sensitivity_chooses_that_level(view):
+    plot = view.sensitivity_plot
+    middle = 0.5 * (plot.x.min + plot.x.max)
+    view._on_sensitivity_click(_event(plot.figure, 0.5, 0.5, "click"))
+    assert view.state.config.reference.pressure == pytest.approx(round(middle / 10.0) * 10.0)

@@ -247,3 +247,20 @@ def test_sensitivity_at_a_level_is_the_batch_run_at_that_level(state, box_dir):
     for s, name in enumerate(sens.sections):
         want = expected[expected["section"] == name]["initial_sv"].to_numpy()
         np.testing.assert_allclose(sens.transports[s, k], want, rtol=1e-9, atol=1e-9)
+
+
+def test_settings_kept_while_the_inverse_is_off_survive_an_undone_class_change(state):
+    state.set_inverse_settings(noise_layer=[0.9, 0.6, 0.3])
+    state.set_inverse(False)
+    state.set_interfaces([(27.2, 0.0), (27.6, 0.0), (36.9, 2000.0)])
+    state.undo()
+    state.set_inverse(True)
+    assert state.config.inverse.noise_layer == [0.9, 0.6, 0.3]
+
+
+def test_a_refused_inverse_edit_keeps_the_new_class_flags(state):
+    state.set_interfaces([(27.2, 0.0), (27.6, 0.0), (36.9, 2000.0)])
+    flagged = state.flagged_classes
+    with pytest.raises(ConfigError):
+        state.set_inverse_settings(noise_layer=[1.0, 1.0])  # wrong length
+    assert state.flagged_classes == flagged

@@ -171,7 +171,8 @@ class WorkbenchState:
         self._gesture: str | None = None
         self._gesture_time = 0.0
         self.clock: Callable[[], float] = time.monotonic
-        self._stashed_inverse: InverseSpec | None = None
+        self._stashed_inverse: InverseSpec | None = None  # while the inverse is off
+        self._stashed_names: list[str] = []  # the classes its per-class settings belong to
         self.resumed_from: Path | None = None
         self.resume_error: str | None = None
         config = self._validated(config)
@@ -593,16 +594,15 @@ class WorkbenchState:
         if len(set(names)) != len(names):
             raise ConfigError(f"class names must differ; got {', '.join(names)}")
         inverse = map_class_settings(self._config.inverse, old_names, names)
-        stashed = map_class_settings(self._stashed_inverse, old_names, names)
+        if self._stashed_inverse is not None:  # refuse now what switching it on would refuse
+            map_class_settings(self._stashed_inverse, self._stashed_names, names)
         new = [n for n in names if n not in old_names]
         text = "interfaces: " + (", ".join(f.label() for f in faces) or "none")
-        if new and (inverse is not None or stashed is not None):
+        if new and (inverse is not None or self._stashed_inverse is not None):
             text += f"; new class(es) {', '.join(new)} with default inverse settings"
-        change = self._change("classes", text,
-                              dataclasses.replace(self._config, interfaces=faces,
-                                                  layer_names=names, inverse=inverse))
-        self._stashed_inverse = stashed
-        return change
+        return self._change("classes", text,
+                            dataclasses.replace(self._config, interfaces=faces,
+                                                layer_names=names, inverse=inverse))
 
     def set_ekman_depth(self, depth: float) -> Change:
         """Depth of the Ekman layer, m (rebuilds the operators)."""
@@ -661,18 +661,24 @@ class WorkbenchState:
 
     # ------------------------------------------------------------ controls: inverse
     def set_inverse(self, enabled: bool) -> Change:
-        """Switch the box inverse on (last or default settings) or off."""
+        """Switch the box inverse on (last or default settings) or off.
+
+        Settings kept while it was off follow the classes by name, as a change
+        of classes with the inverse on would carry them.
+        """
         if enabled:
             if self._config.inverse is not None:
                 inverse = self._config.inverse
             elif self._stashed_inverse is not None:
-                inverse = self._stashed_inverse
+                inverse = map_class_settings(self._stashed_inverse, self._stashed_names,
+                                             list(self._config.layer_names))
             else:
                 inverse = InverseSpec()
             text = "inverse on"
         else:
             if self._config.inverse is not None:
                 self._stashed_inverse = self._config.inverse
+                self._stashed_names = list(self._config.layer_names)
             inverse = None
             text = "inverse off"
         return self._change("inverse", text, dataclasses.replace(self._config, inverse=inverse))
@@ -803,11 +809,15 @@ class WorkbenchState:
         changes = {k: v for k, v in given.items()
                    if v is not None and (inv is None or getattr(inv, k) != v)}
         text = ", ".join(_setting_text(k, v) for k, v in changes.items()) or "unchanged"
-        change = self._set_inverse(f"inverse: {text}", **changes)
+        reviewed = set(self._reviewed)
         if any(given[k] is not None for k in ("noise_layer", "noise_salt", "noise_heat",
                                               "known")):
-            self._reviewed |= set(self._config.layer_names)
-        return change
+            self._reviewed |= set(self._config.layer_names)  # before the listeners hear it
+        try:
+            return self._set_inverse(f"inverse: {text}", **changes)
+        except Exception:
+            self._reviewed = reviewed
+            raise
 
     def _set_inverse(self, text: str, **changes: Any) -> Change:
         if self._config.inverse is None:
