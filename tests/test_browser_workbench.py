@@ -159,8 +159,8 @@ def test_workbench_in_the_browser(lab, size):
             page.screenshot(path=str(shots / "04-undone.png"))
             handle.press("Control+Shift+z")
             page.wait_for_function(
-                "() => document.querySelector('.sk-status').textContent.includes('redid')",
-                timeout=30_000)
+                "() => { const s = document.querySelector('.sk-status').textContent;"
+                " return s.includes('redid') && s.includes('drawn'); }", timeout=30_000)
 
             # ---- a pair chosen on the station map
             groups = page.evaluate("""() => {
@@ -192,6 +192,13 @@ def test_workbench_in_the_browser(lab, size):
             page.locator(".sk-adjustments").scroll_into_view_if_needed()
             page.wait_for_timeout(500)
             page.screenshot(path=str(shots / "07-inverse.png"))
+            for n, css in enumerate((".sk-resolution", ".sk-singular-values", ".sk-residuals")):
+                page.locator(css).scroll_into_view_if_needed()
+                page.wait_for_timeout(400)  # bqplot draws a figure once it is shown
+                page.screenshot(path=str(shots / f"07-inverse-{n}.png"))
+            _open_panel(page, "Inverse")
+            page.locator(".sk-class-noise").scroll_into_view_if_needed()
+            page.screenshot(path=str(shots / "08-inverse-panel.png"))
         finally:
             browser.close()
     # the slider change was autosaved beside the (copied) demo configuration

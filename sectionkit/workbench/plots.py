@@ -121,7 +121,8 @@ class SectionFigure:
         self.faces = bq.Lines(x=EMPTY2, y=EMPTY2,
                               scales={"x": self.x, "y": self.y},
                               colors=["black"], stroke_width=1.2)
-        self.face_labels = bq.Label(x=[], y=[], text=[], scales={"x": self.x, "y": self.y},
+        self.face_labels = bq.Label(x=[0.0], y=[0.0], text=[""], visible=False,
+                                    scales={"x": self.x, "y": self.y},
                                     colors=["black"], default_size=11, align="start")
         self.refs = bq.Scatter(x=[0.0], y=[0.0], scales={"x": self.x, "y": self.y},
                                colors=["gold"], stroke="black", default_size=22,
@@ -198,22 +199,23 @@ class SectionFigure:
         with self.faces.hold_sync():
             if xs:
                 self.faces.x, self.faces.y = np.array(xs), np.array(ys)
-            else:
-                self.faces.x, self.faces.y = np.zeros((1, 2)), np.full((1, 2), np.nan)
+            self.faces.visible = bool(xs)
         with self.face_labels.hold_sync():
             self.face_labels.x, self.face_labels.y, self.face_labels.text = lx, ly, text
+            self.face_labels.visible = bool(text)
 
     def select(self, pair: int | None) -> None:
         """Outline one pair (None: none)."""
         s = self.section
         if s is None or pair is None or not 0 <= pair < s.pair_distance.size:
-            self.selected.x, self.selected.y = [np.nan], [np.nan]
+            self.selected.visible = False
             return
         x0, x1 = float(s.station_distance[pair]), float(s.station_distance[pair + 1])
         bottom = float(np.nanmax(s.bottom_pressure)) * 1.03
         with self.selected.hold_sync():
             self.selected.x = [x0, x1, x1, x0, x0]
             self.selected.y = [0.0, 0.0, bottom, bottom, 0.0]
+            self.selected.visible = True
 
     def reset_zoom(self) -> None:
         """Back to the whole section."""
@@ -291,7 +293,8 @@ class StationMap:
             self.pair_marks[name] = dots
             marks.append(dots)
             marks.extend(_direction_marks(name, slon, slat, directions.get(name), sc, colour))
-        self.selected = bq.Scatter(x=[np.nan], y=[np.nan], scales=sc, colors=["white"], fill=False,
+        self.selected = bq.Scatter(x=[0.0], y=[0.0], scales=sc, colors=["white"], fill=False,
+                                   visible=False,
                                    stroke=SELECTED, stroke_width=3, default_size=160)
         marks.append(self.selected)
         self.pairs = pairs
@@ -310,6 +313,7 @@ class StationMap:
         lon, lat = self.pairs[line]
         with self.selected.hold_sync():
             self.selected.x, self.selected.y = [float(lon[pair])], [float(lat[pair])]
+            self.selected.visible = True
 
 
 def _box_ring(lines: list[tuple[np.ndarray, np.ndarray]]) -> tuple[np.ndarray, np.ndarray]:
@@ -406,9 +410,8 @@ class SensitivityFigure:
     def mark(self, pressure: float | None) -> None:
         """Mark the current global level (None: not a pressure reference)."""
         with self.current.hold_sync():
-            if pressure is None:
-                self.current.x, self.current.y = [np.nan, np.nan], [0.0, 0.0]
-            else:
+            self.current.visible = pressure is not None
+            if pressure is not None:
                 self.current.x = [pressure, pressure]
                 self.current.y = [self.y.min, self.y.max]
 
@@ -425,7 +428,7 @@ class InverseFigures:
                               scales=sc, colors=["#777777"],
                                stroke_width=1)
         self.b_zero = bq.Lines(x=[0.0, 1.0], y=[0.0, 0.0], scales=sc, colors=["#999999"])
-        self.b_label = bq.Label(x=[], y=[], text=[], scales=sc, colors=list(LINE_COLOURS),
+        self.b_label = bq.Label(x=[0.0], y=[0.0], text=[""], scales=sc, colors=list(LINE_COLOURS),
                                 default_size=12)
         b_axes = [bq.Axis(scale=self.bx,
                           label="distance along the line (km); lines one after another"),
@@ -435,9 +438,10 @@ class InverseFigures:
             [self.b_zero, self.b_bars, self.b_dots, self.b_label], b_axes,
             "sk-adjustments", "260px", title="reference-velocity adjustments")
         self.rx, self.ry = bq.LinearScale(), bq.LinearScale(min=0.0, max=1.05)
-        self.res = bq.Lines(x=EMPTY2, y=EMPTY2,
-                            scales={"x": self.rx, "y": self.ry},
-                            colors=list(LINE_COLOURS), marker="circle", marker_size=12)
+        self.res = bq.Scatter(x=[0.0], y=[0.0], scales={"x": self.rx, "y": self.ry,
+                                                        "color": bq.OrdinalColorScale(
+                                                            colors=list(LINE_COLOURS))},
+                              color=[0], default_size=16)
         r_axes = [bq.Axis(scale=self.rx, label="distance along the line (km)"),
                   bq.Axis(scale=self.ry, side="left", label="resolution of b")]
         follow_ticks(r_axes[0], self.rx)
@@ -491,14 +495,13 @@ class InverseFigures:
             self.b_zero.x = [float(x_all.min()), float(x_all.max())]
             with self.b_label.hold_sync():
                 self.b_label.x, self.b_label.y, self.b_label.text = lx, ly, text
-        width = max(len(r) for r in rx)
-        pad_nan = lambda a: np.concatenate([a, np.full(width - a.size, np.nan)])  # noqa: E731
         with self.resolution.hold_sync():
             self.rx.min = 0.0
             self.rx.max = float(max(np.max(r) for r in rx))
             with self.res.hold_sync():
-                self.res.x = np.array([pad_nan(r) for r in rx])
-                self.res.y = np.array([pad_nan(r) for r in ry])
+                self.res.x = np.concatenate(rx)
+                self.res.y = np.concatenate(ry)
+                self.res.color = np.concatenate(colours)
         s = view.singular_values
         s = s[s > 0]
         with self.singular.hold_sync():
@@ -511,8 +514,7 @@ class InverseFigures:
                 if view.rank is not None:
                     r = view.rank + 0.5
                     self.rank.x, self.rank.y = [r, r], [self.sy.min, self.sy.max]
-                else:
-                    self.rank.x = [np.nan, np.nan]
+                self.rank.visible = view.rank is not None
             title = "singular values"
             if view.rank is not None:
                 title += f" (rank used: {view.rank})"

@@ -207,6 +207,11 @@ def _note(text: str) -> widgets.HTML:
                         layout=widgets.Layout(width="100%"))
 
 
+def _button(description: str, **kwargs: Any) -> widgets.Button:
+    """A button as wide as its words (never cut short)."""
+    return widgets.Button(description=description, layout=widgets.Layout(width="auto"), **kwargs)
+
+
 def _wide(**kwargs: Any) -> widgets.Layout:
     """Full width of the parent, less the 2 px margin ipywidgets puts on each side."""
     return widgets.Layout(width="calc(100% - 4px)", **kwargs)
@@ -287,7 +292,7 @@ class WorkbenchView(widgets.VBox):
         self.iso_pref = _css(widgets.FloatText(description="σ reference pressure (dbar)",
                                                step=1000.0, style=STYLE, layout=_wide()),
                              "isopycnal_pref")
-        self.iso_apply = _css(widgets.Button(description="use this isopycnal"),
+        self.iso_apply = _css(_button("use this isopycnal"),
                               "isopycnal_apply")
         self.line = _css(widgets.Dropdown(description="line", style=STYLE, layout=_wide()),
                          "line")
@@ -310,9 +315,9 @@ class WorkbenchView(widgets.VBox):
                                       "override_velocity")
         self.override_error = _css(widgets.FloatText(description="± (m s⁻¹)", style=STYLE,
                                                      layout=_wide()), "override_error")
-        self.override_apply = _css(widgets.Button(description="set for this pair"),
+        self.override_apply = _css(_button("set for this pair"),
                                    "override_apply")
-        self.override_clear = _css(widgets.Button(description="back to global"),
+        self.override_clear = _css(_button("back to global"),
                                    "override_clear")
         self.override_list = _css(widgets.HTML(layout=_wide()), "override_list")
         self.velocity_sign = _note("")
@@ -337,7 +342,7 @@ class WorkbenchView(widgets.VBox):
             options=[("constant below deepest common level", "constant"),
                      ("zero", "zero"), ("extrapolated shear", "shear")],
             description="bottom triangles", style=STYLE, layout=_wide()), "bottom_triangle")
-        self.interfaces_apply = _css(widgets.Button(description="rebuild classes"),
+        self.interfaces_apply = _css(_button("rebuild classes"),
                                      "interfaces_apply")
         classes_panel = widgets.VBox([
             _note("Interfaces light to dense, each a potential density anomaly (kg m⁻³) at "
@@ -355,7 +360,7 @@ class WorkbenchView(widgets.VBox):
         self.ekman_east: dict[str, widgets.FloatText] = {}
         self.ekman_north: dict[str, widgets.FloatText] = {}
         self.ekman_rows = widgets.VBox(layout=_wide())
-        self.ekman_apply = _css(widgets.Button(description="apply wind"), "ekman_apply")
+        self.ekman_apply = _css(_button("apply wind"), "ekman_apply")
         wind_panel = widgets.VBox([
             _note("Uniform wind stress over each line (N m⁻², east and north); its Ekman "
                   "transport enters the classes of the top layer."),
@@ -401,7 +406,7 @@ class WorkbenchView(widgets.VBox):
         self.section_net_sign = _note("")
         self.bounds = _css(widgets.Textarea(placeholder="pair, lower, upper (m s⁻¹)",
                                             layout=_wide(height="48px")), "bounds")
-        self.inverse_apply = _css(widgets.Button(description="apply inverse settings"),
+        self.inverse_apply = _css(_button("apply inverse settings"),
                                   "inverse_apply")
         self.inverse_box = widgets.VBox([
             self.solver, self.rank, self.rank_used,
@@ -427,8 +432,8 @@ class WorkbenchView(widgets.VBox):
         self.path = _css(widgets.Text(value=str(folder / f"{stem}.saved.toml"),
                                       description="config file", style=STYLE, layout=_wide()),
                          "path")
-        self.save_button = _css(widgets.Button(description="save", icon="save"), "save")
-        self.load_button = _css(widgets.Button(description="load", icon="folder-open"), "load")
+        self.save_button = _css(_button("save", icon="save"), "save")
+        self.load_button = _css(_button("load", icon="folder-open"), "load")
         self.export_folder = _css(widgets.Text(value=str(folder / f"{stem}_results"),
                                                description="results folder", style=STYLE,
                                                layout=_wide()), "export_folder")
@@ -436,7 +441,7 @@ class WorkbenchView(widgets.VBox):
                                                     indent=False,
                                                     layout=widgets.Layout(width="auto")),
                                    "export_figures")
-        self.export_button = _css(widgets.Button(description="export", icon="download"),
+        self.export_button = _css(_button("export", icon="download"),
                                   "export")
         self.export_progress = _css(widgets.FloatProgress(
             value=0.0, min=0.0, max=1.0, description="", bar_style="info",
@@ -775,7 +780,7 @@ class WorkbenchView(widgets.VBox):
                                         (self.noise_salt, inv.noise_salt, "noise_salt"),
                                         (self.noise_heat, inv.noise_heat, "noise_heat")):
                 box = widgets.FloatText(value=float(values[i]) if values else 0.0, step=0.05,
-                                        layout=widgets.Layout(width="100%", min_width="0"))
+                                        layout=_wide(min_width="0"))
                 box.add_class(CSS_CLASSES[role])
                 box.add_class(f"{CSS_CLASSES[role]}-{name}")
                 store[name] = box
@@ -930,8 +935,9 @@ class WorkbenchView(widgets.VBox):
             finally:
                 self._syncing = False
         self._show_pair()
-        self._set_status(f"selected pair {self._pair_label()}: give it its own reference in "
-                         "the Reference panel")
+        self._last_change = (f"selected pair {self._pair_label()}: give it its own reference "
+                             "in the Reference panel")
+        self._set_status(self._last_change)
 
     def _apply_override(self) -> None:
         kind = self.override_kind.value
