@@ -113,6 +113,14 @@ def test_workbench_in_the_browser(lab, size):
             assert problems["right"] <= problems["viewport"], problems
             assert problems["truncated"] == [], problems
 
+            # ---- every control panel fits too
+            for title in ("Classes", "Wind", "Inverse", "Session"):
+                _open_panel(page, title)
+                page.wait_for_timeout(200)
+                problems = page.evaluate(LAYOUT_PROBLEMS)
+                assert problems["overflow"] == [] and problems["truncated"] == [], (title,
+                                                                                    problems)
+
             # ---- a refused input: the message beside the control, the text kept
             _open_panel(page, "Classes")
             bad = "27.5 @ 0\n27.0 @ 0"
