@@ -207,8 +207,21 @@ def test_workbench_in_the_browser(lab, size):
             _open_panel(page, "Inverse")
             page.locator(".sk-class-noise").scroll_into_view_if_needed()
             page.screenshot(path=str(shots / "08-inverse-panel.png"))
+
+            # ---- export on a worker thread, with its progress bar
+            _open_panel(page, "Session")
+            page.locator(".sk-export-folder input").fill(str(root / f"results_{name}"))
+            page.locator(".sk-export-figures input").uncheck()
+            page.locator(".sk-export").click()
+            page.wait_for_function(
+                "() => document.querySelector('.sk-status').textContent.includes('exported')",
+                timeout=60_000)
+            assert page.locator(".sk-export-progress").is_visible()
+            page.screenshot(path=str(shots / "09-exported.png"))
         finally:
             browser.close()
+    assert (root / f"results_{name}" / "class_transports.csv").is_file() or (
+        root / f"results_{name}" / "layer_transports.csv").is_file()
     # the slider change was autosaved beside the (copied) demo configuration
     autosave = root / f"demo_{name}" / "demo.autosave.toml"
     deadline = time.monotonic() + 10

@@ -192,7 +192,11 @@ class SectionFigure:
                 continue
             xs.append(xp)
             ys.append(pressure)
-            k = int(np.nanargmin(pressure))
+            # the label where the interface is shallowest away from the ends (outcrops)
+            lo, hi = pressure.size // 5, max(pressure.size - pressure.size // 5, 1)
+            middle = pressure[lo:hi]
+            k = (lo + int(np.nanargmin(middle)) if np.isfinite(middle).any()
+                 else int(np.nanargmin(pressure)))
             lx.append(float(xp[k]))
             ly.append(float(pressure[k]) - 30.0)
             text.append(label)
