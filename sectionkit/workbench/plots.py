@@ -24,7 +24,7 @@ from sectionkit.workbench.snapshot import (
     VelocitySection,
 )
 
-MAX_ROWS = 300  # pressure levels sent to the browser for a velocity section
+MAX_ROWS = 240  # pressure levels sent to the browser: about one per pixel of the plot
 LINE_COLOURS = ("#1f77b4", "#d62728", "#2ca02c", "#9467bd", "#8c564b", "#e377c2")
 #: One colour per class, light to dense (the sensitivity view's curves).
 CLASS_COLOURS = ("#4c72b0", "#dd8452", "#55a868", "#c44e52", "#8172b3", "#937860",
