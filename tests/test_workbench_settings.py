@@ -264,3 +264,9 @@ def test_a_refused_inverse_edit_keeps_the_new_class_flags(state):
     with pytest.raises(ConfigError):
         state.set_inverse_settings(noise_layer=[1.0, 1.0])  # wrong length
     assert state.flagged_classes == flagged
+
+
+def test_a_known_transport_without_a_number_is_one_clear_refusal(state):
+    with pytest.raises(ConfigError, match="known transport 'strait': transport = None"):
+        state.set_inverse_settings(known=[{"name": "strait", "noise": 0.1, "class": "upper"}])
+    assert state.config.inverse.known[0].transport == 0.5

@@ -1078,9 +1078,19 @@ def _as_known(item: dict | KnownTransport) -> KnownTransport:
     if unknown:
         raise ConfigError(f"known transport: unknown key(s) {', '.join(sorted(unknown))}; use "
                           "name, transport (Sv), noise (Sv), class, box")
-    return KnownTransport(name=str(item.get("name", "known")), transport=item.get("transport"),
-                          noise=item.get("noise"), layer=str(item.get("layer", "")),
-                          box=item.get("box"))
+    name = str(item.get("name", "known"))
+    return KnownTransport(name=name,
+                          transport=_given_number(item, "transport", f"known transport {name!r}"),
+                          noise=_given_number(item, "noise", f"known transport {name!r}"),
+                          layer=str(item.get("layer", "")), box=item.get("box"))
+
+
+def _given_number(item: dict, key: str, where: str) -> float:
+    """``item[key]`` as a finite number (Sv), or one clear error naming it."""
+    value = item.get(key)
+    if isinstance(value, bool) or not isinstance(value, int | float) or value != value:
+        raise ConfigError(f"{where}: {key} = {value!r} must be a number in Sv")
+    return float(value)
 
 
 def _as_net(item: dict | SectionNet) -> SectionNet:
@@ -1091,8 +1101,10 @@ def _as_net(item: dict | SectionNet) -> SectionNet:
     if unknown:
         raise ConfigError(f"section net transport: unknown key(s) {', '.join(sorted(unknown))}; "
                           "use section, transport (Sv), noise (Sv)")
-    return SectionNet(section=str(item.get("section", "")), transport=item.get("transport"),
-                      noise=item.get("noise"))
+    section = str(item.get("section", ""))
+    where = f"net transport of {section!r}"
+    return SectionNet(section=section, transport=_given_number(item, "transport", where),
+                      noise=_given_number(item, "noise", where))
 
 
 def _setting_text(key: str, value: Any) -> str:

@@ -32,10 +32,11 @@ from typing import Any
 import ipywidgets as widgets
 from ipyevents import Event
 
+from sectionkit.config import Config, InverseSpec
 from sectionkit.errors import SectionkitError
 from sectionkit.workbench import render
 from sectionkit.workbench.keys import UndoKeys
-from sectionkit.workbench.model import Change, WorkbenchState
+from sectionkit.workbench.model import Change, VelocitySection, WorkbenchState
 from sectionkit.workbench.plots import (
     CLASS_COLOURS,
     SELECTED,
@@ -601,7 +602,7 @@ class WorkbenchView(widgets.VBox):
                                                          self.state.flagged_classes)
         self.box_budget.value = render.box_budget_html(self.state.box_budget(), table.inverse)
 
-    def _section(self):
+    def _section(self) -> VelocitySection:
         return self.state.velocity_section(self.line.value or self.state.section_names[0])
 
     def _update_figure(self) -> None:
@@ -718,7 +719,7 @@ class WorkbenchView(widgets.VBox):
         finally:
             self._syncing = False
 
-    def _sync_reference(self, cfg, names: list[str]) -> None:
+    def _sync_reference(self, cfg: Config, names: list[str]) -> None:
         ref = cfg.reference
         _, deepest, _ = self.state.pressure_range()
         self.slider.max = float(deepest)
@@ -740,7 +741,7 @@ class WorkbenchView(widgets.VBox):
         self._show_pair()
         self._show_overrides()
 
-    def _sync_inverse(self, cfg) -> None:
+    def _sync_inverse(self, cfg: Config) -> None:
         inv = cfg.inverse
         self.inverse_on.value = inv is not None
         self.inverse_box.layout.display = "" if inv is not None else "none"
@@ -766,7 +767,7 @@ class WorkbenchView(widgets.VBox):
         self.bounds.value = "\n".join(f"{label}, {lo:g}, {hi:g}"
                                       for label, (lo, hi) in inv.bounds.items())
 
-    def _build_class_noise(self, names: list[str], inv) -> None:
+    def _build_class_noise(self, names: list[str], inv: InverseSpec) -> None:
         flagged = set(self.state.flagged_classes)
         cells: list[widgets.Widget] = [widgets.HTML(f"<b style='font-size:12px'>{h}</b>")
                                        for h in ("class", "mass", "salt", "heat")]
