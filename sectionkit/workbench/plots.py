@@ -451,7 +451,8 @@ class InverseFigures:
         follow_ticks(r_axes[0], self.rx)
         self.resolution = _figure(
             [self.res], r_axes,
-            "sk-resolution", "220px", title="resolution of b (1 = fully determined)")
+            "sk-resolution", "220px",
+            title="resolution of b (1 = fully determined), lines coloured as above")
         self.sx, self.sy = bq.LinearScale(), bq.LogScale()
         self.sv = bq.Lines(x=[0.0], y=[1.0], scales={"x": self.sx, "y": self.sy},
                            marker="circle", marker_size=14, colors=["#333333"])
