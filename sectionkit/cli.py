@@ -78,16 +78,98 @@ def _cmd_demo(args: argparse.Namespace) -> int:
                       quiet=args.quiet)
 
 
-def _cmd_lab(args: argparse.Namespace) -> int:
+WORKBENCH_NOTEBOOK = "workbench.ipynb"
+
+
+def lab_notebook(folder: Path, config: Path | None = None) -> Path:
+    """A copy of the bundled workbench notebook in the user's folder, opening ``config``.
+
+    The bundled notebook opens the demo (copied beside it on first use); for
+    a configuration the copy is named after it and opens it by its path
+    relative to ``folder``. An existing copy is the user's and is kept.
+
+    Parameters
+    ----------
+    folder : Path
+        The user's folder (JupyterLab's root).
+    config : Path, optional
+        A TOML configuration to open instead of the demo.
+    """
+    import json
+    import os
+    from importlib import resources
+
+    bundled = resources.files("sectionkit") / "notebooks" / WORKBENCH_NOTEBOOK
+    notebook = json.loads(bundled.read_text(encoding="utf-8"))
+    target = folder / WORKBENCH_NOTEBOOK
+    if config is not None:
+        target = folder / f"{config.stem}_workbench.ipynb"
+        relative = Path(os.path.relpath(config.resolve(), folder.resolve())).as_posix()
+        for cell in notebook["cells"]:
+            source = "".join(cell["source"])
+            if cell["cell_type"] == "code" and "open_workbench()" in source:
+                cell["source"] = source.replace("open_workbench()",
+                                                f"open_workbench({json.dumps(relative)})")
+    if not target.exists():
+        tmp = target.with_name(f".{target.name}.tmp")
+        tmp.write_text(json.dumps(notebook, indent=1) + "\n", encoding="utf-8")
+        tmp.replace(target)
+    return target
+
+
+def run_lab(folder: Path, notebook: Path, extra: Sequence[str]) -> int:
+    """Run JupyterLab on ``notebook`` with ``folder`` as its root; stop it when stopped.
+
+    Ctrl-C or SIGTERM stops JupyterLab (without its interactive shutdown
+    question) and waits for it to end.
+    """
+    import signal
     import subprocess
 
-    notebook = Path(__file__).resolve().parent.parent / "notebooks" / "workbench.ipynb"
-    cmd = [sys.executable, "-m", "jupyterlab", str(notebook)]
+    cmd = [sys.executable, "-m", "jupyterlab", f"--ServerApp.root_dir={folder}",
+           notebook.name, *extra]
+    proc = subprocess.Popen(cmd, cwd=folder)
+
+    def stop(signum, frame):
+        raise KeyboardInterrupt
+
+    previous = signal.signal(signal.SIGTERM, stop)
+    try:
+        return proc.wait()
+    except KeyboardInterrupt:
+        print("stopping JupyterLab", file=sys.stderr)
+        proc.terminate()
+        try:
+            proc.wait(timeout=15)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
+        return 130
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+        if proc.poll() is None:
+            proc.kill()
+
+
+def _cmd_lab(args: argparse.Namespace) -> int:
+    from sectionkit.errors import InputFileError
+
+    folder = Path(args.dir).resolve()
+    if not folder.is_dir():
+        raise InputFileError(f"--dir {folder} is not a folder; give the folder to work in")
+    config = None
+    if args.config:
+        config = Path(args.config)
+        if not config.is_file():
+            raise InputFileError(f"configuration file {config} does not exist")
+    notebook = lab_notebook(folder, config)
+    extra = list(args.jupyter_args)
     if args.no_browser:
-        cmd.append("--no-browser")
+        extra.append("--no-browser")
     if args.port:
-        cmd.append(f"--ServerApp.port={args.port}")
-    return subprocess.call(cmd)
+        extra.append(f"--ServerApp.port={args.port}")
+    print(f"workbench notebook: {notebook}", file=sys.stderr)
+    return run_lab(folder, notebook, extra)
 
 
 def _cmd_ensemble(args: argparse.Namespace) -> int:
@@ -132,7 +214,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(func=_cmd_demo)
 
     p = sub.add_parser("lab", help="open the workbench notebook in JupyterLab",
-                       description="Start JupyterLab on notebooks/workbench.ipynb.")
+                       usage="sectionkit lab [CONFIG] [--dir DIR] [-- JUPYTER ARGS]",
+                       description="Copy the workbench notebook into DIR (default: the current "
+                       "folder) and start JupyterLab on it there; arguments after -- go to "
+                       "JupyterLab (e.g. -- --allow-root). Ctrl-C stops JupyterLab.")
+    p.add_argument("config", nargs="?", default=None,
+                   help="configuration to open (default: the bundled demo, copied into "
+                   "DIR/sectionkit-demo)")
+    p.add_argument("--dir", default=".", help="folder to work in (default: current)")
     p.add_argument("--no-browser", action="store_true", help="do not open a browser")
     p.add_argument("--port", type=int, default=0, help="server port (default: Jupyter's)")
     p.set_defaults(func=_cmd_lab)
@@ -172,10 +261,28 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _quiet_stdout() -> None:
+    """Point stdout at /dev/null so Python's own final flush does not fail again."""
+    import os
+
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):
+        pass
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``sectionkit`` command."""
     parser = build_parser()
+    argv = list(sys.argv[1:] if argv is None else argv)
+    extra: list[str] = []
+    if "--" in argv:
+        argv, extra = argv[: argv.index("--")], argv[argv.index("--") + 1:]
     args = parser.parse_args(argv)
+    if extra and args.command != "lab":
+        parser.error("arguments after -- are passed to JupyterLab by `sectionkit lab` only")
+    args.jupyter_args = extra
     try:
         return int(args.func(args) or 0)
     except SectionkitError as exc:
@@ -184,6 +291,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # output piped into a program that stopped reading (e.g. `| head`): end quietly
+        _quiet_stdout()
+        return 0
 
 
 if __name__ == "__main__":

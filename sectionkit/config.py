@@ -88,8 +88,10 @@ ALIASES: dict[str, dict[str, str]] = {
     "inverse.known": {"layer": "class"},
 }
 DEEPEST_COMMON = "deepest_common"  # the reference at each pair's deepest common level
-# Keys of the variables table of a section (which of two sensors to use).
-SECTION_VARIABLES = ("temperature", "salinity")
+# Keys of the variables table of a section: the quantity whose variable is named
+# (which of two sensors to use when several carry the same standard_name).
+SECTION_VARIABLES = ("temperature", "salinity", "pressure", "latitude", "longitude",
+                     "bottom_depth")
 
 _TYPE_NAMES = {"boolean": "a boolean (true or false)", "number": "a number",
                "integer": "a whole number", "string": "a string", "table": "a table",
@@ -188,7 +190,8 @@ def check_types(data: dict[str, Any], table: str = "", path: tuple[str, ...] = (
     path : tuple of str
         How the table is written in the file (for messages).
     """
-    schema = SCHEMA[TABLE_ALIASES.get(table, table)]
+    table = TABLE_ALIASES.get(table, table)
+    schema = SCHEMA[table]
     aliases = ALIASES.get(table, {})  # old names are checked as what the user wrote
     _check_keys(data, tuple(schema) + tuple(aliases),
                 _label(path) if path else "the configuration")
@@ -280,7 +283,7 @@ class SectionSpec:
     into_box: bool = True
     columns: dict[str, str] = field(default_factory=dict)
     bathymetry: str | None = None
-    variables: dict[str, str] = field(default_factory=dict)
+    variables: dict[str, str] = field(default_factory=dict)  # quantity -> NetCDF variable
     temperature_kind: str = "in-situ"
     salinity_kind: str = "practical"
     pressure_units: str = "dbar"

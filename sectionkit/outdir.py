@@ -106,6 +106,13 @@ def check_output_folder(out_dir: str | os.PathLike) -> Path:
         not write.
     """
     out = Path(os.path.abspath(os.fspath(out_dir)))
+    if out.is_symlink():
+        out = out.resolve()  # replace the folder it points to, keep the link
+    cwd = Path.cwd().resolve()
+    if out.exists() and (cwd == out.resolve() or out.resolve() in cwd.parents):
+        raise OutputError(f"--out {out} is the current folder (or holds it); the result set "
+                          "replaces the output folder as a whole, so give a subfolder, e.g. "
+                          "--out results")
     if out.exists() and not out.is_dir():
         raise OutputError(f"--out {out} is a file, not a folder; give the name of a folder "
                           "(it is created when missing)")

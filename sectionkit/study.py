@@ -143,6 +143,7 @@ class Study:
                 **spec.csv_options(),
                 order=spec.stations,
                 bottle=None if not spec.bottle else str(config.base_dir / spec.bottle),
+                variables=spec.variables or None,
             )
             study.sections[spec.name] = ds
             study.load_cautions.extend(cautions)

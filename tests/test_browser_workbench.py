@@ -7,17 +7,19 @@ the typed text; the class table follows a moved reference slider, and one
 Ctrl+Z undoes the whole move; clicking a pair on the station map selects it;
 the change reached the autosave file. Each step's screenshot is kept in
 ``test-artifacts/`` (git-ignored). One JupyterLab server serves both sizes,
-each with its own copy of the demo box.
+each with its own copy of the demo box and of the packaged workbench notebook
+(``sectionkit/notebooks/workbench.ipynb``).
 """
 
 from __future__ import annotations
 
+import json
 import shutil
 import time
 from pathlib import Path
 
 import pytest
-from _lab import BROWSER_ARGS, CHROMIUM, lab_server, open_workbench_page, write_notebook
+from _lab import BROWSER_ARGS, CHROMIUM, lab_server, open_workbench_page
 
 ROOT = Path(__file__).resolve().parents[1]
 ARTIFACTS = ROOT / "test-artifacts"
@@ -66,11 +68,23 @@ def lab(tmp_path_factory: pytest.TempPathFactory):
         name = f"{width}x{height}"
         shutil.copytree(ROOT / "demo_sections", root / f"demo_{name}",
                         ignore=shutil.ignore_patterns("*.autosave.toml"))
-        write_notebook(root / f"workbench_{name}.ipynb",
-                       "from sectionkit.workbench import open_workbench\n"
-                       f"open_workbench('demo_{name}/demo.toml', resume=False)")
+        (root / f"workbench_{name}.ipynb").write_text(_packaged_notebook(
+            f"open_workbench('demo_{name}/demo.toml', resume=False)"))
     with lab_server(root, tmp / "scratch") as (base, token):
         yield base, token, root
+
+
+def _packaged_notebook(call: str) -> str:
+    """The packaged workbench notebook with its ``open_workbench()`` replaced by ``call``."""
+    notebook = json.loads((ROOT / "sectionkit" / "notebooks" / "workbench.ipynb").read_text())
+    opened = 0
+    for cell in notebook["cells"]:
+        source = "".join(cell["source"])
+        if cell["cell_type"] == "code" and "open_workbench()" in source:
+            cell["source"] = source.replace("open_workbench()", call)
+            opened += 1
+    assert opened == 1, "workbench.ipynb no longer calls open_workbench()"
+    return json.dumps(notebook)
 
 
 def _in_viewport(page, locator) -> bool:

@@ -210,3 +210,21 @@ def test_override_for_the_last_pair_is_accepted():
 def test_bound_for_a_pair_the_section_does_not_have_is_refused():
     with pytest.raises(ConfigError, match="'south:4' does not exist"):
         _study_with(bounds={"south:4": [-0.1, 0.1]})
+
+
+def test_the_old_table_name_layers_is_checked_like_classes():
+    from sectionkit.config import check_types
+
+    with pytest.raises(ConfigError, match=r"\[layers\] interfaces #1 sigma: expected a number"):
+        check_types({"layers": {"interfaces": [{"sigma": "27.0"}]}})
+
+
+def test_wrong_type_ends_in_one_line_without_a_traceback_on_the_command_line(tmp_path, capsys):
+    from sectionkit.cli import main
+
+    path = tmp_path / "study.toml"
+    path.write_text('[[sections]]\nname = "south"\nfile = "south.nc"\ninto_box = "false"\n')
+    assert main(["budget", str(path), "--out", str(tmp_path / "out"), "--quiet"]) == 1
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "Traceback" not in err
+    assert 'into_box: expected a boolean (true or false), found the string "false"' in err

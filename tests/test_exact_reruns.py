@@ -111,3 +111,43 @@ def test_rerun_refuses_a_changed_section_file(first_run):
     write_netcdf(tmp / "north.nc", invented_section(4, dp=10.0, lat0=36.5))
     with pytest.raises(InputFileError, match="north.nc has changed"):
         load_provenance(out / "provenance.json")
+
+
+def test_csv_column_mapping_is_recorded_and_a_changed_csv_is_refused(tmp_path):
+    from _sections import write_csv
+
+    sec = invented_section(4, dp=10.0, lat0=24.0)
+    write_csv(tmp_path / "line.csv", sec, headers={"temperature": "TEMP_C", "pressure": "PRES"})
+    (tmp_path / "csv.toml").write_text("""
+[grid]
+dp = 10.0
+[[sections]]
+name = "line"
+file = "line.csv"
+columns = { temperature = "TEMP_C", pressure = "PRES" }
+[reference]
+pressure = 500.0
+""")
+    out = tmp_path / "out"
+    assert main(["budget", str(tmp_path / "csv.toml"), "--out", str(out), *ARGS]) == 0
+    record = json.loads((out / "provenance.json").read_text())
+    assert record["configuration"]["sections"][0]["columns"] == {"temperature": "TEMP_C",
+                                                                  "pressure": "PRES"}
+    assert str(tmp_path / "line.csv") in record["input_sha256"]
+    again = tmp_path / "again"
+    assert main(["budget", str(out / "provenance.json"), "--out", str(again), *ARGS]) == 0
+    assert _outputs(again) == _outputs(out)
+    (tmp_path / "line.csv").write_text((tmp_path / "line.csv").read_text().replace(
+        "TEMP_C", "TEMP_C ", 1))
+    with pytest.raises(InputFileError, match="line.csv has changed"):
+        load_provenance(out / "provenance.json")
+
+
+def test_rerun_reproduces_the_figures_byte_for_byte(tmp_path):
+    config = _study(tmp_path)
+    first, again = tmp_path / "first", tmp_path / "again"
+    assert main(["budget", str(config), "--out", str(first), "--quiet"]) == 0
+    assert main(["budget", str(first / "provenance.json"), "--out", str(again), "--quiet"]) == 0
+    figures = sorted(p.name for p in (first / "figures").iterdir())
+    assert any(n.endswith(".png") for n in figures) and any(n.endswith(".pdf") for n in figures)
+    assert _outputs(again) == _outputs(first)

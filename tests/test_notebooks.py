@@ -1,26 +1,31 @@
 """The bundled notebooks run headless from top to bottom without an error.
 
 ``workbench.ipynb`` opens the demo box in the workbench widget;
-``walkthrough.ipynb`` goes through the Python API step by step. Both run in a
-fresh kernel with nbclient, from the notebooks' own folder, as a user would
-run them. The demo's autosave file is left as it was found.
+``walkthrough.ipynb`` goes through the Python API step by step. They are
+package data (``sectionkit/notebooks``); each runs in a fresh kernel with
+nbclient from a copy in a user's folder, as ``sectionkit lab`` opens it. Nothing
+is written into the installed package: the demo is copied beside the notebook.
 """
 
 from __future__ import annotations
 
+import shutil
 from pathlib import Path
 
 import nbformat
 import pytest
 from nbclient import NotebookClient
 
-NOTEBOOKS = Path(__file__).resolve().parents[1] / "notebooks"
+import sectionkit
+
+NOTEBOOKS = Path(sectionkit.__file__).resolve().parent / "notebooks"
 
 
-def _run(name: str) -> nbformat.NotebookNode:
-    nb = nbformat.read(NOTEBOOKS / name, as_version=4)
+def _run(name: str, folder: Path) -> nbformat.NotebookNode:
+    shutil.copy(NOTEBOOKS / name, folder / name)
+    nb = nbformat.read(folder / name, as_version=4)
     client = NotebookClient(nb, timeout=300, kernel_name="python3",
-                            resources={"metadata": {"path": str(NOTEBOOKS)}})
+                            resources={"metadata": {"path": str(folder)}})
     client.execute()
     return nb
 
@@ -43,16 +48,18 @@ def keep_demo_autosave():
     assert after == before
 
 
-def test_workbench_notebook_shows_the_workbench():
-    nb = _run("workbench.ipynb")
+def test_workbench_notebook_shows_the_workbench(tmp_path):
+    nb = _run("workbench.ipynb", tmp_path)
     assert _errors(nb) == []
+    # the demo it opened is a copy in the user's folder, where its autosave goes
+    assert (tmp_path / "sectionkit-demo" / "demo.toml").is_file()
     views = [o for cell in nb.cells if cell.cell_type == "code" for o in cell.outputs
              if "application/vnd.jupyter.widget-view+json" in o.get("data", {})]
     assert views, "the workbench widget was not displayed"
 
 
-def test_walkthrough_notebook_runs_every_step():
-    nb = _run("walkthrough.ipynb")
+def test_walkthrough_notebook_runs_every_step(tmp_path):
+    nb = _run("walkthrough.ipynb", tmp_path)
     assert _errors(nb) == []
     text = "".join(o.get("text", "") for cell in nb.cells if cell.cell_type == "code"
                    for o in cell.outputs)

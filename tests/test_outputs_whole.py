@@ -143,3 +143,23 @@ def test_library_write_into_a_foreign_folder_is_an_output_error(study, tmp_path)
     (tmp_path / "data.nc").write_text("someone's data")
     with pytest.raises(OutputError, match="no sectionkit provenance.json"):
         write_outputs(st, res, tmp_path)
+
+
+def test_current_folder_as_out_is_refused(tmp_path, monkeypatch, capsys):
+    config = _write_study(tmp_path, inverse=False)
+    empty = tmp_path / "here"
+    empty.mkdir()
+    monkeypatch.chdir(empty)
+    assert main(["budget", str(config), "--out", ".", *ARGS]) == 1
+    assert "give a subfolder" in capsys.readouterr().err
+
+
+def test_out_that_is_a_link_replaces_the_folder_it_points_to(study, tmp_path):
+    st, res = study
+    real = tmp_path / "real"
+    link = tmp_path / "link"
+    link.symlink_to(real, target_is_directory=True)
+    write_outputs(st, res, link)
+    write_outputs(st, res, link)
+    assert link.is_symlink() and (real / "provenance.json").is_file()
+    assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []

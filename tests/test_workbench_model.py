@@ -598,3 +598,11 @@ def test_view_click_on_the_sensitivity_chooses_that_level(view):
     middle = 0.5 * (plot.x.min + plot.x.max)
     view._on_sensitivity_click(_event(plot.figure, 0.5, 0.5, "click"))
     assert view.state.config.reference.pressure == pytest.approx(round(middle / 10.0) * 10.0)
+
+
+def test_view_shows_why_an_autosave_was_not_resumed(box_dir, tmp_path):
+    from sectionkit.workbench.view import WorkbenchView
+
+    session, _ = _session_with_autosave(box_dir, tmp_path, "[grid\ndp = ")
+    view = WorkbenchView(WorkbenchState.open(session, resume=True), redraw_delay=0.0)
+    assert "could not resume from box.autosave.toml" in view.cautions.value

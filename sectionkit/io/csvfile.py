@@ -89,15 +89,38 @@ def _delimiter(file: str) -> str:
     return best if counts[best] else ","
 
 
-def _numeric(table: pd.DataFrame, header: str, file: str) -> np.ndarray:
+def _data_lines(file: str, n_rows: int) -> np.ndarray:
+    """The file's own line number (from 1) of each data row of the table.
+
+    Blank lines and ``#`` comment lines are skipped by the reader, so a row's
+    line is counted here the same way; when the count does not match (quoted
+    fields spanning lines), rows are numbered as if the header were line 1.
+    """
+    lines = []
+    try:
+        with open(file, encoding="utf-8", errors="replace", newline="") as fh:
+            for number, line in enumerate(fh, start=1):
+                text = line.strip()
+                if text and not text.startswith("#"):
+                    lines.append(number)
+    except OSError:
+        lines = []
+    if len(lines) - 1 == n_rows:
+        return np.asarray(lines[1:], dtype=int)
+    return np.arange(n_rows) + 2
+
+
+def _numeric(table: pd.DataFrame, header: str, file: str,
+             lines: np.ndarray | None = None) -> np.ndarray:
     text = table[header]
     values = pd.to_numeric(text, errors="coerce").to_numpy(dtype=float)
     bad = np.isnan(values) & text.notna().to_numpy() & (text.str.strip() != "").to_numpy()
     bad &= ~text.str.strip().str.lower().isin(["nan", "na", "n/a", "null", "none"]).to_numpy()
     if bad.any():
         row = int(np.flatnonzero(bad)[0])
+        line = int(lines[row]) if lines is not None else row + 2
         raise InputFileError(
-            f"{where(file, None, header)}: {text.iloc[row]!r} on line {row + 2} is not a number; "
+            f"{where(file, None, header)}: {text.iloc[row]!r} on line {line} is not a number; "
             "leave missing values empty (or NaN)"
         )
     return values
@@ -174,19 +197,21 @@ def read_csv(
             )
     if table.empty:
         raise SectionDataError(f"file {file}: the table has a header but no rows")
+    lines = _data_lines(file, len(table))
 
     p_where = where(file, None, headers["pressure"])
-    pressure = pressure_to_dbar(_numeric(table, headers["pressure"], file), pressure_units, p_where)
+    pressure = pressure_to_dbar(_numeric(table, headers["pressure"], file, lines),
+                                pressure_units, p_where)
     t_where = where(file, None, headers["temperature"])
     temperature = temperature_to_celsius(
-        _numeric(table, headers["temperature"], file), temperature_units, t_where
+        _numeric(table, headers["temperature"], file, lines), temperature_units, t_where
     )
-    salinity = _numeric(table, headers["salinity"], file)
-    lat = _numeric(table, headers["lat"], file)
-    lon = _numeric(table, headers["lon"], file)
+    salinity = _numeric(table, headers["salinity"], file, lines)
+    lat = _numeric(table, headers["lat"], file, lines)
+    lon = _numeric(table, headers["lon"], file, lines)
     has_depth = headers["bottom_depth"] in present
     depth = (
-        length_to_m(_numeric(table, headers["bottom_depth"], file), "m", file)
+        length_to_m(_numeric(table, headers["bottom_depth"], file, lines), "m", file)
         if has_depth
         else np.full(len(table), np.nan)
     )
@@ -194,7 +219,7 @@ def read_csv(
     empty = np.flatnonzero(station == "")
     if empty.size:
         raise SectionDataError(
-            f"{where(file, None, headers['station'])}: line {int(empty[0]) + 2} has no station "
+            f"{where(file, None, headers['station'])}: line {int(lines[empty[0]])} has no station "
             "id; every row must name its station"
         )
 
@@ -243,6 +268,7 @@ def read_csv(
                 temperature_kind=temperature_kind,
                 names=dict(names),
                 units=dict(units),
+                lines=lines[rows],
             )
         )
     return profiles

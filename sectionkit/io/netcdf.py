@@ -135,7 +135,8 @@ def find_variable(
             raise InputFileError(
                 f"file {file}: variables {', '.join(matches)} all have standard_name {sn}; "
                 f"choose one with variables={{{quantity!r}: {matches[0]!r}}} "
-                f"(command line: --variable {quantity}={matches[0]})"
+                f"(command line: --variable {quantity}={matches[0]}; configuration: "
+                f'variables = {{ {quantity} = "{matches[0]}" }} under [[sections]])'
             )
         if matches:
             return matches[0], kind

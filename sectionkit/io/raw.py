@@ -42,6 +42,8 @@ class Profile:
         column name it was read from, for messages.
     units : dict
         Quantity to the units as labelled in the file (before conversion).
+    lines : ndarray (sample,), optional
+        The file's own line number of each sample (text files), for messages.
     flag_counts : dict
         Exchange files: variable (CTDTMP, ...) to the number of samples per
         WOCE flag, as read (before dropping); empty for other files.
@@ -61,6 +63,7 @@ class Profile:
     temperature_kind: str = "in-situ"
     names: dict[str, str] = field(default_factory=dict)
     units: dict[str, str] = field(default_factory=dict)
+    lines: np.ndarray | None = None
     flag_counts: dict[str, dict[int, int]] = field(default_factory=dict)
     cast: str = ""
 

@@ -61,9 +61,14 @@ def _first(mask: np.ndarray) -> int:
     return int(np.flatnonzero(mask)[0])
 
 
+def _place(profile: Profile, k: int) -> str:
+    """Sample ``k`` as the user finds it: the file's line (text files) or the sample index."""
+    return f"line {int(profile.lines[k])}" if profile.lines is not None else f"sample {k}"
+
+
 def _at(profile: Profile, k: int) -> str:
     p = profile.pressure[k]
-    return f"sample {k}" + (f" ({p:g} dbar)" if np.isfinite(p) else "")
+    return _place(profile, k) + (f" ({p:g} dbar)" if np.isfinite(p) else "")
 
 
 def check_position(profile: Profile) -> None:
@@ -92,8 +97,8 @@ def check_finite(profile: Profile) -> None:
         if bad.any():
             k = _first(bad)
             raise SectionDataError(
-                f"{profile.where(quantity)}: value {values[k]} at sample {k} is infinite; "
-                "mark missing values as NaN or with _FillValue"
+                f"{profile.where(quantity)}: value {values[k]} at {_place(profile, k)} is "
+                "infinite; mark missing values as NaN or with _FillValue"
             )
     if np.isinf(profile.bottom_depth):
         raise SectionDataError(
@@ -140,9 +145,10 @@ def check_pressure(profile: Profile) -> None:
     if p.max() > MAX_PRESSURE:
         k = _first(profile.pressure == p.max())
         raise SectionDataError(
-            f"{profile.where('pressure')}: pressure reaches {p.max():g} dbar at sample {k} "
-            f"(labelled {units!r}), deeper than any ocean ({MAX_PRESSURE:g} dbar); values in Pa "
-            "labelled dbar? fix the units attribute (sectionkit converts Pa)"
+            f"{profile.where('pressure')}: pressure reaches {p.max():g} dbar at "
+            f"{_place(profile, k)} (labelled {units!r}), deeper than any ocean "
+            f"({MAX_PRESSURE:g} dbar); values in Pa labelled dbar? fix the units attribute "
+            "(sectionkit converts Pa)"
         )
     if is_pascal(units) and p.size > 1 and p.max() < 1.0:
         raise SectionDataError(
@@ -153,8 +159,9 @@ def check_pressure(profile: Profile) -> None:
     if p.min() < MIN_PRESSURE:
         k = _first(profile.pressure == p.min())
         raise SectionDataError(
-            f"{profile.where('pressure')}: pressure {p.min():g} dbar at sample {k} is negative; "
-            "a missing-value marker (declare it as _FillValue) or depth with the wrong sign?"
+            f"{profile.where('pressure')}: pressure {p.min():g} dbar at {_place(profile, k)} is "
+            "negative; a missing-value marker (declare it as _FillValue) or depth with the "
+            "wrong sign?"
         )
     steps = np.diff(p)
     if np.any(steps <= 0):
@@ -162,8 +169,8 @@ def check_pressure(profile: Profile) -> None:
         index = np.flatnonzero(np.isfinite(profile.pressure))
         raise SectionDataError(
             f"{profile.where('pressure')}: pressure does not increase from {p[k]:g} to "
-            f"{p[k + 1]:g} dbar at sample {int(index[k + 1])}; profiles must increase downward "
-            "— sort or drop the bad scans (upcast samples, repeated pressures)"
+            f"{p[k + 1]:g} dbar at {_place(profile, int(index[k + 1]))}; profiles must increase "
+            "downward — sort or drop the bad scans (upcast samples, repeated pressures)"
         )
 
 
