@@ -1,8 +1,9 @@
-"""Keyboard shortcuts of the workbench: Ctrl+Z undoes, Ctrl+Shift+Z redoes.
+"""Page helpers of the workbench: Ctrl+Z and Ctrl+Shift+Z, and scrolling a refusal into view.
 
 A tiny widget (anywidget) listens for those two keys only, and only while
 the focus is inside the workbench (or, with nothing focused, the pointer is
 over it); text fields keep their own undo. Every other key passes untouched.
+On request it scrolls an element of the workbench (a refusal) into view.
 """
 
 from __future__ import annotations
@@ -30,7 +31,18 @@ function render({ model, el }) {
     model.send({ action: event.shiftKey ? 'redo' : 'undo' });
   };
   document.addEventListener('keydown', handler, true);
-  return () => document.removeEventListener('keydown', handler, true);
+  const reveal = (msg) => {
+    if (!msg || typeof msg.reveal !== 'string') return;
+    const root = el.closest('.sk-workbench');
+    const target = root && root.querySelector('.' + msg.reveal);
+    if (target) requestAnimationFrame(() => requestAnimationFrame(
+      () => target.scrollIntoView({block: 'nearest', inline: 'nearest'})));
+  };
+  model.on('msg:custom', reveal);
+  return () => {
+    document.removeEventListener('keydown', handler, true);
+    model.off('msg:custom', reveal);
+  };
 }
 export default { render };
 """
@@ -52,6 +64,10 @@ class UndoKeys(anywidget.AnyWidget):
         self._on_undo = on_undo
         self._on_redo = on_redo
         self.on_msg(self._message)
+
+    def reveal(self, css_class: str) -> None:
+        """Scroll the workbench element with this CSS class into view (when shown in a page)."""
+        self.send({"reveal": css_class})
 
     def _message(self, _widget, content: dict, _buffers) -> None:
         action = content.get("action") if isinstance(content, dict) else None

@@ -878,6 +878,7 @@ class WorkbenchView(widgets.VBox):
                        "border:1px solid #e0a0a0;border-radius:3px;padding:3px 6px;"
                        f"overflow-wrap:anywhere'>refused: {html.escape(message)}</div>")
         error.layout.display = ""
+        self.undo_keys.reveal(f"sk-error-{group}")
         where = "above" if group == "history" else f"in the {group} controls"
         self._set_status(f"refused ({where}): {message}", error=True)
 
