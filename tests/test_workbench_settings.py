@@ -15,6 +15,7 @@ conventions.
 from __future__ import annotations
 
 import copy
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -270,3 +271,23 @@ def test_a_known_transport_without_a_number_is_one_clear_refusal(state):
     with pytest.raises(ConfigError, match="known transport 'strait': transport = None"):
         state.set_inverse_settings(known=[{"name": "strait", "noise": 0.1, "class": "upper"}])
     assert state.config.inverse.known[0].transport == 0.5
+
+
+def test_a_south_to_north_line_counts_westward_flow_positive():
+    # DESIGN.md §4: positive is to the left of increasing station order; facing north,
+    # left is west (common practice)
+    from types import SimpleNamespace
+
+    import xarray as xr
+
+    from sectionkit.config import parse_config
+    from sectionkit.workbench.snapshot import line_direction
+
+    pairs = xr.Dataset({"distance": ("pair", [1e4, 1e4]), "along_east": ("pair", [0.0, 0.0]),
+                        "along_north": ("pair", [1.0, 1.0])})
+    study = SimpleNamespace(operators={"west": SimpleNamespace(pairs=pairs)},
+                            sections={"west": xr.Dataset(coords={"station": ["W1", "W2", "W3"]})})
+    config = parse_config({"sections": [{"name": "west", "file": "w.nc", "into_box": False}]},
+                          base_dir=Path("."))
+    d = line_direction(study, config, "west")
+    assert d.describe() == "+ = westward across W1→W3, out of the box box"
