@@ -23,8 +23,8 @@ import gsw
 import numpy as np
 import xarray as xr
 
-from sectionkit.errors import SectionDataError
-from sectionkit.geometry import pair_geometry
+from sectionkit.errors import EquatorError, SectionDataError
+from sectionkit.geometry import EQUATOR_HARD_BAND, pair_geometry
 from sectionkit.geostrophy import (
     extend_into_bottom_triangle,
     last_valid_level,
@@ -124,7 +124,9 @@ class SectionOperator:
         (a :class:`PairDensities`: each reference pressure is computed when
         first asked for).
     class_salinity, class_temperature : ndarray (..., class)
-        Area-weighted mean SA (g/kg) and CT (degC) of each class.
+        Area-weighted mean salinity of the salt budgets (Preformed Salinity S*
+        or SA, ``extra["salinity"]``; g/kg) and CT (degC) of each class;
+        ``mean_salinity`` is the section's area mean of the same salinity.
     class_levels : sectionkit.layers.ClassLevels
         The class weights in compact form (a class per level, split cells).
     """
@@ -341,6 +343,13 @@ def build_operator(
     geometry, thickness, width = _fixed_parts(section, p, bottom, bathymetry)
     distance = geometry["distance"].values
     f = geometry["f"].values
+    on_equator = np.flatnonzero(np.abs(geometry["lat"].values) < EQUATOR_HARD_BAND)
+    if on_equator.size:  # a backstop for sections that were not validated (1/f below)
+        raise EquatorError(
+            f"section {name}: pair(s) {', '.join(f'{name}:{k}' for k in on_equator)} lie "
+            f"within {EQUATOR_HARD_BAND:g} degrees of the equator, where geostrophy and Ekman "
+            "transport divide by f ~ 0; drop one station of each such pair"
+        )
     if np.any(distance <= 0):
         j = int(np.argmin(distance))
         raise SectionDataError(
@@ -350,6 +359,15 @@ def build_operator(
 
     last = last_valid_level(sa + ct)
     common, deepest = pair_level_limits(last)
+    # water where a bathymetry track lies below both stations: the deeper station's
+    # properties continue down to it and the triangle rule gives its velocity
+    below = _track_below_stations(p, bottom, bathymetry)
+    data_deepest = deepest
+    if below:
+        deepest = np.array(deepest, copy=True)
+        for j, p_track in below.items():
+            deepest[..., j] = np.maximum(deepest[..., j],
+                                         np.searchsorted(p, p_track, side="right") - 1)
     if relative_velocity_of_pairs is None:
         # one pass of the equation of state: dynamic height integrated from the specific
         # volume anomaly, in-situ density as the reciprocal of the same specific volume
@@ -375,6 +393,16 @@ def build_operator(
     for face in interfaces:
         by_p_ref.setdefault(face.p_ref, []).append(face.sigma)
     deciding = deciding_densities(sa, ct, by_p_ref or {0.0: []})
+    for j in below:  # the deeper station's water continues down to the track
+        k0 = int(np.max(data_deepest[..., j]))
+        k1 = int(np.max(deepest[..., j]))
+        if k1 <= k0:
+            continue
+        deeper = slice(k0 + 1, k1 + 1)
+        for pair_field in (sa_pair, ct_pair, salt_pair, *deciding.values()):
+            pair_field[..., j, deeper] = pair_field[..., j, k0 : k0 + 1]
+        rho_pair[..., j, deeper] = gsw.rho(sa_pair[..., j, k0 : k0 + 1],
+                                           ct_pair[..., j, k0 : k0 + 1], p[deeper])
     # one array per interface (no stacked copy of the large fields)
     sigma_if = [deciding[face.p_ref] for face in interfaces] or [deciding[0.0]]
     sigma_pair = PairDensities(sa, ct)
@@ -382,6 +410,15 @@ def build_operator(
     values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([1e9])
 
     tail = _tail_thickness(p, deepest, bottom, geometry["lat"].values)
+    if below:
+        tail = np.array(tail, copy=True)
+        lat_pair = geometry["lat"].values
+        for j, p_track in below.items():
+            p_last = p[int(np.max(deepest[..., j]))]
+            samples = np.asarray(bathymetry[j], dtype=float)
+            frac = float(np.mean(samples > 0.5 * (p_last + p_track)))
+            dz = float(gsw.z_from_p(p_last, lat_pair[j]) - gsw.z_from_p(p_track, lat_pair[j]))
+            tail[..., j] = dz * frac
     levels = class_levels(sigma_if, values, thickness, width, tail)
     n_class = len(interfaces) + 1  # without interfaces, the one unreachable value adds none
 
@@ -400,6 +437,7 @@ def build_operator(
     column = levels.column  # (..., pair, level), all classes
     level_relative = np.einsum("j,...jk->...k", distance, column * _masked(v_eff))
     level_area = length * column * _masked(response)
+    level_section_area = np.einsum("j,...jk->...k", distance, column)  # (..., level) m^2
 
     ekman_share, level_ekman = _ekman_share(
         sigma_if, values, p, geometry["lat"].values, ekman_depth,
@@ -439,7 +477,9 @@ def build_operator(
         extra={"sa_pair": sa_pair, "salt_pair": salt_pair, "salinity": salinity,
                "ct_pair": ct_pair, "rho_pair": rho_pair,
                "class_moments": class_moments, "station_sa": sa, "station_ct": ct,
-               "v_rel": v_rel, "section": section},
+               "v_rel": v_rel, "section": section, "level_section_area": level_section_area,
+               "track_below_stations": {j: (p_track, float(max(bottom[j], bottom[j + 1])))
+                                        for j, p_track in below.items()}},
     )
 
 
@@ -498,6 +538,37 @@ def _sstar_factor(p: np.ndarray, lon: np.ndarray, lat: np.ndarray) -> np.ndarray
             while len(_SSTAR) > _FIXED_SIZE:
                 _SSTAR.pop(next(iter(_SSTAR)))
     return factor
+
+
+def _track_below_stations(
+    p: np.ndarray, bottom: np.ndarray, bathymetry: list | None
+) -> dict[int, float]:
+    """Pairs whose bathymetry track lies deeper than both stations, with its deepest pressure.
+
+    Parameters
+    ----------
+    p : ndarray (level,)
+        Grid, dbar.
+    bottom : ndarray (station,)
+        Sea-floor pressure of each station, dbar.
+    bathymetry : list or None
+        Per pair, sampled sea-floor pressures along the pair (dbar), or None.
+
+    Returns
+    -------
+    dict of int -> float
+        Pair index -> deepest track pressure, dbar.
+    """
+    out: dict[int, float] = {}
+    if bathymetry is None:
+        return out
+    for j, samples in enumerate(bathymetry):
+        if samples is None:
+            continue
+        deepest_track = float(np.max(samples))
+        if deepest_track > max(bottom[j], bottom[j + 1]) + 1e-6:
+            out[j] = deepest_track
+    return out
 
 
 def _tail_thickness(

@@ -16,8 +16,8 @@ from collections.abc import Mapping
 import numpy as np
 import pandas as pd
 
-from sectionkit.workbench.model import BoxBudget, ClassTransports
-from sectionkit.workbench.snapshot import InverseView, LineDirection
+from sectionkit.layers import class_display_name
+from sectionkit.workbench.snapshot import BoxBudget, ClassTransports, InverseView, LineDirection
 
 TABLE_STYLE = (
     "border-collapse:collapse;font-size:12px;font-variant-numeric:tabular-nums;"
@@ -82,7 +82,8 @@ def class_table_html(table: ClassTransports,
             mark = (" <span class='sk-flag' style='color:#b35900' title='new class: inverse "
                     "settings are defaults'>new</span>" if layer in flagged else "")
             rows.append(
-                f"<tr><td style='{CELL}'></td><td style='{CELL}'>{html.escape(layer)}{mark}</td>"
+                f"<tr><td style='{CELL}'></td>"
+                f"<td style='{CELL}'>{html.escape(class_display_name(layer))}{mark}</td>"
                 f"<td style='{NUM}'>{_fmt(initial)}</td>"
                 f"<td style='{NUM}'>{_pm(adjusted, float(table.error[s, i]))}</td>"
                 f"<td style='{NUM}'>{_fmt(adjusted - initial)}</td></tr>"
@@ -161,7 +162,8 @@ def section_numbers_html(summary: pd.DataFrame,
     """
     directions = directions or {}
     items = (
-        ("net (Sv)", "net_sv", "net_err_sv", 2),
+        ("net volume (Sv)", "net_sv", "net_err_sv", 2),
+        ("net mass / ρ₀ (Sv)", "net_mass_sv", "net_mass_err_sv", 2),
         ("heat (PW)", "heat_pw", "heat_err_pw", 3),
         ("freshwater (Sv)", "freshwater_sv", "freshwater_err_sv", 3),
         ("overturning, depth (Sv)", "overturning_sv", "overturning_err_sv", 2),
@@ -180,9 +182,10 @@ def section_numbers_html(summary: pd.DataFrame,
         for _, row in summary.iterrows():
             text = _pm(float(row[col]), float(row[err]), digits)
             if col == "heat_pw" and row.get("heat_kind") == "temperature transport":
-                text += (" <span class='sk-heat-kind' style='color:#b35900;font-size:11px'>"
-                         f"temperature transport (net mass {float(row['net_mass_sv']):+.2f} Sv)"
-                         "</span>")
+                text += ("<br><span class='sk-heat-kind' style='color:#b35900;font-size:11px'"
+                         f" title='net mass transport {float(row['net_mass_sv']):+.2f} Sv: the "
+                         "number depends on the temperature scale'>temperature transport, net "
+                         f"mass {float(row['net_mass_sv']):+.1f} Sv</span>")
             cells.append(f"<td style='{NUM}'>{text}</td>")
         rows.append(f"<tr><td style='{CELL}white-space:nowrap'>{label}</td>{''.join(cells)}</tr>")
     rows.append("</table>")
