@@ -437,6 +437,70 @@ def ensemble_scaling(quick: bool = False) -> Measurement:
     )
 
 
+#: The demo box as it was when the earlier engine's figure was recorded: the two bundled
+#: CF-NetCDF lines, four interfaces, a mass- and salt-conserving inverse (the bundled demo
+#: has since read its northern line from WHP-Exchange files with bottle tracers and LADCP
+#: priors, which a member also carries; that is other work, so it is not the box measured).
+DEMO_BOX_TOML = """
+title = "Orinel Basin demo box as recorded for issue 16 (invented)"
+[grid]
+dp = 2.0
+[[sections]]
+name = "south"
+file = "south_line.nc"
+into_box = true
+[[sections]]
+name = "north"
+file = "north_line.nc"
+into_box = false
+[[boxes]]
+name = "interior"
+enters = ["south"]
+leaves = ["north"]
+[reference]
+pressure = 3000.0
+bottom_triangle = "constant"
+[ekman]
+depth = 50.0
+stress = { south = [-0.06, 0.0], north = [0.08, 0.0] }
+[layers]
+interfaces = [
+  { sigma = 27.0, p_ref = 0.0 },
+  { sigma = 32.15, p_ref = 1000.0 },
+  { sigma = 36.98, p_ref = 2000.0 },
+  { sigma = 45.92, p_ref = 4000.0 },
+]
+names = ["upper", "intermediate", "upper_deep", "lower_deep", "bottom"]
+[inverse]
+solver = "gauss-markov"
+conserve = ["mass", "salt"]
+prior_velocity = 0.02
+prior_diapycnal = 3.0
+prior_ekman = 0.3
+noise_total = 0.5
+noise_layer = [1.0, 0.7, 0.7, 0.7, 0.3]
+noise_salt = [4.0, 2.5, 0.3, 0.1, 0.05]
+known = [{name = "sennet_strait", transport = 0.8, noise = 0.2, layer = "upper", box = "interior"}]
+section_net = [ { section = "south", transport = 0.0, noise = 1.0 } ]
+"""
+
+
+def demo_box_config(folder: Path) -> Path:
+    """Write :data:`DEMO_BOX_TOML` into ``folder`` beside links to the bundled demo lines."""
+    _ensure_importable()
+    from sectionkit.demo import bundled_demo_config
+
+    bundled = bundled_demo_config().parent
+    folder.mkdir(parents=True, exist_ok=True)
+    for name in ("south_line.nc", "north_line.nc"):
+        target = folder / name
+        if not target.exists():
+            target.symlink_to(bundled / name)
+    path = folder / "demo_box.toml"
+    path.write_text(DEMO_BOX_TOML)
+    return path
+
+
 #: Members per second of the demo-box ensemble on 2 local workers, measured with
 #: :func:`demo_ensemble_throughput` (200 members) on the engine before the one-pass
 #: changes (commit af7f1fd), on this 2-core machine: the figure the goal multiplies.
@@ -450,9 +514,10 @@ def demo_ensemble_throughput(quick: bool = False, members: int | None = None,
                              earlier: str | None = None) -> Measurement:
     """Members per second of a demo-box ensemble on 2 worker processes.
 
-    Every member perturbs the CTD sensors (per station), the global reference
-    pressure (2000-3500 dbar) and the prior standard deviations (factor
-    0.5-2), so it rebuilds both operators and solves the inverse. The
+    The box is :data:`DEMO_BOX_TOML` (the demo box as it was when the earlier
+    engine's figure was recorded). Every member perturbs the CTD sensors (per
+    station), the global reference pressure (2000-3500 dbar) and the prior
+    standard deviations (factor 0.5-2), so it rebuilds both operators and solves the inverse. The
     cluster comes from :func:`sectionkit.ensemble.local_cluster` (as the
     ``sectionkit ensemble`` command makes it); cluster start-up and a
     warm-up ensemble are not timed. The first ``compare`` members are then
@@ -478,13 +543,15 @@ def demo_ensemble_throughput(quick: bool = False, members: int | None = None,
         Members per second; the goal is ``DEMO_ENSEMBLE_GOAL_FACTOR`` times
         the recorded figure of the earlier engine.
     """
+    import tempfile
+
     from distributed import Client
 
-    from sectionkit.cli import demo_config_path
     from sectionkit.config import load_config
     from sectionkit.ensemble import Perturbation, local_cluster, members_equal, run_ensemble
 
-    config = load_config(demo_config_path())
+    box = demo_box_config(Path(tempfile.mkdtemp(prefix="sectionkit-demo-box-")))
+    config = load_config(box)
     perturb = Perturbation(reference_range=(2000.0, 3500.0), prior_factor=(0.5, 2.0))
     n = members or (100 if quick else 1000)
     n_cmp = min(compare or (20 if quick else 100), n)
@@ -506,7 +573,8 @@ def demo_ensemble_throughput(quick: bool = False, members: int | None = None,
     baseline = DEMO_ENSEMBLE_BASELINE_MEMBERS_PER_S
     extra: dict[str, Any] = {}
     if earlier:
-        both = side_by_side({"this": str(ROOT), "earlier": earlier}, 50 if quick else 200)
+        both = side_by_side({"this": str(ROOT), "earlier": earlier}, 50 if quick else 200,
+                            str(box))
         extra = {"side_by_side_this_members_per_s": both["this"],
                  "side_by_side_earlier_members_per_s": both["earlier"],
                  "side_by_side_gain_x": both["this"] / both["earlier"]}
@@ -530,10 +598,9 @@ _SIDE_BY_SIDE = """
 import json, sys, time
 sys.path.insert(0, {root!r})
 from distributed import Client
-from sectionkit.cli import demo_config_path
 from sectionkit.config import load_config
 from sectionkit.ensemble import Perturbation, local_cluster, run_ensemble
-config = load_config(demo_config_path())
+config = load_config({config!r})
 perturb = Perturbation(reference_range=(2000.0, 3500.0), prior_factor=(0.5, 2.0))
 with local_cluster(2) as cluster, Client(cluster) as client:
     run_ensemble(config, 4, seed=99, client=client, perturb=perturb)
@@ -543,7 +610,8 @@ with local_cluster(2) as cluster, Client(cluster) as client:
 """
 
 
-def side_by_side(engines: dict[str, str], members: int, rounds: int = 2) -> dict[str, float]:
+def side_by_side(engines: dict[str, str], members: int, config: str, rounds: int = 2
+                 ) -> dict[str, float]:
     """Members per second of the demo-box ensemble (2 workers) of several engines, alternated.
 
     Each engine (a source tree holding ``sectionkit`` and ``demo_sections``)
@@ -557,6 +625,8 @@ def side_by_side(engines: dict[str, str], members: int, rounds: int = 2) -> dict
         Label -> source tree.
     members : int
         Members per run.
+    config : str
+        The configuration file both engines run.
     rounds : int
         Runs of each engine.
 
@@ -570,7 +640,8 @@ def side_by_side(engines: dict[str, str], members: int, rounds: int = 2) -> dict
         for label, root in engines.items():
             env = {**os.environ, "PYTHONPATH": root}
             proc = subprocess.run([sys.executable, "-c",
-                                   _SIDE_BY_SIDE.format(root=root, members=members)],
+                                   _SIDE_BY_SIDE.format(root=root, members=members,
+                                                        config=config)],
                                   capture_output=True, text=True, check=True, env=env,
                                   cwd=root)
             rate = json.loads(proc.stdout.strip().splitlines()[-1])["members_per_s"]
