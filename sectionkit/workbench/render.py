@@ -179,12 +179,13 @@ def section_numbers_html(summary: pd.DataFrame,
         for _, row in summary.iterrows():
             text = _pm(float(row[col]), float(row[err]), digits)
             if col == "heat_pw" and row.get("heat_kind") == "temperature transport":
-                text += ("<br><span class='sk-heat-kind' style='color:#b35900;font-size:11px'"
+                text += ("<span class='sk-heat-kind' style='display:block;white-space:normal;"
+                         "color:#b35900;font-size:11px'"
                          f" title='net mass transport {float(row['net_mass_sv']):+.2f} Sv: the "
                          "number depends on the temperature scale'>temperature transport, net "
                          f"mass {float(row['net_mass_sv']):+.1f} Sv</span>")
             cells.append(f"<td style='{NUM}'>{text}</td>")
-        rows.append(f"<tr><td style='{CELL}white-space:nowrap'>{label}</td>{''.join(cells)}</tr>")
+        rows.append(f"<tr><td style='{CELL}'>{label}</td>{''.join(cells)}</tr>")
     rows.append("</table>")
     return "".join(rows)
 
