@@ -496,7 +496,7 @@ class WorkbenchView(widgets.VBox):
         self.inverse_plots = InverseFigures()
         self.class_table = _css(widgets.HTML(layout=_wide(overflow="auto", max_height="320px")),
                                 "class_table")
-        self.box_budget = _css(widgets.HTML(layout=_wide(overflow="auto", max_height="300px")),
+        self.box_budget = _css(widgets.HTML(layout=_wide(overflow="auto", max_height="380px")),
                                "box_budget")
         self.section_numbers = _css(widgets.HTML(layout=_wide(overflow="auto")),
                                     "section_numbers")
