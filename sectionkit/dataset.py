@@ -22,6 +22,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from sectionkit.budget import level_end_pressure
 from sectionkit.outputs import SECTION_OUTPUTS, SIGN, OutputSpec, udunits
 from sectionkit.study import Results, Study
 
@@ -81,6 +82,43 @@ def _section_variables(study: Study, results: Results, levels: np.ndarray) -> di
                 attrs["comment"] = "NaN without an inverse"
             data[f"{spec.name}_{tag}"] = (spec.dims, values, attrs)
     return data
+
+
+def _tracer_variables(study: Study, results: Results) -> tuple[dict, dict]:
+    """Bottle-tracer class transports (section, tracer, class), kmol s-1."""
+    tracers = results.tracers
+    names: list[str] = []
+    for out in tracers.values():
+        for label in out.names:
+            tracer = label.partition(":")[0]
+            if tracer not in names:
+                names.append(tracer)
+    if not names:
+        return {}, {}
+    sections = list(study.operators)
+    classes = list(study.config.layer_names)
+    shape = (len(sections), len(names), len(classes))
+    initial, adjusted, error = (np.full(shape, np.nan) for _ in range(3))
+    for s, section in enumerate(sections):
+        out = tracers.get(section)
+        if out is None:
+            continue
+        value = out.value(results.estimate)
+        std = out.std(results.covariance)
+        for k, label in enumerate(out.names):
+            tracer, _, cls = label.partition(":")
+            if cls not in classes:
+                continue  # the "total" rows: the sum over classes
+            at = (s, names.index(tracer), classes.index(cls))
+            initial[at], adjusted[at], error[at] = out.initial[k], value[k], std[k]
+    data = {}
+    for tag, values, what in (("initial", initial, "with the chosen references"),
+                              ("adjusted", adjusted, "after the box inverse"),
+                              ("error", error, "one posterior standard deviation")):
+        attrs = {"long_name": f"bottle-tracer transport of the density class (rho c v), {what}",
+                 "units": udunits("kmol s-1"), "display_units": "kmol s-1"}
+        data[f"class_tracer_transport_{tag}"] = (("section", "tracer", "class"), values, attrs)
+    return {"tracer": ("tracer", names, {"long_name": "bottle tracer"})}, data
 
 
 def _pair_variables(study: Study, results: Results) -> tuple[dict, dict]:
@@ -236,8 +274,10 @@ def results_dataset(study: Study, results: Results) -> xr.Dataset:
     data = _section_variables(study, results, levels)
     pair_coords, pair_data = _pair_variables(study, results)
     inv_coords, inv_data = _inverse_variables(study, results)
+    tracer_coords, tracer_data = _tracer_variables(study, results)
     data.update(pair_data)
     data.update(inv_data)
+    data.update(tracer_data)
     coords = {
         "section": ("section", list(study.operators), {"long_name": "hydrographic section"}),
         "class": ("class", list(cfg.layer_names),
@@ -253,8 +293,12 @@ def results_dataset(study: Study, results: Results) -> xr.Dataset:
         "level": ("level", levels, {"standard_name": "sea_water_pressure", "units": "dbar",
                                     "positive": "down", "axis": "Z",
                                     "long_name": "pressure of the common grid"}),
+        "level_end_pressure": ("level", level_end_pressure(levels),
+                               {"units": "dbar", "long_name": "pressure where the depth "
+                                "streamfunction accumulated through the level ends"}),
         **pair_coords,
         **inv_coords,
+        **tracer_coords,
     }
     ds = xr.Dataset(data, coords=coords)
     ds.attrs.update({

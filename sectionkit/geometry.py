@@ -104,10 +104,15 @@ def pair_midpoints(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.nda
 
 
 EQUATOR_BAND = 2.0  # degrees: geostrophy is refused within this band (DESIGN.md §4)
+#: degrees: refused even with allow_equator = true; f = 2 Omega sin(lat) is then so small
+#: that geostrophic and Ekman velocities (1/f) are meaningless (common practice)
+EQUATOR_HARD_BAND = 0.5
 
 
-def equatorial_pairs(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Pairs whose mid-point lies within ``EQUATOR_BAND`` of the equator.
+def equatorial_pairs(
+    lon: np.ndarray, lat: np.ndarray, band: float = EQUATOR_BAND
+) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs whose mid-point lies within ``band`` of the equator.
 
     Parameters
     ----------
@@ -115,6 +120,8 @@ def equatorial_pairs(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.n
         Longitude, degrees_east.
     lat : ndarray (station,)
         Latitude, degrees_north.
+    band : float
+        Half-width of the band, degrees (``EQUATOR_BAND`` by default).
 
     Returns
     -------
@@ -124,7 +131,7 @@ def equatorial_pairs(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.n
         Mid-point latitude of every pair, degrees_north.
     """
     _, mid_lat = pair_midpoints(lon, lat)
-    return np.flatnonzero(np.abs(mid_lat) < EQUATOR_BAND), mid_lat
+    return np.flatnonzero(np.abs(mid_lat) < band), mid_lat
 
 
 def coriolis_parameter(lat: np.ndarray) -> np.ndarray:
@@ -209,3 +216,69 @@ def pair_geometry(section: xr.Dataset) -> xr.Dataset:
         },
         coords={"pair": pair},
     )
+
+
+COMPASS = ("northward", "north-eastward", "eastward", "south-eastward", "southward",
+           "south-westward", "westward", "north-westward")
+
+
+def compass_name(east: float, north: float) -> str:
+    """Eight-point compass name of a direction given by its components.
+
+    Parameters
+    ----------
+    east, north : float
+        Components of the direction, any common unit.
+
+    Returns
+    -------
+    str
+        ``"northward"``, ``"north-eastward"``, ... ``"north-westward"``.
+    """
+    bearing = float(np.degrees(np.arctan2(east, north))) % 360.0  # clockwise from north
+    return COMPASS[int(((bearing + 22.5) % 360.0) // 45.0)]
+
+
+def positive_direction(lon: np.ndarray, lat: np.ndarray) -> str:
+    """Compass word of the positive transport direction of a line, e.g. ``"northward"``.
+
+    Positive transport is to the left of increasing station order (DESIGN.md
+    §4). The line's direction is the distance-weighted mean of its pairs'
+    along-line unit vectors; "left" is that vector turned 90° counter-clockwise.
+
+    Parameters
+    ----------
+    lon : ndarray (station,)
+        Longitude, degrees_east.
+    lat : ndarray (station,)
+        Latitude, degrees_north.
+
+    Returns
+    -------
+    str
+        One of eight compass directions (``"north-eastward"``, ...).
+    """
+    lon = np.asarray(lon, dtype=float)
+    lat = np.asarray(lat, dtype=float)
+    t_east, t_north = along_line_direction(lon, lat)
+    w = great_circle_distance(lon, lat)
+    east = float(np.nansum(w * t_east))
+    north = float(np.nansum(w * t_north))
+    return compass_name(-north, east)
+
+
+def sign_convention(lon: np.ndarray, lat: np.ndarray, first: str, last: str) -> str:
+    """The sign convention of a line in words: ``"positive = northward across S01→S47"``.
+
+    Parameters
+    ----------
+    lon, lat : ndarray (station,)
+        Station positions, degrees_east and degrees_north.
+    first, last : str
+        Ids of the first and last station.
+
+    Returns
+    -------
+    str
+    """
+    return f"positive = {positive_direction(lon, lat)} across {first}→{last}"

@@ -30,8 +30,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from sectionkit.config import SOLVER_DISPLAY
 from sectionkit.geostrophy import ReferenceChoice
-from sectionkit.layers import class_display_name, sigma_symbol
+from sectionkit.layers import class_display_name, constraint_display_name, sigma_symbol
 from sectionkit.operator import SALINITY_NAMES
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.tables import tables
@@ -384,11 +385,8 @@ _TRIANGLE_PHRASE = {
     "zero": "zero velocity below the deepest common level",
     "shear": "shear extrapolated linearly below the deepest common level",
 }
-_SOLVER_PHRASE = {
-    "gauss-markov": "Gauss–Markov estimate",
-    "svd": "truncated SVD",
-    "bounded": "bounded least squares",
-}
+_SOLVER_PHRASE = {key: name + (" estimate" if key == "gauss-markov" else "")
+                  for key, name in SOLVER_DISPLAY.items()}
 
 
 def reference_description(study: Study, results: Results, tex: bool = False) -> str:
@@ -457,9 +455,9 @@ def _direct_phrase(study: Study, tex: bool) -> str:
         return ""
     span = (f"{_num(adcp.pressure_range[0])}–{_num(adcp.pressure_range[1])} dbar"
             if not tex else f"{_num(adcp.pressure_range[0])}--{_num(adcp.pressure_range[1])} dbar")
-    role = ("prior means (standard deviation the stated error "
-            f"{_num(adcp.error)} {_unit('m/s', tex)} and the standard error of the average)"
-            if adcp.use == "prior" else "known reference velocities")
+    role = ("the prior means of their reference velocities (standard deviation the stated "
+            f"error {_num(adcp.error)} {_unit('m/s', tex)} combined with the standard error of "
+            "the average)" if adcp.use == "prior" else "their known reference velocities")
     return (f"; direct velocity profiles (LADCP/ADCP), rotated into the section normal and "
             f"averaged over {span}, give {pairs} pairs {role}")
 
@@ -647,18 +645,15 @@ _REFERENCE_KIND_TEXT = {"pressure": "pressure", "bottom": "deepest common",
                         "isopycnal": "isopycnal", "velocity": "known velocity"}
 
 
-def _constraint_text(constraint: str) -> str:
-    """``mass:deep_water`` as printed: ``mass, deep water``."""
-    kind, _, what = constraint.partition(":")
-    return f"{kind}, {class_display_name(what)}" if what else kind
-
-
 def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
     title = "Box constraints before and after the inverse."
 
     def caption(tex: bool) -> str:
         body = ("Net inflow into each box (positive in), initial and adjusted, with the "
-                "constraint's a priori noise; the normalized residual is adjusted / noise. "
+                "constraint's a priori noise; the normalized residual is adjusted / noise, and "
+                "the last column judges the adjusted inflow against the residual std the "
+                "estimate can achieve (the square root of the diagonal of N - E P E-transpose, "
+                "Wunsch 1996). "
                 "Values are rounded to the precision of the noise. Salt rows are salt-anomaly "
                 f"transports of {SALINITY_NAMES[study.config.salt_salinity]} relative to each "
                 "class's mean; a diapycnal transfer carries the mean of its two classes.")
@@ -672,21 +667,25 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
         Column("Adjusted", "Adjusted"),
         Column("Noise", "Noise"),
         Column("Normalized residual", "Normalized residual"),
+        Column("Adjusted / posterior std", "Adjusted / posterior std"),
     ]
     rows = []
     for r in df.itertuples(index=False):
+        posterior = getattr(r, "posterior_normalized_residual", float("nan"))
         unit = _ROW_UNITS.get(str(getattr(r, "unit", "Sv")), "Sv")
         decimals = error_decimals(r.noise)
         if decimals is None:
             decimals = FIXED_DECIMALS[unit]
         rows.append([
             Cell.text(r.box),
-            Cell.text(_constraint_text(str(r.constraint))),
+            Cell.text(constraint_display_name(str(r.constraint))),
             Cell.text("", _unit(unit, True), _unit(unit, False)),
             Cell(value=format_fixed(r.initial, decimals)),
             Cell(value=format_fixed(r.adjusted, decimals)),
             Cell(value=format_fixed(r.noise, decimals)),
             Cell(value=format_fixed(r.normalized_residual, FIXED_DECIMALS["1"])),
+            Cell(value=format_fixed(posterior, FIXED_DECIMALS["1"])
+                 if np.isfinite(posterior) else "–"),
         ])
     return PaperTable("box_budget", title, caption(True), caption(False), cols, rows,
                       empty_note="No inverse: there are no box constraints.")
@@ -707,7 +706,9 @@ def _summary_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTab
                    else f"{_num(study.config.reference_salinity)} g kg⁻¹ of "
                    + SALINITY_NAMES[study.config.salt_salinity])
                 + "; overturning is the extreme of the streamfunction accumulated from the "
-                "surface in depth and from the lightest class in density. Section frame: "
+                "surface in depth and from the lightest class in density, both after removing "
+                "the section's net transport as a uniform velocity over the section's area. "
+                "Section frame: "
                 "positive to the left of increasing station order.")
         if flagged:
             body += (f" For {', '.join(esc(s) for s in flagged)} the net mass transport exceeds "
@@ -814,21 +815,26 @@ def _property_table(study: Study, results: Results) -> PaperTable:
         Column("Tracer", "Tracer", False),
         Column("Class", "Class", False),
         Column(f"Initial ({_unit('kmol/s', True)})", f"Initial ({_unit('kmol/s', False)})"),
-        Column(f"Adjusted ({_unit('kmol/s', True)})", f"Adjusted ({_unit('kmol/s', False)})"),
     ]
+    inverse = results.inverse is not None
+    if inverse:  # without an inverse, adjusted equals initial: no column of copies
+        cols.append(Column(f"Adjusted ({_unit('kmol/s', True)})",
+                           f"Adjusted ({_unit('kmol/s', False)})"))
     rows = []
     for name, out in results.tracers.items():
         adjusted = out.value(results.estimate)
         err = out.std(results.covariance)
         for k, label in enumerate(out.names):
             tracer, _, layer = label.partition(":")
-            rows.append([
+            row = [
                 Cell.text(name),
                 Cell.text(tracer),
-                Cell.text("all classes" if layer == "total" else layer),
+                Cell.text("all classes" if layer == "total" else class_display_name(layer)),
                 Cell.number(out.initial[k], None, "kmol/s"),
-                Cell.number(adjusted[k], _err(err[k]), "kmol/s"),
-            ])
+            ]
+            if inverse:
+                row.append(Cell.number(adjusted[k], _err(err[k]), "kmol/s"))
+            rows.append(row)
     return PaperTable("property_transports", title, caption(True), caption(False), cols, rows)
 
 

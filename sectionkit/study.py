@@ -202,7 +202,8 @@ class Study:
             choices = [self.config.reference_for(label) for label in op.pair_labels]
             p_used, offset = resolve_references(
                 choices, op.v_eff, op.pressure, op.common, op.sigma_for(choices),
-                cautions, op.pair_labels,
+                cautions, op.pair_labels, deepest=op.deepest,
+                bottom_triangle=op.bottom_triangle,
             )
             kinds = [c.kind for c in choices]
             direct = self.direct.get(name)
@@ -319,6 +320,35 @@ class Study:
                     f"section {name}: net mass transport is {net_mass:+.2f} Sv, so heat_pw is a "
                     "temperature transport relative to 0 degC, not a heat transport",
                 )
+        for name, op in self.operators.items():
+            below = op.extra.get("track_below_stations", {})
+            if below:
+                listed = ", ".join(f"{name}:{j} (track {pt:.0f} dbar, deeper station "
+                                   f"{pb:.0f} dbar)" for j, (pt, pb) in below.items())
+                cautions.add(
+                    "bathymetry-below-stations",
+                    f"the bathymetry track lies below both stations of pair(s) {listed}; that "
+                    "water is included with the deeper station's properties and the bottom "
+                    "triangle's velocity rule",
+                )
+        tracers = {
+            name: tracer_outputs(top, self.operators[name].layer_names, refs[name].offset,
+                                 ekman[name], layout)
+            for name, top in self.tracer_operators.items()
+        }
+        results = Results(refs, ekman, layout, outputs, result, cautions, tracers)
+        for name in outputs:
+            net, err = results.value(name, "net"), results.error(name, "net")
+            limit = err if np.isfinite(err) else NET_MASS_HEAT_TOLERANCE
+            if abs(net) > limit:
+                cautions.add(
+                    "overturning-net",
+                    f"section {name}: net transport {net:+.2f} Sv exceeds "
+                    + (f"its error ({err:.2f} Sv)" if np.isfinite(err)
+                       else f"{NET_MASS_HEAT_TOLERANCE} Sv (no inverse, no error)")
+                    + "; the overturning is computed after removing it as a uniform velocity "
+                    "over the section, which may not be where the net flow is",
+                )
         if self.direct and cfg.adcp.use == "prior" and (cfg.inverse is None or not inverse):
             cautions.add(
                 "direct-velocity-unused",
@@ -331,12 +361,7 @@ class Study:
             "transports depend on the reference choices and priors; geostrophy excludes "
             "ageostrophic flow other than the stated Ekman transport",
         )
-        tracers = {
-            name: tracer_outputs(top, self.operators[name].layer_names, refs[name].offset,
-                                 ekman[name], layout)
-            for name, top in self.tracer_operators.items()
-        }
-        return Results(refs, ekman, layout, outputs, result, cautions, tracers)
+        return results
 
 
 def _pair_index(layout: UnknownLayout, label: str) -> int:

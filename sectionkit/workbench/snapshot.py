@@ -33,6 +33,7 @@ import pandas as pd
 from sectionkit.budget import SV, UnknownLayout
 from sectionkit.config import Config, InverseSpec
 from sectionkit.errors import Cautions, ConfigError
+from sectionkit.geometry import compass_name
 from sectionkit.layers import Interface
 from sectionkit.study import Results, Study
 
@@ -42,8 +43,6 @@ LINEAR_SOLVERS = ("gauss-markov", "svd")  # estimate = gain @ data, gain indepen
 DEFAULT_CLASS_NOISE = 1.0
 #: Per-class salt or heat noise meaning "the automatic value" (config: 0 = automatic).
 AUTOMATIC_NOISE = 0.0
-COMPASS = ("northward", "north-eastward", "eastward", "south-eastward", "southward",
-           "south-westward", "westward", "north-westward")
 MAX_SENSITIVITY_LEVELS = 400
 
 
@@ -431,7 +430,13 @@ class Engine:
             initial_rows = system.initial + system.matrix[:, :n_pairs] @ shift
             active = system.prior > 0
             x = np.zeros(layout.size)
-            x[active] = base.inverse.solver.gain @ (-initial_rows)
+            # prior means (direct velocities) follow the references: x0 = direct - offset
+            x0 = np.zeros(layout.size)
+            mean = self.study.velocity_prior_mean(refs)
+            if mean is not None:
+                x0[:n_pairs] = mean
+            x[active] = x0[active] + base.inverse.solver.gain @ (
+                -initial_rows - system.matrix[:, active] @ x0[active])
             # the posterior covariance does not depend on the data: same residual std
             box = BoxBudget(tuple(system.rows), initial_rows, initial_rows + system.matrix @ x,
                             system.noise.copy(), tuple(system.units),
@@ -507,20 +512,8 @@ class LineDirection:
 
 
 def compass_of(east: float, north: float) -> str:
-    """Eight-point compass name of a direction given by its components.
-
-    Parameters
-    ----------
-    east, north : float
-        Components of the direction, any common unit.
-
-    Returns
-    -------
-    str
-        ``"northward"``, ``"north-eastward"``, ... ``"north-westward"``.
-    """
-    bearing = math.degrees(math.atan2(east, north)) % 360.0  # clockwise from north
-    return COMPASS[int(((bearing + 22.5) % 360.0) // 45.0)]
+    """Eight-point compass name of a direction (``sectionkit.geometry.compass_name``)."""
+    return compass_name(east, north)
 
 
 def line_direction(study: Study, config: Config, section: str) -> LineDirection:
