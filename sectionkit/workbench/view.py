@@ -777,8 +777,9 @@ class WorkbenchView(widgets.VBox):
         for i, name in enumerate(names):
             mark = (" <span class='sk-flag' style='color:#b35900'>new</span>"
                     if name in flagged else "")
-            cells.append(widgets.HTML(f"<span style='font-size:12px'>{html.escape(class_display_name(name))}"
-                                      f"{mark}</span>", layout=widgets.Layout(min_width="0")))
+            label = html.escape(class_display_name(name))
+            cells.append(widgets.HTML(f"<span style='font-size:12px'>{label}{mark}</span>",
+                                      layout=widgets.Layout(min_width="0")))
             for store, values, role in ((self.noise_layer, inv.noise_layer, "noise_layer"),
                                         (self.noise_salt, inv.noise_salt, "noise_salt"),
                                         (self.noise_heat, inv.noise_heat, "noise_heat")):
