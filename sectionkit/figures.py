@@ -633,62 +633,6 @@ def _lat_text(y: float, _pos=None) -> str:
     return f"{abs(y):g}°{'N' if y > 0 else 'S'}"
 
 
-def scaled_singular_values(results: Results) -> tuple[np.ndarray, str]:
-    """Singular values of the noise- and prior-scaled constraint matrix.
-
-    Taken from the solver when it has them (truncated SVD); otherwise
-    computed from the constraint system as the singular values of
-    ``diag(1/noise) E diag(prior)`` over the unknowns with a prior, which is
-    the same matrix for diagonal prior and noise covariances.
-
-    Parameters
-    ----------
-    results : Results
-        Results with an inverse.
-
-    Returns
-    -------
-    values : ndarray
-        Descending, dimensionless.
-    source : str
-        ``"solver"`` or ``"constraint system"``.
-    """
-    inv = results.inverse
-    values = getattr(inv.solver, "singular_values", None)
-    if values is not None:
-        return np.asarray(values, dtype=float), "solver"
-    system = inv.system
-    active = system.prior > 0
-    scaled = system.matrix[:, active] * system.prior[active] / system.noise[:, None]
-    return np.linalg.svd(scaled, compute_uv=False), "constraint system"
-
-
-def resolution_diagonal(results: Results) -> np.ndarray:
-    """Diagonal of the model resolution for every unknown (NaN where there is no prior).
-
-    Parameters
-    ----------
-    results : Results
-        Results with an inverse.
-
-    Returns
-    -------
-    ndarray (unknown,)
-        Dimensionless, 1 for a fully resolved unknown, 0 for one the
-        constraints cannot see.
-    """
-    inv = results.inverse
-    active = inv.system.prior > 0
-    out = np.full(active.size, np.nan)
-    res = getattr(inv.solver, "resolution", None)
-    if res is not None:
-        out[active] = np.diag(np.asarray(res, dtype=float))
-    else:  # 1 - posterior / prior variance, exact for Gauss-Markov
-        prior = inv.system.prior[active] ** 2
-        out[active] = 1.0 - np.diag(inv.covariance)[active] / prior
-    return out
-
-
 def plot_singular_values(
     ax: Axes, values: np.ndarray, rank: int | None = None, *, source: str = ""
 ) -> None:
@@ -999,18 +943,18 @@ def inverse_figure(study: Study, results: Results) -> Figure | None:
     if inv is None:
         return None
     system = inv.system
-    values, source = scaled_singular_values(results)
-    rank = getattr(inv.solver, "rank", None) if study.config.inverse.solver == "svd" else None
+    values = inv.scaled_singular_values
+    rank = inv.rank
     boxes = {r[0] for r in system.rows}
     labels = [f"{b}: {c}" if len(boxes) > 1 else c for b, c in system.rows]
     before = system.initial / system.noise
     after = inv.normalized_residuals
-    diag = resolution_diagonal(results)
+    diag = np.where(inv.solved_for, inv.resolution_diagonal, np.nan)
     per_section = {name: diag[results.layout.pair_slices[name]] for name in study.operators}
 
     fig = new_figure(13.0, max(4.2, 0.22 * len(labels) + 1.6))
     axes = fig.subplots(1, 3, gridspec_kw={"width_ratios": [1.0, 1.15, 1.35]})
-    plot_singular_values(axes[0], values, rank, source=source)
+    plot_singular_values(axes[0], values, rank)
     plot_residuals(axes[1], labels, before, after)
     plot_resolution(axes[2], per_section)
     solver = study.config.inverse.solver
@@ -1097,8 +1041,6 @@ __all__ = [
     "plot_singular_values",
     "plot_station_map",
     "plot_velocity_section",
-    "resolution_diagonal",
-    "scaled_singular_values",
     "section_velocity",
     "station_distance",
     "transport_figure",

@@ -209,3 +209,38 @@ def pair_geometry(section: xr.Dataset) -> xr.Dataset:
         },
         coords={"pair": pair},
     )
+
+
+def along_line_distance(pair_distance: np.ndarray) -> np.ndarray:
+    """Distance of every station from the first one, along the line.
+
+    Parameters
+    ----------
+    pair_distance : ndarray (..., pair)
+        Distance between neighbouring stations (:func:`great_circle_distance`), m.
+
+    Returns
+    -------
+    ndarray (..., station)
+        Accumulated distance, m; 0 at the first station.
+    """
+    d = np.asarray(pair_distance, dtype=float)
+    zero = np.zeros(d.shape[:-1] + (1,))
+    return np.concatenate([zero, np.cumsum(d, axis=-1)], axis=-1)
+
+
+def pair_along_line_distance(pair_distance: np.ndarray) -> np.ndarray:
+    """Distance of every pair's mid-point from the first station, along the line.
+
+    Parameters
+    ----------
+    pair_distance : ndarray (..., pair)
+        Distance between neighbouring stations, m.
+
+    Returns
+    -------
+    ndarray (..., pair)
+        Half-way between the pair's two stations, m.
+    """
+    station = along_line_distance(pair_distance)
+    return 0.5 * (station[..., :-1] + station[..., 1:])

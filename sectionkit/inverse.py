@@ -436,16 +436,36 @@ class InverseResult:
             return np.where(sd > 0, self.adjusted / sd, np.nan)
 
     @property
+    def solved_for(self) -> np.ndarray:
+        """True for every unknown with a prior (the solver's columns), bool (unknown,)."""
+        return self.system.prior > 0
+
+    @property
     def resolution_diagonal(self) -> np.ndarray:
-        """Diagonal of the model resolution matrix per unknown (0 where not solved for)."""
+        """Diagonal of the solver's model resolution per unknown, dimensionless.
+
+        1 for an unknown the constraints determine fully, 0 for one they cannot
+        see; 0 also for an unknown that was not solved for (no prior, see
+        :attr:`solved_for`).
+        """
         out = np.zeros(self.system.prior.size)
-        active = self.system.prior > 0
-        out[active] = np.diag(self.solver.resolution)
+        out[self.solved_for] = np.diag(self.solver.resolution_)
         return out
+
+    @property
+    def scaled_singular_values(self) -> np.ndarray:
+        """Singular values of the noise- and prior-scaled constraint matrix, descending, 1."""
+        return self.solver.scaled_singular_values_
+
+    @property
+    def rank(self) -> int | None:
+        """Rank the truncated SVD kept; None for solvers without one."""
+        rank = getattr(self.solver, "rank_", None)
+        return None if rank is None else int(rank)
 
     def summary(self) -> dict:
         """Solver, size, rank and chi-squared statistics, for reports."""
-        chi2 = self.solver.chi2
+        chi2 = self.solver.chi2_
         info = {
             "solver": type(self.solver).__name__,
             "constraints": int(self.system.matrix.shape[0]),
@@ -455,9 +475,8 @@ class InverseResult:
             "chi2_estimate": float(chi2.estimate),
             "chi2_estimate_expected": float(chi2.estimate_expected),
         }
-        rank = getattr(self.solver, "rank", None)
-        if rank is not None:
-            info["rank"] = int(rank)
+        if self.rank is not None:
+            info["rank"] = self.rank
         return info
 
 
@@ -495,7 +514,7 @@ def solve(
     mean = None if system.prior_mean is None else system.prior_mean[active]
     solver.fit(e, system.target, prior_mean=mean)
     estimate = np.zeros(system.prior.size)
-    estimate[active] = solver.estimate
+    estimate[active] = solver.estimate_
     cov = np.zeros((system.prior.size, system.prior.size))
-    cov[np.ix_(active, active)] = solver.covariance
+    cov[np.ix_(active, active)] = solver.covariance_
     return InverseResult(system, estimate, cov, solver)

@@ -489,9 +489,8 @@ def inverse_description(study: Study, results: Results, tex: bool = False) -> st
     percent = r"\%" if tex else "%"
     solver = _SOLVER_PHRASE.get(inv.solver, esc(inv.solver))
     if inv.solver == "svd":
-        used = getattr(results.inverse.solver, "rank", inv.rank)
-        svals = getattr(results.inverse.solver, "singular_values", None)
-        total = f" of {len(svals)}" if svals is not None else ""
+        used = results.inverse.rank
+        total = f" of {len(results.inverse.scaled_singular_values)}"
         rule = "" if inv.rank else ", chosen where the scaled singular values exceed 1"
         solver += f" (rank {used}{total}{rule})"
     text = f"Inverse: {solver} conserving {' and '.join(inv.conserve)}"

@@ -20,21 +20,29 @@ through :data:`SOLVERS` / :func:`make_solver`:
 Results common to every solver (after ``fit(E, y)``), with ``M`` constraints
 and ``K`` unknowns:
 
-===========================  ==========  ===================================================
-attribute                    shape       meaning
-===========================  ==========  ===================================================
-``estimate``                 (K,)        estimated unknowns, units of ``x``
-``covariance``               (K, K)      error covariance of ``estimate``, units of ``x`` ^2
-``posterior_std``            (K,)        ``sqrt(diag(covariance))``, units of ``x``
-``gain``                     (K, M)      ``d estimate / d y`` (linear response to the data)
-``resolution``               (K, K)      model resolution ``T_v = gain @ E``
-``data_resolution``          (M, M)      data resolution ``T_u = E @ gain``
-``residuals``                (M,)        ``y - E @ estimate``, units of ``y``
-``normalized_residuals``     (M,)        ``residuals / sqrt(diag(N))``, dimensionless
-``residual_covariance``      (M, M)      expected covariance of ``residuals`` under the
-                                         prior and noise model, units of ``y`` ^2
-``chi2``                     ChiSquared  misfit statistics with their expected values
-===========================  ==========  ===================================================
+=============================  ==========  =================================================
+attribute                      shape       meaning
+=============================  ==========  =================================================
+``estimate_``                  (K,)        estimated unknowns, units of ``x``
+``covariance_``                (K, K)      error covariance of ``estimate_``, units of ``x`` ^2
+``posterior_std_``             (K,)        ``sqrt(diag(covariance_))``, units of ``x``
+``gain_``                      (K, M)      ``d estimate_ / d y`` (linear response to the data)
+``resolution_``                (K, K)      model resolution ``T_v = gain_ @ E``
+``data_resolution_``           (M, M)      data resolution ``T_u = E @ gain_``
+``residuals_``                 (M,)        ``y - E @ estimate_``, units of ``y``
+``normalized_residuals_``      (M,)        ``residuals_ / sqrt(diag(N))``, dimensionless
+``residual_covariance_``       (M, M)      expected covariance of ``residuals_`` under the
+                                           prior and noise model, units of ``y`` ^2
+``chi2_``                      ChiSquared  misfit statistics with their expected values
+``scaled_singular_values_``    (min(M,K),) singular values of ``W^-1 E S`` (``N = W W^T``,
+                                           ``R = S S^T``), descending, dimensionless
+=============================  ==========  =================================================
+
+Settings (``rank``, ``form``, ``lower``, ``upper``) keep the constructor's names;
+results end in ``_`` (scikit-learn style: ``rank`` is the setting of
+:class:`TruncatedSVD`, ``rank_`` the rank it used). ``is_linear`` on the class
+says whether the estimate is linear in the data with a data-independent gain
+(:meth:`_LinearSolver.estimate_for`).
 
 All covariance algebra goes through Cholesky factors and triangular solves; no
 matrix is inverted explicitly except where a solver states it (the bounded
@@ -360,32 +368,37 @@ class _LinearSolver:
     #: Registry name of the solver.
     name: ClassVar[str] = ""
     #: Names of the attributes that exist only after :meth:`fit`.
+    #: True when the estimate is ``prior_mean + gain_ @ (y - E prior_mean)`` with a gain that
+    #: does not depend on ``y``: :meth:`estimate_for` then gives the estimate for other data
+    #: without a new fit.
+    is_linear: ClassVar[bool] = True
+    #: Names of the attributes that exist only after :meth:`fit` (scikit-learn style:
+    #: fitted results end in ``_``, settings do not).
     _fitted_names: ClassVar[tuple[str, ...]] = (
-        "estimate",
-        "covariance",
-        "posterior_std",
-        "gain",
-        "resolution",
-        "data_resolution",
-        "residuals",
-        "normalized_residuals",
-        "residual_covariance",
-        "chi2",
+        "estimate_",
+        "covariance_",
+        "posterior_std_",
+        "gain_",
+        "resolution_",
+        "data_resolution_",
+        "residuals_",
+        "normalized_residuals_",
+        "residual_covariance_",
+        "chi2_",
+        "scaled_singular_values_",
     )
 
-    estimate: Array
-    covariance: Array
-    posterior_std: Array
-    gain: Array
-    resolution: Array
-    data_resolution: Array
-    residuals: Array
-    normalized_residuals: Array
-    residual_covariance: Array
-    chi2: ChiSquared
-
-    #: Constructor settings stored under another attribute name.
-    _setting_attrs: ClassVar[dict[str, str]] = {}
+    estimate_: Array
+    covariance_: Array
+    posterior_std_: Array
+    gain_: Array
+    resolution_: Array
+    data_resolution_: Array
+    residuals_: Array
+    normalized_residuals_: Array
+    residual_covariance_: Array
+    chi2_: ChiSquared
+    scaled_singular_values_: Array
 
     def __init__(self, prior_variance: ArrayLike, noise_variance: ArrayLike) -> None:
         self.prior_variance = _parse_covariance(prior_variance, "prior_variance", "unknown")
@@ -403,7 +416,7 @@ class _LinearSolver:
         params = inspect.signature(type(self).__init__).parameters
         shown = []
         for key in list(params)[1:]:
-            value = self.__dict__.get(self._setting_attrs.get(key, key))
+            value = self.__dict__.get(key)
             if isinstance(value, np.ndarray):
                 text = f"{float(value):g}" if value.ndim == 0 else f"<array {value.shape}>"
             else:
@@ -465,6 +478,42 @@ class _LinearSolver:
         estimate, covariance, gain = self._solve(E, y - E @ x0, prior, noise)
         self._finish(E, y, prior, noise, estimate + x0, covariance, gain)
         return self
+
+    def estimate_for(self, y: ArrayLike, prior_mean: ArrayLike | None = None) -> Array:
+        """The estimate for other data ``y`` with the fitted gain, without a new fit.
+
+        For a linear solver (``is_linear``) the estimate is
+        ``x0 + gain_ (y - E x0)`` and neither the gain nor the covariance
+        depends on ``y`` or ``x0``; so this equals a new :meth:`fit` on the same
+        ``E`` and covariances, and ``covariance_`` holds for it too.
+
+        Parameters
+        ----------
+        y : array_like (M,)
+            Constraint data, units of ``y``.
+        prior_mean : array_like (K,), optional
+            Prior mean ``x0``, units of ``x`` (zero when None).
+
+        Returns
+        -------
+        ndarray (K,)
+            Units of ``x``.
+
+        Raises
+        ------
+        ComputationError
+            The solver is not linear (its gain depends on the data).
+        """
+        if not type(self).is_linear:
+            raise ComputationError(f"{type(self).__name__} is not linear in the data (its gain "
+                                   "depends on which bounds are active): fit it again")
+        gain = self.gain_
+        k, m = gain.shape
+        y = np.asarray(y, dtype=float)
+        if y.shape != (m,):
+            raise ConfigError(f"y has shape {y.shape} but the fitted gain expects ({m},)")
+        x0 = self._check_prior_mean(prior_mean, k)
+        return x0 + gain @ (y - self._fitted_matrix @ x0)
 
     @staticmethod
     def _check_prior_mean(prior_mean: ArrayLike | None, k: int) -> Array:
@@ -530,14 +579,20 @@ class _LinearSolver:
     ) -> None:
         """Set the result attributes shared by every solver."""
         m, _ = E.shape
-        self.estimate = estimate
-        self.covariance = _sym(covariance)
-        self.posterior_std = np.sqrt(np.clip(np.diag(self.covariance), 0.0, None))
-        self.gain = gain
-        self.resolution = gain @ E
-        self.data_resolution = E @ gain
-        self.residuals = y - E @ estimate
-        self.normalized_residuals = self.residuals / np.sqrt(noise.diagonal)
+        self._fitted_matrix = E
+        self.estimate_ = estimate
+        self.covariance_ = _sym(covariance)
+        self.posterior_std_ = np.sqrt(np.clip(np.diag(self.covariance_), 0.0, None))
+        self.gain_ = gain
+        self.resolution_ = gain @ E
+        self.data_resolution_ = E @ gain
+        self.residuals_ = y - E @ estimate
+        self.normalized_residuals_ = self.residuals_ / np.sqrt(noise.diagonal)
+        svd = getattr(self, "singular_values_", None)
+        if svd is None:
+            scaled = prior.factor_t_times(noise.factor_solve(E).T).T  # W^-1 E S
+            svd = la.svdvals(scaled, check_finite=False)
+        self.scaled_singular_values_ = np.asarray(svd, dtype=float)
 
         # Expected statistics under the model y = E x + n, x ~ (0, R), n ~ (0, N):
         # cov(y) = C = E R E^T + N = L L^T, residual r = (I - T_u) y, estimate = gain y.
@@ -549,14 +604,14 @@ class _LinearSolver:
                 "E R E^T + N is not positive definite to working precision; the noise "
                 "variances are too small compared with the prior-projected data variance"
             ) from None
-        resid_factor = data_factor - self.data_resolution @ data_factor  # (I - T_u) L
-        self.residual_covariance = resid_factor @ resid_factor.T
-        chi_res = float(np.sum(noise.factor_solve(self.residuals) ** 2))
+        resid_factor = data_factor - self.data_resolution_ @ data_factor  # (I - T_u) L
+        self.residual_covariance_ = resid_factor @ resid_factor.T
+        chi_res = float(np.sum(noise.factor_solve(self.residuals_) ** 2))
         # the estimate measured against the prior: its departure from the prior mean
         chi_est = float(np.sum(prior.factor_solve(estimate - self._prior_mean) ** 2))
         exp_res = float(np.sum(noise.factor_solve(resid_factor) ** 2))
         exp_est = float(np.sum(prior.factor_solve(gain @ data_factor) ** 2))
-        self.chi2 = ChiSquared(
+        self.chi2_ = ChiSquared(
             residuals=chi_res,
             residuals_expected=exp_res,
             estimate=chi_est,
@@ -606,21 +661,21 @@ class GaussMarkov(_LinearSolver):
 
     Attributes
     ----------
-    form_used : str
+    form_used_ : str
         ``"data"`` or ``"model"``: the form that :meth:`fit` used.
-    estimate, covariance, posterior_std, gain, resolution, data_resolution,
-    residuals, normalized_residuals, residual_covariance, chi2
-        See the module documentation. Here ``gain = R E^T (E R E^T + N)^-1``,
+    estimate_, covariance_, posterior_std_, gain_, resolution_, data_resolution_,
+    residuals_, normalized_residuals_, residual_covariance_, chi2_
+        See the module documentation. Here ``gain_ = R E^T (E R E^T + N)^-1``,
         ``resolution = T_v = R E^T (E R E^T + N)^-1 E = I - P R^-1``,
         ``residual_covariance = N - E P E^T``, and the expected ``chi2.total``
         is exactly M.
     """
 
     name = "gauss-markov"
-    _fitted_names = (*_LinearSolver._fitted_names, "form_used")
+    _fitted_names = (*_LinearSolver._fitted_names, "form_used_")
     _FORMS = ("auto", "data", "model")
 
-    form_used: str
+    form_used_: str
 
     def __init__(
         self, prior_variance: ArrayLike, noise_variance: ArrayLike, form: str = "auto"
@@ -635,7 +690,7 @@ class GaussMarkov(_LinearSolver):
     ) -> tuple[Array, Array, Array]:
         m, k = E.shape
         form = self.form if self.form != "auto" else ("data" if m < k else "model")
-        self.form_used = form
+        self.form_used_ = form
         if form == "data":
             re_t = prior.times(E.T)  # R E^T, (K, M)
             data_cov = _sym(E @ re_t + noise.matrix)
@@ -718,26 +773,26 @@ class TruncatedSVD(_LinearSolver):
 
     Attributes
     ----------
-    requested_rank : int
-        The ``rank`` setting (0 = automatic).
     rank : int
+        The setting (0 = automatic).
+    rank_ : int
         The rank k actually used (after :meth:`fit`).
-    singular_values : ndarray (min(M, K),)
-        All singular values of the scaled system ``E'``, descending, dimensionless.
-    estimate, covariance, posterior_std, gain, resolution, data_resolution,
-    residuals, normalized_residuals, residual_covariance, chi2
-        See the module documentation. ``resolution = S V_k V_k^T S^-1`` and
-        ``data_resolution = W U_k U_k^T W^-1`` (the maps from truth to
+    singular_values_ : ndarray (min(M, K),)
+        All singular values of the scaled system ``E'``, descending, dimensionless
+        (the same as ``scaled_singular_values_``).
+    estimate_, covariance_, posterior_std_, gain_, resolution_, data_resolution_,
+    residuals_, normalized_residuals_, residual_covariance_, chi2_
+        See the module documentation. ``resolution_ = S V_k V_k^T S^-1`` and
+        ``data_resolution_ = W U_k U_k^T W^-1`` (the maps from truth to
         estimate and from data to ``E x_hat``, in original units; for diagonal
         noise its diagonal equals that of ``U_k U_k^T``). Both have trace k.
     """
 
     name = "svd"
-    _fitted_names = (*_LinearSolver._fitted_names, "rank", "singular_values")
-    _setting_attrs = {"rank": "requested_rank"}
+    _fitted_names = (*_LinearSolver._fitted_names, "rank_", "singular_values_")
 
-    rank: int
-    singular_values: Array
+    rank_: int
+    singular_values_: Array
 
     def __init__(self, prior_variance: ArrayLike, noise_variance: ArrayLike, rank: int = 0) -> None:
         super().__init__(prior_variance, noise_variance)
@@ -746,16 +801,16 @@ class TruncatedSVD(_LinearSolver):
                 f"rank = {rank!r}: give a whole number of singular values to keep, "
                 f"or 0 to choose it from the noise level"
             )
-        self.requested_rank = int(rank)
+        self.rank = int(rank)
 
     def _solve(
         self, E: Array, y: Array, prior: _Covariance, noise: _Covariance
     ) -> tuple[Array, Array, Array]:
         m, k_unknowns = E.shape
         limit = min(m, k_unknowns)
-        if self.requested_rank > limit:
+        if self.rank > limit:
             raise ConfigError(
-                f"rank = {self.requested_rank} is larger than min(constraints, unknowns) = "
+                f"rank = {self.rank} is larger than min(constraints, unknowns) = "
                 f"min({m}, {k_unknowns}) = {limit}; choose rank <= {limit} "
                 f"(or 0 to pick it from the noise level)"
             )
@@ -765,8 +820,8 @@ class TruncatedSVD(_LinearSolver):
             u, s, vt = la.svd(e_scaled, full_matrices=False, check_finite=False)
         except la.LinAlgError:
             raise ComputationError("the SVD of the scaled system did not converge") from None
-        self.singular_values = s
-        rank = self.requested_rank if self.requested_rank else int(np.sum(s > 1.0))
+        self.singular_values_ = s
+        rank = self.rank if self.rank else int(np.sum(s > 1.0))
         tol = (s[0] if s.size else 0.0) * max(m, k_unknowns) * np.finfo(float).eps
         if rank and s[rank - 1] <= tol:
             numerical = int(np.sum(s > tol))
@@ -775,7 +830,7 @@ class TruncatedSVD(_LinearSolver):
                 f"working precision (the scaled system has numerical rank {numerical}); "
                 f"choose rank <= {numerical}"
             )
-        self.rank = rank
+        self.rank_ = rank
         uk, sk, vk = u[:, :rank], s[:rank], vt[:rank].T
         s_vk = prior.factor_times(vk)  # S V_k, (K, k)
         gain = s_vk @ (noise.factor_t_solve(uk) / sk).T  # S V_k Lambda^-1 U_k^T W^-1
@@ -823,17 +878,18 @@ class BoundedLeastSquares(_LinearSolver):
 
     Attributes
     ----------
-    active : ndarray of int (K,)
+    active_ : ndarray of int (K,)
         -1 where the unknown sits at its lower bound, +1 at its upper bound, 0 free.
-    estimate, covariance, posterior_std, gain, resolution, data_resolution,
-    residuals, normalized_residuals, residual_covariance, chi2
+    estimate_, covariance_, posterior_std_, gain_, resolution_, data_resolution_,
+    residuals_, normalized_residuals_, residual_covariance_, chi2_
         See the module documentation and the covariance approximation above.
     """
 
     name = "bounded"
-    _fitted_names = (*_LinearSolver._fitted_names, "active")
+    _fitted_names = (*_LinearSolver._fitted_names, "active_")
+    is_linear = False  # the active set, hence the gain, depends on the data
 
-    active: NDArray[np.int_]
+    active_: NDArray[np.int_]
 
     def __init__(
         self,
@@ -902,7 +958,7 @@ class BoundedLeastSquares(_LinearSolver):
         estimate = np.clip(result.x, lower, upper)
         estimate[active < 0] = lower[active < 0]
         estimate[active > 0] = upper[active > 0]
-        self.active = active
+        self.active_ = active
 
         free = np.flatnonzero(active == 0)
         covariance = np.zeros((k, k))

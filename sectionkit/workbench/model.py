@@ -584,8 +584,7 @@ class WorkbenchState:
         base = self._base
         if base is None or base.inverse is None:
             return None
-        rank = getattr(base.inverse.solver, "rank", None)
-        return None if rank is None else int(rank)
+        return base.inverse.rank
 
     @property
     def flagged_classes(self) -> list[str]:
@@ -1399,7 +1398,7 @@ class WorkbenchState:
             initial_rows = system.initial + system.matrix[:, :n_pairs] @ shift
             active = system.prior > 0
             x = np.zeros(layout.size)
-            x[active] = base.inverse.solver.gain @ (-initial_rows)
+            x[active] = base.inverse.solver.gain_ @ (-initial_rows)
             # the posterior covariance does not depend on the data: same residual std
             box = BoxBudget(tuple(system.rows), initial_rows, initial_rows + system.matrix @ x,
                             system.noise.copy(), tuple(system.units),

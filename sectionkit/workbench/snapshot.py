@@ -232,10 +232,8 @@ def inverse_view(study: Study, results: Results) -> InverseView | None:
     inv = results.inverse
     if inv is None:
         return None
-    from sectionkit.figures import resolution_diagonal, scaled_singular_values
-
     std = np.sqrt(np.clip(np.diag(inv.covariance), 0.0, None))
-    res = resolution_diagonal(results)
+    res = np.where(inv.solved_for, inv.resolution_diagonal, np.nan)
     layout = results.layout
     names = study.config.layer_names
     dist, b, b_std, b_res = {}, {}, {}, {}
@@ -248,15 +246,14 @@ def inverse_view(study: Study, results: Results) -> InverseView | None:
         (f"{box}: {names[n]}→{names[n + 1]}", float(inv.estimate[idx]), float(std[idx]),
          float(res[idx]))
         for (box, n), idx in sorted(layout.diapycnal.items()))
-    values, _ = scaled_singular_values(results)
+    values = inv.scaled_singular_values
     system = inv.system
     with np.errstate(invalid="ignore", divide="ignore"):
         before = system.initial / system.noise
     after = inv.posterior_normalized_residuals
-    rank = getattr(inv.solver, "rank", None)
     return InverseView(
         solver=study.config.inverse.solver,
-        rank=None if rank is None else int(rank),
+        rank=inv.rank,
         pair_distance=dist, adjustment=b, adjustment_std=b_std, adjustment_resolution=b_res,
         transfers=transfers, singular_values=np.asarray(values, dtype=float),
         rows=tuple(f"{box} {c}" for box, c in system.rows), before=before, after=after,
