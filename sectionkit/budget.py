@@ -17,7 +17,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from sectionkit.labels import parse_pair_label
 from sectionkit.operator import QUANTITIES, SectionOperator
+from sectionkit.solvers import output_std
 
 SV = 1e6  # m^3 s^-1 per Sverdrup (common practice)
 PW = 1e15  # W per petawatt
@@ -48,6 +50,22 @@ class UnknownLayout:
     ekman: dict[str, int]
     size: int
     labels: list[str]
+
+    @property
+    def pairs(self) -> dict[str, int]:
+        """Number of pairs of every section."""
+        return {name: sl.stop - sl.start for name, sl in self.pair_slices.items()}
+
+    def pair_index(self, label: str, where: str = "pair") -> int:
+        """Position in ``x`` of the adjustment of the pair ``"<section>:<k>"``.
+
+        Raises
+        ------
+        ConfigError
+            No such pair (the message names the valid range).
+        """
+        section, k = parse_pair_label(label, self.pairs, where)
+        return self.pair_slices[section].start + k
 
 
 def make_layout(
@@ -119,8 +137,7 @@ class LinearOutputs:
         """Standard deviation of each output, sqrt(diag(G P G^T)); NaN without P."""
         if covariance is None:
             return np.full(len(self.names), np.nan)
-        g = self.gradient
-        return np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", g, covariance, g), 0.0))
+        return output_std(self.gradient, covariance)
 
     def __post_init__(self) -> None:
         self._position = {name: k for k, name in enumerate(self.names)}

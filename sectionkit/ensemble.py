@@ -56,10 +56,8 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from sectionkit.budget import section_outputs
 from sectionkit.config import Config, load_config
 from sectionkit.errors import ConfigError
-from sectionkit.inverse import solve
 from sectionkit.study import Results, Study
 
 __all__ = [
@@ -262,27 +260,13 @@ def perturb_section(
 
 
 # ------------------------------------------------------------------ one member
-def _bounds(config: Config, results: Results) -> tuple[np.ndarray | None, np.ndarray | None]:
-    """Lower and upper bounds of the unknowns from ``[inverse] bounds`` (as Study.solve)."""
-    if config.inverse is None or not config.inverse.bounds:
-        return None, None
-    layout = results.layout
-    lower = np.full(layout.size, -np.inf)
-    upper = np.full(layout.size, np.inf)
-    for label, (lo, hi) in config.inverse.bounds.items():
-        section, _, k = label.partition(":")
-        idx = layout.pair_slices[section].start + int(k)
-        lower[idx], upper[idx] = lo, hi
-    return lower, upper
-
-
 def resolve_with_data(study: Study, results: Results, target: np.ndarray) -> Results:
     """Solve the study's inverse again with a different imbalance ``y``.
 
     Parameters
     ----------
     study : Study
-        The study that produced ``results``.
+        The study that produced ``results`` (kept for callers; the state is in ``results``).
     results : Results
         A solved state (with an inverse).
     target : ndarray (row,)
@@ -293,17 +277,7 @@ def resolve_with_data(study: Study, results: Results, target: np.ndarray) -> Res
     Results
         References, Ekman and layout of ``results``; a new inverse and outputs.
     """
-    system = dataclasses.replace(results.inverse.system, initial=-np.asarray(target, float))
-    lower, upper = _bounds(study.config, results)
-    inverse = solve(system, study.config.inverse, lower, upper)
-    outputs = {
-        name: section_outputs(op, results.references[name].offset, results.ekman[name],
-                              results.layout, study.config.reference_salinity,
-                              inverse.estimate)
-        for name, op in study.operators.items()
-    }
-    return Results(results.references, results.ekman, results.layout, outputs, inverse,
-                   results.cautions)
+    return results.with_data(target)
 
 
 def _record(study: Study, results: Results, truth: np.ndarray | None) -> dict[str, np.ndarray]:

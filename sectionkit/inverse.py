@@ -124,7 +124,7 @@ def assemble(
     spec: InverseSpec,
     layout: UnknownLayout,
     layer_names: list[str],
-    velocity_prior: np.ndarray | None = None,
+    velocity_prior: dict[str, np.ndarray] | None = None,
     tracers: dict[str, TracerOperator] | None = None,
     velocity_prior_mean: np.ndarray | None = None,
 ) -> ConstraintSystem:
@@ -146,15 +146,15 @@ def assemble(
         Unknown layout (pairs, transfers, Ekman factors).
     layer_names : list of str
         Class names.
-    velocity_prior : ndarray (n_pairs_total,), optional
-        Prior standard deviation of each pair's adjustment (m s^-1); the
-        global ``prior_velocity`` where None.
+    velocity_prior : dict of str -> ndarray (pair,), optional
+        Prior standard deviation of each section's pair adjustments (m s^-1);
+        the global ``prior_velocity`` where None.
     tracers : dict of str -> TracerOperator, optional
         Tracer operators by section, for tracers named in ``spec.conserve``
         (rows ``<tracer>:<class>`` in kmol s^-1, see :mod:`sectionkit.tracers`).
-    velocity_prior_mean : ndarray (n_pairs_total,), optional
-        Prior mean of each pair's adjustment (m s^-1), e.g. from direct
-        velocity profiles; zero where None.
+    velocity_prior_mean : ndarray (unknown,), optional
+        Prior mean of every unknown (m s^-1 for the pairs), e.g. from direct
+        velocity profiles, placed by the layout; zero where None.
     """
     n_class = len(layer_names)
     rows: list[tuple[str, str]] = []
@@ -262,8 +262,8 @@ def assemble(
         raise ConfigError("[inverse] conserve is empty: name at least one of mass, salt, heat")
 
     prior = np.zeros(layout.size)
-    n_pairs = sum(op.n_pair for op in operators.values())
-    prior[:n_pairs] = spec.prior_velocity if velocity_prior is None else velocity_prior
+    for name, sl in layout.pair_slices.items():
+        prior[sl] = spec.prior_velocity if velocity_prior is None else velocity_prior[name]
     for idx in layout.diapycnal.values():
         prior[idx] = spec.prior_diapycnal
     for idx in layout.ekman.values():
@@ -278,8 +278,7 @@ def assemble(
             covariance[sl, sl] = rho * np.outer(prior[sl], prior[sl])
     prior_mean = None
     if velocity_prior_mean is not None and np.any(velocity_prior_mean != 0):
-        prior_mean = np.zeros(layout.size)
-        prior_mean[:n_pairs] = velocity_prior_mean
+        prior_mean = np.asarray(velocity_prior_mean, dtype=float)
     return ConstraintSystem(rows, np.vstack(e_rows), np.asarray(initial), np.asarray(noise),
                             prior, units, covariance, prior_mean)
 

@@ -65,7 +65,6 @@ from sectionkit.workbench.snapshot import (
 )
 
 REFERENCE_MODES = ("pressure", "bottom", "isopycnal")
-LINEAR_SOLVERS = ("gauss-markov", "svd")  # estimate = gain @ data, gain independent of data
 AUTOSAVE_SUFFIX = ".autosave.toml"
 AUTOSAVE_COALESCE = 0.05  # s a change waits for newer ones before the autosave is written
 GESTURE_GAP = 1.0  # s: changes of one control closer than this are one undo step (a drag)
@@ -1251,12 +1250,7 @@ class WorkbenchState:
         current snapshot.
         """
         base = self._base
-        linear_ok = (
-            base is not None
-            and key == self._base_key
-            and (base.inverse is None or self._config.inverse is None
-                 or self._config.inverse.solver in LINEAR_SOLVERS)
-        )
+        linear_ok = base is not None and key == self._base_key and base.state.is_linear
         if not linear_ok:
             self._solve_full(key)
             return False
@@ -1365,13 +1359,12 @@ class WorkbenchState:
     def _linear_update(self, global_only: bool = False) -> None:
         """New references on unchanged operators, Ekman and inverse settings.
 
-        Class transports are ``relative + area * offset`` (DESIGN.md §2);
-        the constraint data shift by ``E_pairs @ (offset - offset_base)``
-        (the constraints are linear in the reference velocity, and a change
-        of offset moves them exactly as an adjustment would); the new
-        estimate is the fitted solver's gain applied to the new data. The
-        posterior covariance does not depend on the data, so the errors are
-        those of the last full solve.
+        The base solve's budget state is derived with the new references
+        (:meth:`BudgetState.derive`: the constraint data move by
+        ``E_pairs (offset - offset_base)``) and solved reusing the fitted
+        linear solver (its gain gives the new estimate; the posterior
+        covariance does not depend on the data, so the errors are those of
+        the last full solve).
         """
         base = self._base
         assert base is not None
@@ -1382,35 +1375,26 @@ class WorkbenchState:
             cautions = Cautions()
             cautions.extend(self.study.load_cautions)
             refs = self.study.references(cautions)
-        offsets = {n: r.offset for n, r in refs.items()}
-        pressures = {n: r.pressure for n, r in refs.items()}
-        layout = base.layout
+        state = base.state.derive(refs)
         sections = tuple(self.study.operators)
         layers = self._snap.classes.layers
         x = None
         box = None
-        if base.inverse is not None:
-            system = base.inverse.system
-            n_pairs = sum(op.n_pair for op in self.study.operators.values())
-            shift = np.zeros(n_pairs)
-            for name in sections:
-                shift[layout.pair_slices[name]] = offsets[name] - base.references[name].offset
-            initial_rows = system.initial + system.matrix[:, :n_pairs] @ shift
-            active = system.prior > 0
-            x = np.zeros(layout.size)
-            x[active] = base.inverse.solver.gain_ @ (-initial_rows)
+        inverse = state.solve(reuse=base.inverse) if base.inverse is not None else None
+        if inverse is not None:
+            x = inverse.estimate
+            system = inverse.system
             # the posterior covariance does not depend on the data: same residual std
-            box = BoxBudget(tuple(system.rows), initial_rows, initial_rows + system.matrix @ x,
+            box = BoxBudget(tuple(system.rows), system.initial, inverse.adjusted,
                             system.noise.copy(), tuple(system.units),
                             base.inverse.posterior_residual_std)
         initial = np.zeros((len(sections), len(layers)))
         adjusted = np.zeros_like(initial)
         mass = {}
         for s, name in enumerate(sections):
-            op = self.study.operators[name]
-            t0 = op.transports(offsets[name], 0.0, base.ekman[name], 1.0)
-            vol = t0[0].sum(axis=0) / SV
-            mass[name] = t0[1].sum(axis=0) / SV
+            t = state.class_transports(name)
+            vol = t["volume"] / SV
+            mass[name] = t["mass"] / SV
             initial[s] = vol
             if x is None:
                 adjusted[s] = vol
@@ -1421,9 +1405,9 @@ class WorkbenchState:
         classes = ClassTransports(sections, layers, initial, adjusted,
                                   self._errors(base, sections, layers), x is not None)
         self._snap = _Snapshot(
-            offsets=offsets,
-            ref_pressure=pressures,
-            layout=layout,
+            offsets=state.offsets,
+            ref_pressure={n: r.pressure for n, r in refs.items()},
+            layout=state.layout,
             estimate=x,
             classes=classes,
             box=box,
