@@ -67,6 +67,28 @@ class UnknownLayout:
         section, k = parse_pair_label(label, self.pairs, where)
         return self.pair_slices[section].start + k
 
+    def section_adjustment(self, name: str, x: np.ndarray) -> tuple[np.ndarray, float]:
+        """One section's share of a state vector.
+
+        Parameters
+        ----------
+        name : str
+            Section.
+        x : ndarray (unknown,)
+            Unknowns.
+
+        Returns
+        -------
+        adjustment : ndarray (pair,)
+            Reference-velocity adjustment of every pair, m s^-1.
+        ekman_factor : float
+            Factor on the section's Ekman transport, ``1 + x_ekman`` (1 when
+            the section has no Ekman unknown), dimensionless.
+        """
+        x = np.asarray(x, dtype=float)
+        k = self.ekman.get(name)
+        return x[self.pair_slices[name]], 1.0 + (float(x[k]) if k is not None else 0.0)
+
 
 def make_layout(
     operators: dict[str, SectionOperator],

@@ -23,6 +23,7 @@ from sectionkit.errors import ConfigError, InputFileError, SectionkitError
 from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
 from sectionkit.io.bottle import tracer_name
 from sectionkit.io.units import pressure_to_dbar, temperature_to_celsius
+from sectionkit.labels import parse_pair_label, split_pair_label
 from sectionkit.layers import Interface, check_interfaces
 from sectionkit.thermo import SALINITY_KINDS, TEMPERATURE_KINDS
 
@@ -779,8 +780,9 @@ def _station_list(value: Any, where: str) -> list[str] | None:
 
 
 def _check_pair_label(label: str, names: list[str], where: str) -> None:
-    sec, _, idx = label.partition(":")
-    if sec not in names or not idx.isdigit():
+    sec, k = split_pair_label(label)
+    idx = "" if k is None else str(k)
+    if sec not in names or k is None:
         hint = did_you_mean(sec, names)
         if sec in names:
             hint = ""  # the section is right: the index is what is wrong
@@ -804,11 +806,8 @@ def check_pair_labels(config: Config, pairs: dict[str, int]) -> None:
     if config.inverse is not None:
         labels += [("[inverse] bounds", label) for label in config.inverse.bounds]
     for where, label in labels:
-        section, _, k = label.partition(":")
-        n = pairs.get(section)
-        if n is not None and int(k) >= n:
-            raise ConfigError(f"{where}: pair {label!r} does not exist; section {section} has "
-                              f"{n} pairs, {section}:0 to {section}:{n - 1}")
+        if split_pair_label(label)[0] in pairs:
+            parse_pair_label(label, pairs, where)
 
 
 def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:

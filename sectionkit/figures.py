@@ -31,6 +31,7 @@ from matplotlib.colors import TwoSlopeNorm
 from matplotlib.figure import Figure
 from matplotlib.ticker import FixedLocator, FuncFormatter, MaxNLocator, NullLocator
 
+from sectionkit.geometry import along_line_distance, pair_along_line_distance
 from sectionkit.layers import sigma_label
 from sectionkit.operator import SectionOperator
 from sectionkit.study import Results, Study
@@ -91,13 +92,12 @@ def station_distance(op: SectionOperator) -> np.ndarray:
     ndarray (station,)
         km.
     """
-    return np.concatenate([[0.0], np.cumsum(op.pairs["distance"].values)]) / 1e3
+    return along_line_distance(op.pairs["distance"].values) / 1e3
 
 
 def pair_distance(op: SectionOperator) -> np.ndarray:
     """Along-line distance of every pair mid-point, km."""
-    d = station_distance(op)
-    return 0.5 * (d[:-1] + d[1:])
+    return pair_along_line_distance(op.pairs["distance"].values) / 1e3
 
 
 def section_velocity(

@@ -31,6 +31,7 @@ from sectionkit.geostrophy import (
     pair_mean,
     relative_velocity,
 )
+from sectionkit.labels import pair_labels
 from sectionkit.layers import (
     Interface,
     bottom_width_fraction,
@@ -155,7 +156,7 @@ class SectionOperator:
     @property
     def pair_labels(self) -> list[str]:
         """Pair names as used in configuration overrides, ``"<section>:<k>"``."""
-        return [f"{self.name}:{k}" for k in range(self.n_pair)]
+        return pair_labels(self.name, self.n_pair)
 
     def ekman_volume(self, stress_east: float, stress_north: float) -> np.ndarray:
         """Ekman volume transport across each pair for a uniform wind stress.

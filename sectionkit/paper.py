@@ -31,6 +31,7 @@ import numpy as np
 import pandas as pd
 
 from sectionkit.geostrophy import ReferenceChoice
+from sectionkit.labels import split_pair_label
 from sectionkit.layers import class_display_name, sigma_symbol
 from sectionkit.operator import SALINITY_NAMES
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
@@ -413,8 +414,8 @@ def reference_description(study: Study, results: Results, tex: bool = False) -> 
     order = {name: k for k, name in enumerate(cfg.section_names())}
 
     def pair_key(label: str) -> tuple:
-        section, _, k = label.rpartition(":")
-        return (order.get(section, len(order)), section, int(k) if k.isdigit() else -1, label)
+        section, k = split_pair_label(label)
+        return (order.get(section, len(order)), section, -1 if k is None else k, label)
 
     overrides = {k: cfg.overrides[k] for k in sorted(cfg.overrides, key=pair_key)}
     n = len(overrides)

@@ -51,6 +51,7 @@ from sectionkit.config import (
 )
 from sectionkit.errors import Cautions, ConfigError, SectionkitError
 from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
+from sectionkit.labels import parse_pair_label
 from sectionkit.layers import Interface, check_interfaces
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.workbench.snapshot import (
@@ -1160,11 +1161,8 @@ class WorkbenchState:
 
     # ------------------------------------------------------------ machinery
     def _check_label(self, label: str) -> None:
-        section, _, k = label.partition(":")
-        if section not in self.study.operators or not k.isdigit() \
-                or int(k) >= self.study.operators[section].n_pair:
-            raise ConfigError(f"pair {label!r} does not exist; pairs are '<section>:<k>' with "
-                              f"sections {', '.join(self.section_names)}")
+        parse_pair_label(label, {name: op.n_pair for name, op in self.study.operators.items()},
+                         "pair override")
 
     def _validated(self, config: Config) -> Config:
         """A fresh copy of ``config`` validated exactly as a saved file would be."""
