@@ -326,6 +326,26 @@ class BoxSpec:
     enters: list[str] = field(default_factory=list)
     leaves: list[str] = field(default_factory=list)
 
+    @property
+    def sections(self) -> list[str]:
+        """Every section bounding the box: those entering, then those leaving."""
+        return self.enters + self.leaves
+
+    def sign(self, section: str) -> float:
+        """+1 for a section whose positive transport enters the box, -1 for one leaving it.
+
+        Raises
+        ------
+        ConfigError
+            The section does not bound this box.
+        """
+        if section in self.enters:
+            return 1.0
+        if section in self.leaves:
+            return -1.0
+        raise ConfigError(f"section {section!r} does not bound box {self.name!r} "
+                          f"(sections: {', '.join(self.sections)})")
+
 
 @dataclass
 class KnownTransport:

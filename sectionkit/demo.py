@@ -81,6 +81,7 @@ from sectionkit.geostrophy import ReferenceChoice, resolve_references
 from sectionkit.inverse import interface_transfers, transfer_anomaly
 from sectionkit.layers import Interface
 from sectionkit.operator import QUANTITIES, SectionOperator, build_operator
+from sectionkit.thermo import last_level
 
 SV = 1.0e6  # m^3 s^-1 per Sverdrup (common practice)
 _Q = {q: n for n, q in enumerate(QUANTITIES)}
@@ -695,7 +696,7 @@ def _observe(scenario: DemoScenario, name: str) -> _Observed:
     lon, lat = _positions(line, x)
     depth = np.round(bottom_depth_profile(line, x, scenario), 0)
     bottom_p = gsw.p_from_z(-depth, lat)
-    last = np.floor(bottom_p / scenario.dp + 1e-9).astype(int)
+    last = last_level(bottom_p, scenario.dp)
     p = scenario.dp * np.arange(int(last.max()) + 1, dtype=float)
     sa, ct = true_water(line, x, p, scenario)
     sp = gsw.SP_from_SA(sa, p[None, :], lon[:, None], lat[:, None])

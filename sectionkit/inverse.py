@@ -30,7 +30,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from sectionkit.budget import PW, SV, UnknownLayout, class_transport_gradient
+from sectionkit.budget import PW, QUANTITY_SCALE, SV, Q, UnknownLayout, class_transport_gradient
 from sectionkit.config import BoxSpec, InverseSpec, KnownTransport
 from sectionkit.errors import ComputationError, ConfigError
 from sectionkit.geometry import haversine
@@ -91,10 +91,6 @@ class ConstraintSystem:
         return -self.initial
 
 
-def _box_sign(box: BoxSpec, section: str) -> float:
-    return 1.0 if section in box.enters else -1.0
-
-
 def box_class_means(
     box: BoxSpec, operators: dict[str, SectionOperator]
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -105,7 +101,7 @@ def box_class_means(
     sa_mean, sa_std, ct_mean, ct_std : ndarray (class,)
         g/kg and degC.
     """
-    sums = sum(operators[name].extra["class_moments"] for name in box.enters + box.leaves)
+    sums = sum(operators[name].extra["class_moments"] for name in box.sections)
     area = np.where(sums[0] > 0, sums[0], np.nan)
     sa_mean = sums[1] / area
     ct_mean = sums[3] / area
@@ -167,22 +163,22 @@ def assemble(
         known_by_box.setdefault(kt.box or boxes[0].name, []).append(kt)
 
     for box in boxes:
-        sections = box.enters + box.leaves
+        sections = box.sections
         per = {}
         for name in sections:
             op = operators[name]
             t = op.transports(offsets[name], 0.0, ekman[name], 1.0).sum(axis=-2)  # (q, class)
             per[name] = {
-                "mass": (t[1] / SV, class_transport_gradient(op, "mass", layout, ekman[name])),
-                "salt": (t[2] / SV, class_transport_gradient(op, "salt", layout, ekman[name])),
-                "heat": (t[3] / PW, class_transport_gradient(op, "heat", layout, ekman[name])),
+                kind: (t[Q[kind]] / QUANTITY_SCALE[kind],
+                       class_transport_gradient(op, kind, layout, ekman[name]))
+                for kind in ("mass", "salt", "heat")
             }
         sa_mean, sa_std, ct_mean, ct_std = box_class_means(box, operators)
         known = known_by_box.get(box.name, [])
 
         def net(kind: str, per=per, box=box, sections=sections):
-            value = sum(_box_sign(box, s) * per[s][kind][0] for s in sections)
-            grad = sum(_box_sign(box, s) * per[s][kind][1] for s in sections)
+            value = sum(box.sign(s) * per[s][kind][0] for s in sections)
+            grad = sum(box.sign(s) * per[s][kind][1] for s in sections)
             return np.asarray(value, float), np.asarray(grad, float)
 
         mass_v, mass_g = net("mass")
@@ -239,7 +235,7 @@ def assemble(
         for tracer in [c for c in spec.conserve if c not in ("mass", "salt", "heat")]:
             area = sum(operators[s].extra["class_moments"][0] for s in sections)
             t_e, t_v, t_n = box_tracer_rows(
-                tracer, {s: _box_sign(box, s) for s in sections}, tracers or {}, area, offsets,
+                tracer, {s: box.sign(s) for s in sections}, tracers or {}, area, offsets,
                 ekman, layout, mass_v, mass_g, dia, spec.noise_layer,
                 spec.noise_tracer.get(tracer),
             )
@@ -251,7 +247,7 @@ def assemble(
                 units.append(TRACER_UNIT)
     for net in spec.section_net:
         op = operators[net.section]
-        t = op.transports(offsets[net.section], 0.0, ekman[net.section], 1.0)[1].sum() / SV
+        t = op.transports(offsets[net.section], 0.0, ekman[net.section], 1.0)[Q["mass"]].sum() / SV
         rows.append((f"section:{net.section}", "net_mass"))
         e_rows.append(class_transport_gradient(op, "mass", layout, ekman[net.section])
                       .sum(axis=0))

@@ -42,7 +42,7 @@ import xarray as xr
 from sectionkit.config import Config
 from sectionkit.errors import SectionDataError
 from sectionkit.io.netcdf import STANDARD_NAMES
-from sectionkit.thermo import absolute_salinity, conservative_temperature
+from sectionkit.thermo import absolute_salinity, conservative_temperature, last_level
 
 __all__ = [
     "interpolation_weights",
@@ -430,7 +430,7 @@ def synthetic_section(
     bottom[np.argmax(bottom)] = p_max
     eddy = noise * rng.standard_normal(n_station) if noise else None
     ct, sa = _profiles(x, p, 0.0, eddy)
-    last = np.floor(bottom / dp + 1e-9) * dp
+    last = last_level(bottom, dp) * dp
     wet = p[None, :] <= last[:, None]
     lats = np.full(n_station, float(lat))
     return xr.Dataset(

@@ -93,3 +93,22 @@ def test_rank_is_the_setting_and_rank_underscore_what_the_fit_used():
     fitted = TruncatedSVD(r, n, rank=0).fit(e, y)
     assert fitted.rank == 0
     assert fitted.rank_ == int(np.sum(fitted.singular_values_ > 1.0))
+
+
+def test_deepest_level_above_the_floor_counts_whole_grid_steps():
+    # hand calculation: floors at 2000, 2009.99 and 2010 dbar on a 10 dbar grid
+    from sectionkit.thermo import last_level
+
+    np.testing.assert_array_equal(last_level(np.array([2000.0, 2009.99, 2010.0]), 10.0),
+                                  [200, 200, 201])
+    assert last_level(3 * 0.1, 0.1) == 3  # 0.30000000000000004 / 0.1 is 3 steps, not 2
+
+
+def test_box_side_sign_is_plus_for_a_section_entering_and_minus_for_one_leaving():
+    # DESIGN.md: positive transport of a section in ``enters`` enters the box
+    from sectionkit.config import BoxSpec
+
+    box = BoxSpec("interior", enters=["south"], leaves=["north"])
+    assert (box.sign("south"), box.sign("north")) == (1.0, -1.0)
+    with pytest.raises(ConfigError, match="does not bound box 'interior'"):
+        box.sign("east")
