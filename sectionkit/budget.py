@@ -207,6 +207,49 @@ def _signed_extremum(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return np.take_along_axis(values, k[..., None], axis=-1)[..., 0], k
 
 
+def level_end_pressure(pressure: np.ndarray) -> np.ndarray:
+    """Pressure where the depth streamfunction accumulated through each level ends, dbar.
+
+    A level's integration weight covers half the segment above it and half
+    the segment below (trapezoid), so the sum from the surface through level
+    k ends half-way to level k + 1; the last level's ends at the grid's end.
+
+    Parameters
+    ----------
+    pressure : ndarray (level,)
+        Grid, dbar.
+
+    Returns
+    -------
+    ndarray (level,)
+        dbar.
+    """
+    p = np.asarray(pressure, dtype=float)
+    return np.append(0.5 * (p[:-1] + p[1:]), p[-1])
+
+
+def overturning_fractions(op: SectionOperator) -> tuple[np.ndarray, np.ndarray]:
+    """Share of the section's area above each level end and lighter than each interface.
+
+    The overturning removes the section's net transport as a uniform velocity
+    over the whole section area (bottom triangles included); these fractions
+    say how much of that net each streamfunction value holds.
+
+    Returns
+    -------
+    depth : ndarray (..., level)
+        Area from the surface through each level over the total, dimensionless.
+    density : ndarray (..., interface)
+        Area of the classes lighter than each interface over the total.
+    """
+    level = op.extra["level_section_area"]
+    klass = op.extra["class_moments"][..., 0, :]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        depth = np.cumsum(level, axis=-1) / level.sum(axis=-1)[..., None]
+        density = np.cumsum(klass, axis=-1)[..., :-1] / klass.sum(axis=-1)[..., None]
+    return np.nan_to_num(depth), np.nan_to_num(density)
+
+
 def section_values(
     op: SectionOperator,
     offset: np.ndarray,
@@ -242,9 +285,12 @@ def section_values(
         (Sv g/kg), ``heat_transport`` (PW), each (..., class);
         ``pair_volume_transport`` (..., pair, class) Sv; ``net``, ``net_mass``,
         ``freshwater`` (Sv) and ``heat`` (PW); ``psi_depth`` (..., level) and
-        ``psi_density`` (..., interface) Sv, accumulated from the surface and
-        from the lightest class; ``overturning`` (their depth-space extreme,
-        Sv), ``overturning_pressure`` (dbar) and ``overturning_density`` (Sv).
+        ``psi_density`` (..., interface) Sv, accumulated from the surface
+        (down to :func:`level_end_pressure`) and from the lightest class, both
+        after removing the section's net transport as a uniform velocity over
+        the section's area; ``overturning`` (their depth-space extreme, Sv),
+        ``overturning_pressure`` (dbar, where that integral ends) and
+        ``overturning_density`` (Sv).
     """
     ek = np.asarray(ekman, dtype=float)
     if ek.ndim == 0:
@@ -273,11 +319,13 @@ def section_values(
         + np.einsum("...jk,...j->...k", op.level_area, ref)
         + np.einsum("...j,...jk->...k", ek, op.level_ekman)
     )
+    frac_z, frac_rho = overturning_fractions(op)
     psi_z = np.cumsum(level, axis=-1) / SV
+    psi_z = psi_z - psi_z[..., -1:] * frac_z  # net removed as a uniform velocity
     out["psi_depth"] = psi_z
     out["overturning"], kz = _signed_extremum(psi_z)
-    out["overturning_pressure"] = op.pressure[kz]
-    psi_rho = np.cumsum(volume, axis=-1)[..., :-1]
+    out["overturning_pressure"] = level_end_pressure(op.pressure)[kz]
+    psi_rho = np.cumsum(volume, axis=-1)[..., :-1] - volume.sum(axis=-1)[..., None] * frac_rho
     out["psi_density"] = psi_rho
     if psi_rho.shape[-1]:
         out["overturning_density"] = _signed_extremum(psi_rho)[0]
@@ -351,9 +399,12 @@ def section_outputs(
     add("freshwater", values["freshwater"],
         per_q["mass"].sum(axis=0) - per_q["salt"].sum(axis=0) / s_ref, "Sv")
 
+    # both streamfunctions with the net transport removed as a uniform velocity
+    frac_z, frac_rho = overturning_fractions(op)
     # overturning in density classes: cumulative from the light side at each interface
     psi_rho = values["psi_density"]
-    gpsi_rho = np.cumsum(per_q["volume"], axis=0)[:-1]
+    gvol = per_q["volume"]
+    gpsi_rho = np.cumsum(gvol, axis=0)[:-1] - np.outer(frac_rho, gvol.sum(axis=0))
     # overturning in depth: cumulative transport from the surface down
     glevel = np.zeros((op.pressure.size, layout.size))
     glevel[:, layout.pair_slices[op.name]] = op.level_area.T
@@ -361,6 +412,7 @@ def section_outputs(
         glevel[:, layout.ekman[op.name]] = ekman @ op.level_ekman
     psi_z = values["psi_depth"]
     gpsi_z = np.cumsum(glevel, axis=0) / SV
+    gpsi_z = gpsi_z - np.outer(frac_z, gpsi_z[-1])
     x_at = np.zeros(layout.size) if x_for_maximum is None else x_for_maximum
     kz = int(np.argmax(np.abs(psi_z + gpsi_z @ x_at)))
     add("overturning", psi_z[kz], gpsi_z[kz], "Sv")

@@ -22,6 +22,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from sectionkit.budget import level_end_pressure
 from sectionkit.outputs import SECTION_OUTPUTS, SIGN, OutputSpec, udunits
 from sectionkit.study import Results, Study
 
@@ -213,6 +214,42 @@ def _inverse_variables(study: Study, results: Results) -> tuple[dict, dict]:
     return coords, data
 
 
+def _tracer_variables(study: Study, results: Results) -> tuple[dict, dict]:
+    """Bottle-tracer class transports (section, tracer, class), kmol s-1; empty without."""
+    if not results.tracers:
+        return {}, {}
+    sections = list(study.operators)
+    classes = list(study.config.layer_names)
+    tracers = list(study.config.tracers)
+    shape = (len(sections), len(tracers), len(classes))
+    values = {tag: np.full(shape, np.nan) for tag in ("initial", "adjusted", "error")}
+    for s, name in enumerate(sections):
+        out = results.tracers.get(name)
+        if out is None:
+            continue
+        adjusted = out.value(results.estimate)
+        error = out.std(results.covariance)
+        for t, tracer in enumerate(tracers):
+            for c, layer in enumerate(classes):
+                key = f"{tracer}:{layer}"
+                if key in out.names:
+                    k = out.index(key)
+                    values["initial"][s, t, c] = out.initial[k]
+                    values["adjusted"][s, t, c] = adjusted[k]
+                    values["error"][s, t, c] = error[k]
+    text = {"initial": "with the chosen references", "adjusted": "after the inverse",
+            "error": "one posterior standard deviation"}
+    data = {
+        f"tracer_transport_{tag}": (("section", "tracer", "class"), v, {
+            "long_name": f"bottle-tracer transport by class, {text[tag]} (in-situ density "
+                         "times concentration times velocity)",
+            "units": "kmol s-1"})
+        for tag, v in values.items()
+    }
+    coords = {"tracer": ("tracer", tracers, {"long_name": "bottle tracer (plain name)"})}
+    return coords, data
+
+
 def results_dataset(study: Study, results: Results) -> xr.Dataset:
     """Every reported number of a study, named, with dimensions and CF units.
 
@@ -236,8 +273,10 @@ def results_dataset(study: Study, results: Results) -> xr.Dataset:
     data = _section_variables(study, results, levels)
     pair_coords, pair_data = _pair_variables(study, results)
     inv_coords, inv_data = _inverse_variables(study, results)
+    tracer_coords, tracer_data = _tracer_variables(study, results)
     data.update(pair_data)
     data.update(inv_data)
+    data.update(tracer_data)
     coords = {
         "section": ("section", list(study.operators), {"long_name": "hydrographic section"}),
         "class": ("class", list(cfg.layer_names),
@@ -253,8 +292,12 @@ def results_dataset(study: Study, results: Results) -> xr.Dataset:
         "level": ("level", levels, {"standard_name": "sea_water_pressure", "units": "dbar",
                                     "positive": "down", "axis": "Z",
                                     "long_name": "pressure of the common grid"}),
+        "level_end_pressure": ("level", level_end_pressure(levels),
+                               {"units": "dbar", "long_name": "pressure where the depth "
+                                "streamfunction accumulated through the level ends"}),
         **pair_coords,
         **inv_coords,
+        **tracer_coords,
     }
     ds = xr.Dataset(data, coords=coords)
     ds.attrs.update({

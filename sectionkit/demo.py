@@ -76,6 +76,7 @@ import numpy as np
 import xarray as xr
 from scipy.interpolate import PchipInterpolator
 
+from sectionkit.demo_exchange import add_exchange_line
 from sectionkit.errors import ComputationError
 from sectionkit.geostrophy import ReferenceChoice, resolve_references
 from sectionkit.inverse import interface_transfers, transfer_anomaly
@@ -1447,7 +1448,9 @@ def write_demo(
     Returns
     -------
     dict of str -> Path
-        ``"<line>"`` for each section file, ``"config"`` for ``demo.toml``,
+        ``"<line>"`` for each section file, ``"<line>_ctd"``, ``"<line>_bottle"``
+        and ``"<line>_adcp"`` for the exchange files of the outflow line (CTD zip,
+        bottle file, LADCP profiles), ``"config"`` for ``demo.toml``,
         and one key per truth table (``"truth_pairs"``, ``"truth_layers"``,
         ``"truth_box"``, ``"truth_diapycnal"``).
     """
@@ -1462,13 +1465,21 @@ def write_demo(
         names: dict[str, str] = {}
         files = {line.name: f"{line.name}_line.nc" for line in scenario.lines}
         sections = {}
+        observed = {}
         for line in scenario.lines:
-            obs = _observe(scenario, line.name)
+            obs = observed[line.name] = _observe(scenario, line.name)
             _write_netcdf(tmp / files[line.name], obs, scenario)
             sections[line.name] = _canonical(obs, scenario.dp, str(out / files[line.name]))
             names[line.name] = files[line.name]
         truth = demo_truth(scenario, sections=sections)
-        (tmp / "demo.toml").write_text(_toml_config(scenario, files), encoding="utf-8")
+        # the outflow line is also written as a cruise delivers it (exchange CTD zip,
+        # bottle tracers, LADCP), and demo.toml reads it from those files
+        exchange = scenario.lines[-1].name
+        config, written = add_exchange_line(tmp, exchange, observed[exchange], truth,
+                                            _toml_config(scenario, files), files[exchange],
+                                            scenario.seed)
+        names.update({f"{exchange}_{key}": fname for key, fname in written.items()})
+        (tmp / "demo.toml").write_text(config, encoding="utf-8")
         names["config"] = "demo.toml"
         for fname, (header, rows) in _truth_tables(truth).items():
             _write_csv(tmp / fname, header, rows)

@@ -38,6 +38,10 @@ LADCP_NOISE = (0.03, 0.01)
 ADCP_RANGE = (500.0, 2500.0)
 ADCP_ERROR = 0.02
 EXPOCODE = "QM07DEMO"
+#: Decimals of the demo's CTD temperature, salinity and position: enough to hold the
+#: float32 values of the NetCDF file, so both files give the same section (the truth is
+#: computed once, from the NetCDF values).
+CTD_DECIMALS = {"CTDTMP": 7, "CTDSAL": 7, "position": 8}
 
 
 def oxygen(p: np.ndarray, ct: np.ndarray) -> np.ndarray:
@@ -58,19 +62,24 @@ def _casts(name: str, station_numbers: list[str], lon, lat, depth, p, t, s):
         ok = np.isfinite(t[i])
         casts.append(dict(station=number, lat=float(lat[i]), lon=float(lon[i]),
                           depth=float(depth[i]), pressure=p[ok], temperature=t[i][ok],
-                          salinity=s[i][ok], expocode=EXPOCODE, sect_id=name.upper()))
-    # a bad temperature spike (flag 4) and a questionable stretch (flag 3), as on real casts
-    for i, kind in ((len(casts) // 3, 4), (2 * len(casts) // 3, 3)):
-        c = casts[i]
-        t_i = c["temperature"].copy()
-        flags = np.full(t_i.size, 2)
-        k = min(400, t_i.size // 2)
-        if kind == 4:
-            t_i[k] += 4.0
-            flags[k] = 4
-        else:
-            flags[k : k + 10] = 3
-        c.update(temperature=t_i, flags={"CTDTMP": flags})
+                          salinity=s[i][ok], expocode=EXPOCODE, sect_id=name.upper(),
+                          decimals=CTD_DECIMALS))
+    # a bad scan (temperature spike, flag 4) between two good ones, and a questionable
+    # stretch (flag 3), as on real casts; dropping the bad scan leaves the good samples as
+    # they were, so the truth of the NetCDF file holds for this file too
+    c = casts[len(casts) // 3]
+    k = min(400, c["pressure"].size // 2)
+    c["pressure"] = np.insert(c["pressure"], k + 1, 0.5 * (c["pressure"][k] + c["pressure"][k + 1]))
+    c["temperature"] = np.insert(c["temperature"], k + 1, c["temperature"][k] + 4.0)
+    c["salinity"] = np.insert(c["salinity"], k + 1, c["salinity"][k])
+    flags = np.full(c["pressure"].size, 2)
+    flags[k + 1] = 4
+    c["flags"] = {"CTDTMP": flags}
+    c = casts[2 * len(casts) // 3]
+    k = min(400, c["pressure"].size // 2)
+    flags = np.full(c["pressure"].size, 2)
+    flags[k : k + 10] = 3
+    c["flags"] = {"CTDTMP": flags}
     return casts
 
 
@@ -167,8 +176,8 @@ def write_exchange_line(
     n = len(observed["lon"])
     numbers = [str(k + 1) for k in range(n)]
     p = np.asarray(observed["pressure"], float)
-    t = np.round(np.asarray(observed["temperature"], float), 4)
-    s = np.round(np.asarray(observed["salinity"], float), 4)
+    t = np.asarray(observed["temperature"], float)
+    s = np.asarray(observed["salinity"], float)
     files = {"ctd": f"{name}_ct1.zip", "bottle": f"{name}_hy1.csv", "adcp": f"{name}_ladcp.csv"}
     write_ctd_zip(folder / files["ctd"], _casts(name, numbers, observed["lon"], observed["lat"],
                                                 observed["bottom_depth"], p, t, s))

@@ -31,6 +31,7 @@ from matplotlib.colors import TwoSlopeNorm
 from matplotlib.figure import Figure
 from matplotlib.ticker import FixedLocator, FuncFormatter, MaxNLocator, NullLocator
 
+from sectionkit.budget import level_end_pressure
 from sectionkit.geometry import along_line_distance, pair_along_line_distance
 from sectionkit.layers import sigma_label
 from sectionkit.operator import SectionOperator
@@ -860,20 +861,22 @@ def overturning_figure(study: Study, results: Results) -> Figure:
         c = palette[k]
         depth_names = [f"psi_depth:{j}" for j in range(op.pressure.size)]
         ini, adj, err = output_block(results, name, depth_names)
+        ends = level_end_pressure(op.pressure)  # where each accumulated integral ends
         if inverse:
-            plot_overturning_depth(ax_z, op.pressure, ini, label=f"{name} initial", color=c,
+            plot_overturning_depth(ax_z, ends, ini, label=f"{name} initial", color=c,
                                    linestyle=":")
-            plot_overturning_depth(ax_z, op.pressure, adj, err, label=f"{name} adjusted",
+            plot_overturning_depth(ax_z, ends, adj, err, label=f"{name} adjusted",
                                    color=c)
         else:
-            plot_overturning_depth(ax_z, op.pressure, ini, label=name, color=c)
+            plot_overturning_depth(ax_z, ends, ini, label=name, color=c)
         n_face = len(op.interfaces)
         if n_face and ax_r is not None:
-            # from nothing lighter (0) through each interface to all classes (net transport)
+            # from nothing lighter (0) through each interface to all classes (0: the net
+            # transport is removed)
             labels = ["top", *(sigma_label(f.sigma, f.p_ref) for f in op.interfaces), "all"]
             ini, adj, err = output_block(results, name, [f"psi_density:{n}"
-                                                         for n in range(n_face)] + ["net"])
-            ini, adj, err = (np.concatenate([[0.0], a]) for a in (ini, adj, err))
+                                                         for n in range(n_face)])
+            ini, adj, err = (np.concatenate([[0.0], a, [0.0]]) for a in (ini, adj, err))
             if inverse:
                 plot_overturning_density(ax_r, labels, ini, label=f"{name} initial", color=c,
                                          linestyle=":")
@@ -891,7 +894,8 @@ def overturning_figure(study: Study, results: Results) -> Figure:
         ax_r.grid(lw=0.4, alpha=0.5)
     bands = "shading and bars" if ax_r is not None else "shading"
     note = f"{bands}: ±1 posterior std" if inverse else "no inverse: initial references"
-    fig.suptitle(f"Overturning streamfunction ({note})", fontsize=11)
+    fig.suptitle(f"Overturning streamfunction, net transport removed as a uniform velocity "
+                 f"({note})", fontsize=10)
     return fig
 
 

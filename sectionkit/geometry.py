@@ -104,10 +104,15 @@ def pair_midpoints(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.nda
 
 
 EQUATOR_BAND = 2.0  # degrees: geostrophy is refused within this band (DESIGN.md §4)
+#: degrees: refused even with allow_equator = true; f = 2 Omega sin(lat) is then so small
+#: that geostrophic and Ekman velocities (1/f) are meaningless (common practice)
+EQUATOR_HARD_BAND = 0.5
 
 
-def equatorial_pairs(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Pairs whose mid-point lies within ``EQUATOR_BAND`` of the equator.
+def equatorial_pairs(
+    lon: np.ndarray, lat: np.ndarray, band: float = EQUATOR_BAND
+) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs whose mid-point lies within ``band`` of the equator.
 
     Parameters
     ----------
@@ -115,6 +120,8 @@ def equatorial_pairs(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.n
         Longitude, degrees_east.
     lat : ndarray (station,)
         Latitude, degrees_north.
+    band : float
+        Half-width of the band, degrees (``EQUATOR_BAND`` by default).
 
     Returns
     -------
@@ -124,7 +131,7 @@ def equatorial_pairs(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.n
         Mid-point latitude of every pair, degrees_north.
     """
     _, mid_lat = pair_midpoints(lon, lat)
-    return np.flatnonzero(np.abs(mid_lat) < EQUATOR_BAND), mid_lat
+    return np.flatnonzero(np.abs(mid_lat) < band), mid_lat
 
 
 def coriolis_parameter(lat: np.ndarray) -> np.ndarray:

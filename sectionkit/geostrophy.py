@@ -325,6 +325,34 @@ class ReferenceChoice:
         )
 
 
+def _check_measured_depth(
+    pressure: float, p_common: np.ndarray, p_deepest: np.ndarray | None, rule: str,
+    labels: list[str],
+) -> None:
+    """Refuse a known velocity the section cannot hold at the depth it was measured."""
+    lead = tuple(range(p_common.ndim - 1))
+    below = np.any(pressure > p_common, axis=lead)
+    for j in np.flatnonzero(below):
+        pc = float(np.min(p_common[..., j]))
+        if p_deepest is None or rule != "constant":
+            why = ("the bottom triangle's velocity is not the measured one under "
+                   f"bottom_triangle = {rule!r}" if p_deepest is not None
+                   else "the pair's bottom triangle is not known here")
+            raise ComputationError(
+                f"pair {labels[j]}: the known velocity at {pressure:g} dbar lies below the "
+                f"pair's deepest common level ({pc:g} dbar) and {why}; use "
+                "bottom_triangle = \"constant\", or give the velocity at or above "
+                f"{pc:g} dbar"
+            )
+        pd = float(np.min(p_deepest[..., j]))
+        if pressure > pd:
+            raise ComputationError(
+                f"pair {labels[j]}: the known velocity at {pressure:g} dbar lies below both "
+                f"stations (the deeper one reaches {pd:g} dbar, the deepest common level is "
+                f"{pc:g} dbar); give the pressure where it was measured in the water column"
+            )
+
+
 def resolve_references(
     choices: list[ReferenceChoice],
     v_eff: np.ndarray,
@@ -333,6 +361,9 @@ def resolve_references(
     sigma_at: dict[float, np.ndarray] | None = None,
     cautions: Cautions | None = None,
     pair_labels: list[str] | None = None,
+    *,
+    deepest: np.ndarray | None = None,
+    bottom_triangle: str = "constant",
 ) -> tuple[np.ndarray, np.ndarray]:
     """Reference pressure and velocity offset of every pair.
 
@@ -354,6 +385,15 @@ def resolve_references(
         reached).
     pair_labels : list of str, optional
         Names of the pairs for messages, e.g. ``"south:14"``.
+    deepest : ndarray (..., pair) of int, optional
+        Index of the deepest level either station reaches; without it a
+        known velocity below the deepest common level is refused.
+    bottom_triangle : {"constant", "zero", "shear"}
+        Velocity rule of the bottom triangles. A known velocity measured
+        below the deepest common level holds there under ``constant`` (the
+        triangle's velocity is the one the measurement fixes); under ``zero``
+        and ``shear`` the triangle's velocity is not the one measured, so
+        such a reference is refused.
 
     Returns
     -------
@@ -380,17 +420,26 @@ def resolve_references(
         pc = p_common[..., idx]
         if choice.kind == "bottom":
             pj = pc
-        elif choice.kind in ("pressure", "velocity"):
+        elif choice.kind == "pressure":
             if choice.pressure is None:
                 raise ComputationError(
                     f"pair {labels[idx[0]]}: a {choice.kind} reference needs a pressure"
                 )
+            # a level of no motion below the pair falls back to its deepest common level
             pj = np.minimum(choice.pressure, pc)
             if cautions is not None:
                 short = np.any(choice.pressure > pc, axis=tuple(range(pc.ndim - 1)))
                 too_deep.extend(int(j) for j in idx[short])
-            if choice.kind == "velocity":
-                u_ref[..., idx] = choice.velocity
+        elif choice.kind == "velocity":
+            if choice.pressure is None:
+                raise ComputationError(
+                    f"pair {labels[idx[0]]}: a {choice.kind} reference needs a pressure"
+                )
+            pd = None if deepest is None else p[np.clip(deepest[..., idx], 0, None)]
+            _check_measured_depth(choice.pressure, pc, pd, bottom_triangle,
+                                  [labels[j] for j in idx])
+            pj = np.broadcast_to(np.float64(choice.pressure), pc.shape)  # stays at its depth
+            u_ref[..., idx] = choice.velocity
         elif choice.kind == "isopycnal":
             if sigma_at is None or choice.sigma_p_ref not in sigma_at:
                 raise ComputationError(

@@ -31,13 +31,18 @@ from dataclasses import dataclass
 import numpy as np
 
 from sectionkit.budget import PW, QUANTITY_SCALE, SV, Q, UnknownLayout, class_transport_gradient
-from sectionkit.config import BoxSpec, InverseSpec, KnownTransport
+from sectionkit.config import CONSTRAINT_KINDS, BoxSpec, InverseSpec, KnownTransport
 from sectionkit.errors import ComputationError, ConfigError
 from sectionkit.geometry import haversine
 from sectionkit.operator import CP0, RHO0, SectionOperator
 from sectionkit.solvers import make_solver
+from sectionkit.tracers import (
+    KMOL_PER_SV_UMOL,
+    TRACER_NOISE_FLOOR,
+    TracerOperator,
+    box_tracer_parts,
+)
 from sectionkit.tracers import UNIT as TRACER_UNIT
-from sectionkit.tracers import TracerOperator, box_tracer_rows
 
 SALT_NOISE_FLOOR = 0.005  # g/kg: smallest salinity spread used to scale salt-anomaly noise
 TEMPERATURE_NOISE_FLOOR = 0.05  # degC, the same for heat
@@ -232,18 +237,24 @@ def assemble(
                 noise.append(spec.noise_heat[i] if spec.noise_heat and spec.noise_heat[i] > 0
                              else spec.noise_layer[i] * spread * h)
                 units.append("PW")
-        for tracer in [c for c in spec.conserve if c not in ("mass", "salt", "heat")]:
+        for tracer in [c for c in spec.conserve if c not in CONSTRAINT_KINDS]:
+            # like salt: anomaly from the box-class mean concentration, k converts
+            # Sv x umol/kg of mass transport to kmol/s (sectionkit.tracers)
             area = sum(operators[s].extra["class_moments"][0] for s in sections)
-            t_e, t_v, t_n = box_tracer_rows(
+            t_v, t_g, c_mean, c_std = box_tracer_parts(
                 tracer, {s: box.sign(s) for s in sections}, tracers or {}, area, offsets,
-                ekman, layout, mass_v, mass_g, dia, spec.noise_layer,
-                spec.noise_tracer.get(tracer),
+                ekman, layout,
             )
+            k = KMOL_PER_SV_UMOL
+            dia_c = transfer_anomaly(dia, c_mean) * k
+            contrast = _neighbour_contrast(c_mean)
+            stated = spec.noise_tracer.get(tracer)
             for i, layer in enumerate(layer_names):
                 rows.append((box.name, f"{tracer}:{layer}"))
-                e_rows.append(t_e[i])
-                initial.append(float(t_v[i]))
-                noise.append(float(t_n[i]))
+                e_rows.append(t_g[i] - k * c_mean[i] * mass_g[i] + dia_c[i])
+                initial.append(float(t_v[i] - k * c_mean[i] * mass_v[i]))
+                spread = max(c_std[i], contrast[i], TRACER_NOISE_FLOOR)
+                noise.append(stated[i] if stated else spec.noise_layer[i] * spread * k)
                 units.append(TRACER_UNIT)
     for net in spec.section_net:
         op = operators[net.section]

@@ -22,8 +22,8 @@ import gsw
 import numpy as np
 import xarray as xr
 
-from sectionkit.errors import SectionDataError
-from sectionkit.geometry import pair_geometry
+from sectionkit.errors import EquatorError, SectionDataError
+from sectionkit.geometry import EQUATOR_HARD_BAND, pair_geometry
 from sectionkit.geostrophy import (
     extend_into_bottom_triangle,
     last_valid_level,
@@ -121,7 +121,9 @@ class SectionOperator:
         (a :class:`PairDensities`: each reference pressure is computed when
         first asked for).
     class_salinity, class_temperature : ndarray (..., class)
-        Area-weighted mean SA (g/kg) and CT (degC) of each class.
+        Area-weighted mean salinity of the salt budgets (Preformed Salinity S*
+        or SA, ``extra["salinity"]``; g/kg) and CT (degC) of each class;
+        ``mean_salinity`` is the section's area mean of the same salinity.
     """
 
     name: str
@@ -315,6 +317,13 @@ def build_operator(
     geometry = pair_geometry(section)
     distance = geometry["distance"].values
     f = geometry["f"].values
+    on_equator = np.flatnonzero(np.abs(geometry["lat"].values) < EQUATOR_HARD_BAND)
+    if on_equator.size:  # a backstop for sections that were not validated (1/f below)
+        raise EquatorError(
+            f"section {name}: pair(s) {', '.join(f'{name}:{k}' for k in on_equator)} lie "
+            f"within {EQUATOR_HARD_BAND:g} degrees of the equator, where geostrophy and Ekman "
+            "transport divide by f ~ 0; drop one station of each such pair"
+        )
     if np.any(distance <= 0):
         j = int(np.argmin(distance))
         raise SectionDataError(
@@ -324,6 +333,16 @@ def build_operator(
 
     last = last_valid_level(sa + ct)
     common, deepest = pair_level_limits(last)
+    bottom = section["bottom_pressure"].values.astype(float)
+    # water where a bathymetry track lies below both stations: the deeper station's
+    # properties continue down to it and the triangle rule gives its velocity
+    below = _track_below_stations(p, bottom, bathymetry)
+    data_deepest = deepest
+    if below:
+        deepest = np.array(deepest, copy=True)
+        for j, p_track in below.items():
+            deepest[..., j] = np.maximum(deepest[..., j],
+                                         np.searchsorted(p, p_track, side="right") - 1)
     if relative_velocity_of_pairs is None:
         # one pass of the equation of state: dynamic height integrated from the specific
         # volume anomaly, in-situ density as the reciprocal of the same specific volume
@@ -349,16 +368,34 @@ def build_operator(
     for face in interfaces:
         by_p_ref.setdefault(face.p_ref, []).append(face.sigma)
     deciding = deciding_densities(sa, ct, by_p_ref or {0.0: []})
+    for j in below:  # the deeper station's water continues down to the track
+        k0 = int(np.max(data_deepest[..., j]))
+        k1 = int(np.max(deepest[..., j]))
+        if k1 <= k0:
+            continue
+        deeper = slice(k0 + 1, k1 + 1)
+        for pair_field in (sa_pair, ct_pair, salt_pair, *deciding.values()):
+            pair_field[..., j, deeper] = pair_field[..., j, k0 : k0 + 1]
+        rho_pair[..., j, deeper] = gsw.rho(sa_pair[..., j, k0 : k0 + 1],
+                                           ct_pair[..., j, k0 : k0 + 1], p[deeper])
     # one array per interface (no stacked copy of the large fields)
     sigma_if = [deciding[face.p_ref] for face in interfaces] or [deciding[0.0]]
     sigma_pair = PairDensities(sa, ct)
     # without interfaces one class holds everything: compare with an unreachable density
     values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([1e9])
 
-    bottom = section["bottom_pressure"].values.astype(float)
     thickness = cell_thickness(p, geometry["lat"].values)
     width = bottom_width_fraction(p, bottom[:-1], bottom[1:], bathymetry)
     tail = _tail_thickness(p, deepest, bottom, geometry["lat"].values)
+    if below:
+        tail = np.array(tail, copy=True)
+        lat_pair = geometry["lat"].values
+        for j, p_track in below.items():
+            p_last = p[int(np.max(deepest[..., j]))]
+            samples = np.asarray(bathymetry[j], dtype=float)
+            frac = float(np.mean(samples > 0.5 * (p_last + p_track)))
+            dz = float(gsw.z_from_p(p_last, lat_pair[j]) - gsw.z_from_p(p_track, lat_pair[j]))
+            tail[..., j] = dz * frac
     weights = class_weights(sigma_if, values, thickness, width, tail)
     if not interfaces:
         weights = weights[..., :1, :]
@@ -398,6 +435,7 @@ def build_operator(
     column = weights.sum(axis=-2)  # (..., pair, level)
     level_relative = (length * column * v0).sum(axis=-2)
     level_area = length * column * r0
+    level_section_area = (length * column).sum(axis=-2)  # (..., level) m^2, all water
 
     ekman_share, level_ekman = _ekman_share(
         sigma_if, values, p, geometry["lat"].values, ekman_depth, props
@@ -435,7 +473,9 @@ def build_operator(
         extra={"sa_pair": sa_pair, "salt_pair": salt_pair, "salinity": salinity,
                "ct_pair": ct_pair, "rho_pair": rho_pair,
                "class_moments": class_moments, "station_sa": sa, "station_ct": ct,
-               "v_rel": v_rel, "section": section},
+               "v_rel": v_rel, "section": section, "level_section_area": level_section_area,
+               "track_below_stations": {j: (p_track, float(max(bottom[j], bottom[j + 1])))
+                                        for j, p_track in below.items()}},
     )
 
 
@@ -470,6 +510,37 @@ def budget_salinity(
                                f"{', '.join(SALINITY_NAMES)}")
     return gsw.Sstar_from_SA(sa, p, np.asarray(lon, float)[..., None],
                              np.asarray(lat, float)[..., None])
+
+
+def _track_below_stations(
+    p: np.ndarray, bottom: np.ndarray, bathymetry: list | None
+) -> dict[int, float]:
+    """Pairs whose bathymetry track lies deeper than both stations, with its deepest pressure.
+
+    Parameters
+    ----------
+    p : ndarray (level,)
+        Grid, dbar.
+    bottom : ndarray (station,)
+        Sea-floor pressure of each station, dbar.
+    bathymetry : list or None
+        Per pair, sampled sea-floor pressures along the pair (dbar), or None.
+
+    Returns
+    -------
+    dict of int -> float
+        Pair index -> deepest track pressure, dbar.
+    """
+    out: dict[int, float] = {}
+    if bathymetry is None:
+        return out
+    for j, samples in enumerate(bathymetry):
+        if samples is None:
+            continue
+        deepest_track = float(np.max(samples))
+        if deepest_track > max(bottom[j], bottom[j + 1]) + 1e-6:
+            out[j] = deepest_track
+    return out
 
 
 def _tail_thickness(

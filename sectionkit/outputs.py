@@ -118,14 +118,18 @@ SECTION_OUTPUTS: tuple[OutputSpec, ...] = (
                "freshwater transport relative to the reference salinity", "freshwater"),
     OutputSpec("overturning_depth", ("section",), "Sv",
                "depth-space overturning: signed extreme of the volume transport accumulated "
-               "from the surface", "overturning"),
+               "from the surface, the net transport removed as a uniform velocity",
+               "overturning"),
     OutputSpec("overturning_density", ("section",), "Sv",
                "density-space overturning: signed extreme of the volume transport accumulated "
-               "from the lightest class", "overturning_density"),
+               "from the lightest class, the net transport removed as a uniform velocity",
+               "overturning_density"),
     OutputSpec("streamfunction_density", ("section", "interface"), "Sv",
-               "volume transport of the classes lighter than each interface", "psi_density:{n}"),
+               "volume transport of the classes lighter than each interface, the net "
+               "transport removed as a uniform velocity", "psi_density:{n}"),
     OutputSpec("streamfunction_depth", ("section", "level"), "Sv",
-               "volume transport accumulated from the surface down to each level",
+               "volume transport accumulated from the surface through each level (down to "
+               "level_end_pressure), the net transport removed as a uniform velocity",
                "psi_depth:{k}"),
 )
 

@@ -458,9 +458,9 @@ def _direct_phrase(study: Study, tex: bool) -> str:
         return ""
     span = (f"{_num(adcp.pressure_range[0])}–{_num(adcp.pressure_range[1])} dbar"
             if not tex else f"{_num(adcp.pressure_range[0])}--{_num(adcp.pressure_range[1])} dbar")
-    role = ("prior means (standard deviation the stated error "
-            f"{_num(adcp.error)} {_unit('m/s', tex)} and the standard error of the average)"
-            if adcp.use == "prior" else "known reference velocities")
+    role = ("the prior means of their reference velocities (standard deviation the stated "
+            f"error {_num(adcp.error)} {_unit('m/s', tex)} combined with the standard error of "
+            "the average)" if adcp.use == "prior" else "their known reference velocities")
     return (f"; direct velocity profiles (LADCP/ADCP), rotated into the section normal and "
             f"averaged over {span}, give {pairs} pairs {role}")
 
@@ -656,7 +656,10 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
 
     def caption(tex: bool) -> str:
         body = ("Net inflow into each box (positive in), initial and adjusted, with the "
-                "constraint's a priori noise; the normalized residual is adjusted / noise. "
+                "constraint's a priori noise; the normalized residual is adjusted / noise, and "
+                "the last column judges the adjusted inflow against the residual std the "
+                "estimate can achieve (the square root of the diagonal of N - E P E-transpose, "
+                "Wunsch 1996). "
                 "Values are rounded to the precision of the noise. Salt rows are salt-anomaly "
                 f"transports of {SALINITY_NAMES[study.config.salt_salinity]} relative to each "
                 "class's mean; a diapycnal transfer carries the mean of its two classes.")
@@ -670,9 +673,11 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
         Column("Adjusted", "Adjusted"),
         Column("Noise", "Noise"),
         Column("Normalized residual", "Normalized residual"),
+        Column("Adjusted / posterior std", "Adjusted / posterior std"),
     ]
     rows = []
     for r in df.itertuples(index=False):
+        posterior = getattr(r, "posterior_normalized_residual", float("nan"))
         unit = _ROW_UNITS.get(str(getattr(r, "unit", "Sv")), "Sv")
         decimals = error_decimals(r.noise)
         if decimals is None:
@@ -685,6 +690,8 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
             Cell(value=format_fixed(r.adjusted, decimals)),
             Cell(value=format_fixed(r.noise, decimals)),
             Cell(value=format_fixed(r.normalized_residual, FIXED_DECIMALS["1"])),
+            Cell(value=format_fixed(posterior, FIXED_DECIMALS["1"])
+                 if np.isfinite(posterior) else "–"),
         ])
     return PaperTable("box_budget", title, caption(True), caption(False), cols, rows,
                       empty_note="No inverse: there are no box constraints.")
@@ -705,7 +712,9 @@ def _summary_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTab
                    else f"{_num(study.config.reference_salinity)} g kg⁻¹ of "
                    + SALINITY_NAMES[study.config.salt_salinity])
                 + "; overturning is the extreme of the streamfunction accumulated from the "
-                "surface in depth and from the lightest class in density. Section frame: "
+                "surface in depth and from the lightest class in density, both after removing "
+                "the section's net transport as a uniform velocity over the section's area. "
+                "Section frame: "
                 "positive to the left of increasing station order.")
         if flagged:
             body += (f" For {', '.join(esc(s) for s in flagged)} the net mass transport exceeds "

@@ -156,7 +156,8 @@ class Study:
             choices = [self.config.reference_for(label) for label in op.pair_labels]
             p_used, offset = resolve_references(
                 choices, op.v_eff, op.pressure, op.common, op.sigma_for(choices),
-                cautions, op.pair_labels,
+                cautions, op.pair_labels, deepest=op.deepest,
+                bottom_triangle=op.bottom_triangle,
             )
             kinds = [c.kind for c in choices]
             direct = self.direct.get(name)
@@ -238,6 +239,29 @@ class Study:
                     "temperature-transport",
                     f"section {name}: net mass transport is {net_mass:+.2f} Sv, so heat_pw is a "
                     "temperature transport relative to 0 degC, not a heat transport",
+                )
+        for name, op in self.operators.items():
+            below = op.extra.get("track_below_stations", {})
+            if below:
+                listed = ", ".join(f"{name}:{j} (track {pt:.0f} dbar, deeper station "
+                                   f"{pb:.0f} dbar)" for j, (pt, pb) in below.items())
+                cautions.add(
+                    "bathymetry-below-stations",
+                    f"the bathymetry track lies below both stations of pair(s) {listed}; that "
+                    "water is included with the deeper station's properties and the bottom "
+                    "triangle's velocity rule",
+                )
+        for name in outputs:
+            net, err = results.value(name, "net"), results.error(name, "net")
+            limit = err if np.isfinite(err) else NET_MASS_HEAT_TOLERANCE
+            if abs(net) > limit:
+                cautions.add(
+                    "overturning-net",
+                    f"section {name}: net transport {net:+.2f} Sv exceeds "
+                    + (f"its error ({err:.2f} Sv)" if np.isfinite(err)
+                       else f"{NET_MASS_HEAT_TOLERANCE} Sv (no inverse, no error)")
+                    + "; the overturning is computed after removing it as a uniform velocity "
+                    "over the section, which may not be where the net flow is",
                 )
         if self.direct and cfg.adcp.use == "prior" and (cfg.inverse is None or not inverse):
             cautions.add(

@@ -121,8 +121,8 @@ def build_tracer_operator(
             stations = [str(s) for s in section["station"].values[bad.any(axis=1)]]
             raise SectionDataError(
                 f"section {op.name}, variable {name}: stations {', '.join(stations)} have no "
-                f"{name} profile (fewer than two good bottles); drop them with the section's "
-                f"stations key or drop {name} from [tracers] transport"
+                f"{name} profile (no bottles, or fewer than two good ones); drop them with "
+                f"the section's stations key or drop {name} from [tracers] transport"
             )
         fields.append(c)
     c_pair = np.stack([_masked(pair_mean(c)) for c in fields])  # (tracer, pair, level)
@@ -195,7 +195,7 @@ def tracer_outputs(
                          [UNIT] * len(names))
 
 
-def box_tracer_rows(
+def box_tracer_parts(
     tracer: str,
     sections: dict[str, float],
     tracer_ops: dict[str, TracerOperator],
@@ -203,13 +203,11 @@ def box_tracer_rows(
     offsets: dict[str, np.ndarray],
     ekman: dict[str, np.ndarray],
     layout: UnknownLayout,
-    mass_value: np.ndarray,
-    mass_gradient: np.ndarray,
-    transfers: np.ndarray,
-    noise_layer: list[float],
-    noise: list[float] | None = None,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Anomaly conservation rows of one tracer in one box (kmol s^-1).
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Net tracer inflow of one box by class, and the box-class mean concentrations.
+
+    The inverse builds the tracer's anomaly rows from these exactly as it
+    builds the salt rows (:mod:`sectionkit.inverse`).
 
     Parameters
     ----------
@@ -225,27 +223,16 @@ def box_tracer_rows(
         Reference offsets (m s^-1) and Ekman volume transports (m^3 s^-1).
     layout : UnknownLayout
         Unknown layout.
-    mass_value : ndarray (class,)
-        Net mass inflow of each class before adjustment, Sv.
-    mass_gradient : ndarray (class, unknown)
-        Its derivative.
-    transfers : ndarray (class, unknown)
-        +-1 entries of the diapycnal transfers (leaving the lighter class,
-        entering the denser one).
-    noise_layer : list of float
-        Mass noise per class, Sv (scales the default tracer noise).
-    noise : list of float, optional
-        Stated tracer noise per class, kmol s^-1.
 
     Returns
     -------
-    matrix : ndarray (class, unknown)
-    initial : ndarray (class,)
-        kmol s^-1.
-    noise : ndarray (class,)
-        kmol s^-1: the stated one, or ``noise_layer`` times k times the larger
-        of the class's concentration spread and half the contrast with its
-        neighbours (at least TRACER_NOISE_FLOOR), as for salt.
+    value : ndarray (class,)
+        Net inflow before adjustment, kmol s^-1.
+    gradient : ndarray (class, unknown)
+        Its derivative, kmol s^-1 per unknown.
+    mean, spread : ndarray (class,)
+        Area-weighted mean and standard deviation of the concentration over
+        the box's sections, umol/kg.
     """
     value = 0.0
     grad = 0.0
@@ -264,20 +251,4 @@ def box_tracer_rows(
     safe = np.where(area > 0, area, np.nan)
     mean = np.nan_to_num(sums[0] / safe, nan=float(np.nanmean(sums[0] / safe)))
     spread = np.sqrt(np.maximum(np.nan_to_num(sums[1] / safe) - mean**2, 0.0))
-    k = KMOL_PER_SV_UMOL
-    carried = np.zeros_like(transfers)
-    n_class = mean.size
-    for n in range(n_class - 1):
-        joint = 0.5 * (mean[n] + mean[n + 1])
-        carried[n] += transfers[n] * (joint - mean[n])
-        carried[n + 1] += transfers[n + 1] * (joint - mean[n + 1])
-    matrix = np.asarray(grad) - k * mean[:, None] * mass_gradient + k * carried
-    initial = np.asarray(value) - k * mean * mass_value
-    if noise:
-        sigma = np.asarray(noise, dtype=float)
-    else:
-        diff = np.abs(np.diff(mean))
-        contrast = 0.5 * np.maximum(np.concatenate([[0.0], diff]), np.concatenate([diff, [0.0]]))
-        sigma = (np.asarray(noise_layer) * k
-                 * np.maximum(np.maximum(spread, contrast), TRACER_NOISE_FLOOR))
-    return matrix, initial, sigma
+    return np.asarray(value), np.asarray(grad), mean, spread

@@ -99,15 +99,18 @@ OUTPUTS: tuple[OutputSpec, ...] = (
     OutputSpec("freshwater", (), "Sv", "freshwater transport relative to the reference salinity"),
     OutputSpec("overturning", (), "Sv",
                "depth-space overturning: signed extremum of the cumulative transport from the "
-               "surface"),
-    OutputSpec("overturning_pressure", (), "dbar", "pressure of the depth-space overturning"),
+               "surface, net transport removed as a uniform velocity"),
+    OutputSpec("overturning_pressure", (), "dbar",
+               "pressure where the integral of the depth-space overturning ends"),
     OutputSpec("overturning_density", (), "Sv",
                "density-space overturning: signed extremum of the cumulative class transport "
-               "from the light side"),
+               "from the light side, net transport removed as a uniform velocity"),
     OutputSpec("psi_depth", ("pressure",), "Sv",
-               "cumulative volume transport from the surface down to each level"),
+               "cumulative volume transport from the surface through each level (ending half "
+               "way to the next level), net transport removed as a uniform velocity"),
     OutputSpec("psi_density", ("interface",), "Sv",
-               "cumulative volume transport of the classes lighter than each interface"),
+               "cumulative volume transport of the classes lighter than each interface, net "
+               "transport removed as a uniform velocity"),
     OutputSpec("reference_pressure", ("pair",), "dbar", "reference pressure actually used"),
 )
 
@@ -256,7 +259,8 @@ def budget_kernel(
                         bathymetry=bathymetry, max_dp=max_dp, salinity=salinity)
     choices = _pair_choices(reference, overrides, op.n_pair)
     p_used, offset = resolve_references(choices, op.v_eff, op.pressure, op.common,
-                                        op.sigma_for(choices))
+                                        op.sigma_for(choices), deepest=op.deepest,
+                                        bottom_triangle=op.bottom_triangle)
     ek = op.ekman_volume(stress[..., 0], stress[..., 1])
     out = section_values(op, offset, adjustment, ek, reference_salinity)
     out["reference_pressure"] = p_used

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pytest
 from _synthetic import thermocline_section
 
 from sectionkit.config import parse_config
@@ -55,3 +56,46 @@ def test_deeper_track_between_stations_adds_area_below_the_shallower_station(tmp
     assert first_track > first_plain
     # other pairs follow the same straight bottom (sampled track vs analytic)
     np.testing.assert_allclose(op_track.weights[2:].sum(), op_plain.weights[2:].sum(), rtol=1e-3)
+
+
+def test_water_below_both_stations_is_included_with_a_caution(tmp_path):
+    # a box-shaped trench 600 m below two stations of equal depth (3000 dbar) over the middle
+    # half of the pair: the pair's cross-section is its width times the mean depth along the
+    # track (hand calculation: station depth + 300 m); a uniform reference velocity b then
+    # carries b times that area (gsw.distance, gsw.z_from_p)
+    import gsw
+    from _synthetic import canonical_section
+
+    from sectionkit.budget import section_values
+
+    lat, dp = 30.0, 10.0
+    bottoms = np.array([3000.0, 3000.0, 4000.0, 4000.0])
+    p = np.arange(0.0, 4000.0 + dp / 2, dp)
+    lon = np.array([-40.0, -39.5, -39.0, -38.5])
+    sa = np.where(p[None, :] <= bottoms[:, None], 35.0, np.nan)
+    ct = np.where(p[None, :] <= bottoms[:, None], 4.0, np.nan)
+    section = canonical_section(sa, ct, p, lon, np.full(4, lat), bottoms, name="line")
+    dist = np.concatenate([[0.0], np.cumsum(gsw.distance(lon, np.full(4, lat)))]) / 1e3
+    depth = -gsw.z_from_p(bottoms, lat)
+    fine = np.linspace(0.0, dist[-1], 8001)
+    track_depth = np.interp(fine, dist, depth)
+    trench = (fine > dist[0] + 0.25 * dist[1]) & (fine < dist[0] + 0.75 * dist[1])
+    track_depth[trench] += 600.0
+    pd.DataFrame({"distance_km": fine, "depth_m": track_depth}).to_csv(tmp_path / "t.csv",
+                                                                       index=False)
+    config = parse_config({"sections": [{"name": "line", "file": "x.nc",
+                                         "bathymetry": "t.csv"}],
+                           "reference": {"pressure": 1000.0}}, base_dir=tmp_path)
+    study = Study.from_config(config, sections={"line": section})
+    results = study.solve()
+    op = study.operators["line"]
+    b = 0.05
+    pair0 = section_values(op, np.full(op.n_pair, b))["pair_volume_transport"][0].sum()
+    expected = b * dist[1] * 1e3 * (depth[0] + 300.0) / 1e6
+    # the engine samples the track at 64 points per pair: the trench edges are known to
+    # 1/64 of the width, i.e. 600 m / 64 of mean depth
+    assert pair0 == pytest.approx(expected, rel=600.0 / 64 / depth[0])
+    # dropping the trench would lose 300 m of 3000
+    assert pair0 > 1.05 * b * dist[1] * 1e3 * depth[0] / 1e6
+    (caution,) = results.cautions.of_kind("bathymetry-below-stations")
+    assert "line:0" in str(caution)

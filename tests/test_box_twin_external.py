@@ -208,9 +208,10 @@ def test_engine_box_rows_match_the_rows_written_out_here(twin):
     system = twin["results"].inverse.system
     # the difference is the engine's trapezoid of nodal products against the midpoint
     # rule of the linear interpolants here, and its fractional cells against sub-samples
+    # (measured: 2e-3 Sv or Sv g/kg in the data, 2e-3 of a row's largest coefficient)
     np.testing.assert_allclose(system.initial, twin["initial"], atol=5e-3)
     scale = np.abs(twin["e"]).max(axis=1, keepdims=True)
-    np.testing.assert_allclose(system.matrix / scale, twin["e"] / scale, atol=2e-2)
+    np.testing.assert_allclose(system.matrix / scale, twin["e"] / scale, atol=5e-3)
 
 
 def test_engine_estimate_matches_the_written_out_gauss_markov_solution(twin):

@@ -17,7 +17,8 @@ PAIR_COLUMNS = ["section", "pair", "lon", "lat", "distance_km", "ref_kind", "ref
                 "adjustment_m_s", "adjustment_err_m_s"]
 SUMMARY_COLUMNS = ["section", "net_sv", "net_err_sv", "heat_pw", "heat_err_pw", "freshwater_sv",
                    "freshwater_err_sv", "overturning_sv", "overturning_err_sv"]
-BOX_COLUMNS = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual"]
+BOX_COLUMNS = ["box", "constraint", "initial", "adjusted", "noise", "normalized_residual",
+               "posterior_residual_std", "posterior_normalized_residual"]
 
 
 def _write_study(tmp_path: Path, inverse: bool, old_names: bool = False) -> Path:

@@ -132,3 +132,38 @@ def test_velocity_in_cm_per_second_labelled_as_metres_is_refused(tmp_path):
     _ladcp_csv(tmp_path / "ladcp.csv", 0.0, 12.0)
     with pytest.raises(SectionDataError, match="exceeds any ocean current"):
         read_velocity_profiles(tmp_path / "ladcp.csv")
+
+
+def test_workbench_slider_with_direct_velocity_priors_equals_a_batch_run(tmp_path):
+    # the prior mean of each adjustment is (direct velocity - offset): it moves with the
+    # reference, and the workbench's linear update must follow it exactly
+    from sectionkit.workbench.model import WorkbenchState
+
+    try:
+        from tests._sections import invented_section, write_netcdf
+    except ImportError:
+        from _sections import invented_section, write_netcdf
+    sec = invented_section(6)
+    write_netcdf(tmp_path / "line.nc", sec)
+    _ladcp_csv(tmp_path / "ladcp.csv", 0.01, 0.03, stations=sec["station"])
+    data = {
+        "title": "direct",
+        "sections": [{"name": "line", "file": "line.nc", "adcp": "ladcp.csv"}],
+        "reference": {"pressure": 1000.0},
+        "classes": {"interfaces": [{"sigma": 26.5, "p_ref": 0.0}]},
+        "adcp": {"pressure_range": [200.0, 800.0], "use": "prior", "error": 0.01},
+        "inverse": {"conserve": ["mass"], "noise_class": [0.5, 0.5], "noise_total": 0.2},
+    }
+    parse_config(data, base_dir=tmp_path).save(tmp_path / "box.toml")
+    state = WorkbenchState.open(tmp_path / "box.toml", autosave=tmp_path / "auto.toml")
+    for p in (400.0, 900.0):
+        assert state.set_reference_pressure(p).linear
+        quick = state.class_table().to_frame()
+        data["reference"] = {"pressure": p}
+        study = Study.from_config(parse_config(data, base_dir=tmp_path))
+        results = study.solve()
+        assert results.inverse.system.prior_mean is not None
+        for c, layer in enumerate(study.operators["line"].layer_names):
+            np.testing.assert_allclose(quick["adjusted_sv"].iloc[c],
+                                       results.value("line", f"volume:{layer}"),
+                                       rtol=1e-9, atol=1e-9)

@@ -15,7 +15,7 @@ from _synthetic import thermocline_section
 from sectionkit.config import parse_config
 from sectionkit.errors import ConfigError
 from sectionkit.study import Study
-from sectionkit.tables import box_table
+from sectionkit.tables import box_table, unknowns_table
 
 FACES = [{"sigma": 26.8, "p_ref": 0.0}, {"sigma": 36.9, "p_ref": 2000.0}]
 NAMES = ["upper", "intermediate", "deep"]
@@ -134,3 +134,23 @@ def test_pairs_of_different_sections_stay_uncorrelated():
 def test_negative_prior_correlation_length_is_refused():
     with pytest.raises(ConfigError, match="prior_correlation_km = -5 must not be negative"):
         _config(prior_correlation_km=-5.0)
+
+
+def test_inverse_unknowns_table_keeps_its_contract_columns_kinds_and_names():
+    # output contract of issue 10 / DESIGN.md §7: add columns, never rename
+    config = parse_config({
+        "sections": [{"name": "south", "file": "s.nc"},
+                     {"name": "north", "file": "n.nc", "into_box": False}],
+        "reference": {"pressure": 2000.0},
+        "ekman": {"stress": {"south": [-0.05, 0.0]}},
+        "layers": {"interfaces": FACES, "names": NAMES},
+        "inverse": {"noise_layer": [0.5, 0.5, 0.5]},
+    })
+    study = Study.from_config(config, sections=_sections())
+    table = unknowns_table(study, study.solve())
+    assert list(table.columns[:7]) == ["unknown", "kind", "unit", "prior_std", "estimate",
+                                       "posterior_std", "resolution"]
+    kinds = dict(zip(table["unknown"], table["kind"], strict=True))
+    assert kinds["south:0"] == kinds["north:4"] == "reference_velocity"
+    assert kinds["box:W0"] == kinds["box:W1"] == "diapycnal_transfer"
+    assert kinds["south:ekman"] == "ekman_fraction"

@@ -9,11 +9,17 @@ import gsw
 import numpy as np
 import pytest
 
-from sectionkit.errors import InputFileError, SectionDataError
+from sectionkit.errors import Cautions, InputFileError, SectionDataError
 from sectionkit.io import check_main, load_section
 from sectionkit.io.bottle import read_bottle, tracer_name
 from sectionkit.io.exchange import parse_exchange
-from sectionkit.io.exchange_write import ctd_text, write_bottle, write_ctd_folder, write_ctd_zip
+from sectionkit.io.exchange_write import (
+    bottle_text,
+    ctd_text,
+    write_bottle,
+    write_ctd_folder,
+    write_ctd_zip,
+)
 
 try:
     from tests._exchange import bottle_rows, casts, rounded_section
@@ -63,6 +69,14 @@ def test_hand_written_ctd_file_gives_headers_units_values_and_flags():
     np.testing.assert_array_equal(table.lines, [15, 16, 17])
 
 
+def test_trailing_commas_on_every_line_are_accepted():
+    text = "\n".join(line + "," if line and line[0] in "CD2460" and "," in line else line
+                     for line in HAND_WRITTEN.splitlines())
+    table = parse_exchange(text, "commas.csv")
+    assert table.columns[-1] == "CTDOXY_FLAG_W"
+    np.testing.assert_array_equal(table.numbers["CTDPRS"], [2.0, 4.0, 6.0])
+
+
 def test_zip_of_ctd_files_is_read_in_stnnbr_order_whatever_the_member_order(sec, tmp_path):
     z = write_ctd_zip(tmp_path / "cruise.zip", casts(sec)[::-1])
     ds, _ = load_section(z, name="line")
@@ -84,6 +98,16 @@ def test_folder_is_recognised_by_content_not_by_file_name(sec, tmp_path):
     (folder / "notes.txt").write_text("cruise notes, not data\n")
     ds, _ = load_section(folder)
     assert ds.sizes["station"] == 5
+
+
+def test_of_several_casts_at_a_station_the_deepest_is_used_with_a_caution(sec, tmp_path):
+    cs = casts(sec)
+    shallow = dict(cs[1], cast="2", pressure=cs[1]["pressure"][:50],
+                   temperature=cs[1]["temperature"][:50], salinity=cs[1]["salinity"][:50])
+    ds, cautions = load_section(write_ctd_zip(tmp_path / "cruise.zip", cs + [shallow]))
+    assert ds.sizes["station"] == 5
+    assert np.isfinite(ds["CT"].sel(station="2").values).sum() > 50
+    assert "cast 2" in cautions.of_kind("extra-casts")[0].message
 
 
 def test_station_list_selects_and_orders_stations(sec, tmp_path):
@@ -156,6 +180,8 @@ def test_check_reports_bottle_flags_and_tracer_profiles(sec, tmp_path):
     assert f"OXYGEN: flag 2: {n - 1}, flag 3: 1" in text
     assert f"SILCAT: flag 2: {n - 1}, flag 4: 1" in text
     assert "oxygen (OXYGEN): profiles at 5 of 5 stations" in text
+    assert "station 1: OXYGEN flag 2: 5, flag 3: 1; SILCAT flag 2: 5, flag 4: 1" in text
+    assert "4 of 5 stations have every bottle flagged 2" in text
 
 
 def test_its68_temperature_is_converted_to_its90(sec, tmp_path):
@@ -261,6 +287,24 @@ def test_bad_bottles_and_fill_values_never_reach_the_grid(sec, tmp_path):
     assert any(c.variable == "SILCAT" for c in cautions.of_kind("flagged-dropped"))
     counts = read_bottle(path).stations["1"].flag_counts["SILCAT"]
     assert counts == {2: sum(1 for s in rows["STNNBR"] if s == "1") - 2, 4: 1, 9: 1}
+
+
+def test_a_bottle_that_did_not_trip_gives_no_samples(sec, tmp_path):
+    rows = bottle_rows(sec)
+    rows["OXYGEN"][2] = 999.0  # the bottle closed somewhere else
+    text = bottle_text(rows).splitlines()
+    # add the bottle's own flag column: 4 (did not trip correctly) on the third sample
+    text[2] += ",BTLNBR_FLAG_W"
+    text[3] += ","
+    for k in range(4, len(text) - 1):
+        text[k] += ",4" if k == 6 else ",2"
+    path = tmp_path / "btl.csv"
+    path.write_text("\n".join(text) + "\n")
+    cautions = Cautions()
+    bottles = read_bottle(path, cautions)
+    p, c = bottles.stations["1"].samples["oxygen"]
+    assert 999.0 not in c and rows["CTDPRS"][2] not in p
+    assert cautions.of_kind("bottle-mistrip")
 
 
 def test_pchip_does_not_overshoot_a_step_between_bottles(sec, tmp_path):

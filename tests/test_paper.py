@@ -258,6 +258,9 @@ def test_markdown_rows_match_the_csv_tables(solved, tmp_path):
         (b, c.replace(":", ", ").replace("_", " ")) for b, c in zip(df.box, df.constraint,
                                                                    strict=True)]
     assert [float(r[6]) for r in box] == pytest.approx(list(df.normalized_residual), abs=0.006)
+    # adjusted over the posterior residual std (Wunsch 1996, ch. 3), as in box_budget.csv
+    assert [float(r[7]) for r in box] == pytest.approx(list(df.posterior_normalized_residual),
+                                                      abs=0.006)
 
     df = frames["section_summary.csv"]
     assert [r[0] for r in summary] == list(df.section)

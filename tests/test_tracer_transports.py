@@ -6,11 +6,12 @@ import gsw
 import numpy as np
 import pandas as pd
 import pytest
+import xarray as xr
 from _synthetic import canonical_section, thermocline_section
 
 from sectionkit.cli import main
 from sectionkit.config import load_config, parse_config
-from sectionkit.errors import SectionDataError
+from sectionkit.errors import ConfigError, SectionDataError
 from sectionkit.io.exchange_write import write_bottle, write_ctd_zip
 from sectionkit.study import Study
 
@@ -134,6 +135,24 @@ def test_conserved_uniform_tracer_has_an_empty_anomaly_row():
     assert np.abs(system.initial[rows]).max() < 1e-9 * 40.0 * np.abs(system.initial[mass]).max()
 
 
+def test_tracer_linear_in_salinity_has_the_salt_anomaly_row_scaled():
+    # c = a + b SA: the tracer anomaly inflow T_c - k c_i M_i equals k b times the salt
+    # anomaly inflow S - SA_i M_i (linearity, hand algebra), transfers included
+    ds = thermocline_section(n=6, dp=10.0)
+    a, b = 10.0, 3.0
+    ds = _with_tracer(ds, "silicate", a + b * ds["SA"].values)
+    cfg = _config(inverse={"conserve": ["mass", "salt", "silicate"], "salinity": "absolute",
+                           "noise_layer": [1.0, 1.0, 1.0]}, tracers=["silicate"])
+    system = Study.from_config(cfg, sections={"south": ds}).solve().inverse.system
+    salt = [i for i, r in enumerate(system.rows) if r[1].startswith("salt:")]
+    tracer = [i for i, r in enumerate(system.rows) if r[1].startswith("silicate:")]
+    k = KMOL_PER_SV_UMOL
+    np.testing.assert_allclose(system.matrix[tracer], k * b * system.matrix[salt],
+                               rtol=1e-9, atol=1e-9 * np.abs(system.matrix[tracer]).max())
+    np.testing.assert_allclose(system.initial[tracer], k * b * system.initial[salt],
+                               rtol=1e-9, atol=1e-9 * np.abs(system.initial[tracer]).max())
+
+
 def _write_cruise(tmp_path, sec):
     cs = casts(sec)
     c = cs[1]
@@ -204,5 +223,37 @@ noise = 0.05
     assert (tracer_rows["unit"] == "kmol s-1").all()
     assert (tracer_rows["adjusted_err"] > 0).all()
     assert "Tracer transports by density class" in (tmp_path / "out" / "tables.md").read_text()
+    with xr.open_dataset(tmp_path / "out" / "results.nc") as nc:
+        got = nc["tracer_transport_adjusted"].sel(section="line", tracer="oxygen").values
+        assert nc["tracer_transport_adjusted"].attrs["units"] == "kmol s-1"
+    csv = tracer_rows[tracer_rows["property"] == "oxygen"]["adjusted"].to_numpy()
+    np.testing.assert_allclose(got, csv, rtol=1e-6)
     provenance = (tmp_path / "out" / "provenance.json").read_text()
     assert "cruise_hy1.csv" in provenance and "flagged 4 (bad) were dropped" in provenance
+    # a rerun from the provenance reproduces the property transports byte for byte
+    assert main(["budget", str(tmp_path / "out" / "provenance.json"), "--out",
+                 str(tmp_path / "again"), "--no-figures", "--quiet"]) == 0
+    assert ((tmp_path / "again" / "property_transports.csv").read_bytes()
+            == (tmp_path / "out" / "property_transports.csv").read_bytes())
+
+
+@pytest.mark.parametrize(
+    "change, words",
+    [
+        ({"tracers": {"transport": ["argon"]}}, "tracer 'argon' is not known"),
+        ({"sections": [{"name": "south", "file": "x.nc"}]}, "no [[sections]] has a bottle"),
+        ({"inverse": {"conserve": ["mass", "nitrate"]}},
+         "tracer 'nitrate' must also be listed in [tracers] transport"),
+        ({"inverse": {"noise_tracer": {"oxygen": [1.0]}}}, "give one noise per class"),
+    ],
+)
+def test_tracer_configuration_mistakes_are_named(change, words):
+    data = {
+        "sections": [{"name": "south", "file": "x.nc", "bottle": "b.csv"}],
+        "classes": {"interfaces": list(FACES)},
+        "tracers": {"transport": ["oxygen"]},
+    }
+    data.update(change)
+    with pytest.raises(ConfigError) as info:
+        parse_config(data)
+    assert words in str(info.value)

@@ -10,6 +10,8 @@ Programme operations manual, flag tables; recalled from memory): 2
 acceptable and 6 mean of replicates are used; 3 questionable, 7 manual
 chromatographic peak and 8 irregular digital peak are used with a caution;
 1 drawn but no result, 4 bad, 5 not reported and 9 not drawn are dropped.
+A bottle whose own flag (BTLNBR_FLAG_W) is 4, did not trip correctly, gives
+no samples at all.
 
 **Gridding rule (stated).** At each station a tracer is interpolated in
 pressure between its good bottles with the monotone piecewise cubic Hermite
@@ -65,6 +67,9 @@ BOTTLE_FLAG_MEANING = {
     8: "irregular peak",
     9: "not drawn",
 }
+#: BTLNBR_FLAG_W values of a bottle whose samples are all left out (4: did not trip
+#: correctly; WOCE bottle flags, recalled from memory).
+MISTRIPPED = frozenset({4})
 #: Constant extensions above the shallowest / below the deepest bottle longer than
 #: this are cautions, dbar.
 EXTENSION_NOTE = 100.0
@@ -148,6 +153,17 @@ class BottleData:
         for column, per_flag in total.items():
             text = ", ".join(f"flag {f}: {n}" for f, n in sorted(per_flag.items()) if f >= 0)
             lines.append(f"    {column}: {text}")
+        clean = 0
+        for st in self.stations.values():
+            flagged = {c: f for c, f in st.flag_counts.items() if set(f) - {2}}
+            if not flagged:
+                clean += 1
+                continue
+            text = "; ".join(
+                f"{c} " + ", ".join(f"flag {f}: {n}" for f, n in sorted(per.items()) if f >= 0)
+                for c, per in flagged.items())
+            lines.append(f"    station {st.station}: {text}")
+        lines.append(f"    {clean} of {len(self.stations)} stations have every bottle flagged 2")
         return lines
 
 
@@ -210,6 +226,19 @@ def read_bottle(path: str | os.PathLike, cautions: Cautions | None = None) -> Bo
     for plain, column in columns.items():
         values[plain], _ = apply_flags(table, column, BOTTLE_USED, BOTTLE_CAUTION,
                                        BOTTLE_DROPPED, "bottle")
+    # the bottle's own flag: one that did not close correctly spoils every sample from it
+    bottle_flag = table.numbers.get("BTLNBR_FLAG_W")
+    if bottle_flag is not None:
+        mistrip = np.isin(bottle_flag, list(MISTRIPPED))
+        for plain in values:
+            values[plain][mistrip] = np.nan
+        if mistrip.any():
+            where = ", ".join(f"station {stations[r]} line {table.lines[r]}"
+                              for r in np.flatnonzero(mistrip)[:5])
+            cautions.add("bottle-mistrip",
+                         f"file {table.file}: {int(mistrip.sum())} bottle(s) flagged 4 in "
+                         f"BTLNBR_FLAG_W (did not trip correctly) were left out ({where})",
+                         file=table.file)
     out: dict[str, BottleStation] = {}
     for sid in dict.fromkeys(stations.tolist()):
         rows = stations == sid

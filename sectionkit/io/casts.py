@@ -7,6 +7,8 @@ import re
 from collections.abc import Mapping, Sequence
 from typing import Any
 
+import numpy as np
+
 from sectionkit.errors import Cautions, InputFileError, SectionDataError
 from sectionkit.io.csvfile import read_csv
 from sectionkit.io.exchange import file_kind, read_exchange_ctd, station_sort_key
@@ -113,7 +115,43 @@ def read_profiles(
     if exchange == len(files):
         # exchange casts: station order by STNNBR (then CASTNO), not by file name
         profiles.sort(key=lambda p: (station_sort_key(str(p.station)), p.cast))
+        profiles = deepest_casts(profiles, cautions)
     return profiles
+
+
+def deepest_casts(profiles: list[Profile], cautions: Cautions) -> list[Profile]:
+    """One cast per station: where a station has several (CASTNO), the deepest, with a caution.
+
+    Parameters
+    ----------
+    profiles : list of Profile
+        Exchange casts in station order.
+    cautions : Cautions
+        Records the casts left out.
+
+    Returns
+    -------
+    list of Profile
+        The deepest cast of every station, in the same order.
+    """
+    by_station: dict[str, list[Profile]] = {}
+    for p in profiles:
+        by_station.setdefault(str(p.station), []).append(p)
+    out = []
+    for station, casts in by_station.items():
+        if len(casts) == 1:
+            out.append(casts[0])
+            continue
+        deepest = max(casts, key=lambda c: float(np.nanmax(c.pressure, initial=-np.inf)))
+        others = ", ".join(f"cast {c.cast} ({c.file})" for c in casts if c is not deepest)
+        cautions.add(
+            "extra-casts",
+            f"station {station}: {len(casts)} casts; the deepest (cast {deepest.cast}, "
+            f"{np.nanmax(deepest.pressure):g} dbar) is used and {others} left out",
+            file=deepest.file, station=station,
+        )
+        out.append(deepest)
+    return out
 
 
 def _numeric_id(station: str) -> str:

@@ -249,10 +249,10 @@ def parse_exchange(text: str, file: str) -> ExchangeTable:
         raise fail(k + 1, "the file ends before its column-name and units lines")
     columns = [c.strip().upper() for c in lines[k].split(",")]
     units_line = [u.strip() for u in lines[k + 1].split(",")]
+    if len(columns) > 1 and columns[-1] == "":  # a trailing comma
+        columns = columns[:-1]
     if units_line and units_line[-1] == "" and len(units_line) == len(columns) + 1:
         units_line = units_line[:-1]
-    if columns and columns[-1] == "":
-        columns = columns[:-1]
     if len(units_line) != len(columns):
         raise fail(k + 2, f"the units line has {len(units_line)} fields but the column line "
                           f"above has {len(columns)}; give one unit (possibly empty) per column")
@@ -286,13 +286,22 @@ def parse_exchange(text: str, file: str) -> ExchangeTable:
         if column in TEXT_COLUMNS:
             table.text[column] = np.array(values, dtype=str)
             continue
-        out = np.empty(len(values))
-        for r, value in enumerate(values):
-            try:
-                out[r] = float(value) if value else np.nan
-            except ValueError:
-                raise fail(numbers_at[r], f"column {column}: {value!r} is not a number; "
-                                          "missing values are -999") from None
+        try:
+            out = np.array([v or "nan" for v in values], dtype=float)
+        except ValueError:
+            for r, value in enumerate(values):  # find the cell to name it
+                try:
+                    float(value or "nan")
+                except ValueError:
+                    raise fail(numbers_at[r], f"column {column}: {value!r} is not a number; "
+                                              "missing values are -999") from None
+            raise
+        bad = ~np.isfinite(out) & np.array([v.lower() not in ("", "nan") for v in values],
+                                            dtype=bool)
+        if bad.any():
+            r = int(np.flatnonzero(bad)[0])
+            raise fail(numbers_at[r], f"column {column}: {values[r]!r} is not a finite number; "
+                                      "missing values are -999")
         out[out <= FILL] = np.nan
         table.numbers[column] = out
     return table
@@ -427,6 +436,14 @@ def ctd_profile(table: ExchangeTable, cautions: Cautions) -> Profile:
         data[column], counts[column] = apply_flags(
             table, column, CTD_USED, CTD_CAUTION, CTD_DROPPED, "CTD"
         )
+    # a scan with a dropped (or not sampled) value is left out whole: it is not an
+    # incomplete sample but a flagged one, and the gap it leaves is gridded as any gap
+    flagged = np.zeros(table.lines.size, dtype=bool)
+    for column in ("CTDPRS", "CTDTMP", "CTDSAL"):
+        codes = flag_codes(table, column)
+        if codes is not None:
+            flagged |= np.isin(codes, list(CTD_DROPPED))
+    data = {c: v[~flagged] for c, v in data.items()}
     temperature = data["CTDTMP"]
     if t_units in _ITS68:
         temperature = temperature / 1.00024  # T90 = T68 / 1.00024 (Saunders 1990; as gsw)

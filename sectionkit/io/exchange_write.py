@@ -60,6 +60,7 @@ def ctd_text(
     sect_id: str = "DEMO",
     stamp: str = "20260101SKDEMO",
     units: Mapping[str, str] | None = None,
+    decimals: Mapping[str, int] | None = None,
 ) -> str:
     """The text of one CTD exchange file (one cast).
 
@@ -80,17 +81,21 @@ def ctd_text(
         Header texts.
     units : mapping, optional
         Units labels replacing the defaults.
+    decimals : mapping, optional
+        Column to decimals written, replacing :data:`DECIMALS`; the key
+        ``"position"`` sets those of LATITUDE and LONGITUDE (default 4).
 
     Returns
     -------
     str
     """
     units = {**UNITS, **(units or {})}
+    places = {**DECIMALS, **(decimals or {})}
     flags = dict(flags or {})
     data = {"CTDPRS": np.asarray(pressure, float), "CTDTMP": np.asarray(temperature, float),
             "CTDSAL": np.asarray(salinity, float)}
     columns = ["CTDPRS", "CTDTMP", "CTDTMP_FLAG_W", "CTDSAL", "CTDSAL_FLAG_W"]
-    cells = {c: _format(v, DECIMALS[c]) for c, v in data.items()}
+    cells = {c: _format(v, places[c]) for c, v in data.items()}
     for c in ("CTDTMP", "CTDSAL"):
         f = flags.get(c)
         if f is None:
@@ -106,8 +111,8 @@ def ctd_text(
         f"CASTNO = {cast}",
         "DATE = 20260101",
         "TIME = 0000",
-        f"LATITUDE = {lat:.4f}",
-        f"LONGITUDE = {lon:.4f}",
+        f"LATITUDE = {lat:.{places.get('position', 4)}f}",
+        f"LONGITUDE = {lon:.{places.get('position', 4)}f}",
         f"DEPTH = {depth:.0f}" if depth is not None and np.isfinite(depth) else "DEPTH = -999",
         ",".join(columns),
         ",".join(units.get(c.replace("_FLAG_W", ""), "") if not c.endswith("_FLAG_W") else ""

@@ -33,6 +33,7 @@ import numpy as np
 from sectionkit.errors import Cautions, EquatorError, SectionDataError
 from sectionkit.geometry import (
     EQUATOR_BAND,
+    EQUATOR_HARD_BAND,
     along_line_direction,
     equatorial_pairs,
     great_circle_distance,
@@ -413,11 +414,23 @@ def check_pair_latitudes(
     near, lat_m = equatorial_pairs(lon, lat)
     if near.size == 0:
         return
-    names = [
-        f"{name}:{k} (stations {stations[k]}-{stations[k + 1]}, mid-point "
-        f"{abs(lat_m[k]):.2f} {'S' if lat_m[k] < 0 else 'N'})"
-        for k in near
-    ]
+
+    def described(pairs):
+        return [
+            f"{name}:{k} (stations {stations[k]}-{stations[k + 1]}, mid-point "
+            f"{abs(lat_m[k]):.2f} {'S' if lat_m[k] < 0 else 'N'})"
+            for k in pairs
+        ]
+
+    names = described(near)
+    on_equator, _ = equatorial_pairs(lon, lat, EQUATOR_HARD_BAND)
+    if allow_equator and on_equator.size:
+        raise EquatorError(
+            f"pairs {', '.join(described(on_equator))} lie within {EQUATOR_HARD_BAND:g} "
+            "degrees of the equator, where f is too small for geostrophy (v = dPsi / (f L)) "
+            "or Ekman transport (tau / (rho f)) even with allow_equator = true; drop one "
+            "station of each such pair"
+        )
     text = (
         f"pairs {', '.join(names)} lie within {EQUATOR_BAND:g} degrees of the equator, where "
         "geostrophy (v = dPsi / (f L)) is not defined"
