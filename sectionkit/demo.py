@@ -73,18 +73,22 @@ from pathlib import Path
 import gsw
 import netCDF4
 import numpy as np
+import tomllib
 import xarray as xr
 from scipy.interpolate import PchipInterpolator
 
+from sectionkit.budget import SV
+from sectionkit.config import BoxSpec, SectionNet, parse_config
 from sectionkit.demo_exchange import add_exchange_line
 from sectionkit.errors import ComputationError
-from sectionkit.geostrophy import ReferenceChoice, resolve_references
+from sectionkit.geometry import pair_along_line_distance
 from sectionkit.inverse import interface_transfers, transfer_anomaly
 from sectionkit.layers import Interface
 from sectionkit.operator import QUANTITIES, SectionOperator, build_operator
+from sectionkit.state import BudgetState
+from sectionkit.study import Study
 from sectionkit.thermo import last_level
 
-SV = 1.0e6  # m^3 s^-1 per Sverdrup (common practice)
 _Q = {q: n for n, q in enumerate(QUANTITIES)}
 
 #: Reference water-mass profile: (zeta dbar, Conservative Temperature degC,
@@ -830,6 +834,8 @@ class DemoTruth:
         Known (strait) inflow per class, Sv.
     strait_salinity : float
         Absolute Salinity carried by the strait in the truth, g kg^-1.
+    box : BoxSpec, optional
+        The box of ``demo.toml`` (which line enters, which leaves).
     """
 
     scenario: DemoScenario
@@ -843,6 +849,13 @@ class DemoTruth:
     diapycnal: np.ndarray
     known: np.ndarray
     strait_salinity: float
+    box: BoxSpec | None = None
+
+    def sign(self, name: str) -> float:
+        """+1 for a line whose positive transport enters the box, -1 for one leaving it."""
+        if self.box is not None:
+            return self.box.sign(name)
+        return 1.0 if self.scenario.line(name).into_box else -1.0
 
     def class_transports(self, name: str, quantity: str = "mass", *, true: bool = True):
         """Class transports of one line, summed over pairs.
@@ -877,8 +890,7 @@ class DemoTruth:
         """Net inflow of each class through the lines (Ekman included), operator units."""
         total = 0.0
         for line in self.scenario.lines:
-            sign = 1.0 if line.into_box else -1.0
-            total = total + sign * self.class_transports(line.name, quantity)
+            total = total + self.sign(line.name) * self.class_transports(line.name, quantity)
         return np.asarray(total)
 
     def mass_residual(self) -> np.ndarray:
@@ -971,15 +983,9 @@ def build_demo_operators(
     }
 
 
-def _pair_distance_km(op: SectionOperator) -> np.ndarray:
-    return np.concatenate([[0.0], np.cumsum(op.pairs["distance"].values[:-1])]) / 1e3 + 0.5 * (
-        op.pairs["distance"].values / 1e3
-    )
-
-
 def _prior(scenario: DemoScenario, line: LineSpec, op: SectionOperator):
     """Prior mean (m s^-1) and covariance (m^2 s^-2) of a line's reference velocities."""
-    x = _pair_distance_km(op) + station_distances(line)[0]
+    x = pair_along_line_distance(op.pairs["distance"].values) / 1e3 + station_distances(line)[0]
     mean = -line.dwbc_speed * np.exp(-(((x - line.dwbc_offset) / line.dwbc_width) ** 2))
     std = scenario.prior_speed_interior + (
         scenario.prior_speed_boundary - scenario.prior_speed_interior
@@ -1017,24 +1023,35 @@ def demo_truth(
     scenario.check()
     if sections is None:
         sections = {line.name: generate_section(line.name, scenario) for line in scenario.lines}
-    ops = build_demo_operators(scenario, sections)
-    n_class = len(scenario.layer_names)
-    choice = ReferenceChoice("pressure", scenario.reference_pressure)
+    # the truth is conditioned on the same constraint rows the inverse of demo.toml
+    # assembles (one budget state), with the transfers at their true values and exact
+    # class mass budgets: demo.toml's configuration, mass only, every transfer an unknown
+    config = parse_config(tomllib.loads(_toml_config(
+        scenario, {line.name: f"{line.name}_line.nc" for line in scenario.lines})))
+    config.inverse.conserve = ["mass"]
+    config.inverse.prior_diapycnal = 1.0
+    inflow = scenario.lines[0]
+    config.inverse.section_net = ([] if scenario.inflow_net is None
+                                  else [SectionNet(inflow.name, scenario.inflow_net, 1.0)])
+    study = Study.from_config(config, sections=sections)
+    state = BudgetState.prepare(study)
+    ops = study.operators
+    system, layout = state.system, state.layout
+    rows = np.array([c != "mass:total" for _, c in system.rows])
+    pairs = np.concatenate([np.arange(layout.pair_slices[line.name].start,
+                                      layout.pair_slices[line.name].stop)
+                            for line in scenario.lines])
+    box = config.effective_boxes()[0]
+    transfers = [layout.diapycnal[(box.name, n)] for n in range(len(scenario.diapycnal))]
+    a = system.matrix[np.ix_(rows, pairs)]  # Sv per m s^-1
+    y = -(system.initial[rows]
+          + system.matrix[np.ix_(rows, transfers)] @ np.asarray(scenario.diapycnal, float))
 
-    ref_p, offset, ekman, means, covs, fixed, areas = {}, {}, {}, [], [], {}, {}
+    means, covs = [], []
     for line in scenario.lines:
-        op = ops[line.name]
-        p_used, off = resolve_references(
-            [choice] * op.n_pair, op.v_eff, op.pressure, op.common, op.sigma_pair
-        )
-        ref_p[line.name], offset[line.name] = p_used, off
-        ekman[line.name] = op.ekman_volume(*line.wind_stress)
-        mean, cov = _prior(scenario, line, op)
+        mean, cov = _prior(scenario, line, ops[line.name])
         means.append(mean)
         covs.append(cov)
-        fixed[line.name] = op.transports(off, 0.0, ekman=ekman[line.name]).sum(axis=-2)
-        areas[line.name] = op.area  # (quantity, pair, class)
-
     sizes = [ops[line.name].n_pair for line in scenario.lines]
     n = sum(sizes)
     mean = np.concatenate(means)
@@ -1045,46 +1062,29 @@ def demo_truth(
         start += size
     chol = np.linalg.cholesky(cov + 1e-12 * np.eye(n) * np.trace(cov) / n)
     b_draw = mean + chol @ _rng(scenario, 4).standard_normal(n)
+    gain = cov @ a.T
+    b_all = b_draw + gain @ np.linalg.solve(a @ gain, y - a @ b_draw)
 
-    # constraints A b = y, in m^3 s^-1 (mass flux / RHO0)
-    inflow, outflow = scenario.lines
-    rows, rhs = [], []
-    box = np.zeros((n_class, n))
-    box[:, : sizes[0]] = areas[inflow.name][_Q["mass"]].T
-    box[:, sizes[0] :] = -areas[outflow.name][_Q["mass"]].T
-    w = np.concatenate([[0.0], np.asarray(scenario.diapycnal, float), [0.0]])
-    budget = (scenario.known_by_class + w[:-1] - w[1:]) * SV
-    rows.append(box)
-    rhs.append(-budget - (fixed[inflow.name][_Q["mass"]] - fixed[outflow.name][_Q["mass"]]))
-    if scenario.inflow_net is not None:
-        net = np.zeros((1, n))
-        net[0, : sizes[0]] = areas[inflow.name][_Q["mass"]].sum(axis=-1)
-        rows.append(net)
-        rhs.append(np.array([scenario.inflow_net * SV - fixed[inflow.name][_Q["mass"]].sum()]))
     upper = scenario.layer_names.index(scenario.strait_layer)
     strait_sa = float(
         np.mean([ops[line.name].class_salinity[upper] for line in scenario.lines])
     )
-    a = np.vstack(rows)
-    y = np.concatenate(rhs)
-    gain = cov @ a.T
-    b_all = b_draw + gain @ np.linalg.solve(a @ gain, y - a @ b_draw)
-
     split = np.cumsum(sizes)[:-1]
     b_true = dict(zip([line.name for line in scenario.lines], np.split(b_all, split), strict=True))
     draws = dict(zip([line.name for line in scenario.lines], np.split(b_draw, split), strict=True))
     truth = DemoTruth(
         scenario=scenario,
         sections=sections,
-        operators=ops,
-        ref_pressure=ref_p,
-        offset=offset,
+        operators=dict(ops),
+        ref_pressure={name: ref.pressure for name, ref in state.references.items()},
+        offset=state.offsets,
         b_draw=draws,
         b_true=b_true,
-        ekman=ekman,
+        ekman=dict(state.ekman),
         diapycnal=np.asarray(scenario.diapycnal, dtype=float),
         known=scenario.known_by_class,
         strait_salinity=strait_sa,
+        box=box,
     )
     scale = np.abs(a).sum(axis=1) * np.abs(b_all).max() + np.abs(y)
     if np.any(np.abs(a @ b_all - y) > 1e-9 * np.maximum(scale, 1.0)):
@@ -1342,7 +1342,7 @@ def _truth_tables(truth: DemoTruth) -> dict[str, tuple[list[str], list[list[str]
     w = np.concatenate([[0.0], truth.diapycnal, [0.0]])
     inflow = truth.box_inflow("mass") / SV
     ekman_in = sum(
-        (1.0 if line.into_box else -1.0) * truth.ekman_by_class(line.name, "mass") / SV
+        truth.sign(line.name) * truth.ekman_by_class(line.name, "mass") / SV
         for line in sc.lines
     )
     residual = truth.mass_residual()
