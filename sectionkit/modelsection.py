@@ -26,8 +26,7 @@ Conversion rules (stated, since they shape the numbers):
   (``sea_floor_depth_below_sea_surface`` when given, else the deepest wet
   level), as for casts in DESIGN.md §3.
 
-Also here: invented test oceans (:func:`synthetic_section`,
-:func:`synthetic_model_output`) used by the tests and the benchmarks.
+Invented model lines for tests and benchmarks live in ``tests/_synthetic.py``.
 """
 
 from __future__ import annotations
