@@ -1,5 +1,7 @@
 """Command line: ``sectionkit check | budget | demo | lab | ensemble``.
 
+Every command and option is described in docs/cli.md.
+
 Errors of sectionkit's own kind are printed as one readable message without a
 traceback, with exit status 1 (2 for usage errors, from argparse).
 """
@@ -42,7 +44,8 @@ def run_budget(config_path: Path, out_dir: Path, *, figures: bool = True,
     written = write_outputs(study, results, out_dir, extras)
     print(f"{config.title}: wrote {len(written)} files to {out_dir}")
     for name in study.operators:
-        line = (f"  {name}: net {results.value(name, 'net'):+.2f} Sv, "
+        line = (f"  {name}: net volume {results.value(name, 'net'):+.2f} Sv, "
+                f"net mass/rho0 {results.value(name, 'net_mass'):+.2f} Sv, "
                 f"heat {results.value(name, 'heat'):+.3f} PW, "
                 f"overturning {results.value(name, 'overturning'):+.2f} Sv")
         if results.inverse is not None:
@@ -197,7 +200,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("budget", help="compute the budgets of a TOML configuration",
                        description="Compute class transports, the box inverse (when [inverse] is "
-                       "configured) and write the tables, figures and provenance to --out.")
+                       "configured) and write the tables, results.nc, figures and provenance "
+                       "to --out (docs/outputs.md describes every file).")
     p.add_argument("config", help="configuration file (.toml), or the provenance.json of an "
                    "earlier run to reproduce it (its input files must be unchanged)")
     p.add_argument("--out", required=True, help="output folder")

@@ -5,6 +5,11 @@ configuration, so the configuration holds every choice: grid, sections,
 boxes, references and overrides, Ekman stress, density classes and the
 inverse's priors. Unknown keys are errors naming the key and the closest
 valid one.
+
+Every key, with its type, unit, default and an example, is in the user guide:
+docs/configuration.md. The keys the parser accepts are :data:`KEYS` (a test
+checks that the guide lists each of them); old names still read are
+:data:`ALIASES`.
 """
 
 from __future__ import annotations
@@ -33,6 +38,9 @@ else:  # pragma: no cover
     import tomli as tomllib
 
 SOLVER_NAMES = ("gauss-markov", "svd", "bounded")
+#: How each solver is named in figures, tables and the workbench.
+SOLVER_DISPLAY = {"gauss-markov": "Gauss–Markov", "svd": "truncated SVD",
+                  "bounded": "bounded least squares"}
 CONSTRAINT_KINDS = ("mass", "salt", "heat")
 EKMAN_DEPTH_RANGE = (1.0, 500.0)  # m: the Ekman layer is tens of metres (common practice)
 
@@ -425,6 +433,11 @@ class Config:
         """Salinity of salt transports and budgets: ``[inverse] salinity`` or "preformed"."""
         return self.inverse.salinity if self.inverse is not None else "preformed"
 
+    @property
+    def class_names(self) -> list[str]:
+        """Names of the density classes, lightest first (``[classes] names``)."""
+        return self.layer_names
+
     def section_names(self) -> list[str]:
         """Names of the sections, in configuration order."""
         return [s.name for s in self.sections]
@@ -582,6 +595,9 @@ def parse_reference(value: Any, where: str) -> ReferenceChoice:
 
 def parse_config(data: dict[str, Any], base_dir: Path | None = None) -> Config:
     """Build and validate a :class:`Config` from a TOML dictionary.
+
+    The format (every key, type, unit, default) is documented in
+    docs/configuration.md.
 
     Parameters
     ----------

@@ -84,6 +84,43 @@ def _section_variables(study: Study, results: Results, levels: np.ndarray) -> di
     return data
 
 
+def _tracer_variables(study: Study, results: Results) -> tuple[dict, dict]:
+    """Bottle-tracer class transports (section, tracer, class), kmol s-1."""
+    tracers = results.tracers
+    names: list[str] = []
+    for out in tracers.values():
+        for label in out.names:
+            tracer = label.partition(":")[0]
+            if tracer not in names:
+                names.append(tracer)
+    if not names:
+        return {}, {}
+    sections = list(study.operators)
+    classes = list(study.config.layer_names)
+    shape = (len(sections), len(names), len(classes))
+    initial, adjusted, error = (np.full(shape, np.nan) for _ in range(3))
+    for s, section in enumerate(sections):
+        out = tracers.get(section)
+        if out is None:
+            continue
+        value = out.value(results.estimate)
+        std = out.std(results.covariance)
+        for k, label in enumerate(out.names):
+            tracer, _, cls = label.partition(":")
+            if cls not in classes:
+                continue  # the "total" rows: the sum over classes
+            at = (s, names.index(tracer), classes.index(cls))
+            initial[at], adjusted[at], error[at] = out.initial[k], value[k], std[k]
+    data = {}
+    for tag, values, what in (("initial", initial, "with the chosen references"),
+                              ("adjusted", adjusted, "after the box inverse"),
+                              ("error", error, "one posterior standard deviation")):
+        attrs = {"long_name": f"bottle-tracer transport of the density class (rho c v), {what}",
+                 "units": udunits("kmol s-1"), "display_units": "kmol s-1"}
+        data[f"class_tracer_transport_{tag}"] = (("section", "tracer", "class"), values, attrs)
+    return {"tracer": ("tracer", names, {"long_name": "bottle tracer"})}, data
+
+
 def _pair_variables(study: Study, results: Results) -> tuple[dict, dict]:
     labels, section, index, first, second = [], [], [], [], []
     lon, lat, dist, ref_p, kinds = [], [], [], [], []
@@ -211,42 +248,6 @@ def _inverse_variables(study: Study, results: Results) -> tuple[dict, dict]:
             "long_name": text, "comment": "units per row: see constraint_units"})
     data["constraint_normalized_residual"] = ("constraint", inv.normalized_residuals, {
         "long_name": "adjusted net inflow divided by the noise", "units": "1"})
-    return coords, data
-
-
-def _tracer_variables(study: Study, results: Results) -> tuple[dict, dict]:
-    """Bottle-tracer class transports (section, tracer, class), kmol s-1; empty without."""
-    if not results.tracers:
-        return {}, {}
-    sections = list(study.operators)
-    classes = list(study.config.layer_names)
-    tracers = list(study.config.tracers)
-    shape = (len(sections), len(tracers), len(classes))
-    values = {tag: np.full(shape, np.nan) for tag in ("initial", "adjusted", "error")}
-    for s, name in enumerate(sections):
-        out = results.tracers.get(name)
-        if out is None:
-            continue
-        adjusted = out.value(results.estimate)
-        error = out.std(results.covariance)
-        for t, tracer in enumerate(tracers):
-            for c, layer in enumerate(classes):
-                key = f"{tracer}:{layer}"
-                if key in out.names:
-                    k = out.index(key)
-                    values["initial"][s, t, c] = out.initial[k]
-                    values["adjusted"][s, t, c] = adjusted[k]
-                    values["error"][s, t, c] = error[k]
-    text = {"initial": "with the chosen references", "adjusted": "after the inverse",
-            "error": "one posterior standard deviation"}
-    data = {
-        f"tracer_transport_{tag}": (("section", "tracer", "class"), v, {
-            "long_name": f"bottle-tracer transport by class, {text[tag]} (in-situ density "
-                         "times concentration times velocity)",
-            "units": "kmol s-1"})
-        for tag, v in values.items()
-    }
-    coords = {"tracer": ("tracer", tracers, {"long_name": "bottle tracer (plain name)"})}
     return coords, data
 
 

@@ -58,6 +58,7 @@ import xarray as xr
 
 from sectionkit.config import Config, load_config
 from sectionkit.errors import ConfigError
+from sectionkit.outputs import udunits
 from sectionkit.study import Results, Study
 
 __all__ = [
@@ -551,9 +552,9 @@ def run_ensemble(
     Returns
     -------
     xr.Dataset
-        Dimensions ``member``, ``section``, ``layer``, ``statistic``,
+        Dimensions ``member``, ``section``, ``class``, ``statistic``,
         ``unknown``. Per member: every output of :data:`CLASS_OUTPUTS`
-        (member, section, layer) and :data:`SCALAR_OUTPUTS` (member,
+        (member, section, class) and :data:`SCALAR_OUTPUTS` (member,
         section), adjusted, with ``*_initial`` and the member's linear
         posterior ``*_error`` (and ``*_truth`` in twin mode); ``estimate``
         (member, unknown); drawn ``reference_pressure`` and ``prior_factor``.
@@ -599,20 +600,22 @@ def _assemble(
     n_member = stacked["net"].shape[0]
     data: dict[str, Any] = {}
     outputs: list[tuple[str, tuple[str, ...], str]] = (
-        [(n, ("section", "layer"), u) for n, (_, u) in CLASS_OUTPUTS.items()]
+        [(n, ("section", "class"), u) for n, (_, u) in CLASS_OUTPUTS.items()]
         + [(n, ("section",), u) for n, u in SCALAR_OUTPUTS.items()]
     )
-    for name, dims, units in outputs:
+    for name, dims, display in outputs:
+        # CF / UDUNITS units that unit libraries read ("Sv" is the sievert to them)
+        units = {"units": udunits(display), "display_units": display}
         for suffix, what in (("", "adjusted"), ("_initial", "initial"),
                              ("_error", "linear posterior standard deviation"),
                              ("_truth", "twin truth")):
             if name + suffix in stacked:
                 data[name + suffix] = (("member", *dims), stacked[name + suffix],
-                                       {"units": units, "long_name": f"{name}, {what}"})
+                                       {**units, "long_name": f"{name}, {what}"})
         data[f"{name}_base"] = (dims, base_rec[name],
-                                {"units": units, "long_name": f"{name} of the unperturbed study"})
+                                {**units, "long_name": f"{name} of the unperturbed study"})
         data[f"{name}_base_error"] = (dims, base_rec[f"{name}_error"], {
-            "units": units, "long_name": f"{name}: linear posterior standard deviation "
+            **units, "long_name": f"{name}: linear posterior standard deviation "
             "of the unperturbed study"})
         values = stacked[name]
         with np.errstate(invalid="ignore"):
@@ -622,7 +625,7 @@ def _assemble(
                                 *np.percentile(values, PERCENTILES, axis=0)])
             ratio = std / base_rec[f"{name}_error"]
         data[f"{name}_summary"] = (("statistic", *dims), summary,
-                                   {"units": units, "long_name": f"{name} across members"})
+                                   {**units, "long_name": f"{name} across members"})
         data[f"{name}_spread_ratio"] = (dims, ratio, {
             "units": "1", "long_name": f"{name}: ensemble std / linear posterior error"})
     data["estimate"] = (("member", "unknown"), stacked["estimate"],
@@ -638,7 +641,7 @@ def _assemble(
         coords={
             "member": np.arange(n_member),
             "section": sections,
-            "layer": layers,
+            "class": layers,
             "statistic": list(STATISTICS),
             "unknown": base["unknowns"],
         },
@@ -655,7 +658,7 @@ def _assemble(
 
 
 # ------------------------------------------------------------------ outputs
-SUMMARY_COLUMNS = ("section", "output", "layer", "units", "base", "linear_error", "mean", "std",
+SUMMARY_COLUMNS = ("section", "output", "class", "units", "base", "linear_error", "mean", "std",
                    "p2_5", "p50", "p97_5", "std_over_linear_error", "members")
 
 
@@ -678,8 +681,8 @@ def summary_rows(ds: xr.Dataset) -> list[dict[str, Any]]:
     def row(section: str, name: str, layer: str, sel: dict) -> dict[str, Any]:
         s = ds[f"{name}_summary"].sel(sel)
         return {
-            "section": section, "output": name, "layer": layer,
-            "units": ds[name].attrs["units"],
+            "section": section, "output": name, "class": layer,
+            "units": ds[name].attrs.get("display_units", ds[name].attrs["units"]),
             "base": float(ds[f"{name}_base"].sel(sel)),
             "linear_error": float(ds[f"{name}_base_error"].sel(sel)),
             "mean": float(s.sel(statistic="mean")), "std": float(s.sel(statistic="std")),
@@ -691,9 +694,9 @@ def summary_rows(ds: xr.Dataset) -> list[dict[str, Any]]:
 
     for section in ds["section"].values:
         for name in CLASS_OUTPUTS:
-            for layer in ds["layer"].values:
+            for layer in ds["class"].values:
                 rows.append(row(str(section), name, str(layer),
-                                {"section": section, "layer": layer}))
+                                {"section": section, "class": layer}))
         for name in SCALAR_OUTPUTS:
             rows.append(row(str(section), name, "", {"section": section}))
     return rows
@@ -852,7 +855,8 @@ def ensemble_main(args: Any) -> int:
         for name in ("net", "heat", "overturning"):
             s = ds[f"{name}_summary"].sel(section=section)
             parts.append(f"{name} {float(s.sel(statistic='mean')):+.3f} "
-                         f"± {float(s.sel(statistic='std')):.3f} {ds[name].attrs['units']}")
+                         f"± {float(s.sel(statistic='std')):.3f} "
+                         f"{ds[name].attrs.get('display_units', ds[name].attrs['units'])}")
         print(f"  {section}: " + ", ".join(parts))
     return 0
 

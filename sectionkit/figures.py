@@ -14,7 +14,7 @@ Two layers:
 Everything is drawn on :class:`matplotlib.figure.Figure` objects with an
 explicit Agg canvas, so pyplot's global state is never touched. Saved files
 carry no timestamps or software versions, so rerunning a study writes
-identical files where matplotlib allows.
+identical files where matplotlib allows. Sign conventions: docs/conventions.md.
 """
 
 from __future__ import annotations
@@ -27,13 +27,14 @@ import matplotlib as mpl
 import numpy as np
 from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.colors import TwoSlopeNorm
+from matplotlib.colors import Normalize, SymLogNorm, TwoSlopeNorm
 from matplotlib.figure import Figure
 from matplotlib.ticker import FixedLocator, FuncFormatter, MaxNLocator, NullLocator
 
 from sectionkit.budget import level_end_pressure
-from sectionkit.geometry import along_line_distance, pair_along_line_distance
-from sectionkit.layers import sigma_label
+from sectionkit.config import SOLVER_DISPLAY
+from sectionkit.geometry import along_line_distance, pair_along_line_distance, sign_convention
+from sectionkit.layers import class_display_name, constraint_display_name, sigma_label
 from sectionkit.operator import SectionOperator
 from sectionkit.study import Results, Study
 
@@ -286,8 +287,16 @@ def plot_velocity_section(
     cmap: str = VELOCITY_CMAP,
     interfaces: bool = True,
     colorbar: bool = True,
+    sign: str | None = None,
+    contours: bool = True,
 ):
     """Draw a velocity section: distance (km) against pressure (dbar, down).
+
+    Colours: without ``vmax`` the scale reaches the fastest speed, so peak
+    speeds can be read; when that peak is more than twice the interior speeds
+    (the 96th area-weighted percentile) the scale is symmetric-logarithmic,
+    linear within the interior range. Labelled velocity contours give the
+    numbers.
 
     Parameters
     ----------
@@ -312,6 +321,11 @@ def plot_velocity_section(
         Contour each class interface in its own reference pressure.
     colorbar : bool
         Add a colour bar labelled ``velocity (m s⁻¹)``.
+    sign : str, optional
+        The sign convention in words (``"positive = northward across K1→K5"``),
+        added to the colour bar label.
+    contours : bool
+        Draw labelled velocity contours.
 
     Returns
     -------
@@ -322,10 +336,8 @@ def plot_velocity_section(
     xs = station_distance(op)
     xp = pair_distance(op)
     v = np.ma.masked_invalid(np.asarray(velocity, dtype=float))
-    if vmax is None:
-        vmax = _symmetric_limit(np.asarray(velocity, dtype=float),
-                                op.pairs["distance"].values[:, None])
-    norm = TwoSlopeNorm(vcenter=0.0, vmin=-vmax, vmax=vmax)
+    norm = velocity_norm(np.asarray(velocity, dtype=float), op.pairs["distance"].values[:, None],
+                         vmax)
     step = np.diff(p)
     edges = np.concatenate([[p[0]], 0.5 * (p[:-1] + p[1:]), [p[-1] + (step[-1] if step.size
                                                                         else 1.0) / 2]])
@@ -342,6 +354,14 @@ def plot_velocity_section(
     p_max = float(np.nanmax(bottom_pressure)) * 1.03
     ax.fill_between(xs, bottom_pressure, p_max, color=BOTTOM_COLOR, zorder=3, lw=0)
     ax.plot(xs, bottom_pressure, color="0.25", lw=0.8, zorder=3)
+
+    if contours and xp.size >= 2:
+        levels = velocity_contour_levels(norm)
+        finite = np.asarray(velocity, dtype=float)
+        if levels and np.any(np.isfinite(finite)):
+            cv = ax.contour(xp, p, v.T, levels=levels, colors="0.35", linewidths=0.5,
+                            linestyles="solid", zorder=2)
+            ax.clabel(cv, fmt=lambda x: f"{x:g}", fontsize=6.5, inline=True, inline_spacing=2)
 
     if interfaces and op.interfaces and xp.size >= 2:
         n_face = len(op.interfaces)
@@ -375,9 +395,8 @@ def plot_velocity_section(
     ax.spines["right"].set_visible(True)
 
     top = ax.secondary_xaxis("top")
-    ids = list(station_ids) if station_ids is not None else [str(k + 1) for k in
-                                                             range(xs.size)]
-    keep = _spaced(xs, (xs[-1] - xs[0]) / MAX_STATION_LABELS)
+    ids = list(station_ids) if station_ids is not None else [str(k) for k in range(xs.size)]
+    keep = station_label_indices(xs.size, positions=xs)
     top.set_xticks(xs[keep], labels=[str(ids[k]) for k in keep])
     top.set_xticks(xs, minor=True)
     top.tick_params(axis="x", labelsize=7, length=4, which="major")
@@ -385,9 +404,101 @@ def plot_velocity_section(
     top.set_xlabel("station", fontsize=8)
 
     if colorbar:
-        cb = ax.figure.colorbar(mesh, ax=ax, extend="both", shrink=0.95, pad=0.02)
-        cb.set_label(VELOCITY_LABEL)
+        peak = float(np.nanmax(np.abs(velocity))) if np.any(np.isfinite(velocity)) else 0.0
+        cb = ax.figure.colorbar(mesh, ax=ax, extend="both" if peak > norm.vmax else "neither",
+                                shrink=0.95, pad=0.02)
+        cb.set_label(VELOCITY_LABEL + (f"\n{sign}" if sign else ""))
+        if isinstance(norm, SymLogNorm):  # plain numbers at 0, the linear limit and decades
+            lin = float(norm.linthresh)
+            ticks = [lin] + [x for x in (10.0**e for e in range(-3, 2))
+                             if 2.0 * lin < x < norm.vmax * 0.999] + [float(norm.vmax)]
+            cb.set_ticks(sorted({0.0, *ticks, *(-t for t in ticks)}))
+            cb.ax.yaxis.set_major_formatter(FuncFormatter(lambda x, _pos: f"{x:g}"))
+            cb.ax.yaxis.set_minor_locator(NullLocator())
     return mesh
+
+
+def velocity_norm(velocity: np.ndarray, widths: np.ndarray | None = None,
+                  vmax: float | None = None) -> Normalize:
+    """Symmetric colour scale of a velocity section that keeps peak speeds readable.
+
+    Parameters
+    ----------
+    velocity : ndarray (pair, level)
+        m s^-1.
+    widths : ndarray (pair, 1), optional
+        Pair widths, m (weights of the interior percentile).
+    vmax : float, optional
+        A fixed limit, m s^-1 (linear scale; faster flow saturates).
+
+    Returns
+    -------
+    Normalize
+        ``TwoSlopeNorm`` centred on 0 up to the peak speed, or a ``SymLogNorm``
+        linear within the interior speeds when the peak exceeds twice them.
+    """
+    if vmax is not None:
+        return TwoSlopeNorm(vcenter=0.0, vmin=-vmax, vmax=vmax)
+    v = np.asarray(velocity, dtype=float)
+    interior = _symmetric_limit(v, widths)
+    finite = np.abs(v[np.isfinite(v)])
+    peak = _nice_ceiling(float(finite.max())) if finite.size and finite.max() > 0 else interior
+    peak = max(peak, interior)
+    if peak > 2.0 * interior:
+        return SymLogNorm(linthresh=interior, linscale=1.0, vmin=-peak, vmax=peak, base=10)
+    return TwoSlopeNorm(vcenter=0.0, vmin=-peak, vmax=peak)
+
+
+def velocity_contour_levels(norm: Normalize) -> list[float]:
+    """Labelled contour levels (m s^-1) from 1-2-5 steps within the colour scale, both signs."""
+    vmax = float(norm.vmax)
+    ladder = [m * 10.0**e for e in range(-3, 2) for m in (1.0, 2.0, 5.0)]
+    # from the interior speeds up (symmetric-log scale), else from an eighth of the peak
+    low = float(norm.linthresh) if isinstance(norm, SymLogNorm) else vmax / 8.0
+    steps = [x for x in ladder if low <= x <= vmax * (1 + 1e-9)]
+    return sorted([-x for x in steps] + steps)
+
+
+def station_label_indices(n_station: int, most: int | None = None,
+                          positions: np.ndarray | None = None) -> np.ndarray:
+    """Stations labelled on the top axis: every k-th from the first, one stride throughout.
+
+    A constant stride in station number leaves no unexplained gaps (every
+    station still has a minor tick). With ``positions`` the stride grows
+    until no two labels crowd each other where stations are close together.
+
+    Parameters
+    ----------
+    n_station : int
+        Number of stations.
+    most : int, optional
+        Most labels wanted (default ``MAX_STATION_LABELS``).
+    positions : ndarray (station,), optional
+        Distance of each station along the line, km.
+
+    Returns
+    -------
+    ndarray of int
+    """
+    most = MAX_STATION_LABELS if most is None else most
+    stride = max(1, int(np.ceil((n_station - 1) / max(most - 1, 1))))
+    if positions is not None and n_station > 1:
+        x = np.asarray(positions, dtype=float)
+        gap = 0.55 * (x[-1] - x[0]) / most
+        while stride < n_station - 1 and np.min(np.diff(x[::stride])) < gap:
+            stride += 1
+    return np.arange(0, n_station, stride)
+
+
+def line_sign_convention(study: Study, name: str) -> str:
+    """``"positive = northward across K1→K5"`` for one section of a study."""
+    ds = study.sections.get(name)
+    if ds is None:
+        op = study.operators[name]
+        return sign_convention(op.pairs["lon"].values, op.pairs["lat"].values, "0",
+                               str(op.n_pair))
+    stations = [str(s) for s in ds["station"].values]
+    return sign_convention(ds["lon"].values, ds["lat"].values, stations[0], stations[-1])
 
 
 def plot_class_transports(
@@ -398,8 +509,9 @@ def plot_class_transports(
     error: np.ndarray | None = None,
     *,
     title: str | None = None,
+    sign: str | None = None,
 ) -> None:
-    """Bar chart of class transports before and after the inverse.
+    """Bar chart of class volume transports before and after the inverse.
 
     Parameters
     ----------
@@ -415,6 +527,8 @@ def plot_class_transports(
         One posterior standard deviation of ``adjusted``, Sv.
     title : str, optional
         Panel title.
+    sign : str, optional
+        The sign convention in words, printed under the title.
     """
     x = np.arange(len(layer_names))
     width = 0.38 if adjusted is not None else 0.6
@@ -429,16 +543,17 @@ def plot_class_transports(
                yerr=err, capsize=3, error_kw={"elinewidth": 1.0, "ecolor": "k"},
                label="adjusted ± 1σ" if err is not None else "adjusted")
     ax.axhline(0.0, color="k", lw=0.7)
-    ax.set_xticks(x, labels=list(layer_names))
+    ax.set_xticks(x, labels=[class_display_name(n) for n in layer_names])
     if len(layer_names) > 4:
         ax.tick_params(axis="x", labelrotation=30)
     ax.set_xlabel("density class (light → dense)")
-    ax.set_ylabel("transport (Sv)")
+    ax.set_ylabel("volume transport (Sv)")
     ax.yaxis.set_major_locator(MaxNLocator(nbins=6))
     ax.grid(axis="y", lw=0.4, alpha=0.5)
     ax.set_axisbelow(True)
-    if title:
-        ax.set_title(title)
+    if title or sign:
+        ax.set_title("\n".join(t for t in (title, sign) if t),
+                     fontsize=None if not sign else 8.5)
 
 
 def plot_overturning_depth(
@@ -491,6 +606,7 @@ def plot_overturning_density(
     label: str | None = None,
     color=None,
     linestyle: str = "-",
+    offset: float = 0.0,
 ) -> None:
     """Overturning streamfunction in density classes, at each interface.
 
@@ -510,15 +626,18 @@ def plot_overturning_density(
         Line colour.
     linestyle : str
         Line style.
+    offset : float
+        Vertical shift of the points, in interface spacings, so that several
+        series' error bars do not overlap.
     """
-    y = np.arange(len(interface_labels))
+    y = np.arange(len(interface_labels)) + offset
     err = None
     if error is not None and np.any(np.isfinite(error)):
         err = np.where(np.isfinite(error), error, 0.0)
     ax.errorbar(psi, y, xerr=err, color=color, ls=linestyle, marker="o", ms=4, lw=1.5,
                 capsize=3, label=label)
     ax.axvline(0.0, color="k", lw=0.6)
-    ax.set_yticks(y, labels=list(interface_labels))
+    ax.set_yticks(np.arange(len(interface_labels)), labels=list(interface_labels))
     ax.set_ylim(len(interface_labels) - 0.5, -0.5)
     ax.set_xlabel("overturning streamfunction (Sv)")
     ax.set_ylabel("class interface (light → dense)")
@@ -792,6 +911,7 @@ def velocity_figure(study: Study, results: Results, name: str) -> Figure:
         bottom_pressure=None if ds is None else ds["bottom_pressure"].values,
         reference_pressure=results.references[name].pressure,
         station_ids=None if ds is None else [str(s) for s in ds["station"].values],
+        sign=line_sign_convention(study, name),
     )
     state = "after the inverse" if adjusted else "initial references, no inverse"
     ax.set_title(f"{name}: absolute geostrophic velocity ({state})", loc="left")
@@ -823,13 +943,14 @@ def transport_figure(study: Study, results: Results) -> Figure:
         initial, adjusted, error = output_block(results, name,
                                                 [f"volume:{c}" for c in op.layer_names])
         plot_class_transports(ax, op.layer_names, initial, adjusted if inverse else None,
-                              error if inverse else None, title=name)
+                              error if inverse else None, title=name,
+                              sign=line_sign_convention(study, name))
     for ax in axes.flat[len(names):]:
         ax.set_visible(False)
     for ax in axes[:, 1:].flat:
         ax.set_ylabel("")
     axes.flat[0].legend(loc="best")
-    fig.suptitle("Class transports (section frame)" + ("" if inverse else ": no inverse"),
+    fig.suptitle("Volume transport by density class" + ("" if inverse else ": no inverse"),
                  fontsize=11)
     return fig
 
@@ -857,18 +978,22 @@ def overturning_figure(study: Study, results: Results) -> Figure:
         ax_z, ax_r = fig.add_subplot(), None
     inverse = results.inverse is not None
     palette = [mpl.colormaps["tab10"](k % 10) for k in range(len(study.operators))]
+    n_series = len(study.operators) * (2 if inverse else 1)
+    dodge = 0.3 / max(n_series - 1, 1) if n_series > 1 else 0.0
     for k, (name, op) in enumerate(study.operators.items()):
         c = palette[k]
+        positive = line_sign_convention(study, name).replace("positive = ", "+ ")
         depth_names = [f"psi_depth:{j}" for j in range(op.pressure.size)]
         ini, adj, err = output_block(results, name, depth_names)
         ends = level_end_pressure(op.pressure)  # where each accumulated integral ends
         if inverse:
             plot_overturning_depth(ax_z, ends, ini, label=f"{name} initial", color=c,
                                    linestyle=":")
-            plot_overturning_depth(ax_z, ends, adj, err, label=f"{name} adjusted",
-                                   color=c)
+            plot_overturning_depth(ax_z, ends, adj, err,
+                                   label=f"{name} adjusted ({positive})", color=c)
         else:
-            plot_overturning_depth(ax_z, ends, ini, label=name, color=c)
+            plot_overturning_depth(ax_z, ends, ini, label=f"{name} ({positive})",
+                                   color=c)
         n_face = len(op.interfaces)
         if n_face and ax_r is not None:
             # from nothing lighter (0) through each interface to all classes (0: the net
@@ -877,13 +1002,14 @@ def overturning_figure(study: Study, results: Results) -> Figure:
             ini, adj, err = output_block(results, name, [f"psi_density:{n}"
                                                          for n in range(n_face)])
             ini, adj, err = (np.concatenate([[0.0], a, [0.0]]) for a in (ini, adj, err))
+            first = (2 * k if inverse else k) * dodge - 0.15 * (n_series > 1)
             if inverse:
                 plot_overturning_density(ax_r, labels, ini, label=f"{name} initial", color=c,
-                                         linestyle=":")
+                                         linestyle=":", offset=first)
                 plot_overturning_density(ax_r, labels, adj, err, label=f"{name} adjusted",
-                                         color=c)
+                                         color=c, offset=first + dodge)
             else:
-                plot_overturning_density(ax_r, labels, ini, label=name, color=c)
+                plot_overturning_density(ax_r, labels, ini, label=name, color=c, offset=first)
     ax_z.set_ylim(max(op.pressure[-1] for op in study.operators.values()), 0.0)
     ax_z.set_title("in depth (from the surface down)")
     handles, labels = ax_z.get_legend_handles_labels()
@@ -895,7 +1021,9 @@ def overturning_figure(study: Study, results: Results) -> Figure:
     bands = "shading and bars" if ax_r is not None else "shading"
     note = f"{bands}: ±1 posterior std" if inverse else "no inverse: initial references"
     fig.suptitle(f"Overturning streamfunction, net transport removed as a uniform velocity "
-                 f"({note})", fontsize=10)
+                 f"({note})\n"
+                 "positive: the water above (lighter than) that level flows in net in the "
+                 "line's positive direction", fontsize=10)
     return fig
 
 
@@ -950,7 +1078,8 @@ def inverse_figure(study: Study, results: Results) -> Figure | None:
     values = inv.scaled_singular_values
     rank = inv.rank
     boxes = {r[0] for r in system.rows}
-    labels = [f"{b}: {c}" if len(boxes) > 1 else c for b, c in system.rows]
+    labels = [f"{b}: {constraint_display_name(c)}" if len(boxes) > 1
+              else constraint_display_name(c) for b, c in system.rows]
     before = system.initial / system.noise
     after = inv.normalized_residuals
     diag = np.where(inv.solved_for, inv.resolution_diagonal, np.nan)
@@ -961,8 +1090,8 @@ def inverse_figure(study: Study, results: Results) -> Figure | None:
     plot_singular_values(axes[0], values, rank)
     plot_residuals(axes[1], labels, before, after)
     plot_resolution(axes[2], per_section)
-    solver = study.config.inverse.solver
-    fig.suptitle(f"Inverse diagnostics ({solver})", fontsize=11)
+    solver = SOLVER_DISPLAY.get(study.config.inverse.solver, study.config.inverse.solver)
+    fig.suptitle(f"{solver} inverse: diagnostics", fontsize=11)
     return fig
 
 

@@ -251,3 +251,69 @@ def pair_along_line_distance(pair_distance: np.ndarray) -> np.ndarray:
     """
     station = along_line_distance(pair_distance)
     return 0.5 * (station[..., :-1] + station[..., 1:])
+
+
+COMPASS = ("northward", "north-eastward", "eastward", "south-eastward", "southward",
+           "south-westward", "westward", "north-westward")
+
+
+def compass_name(east: float, north: float) -> str:
+    """Eight-point compass name of a direction given by its components.
+
+    Parameters
+    ----------
+    east, north : float
+        Components of the direction, any common unit.
+
+    Returns
+    -------
+    str
+        ``"northward"``, ``"north-eastward"``, ... ``"north-westward"``.
+    """
+    bearing = float(np.degrees(np.arctan2(east, north))) % 360.0  # clockwise from north
+    return COMPASS[int(((bearing + 22.5) % 360.0) // 45.0)]
+
+
+def positive_direction(lon: np.ndarray, lat: np.ndarray) -> str:
+    """Compass word of the positive transport direction of a line, e.g. ``"northward"``.
+
+    Positive transport is to the left of increasing station order (DESIGN.md
+    §4). The line's direction is the distance-weighted mean of its pairs'
+    along-line unit vectors; "left" is that vector turned 90° counter-clockwise.
+
+    Parameters
+    ----------
+    lon : ndarray (station,)
+        Longitude, degrees_east.
+    lat : ndarray (station,)
+        Latitude, degrees_north.
+
+    Returns
+    -------
+    str
+        One of eight compass directions (``"north-eastward"``, ...).
+    """
+    lon = np.asarray(lon, dtype=float)
+    lat = np.asarray(lat, dtype=float)
+    t_east, t_north = along_line_direction(lon, lat)
+    w = great_circle_distance(lon, lat)
+    east = float(np.nansum(w * t_east))
+    north = float(np.nansum(w * t_north))
+    return compass_name(-north, east)
+
+
+def sign_convention(lon: np.ndarray, lat: np.ndarray, first: str, last: str) -> str:
+    """The sign convention of a line in words: ``"positive = northward across S01→S47"``.
+
+    Parameters
+    ----------
+    lon, lat : ndarray (station,)
+        Station positions, degrees_east and degrees_north.
+    first, last : str
+        Ids of the first and last station.
+
+    Returns
+    -------
+    str
+    """
+    return f"positive = {positive_direction(lon, lat)} across {first}→{last}"

@@ -102,6 +102,12 @@ def class_display_name(name: str) -> str:
     return str(name).replace("_", " ")
 
 
+def constraint_display_name(constraint: str) -> str:
+    """A constraint row as printed: ``mass:deep_water`` -> ``mass, deep water``."""
+    kind, _, what = str(constraint).partition(":")
+    return f"{kind}, {class_display_name(what)}" if what else kind
+
+
 def check_interfaces(interfaces: list[Interface], names: list[str] | None) -> list[str]:
     """Validate interfaces and return the class names.
 

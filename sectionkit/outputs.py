@@ -30,12 +30,15 @@ UDUNITS: dict[str, str] = {
     "km": "km",
     "km2": "km2",
     "kg m-3": "kg m-3",
+    "kmol s-1": "kmol s-1",
+    "kmol/s": "kmol s-1",
     "1": "1",
 }
 
 #: SI value of one display unit (the scale from SI to the reported number).
 SCALE: dict[str, float] = {"Sv": 1e6, "Sv g/kg": 1e6, "PW": 1e15, "m s-1": 1.0, "m/s": 1.0,
-                           "dbar": 1.0, "km": 1e3, "km2": 1e6, "kg m-3": 1.0, "1": 1.0}
+                           "dbar": 1.0, "km": 1e3, "km2": 1e6, "kg m-3": 1.0, "kmol s-1": 1e3,
+                           "kmol/s": 1e3, "1": 1.0}
 
 
 def udunits(display: str) -> str:
@@ -74,14 +77,15 @@ class OutputSpec:
     key : str
         Name of the output in a section's linear outputs (``budget.section_outputs``);
         ``{class}``, ``{n}`` and ``{k}`` stand for the class name, the interface
-        index and the level index.
+        index and the level index. Empty for the kernel outputs, which are named
+        as in ``budget.section_values``.
     """
 
     name: str
     dims: tuple[str, ...]
     display: str
     long_name: str
-    key: str
+    key: str = ""
 
     @property
     def units(self) -> str:
@@ -132,6 +136,41 @@ SECTION_OUTPUTS: tuple[OutputSpec, ...] = (
                "level_end_pressure), the net transport removed as a uniform velocity",
                "psi_depth:{k}"),
 )
+
+#: Every output of the xarray layer's kernel (:func:`sectionkit.xr.budget_kernel`), one
+#: section with any leading dimensions; ``key`` is the name in ``budget.section_values``.
+KERNEL_OUTPUTS: tuple[OutputSpec, ...] = (
+    OutputSpec("volume_transport", ("class",), "Sv", "volume transport by density class"),
+    OutputSpec("mass_transport", ("class",), "Sv",
+               "mass transport by density class divided by rho0 = 1025 kg m-3"),
+    OutputSpec("salt_transport", ("class",), "Sv g/kg",
+               "salt transport by density class (rho SA v / rho0)"),
+    OutputSpec("heat_transport", ("class",), "PW",
+               "potential enthalpy transport by density class (rho c_p0 CT v)"),
+    OutputSpec("pair_volume_transport", ("pair", "class"), "Sv",
+               "volume transport of each station pair by density class"),
+    OutputSpec("net", (), "Sv", "net volume transport"),
+    OutputSpec("net_mass", (), "Sv", "net mass transport divided by rho0"),
+    OutputSpec("heat", (), "PW",
+               "net potential enthalpy transport (a heat transport only when net_mass is ~0)"),
+    OutputSpec("freshwater", (), "Sv", "freshwater transport relative to the reference salinity"),
+    OutputSpec("overturning", (), "Sv",
+               "depth-space overturning: signed extremum of the cumulative transport from the "
+               "surface, net transport removed as a uniform velocity"),
+    OutputSpec("overturning_pressure", (), "dbar",
+               "pressure where the integral of the depth-space overturning ends"),
+    OutputSpec("overturning_density", (), "Sv",
+               "density-space overturning: signed extremum of the cumulative class transport "
+               "from the light side, net transport removed as a uniform velocity"),
+    OutputSpec("psi_depth", ("pressure",), "Sv",
+               "cumulative volume transport from the surface through each level (ending half "
+               "way to the next level), net transport removed as a uniform velocity"),
+    OutputSpec("psi_density", ("interface",), "Sv",
+               "cumulative volume transport of the classes lighter than each interface, net "
+               "transport removed as a uniform velocity"),
+    OutputSpec("reference_pressure", ("pair",), "dbar", "reference pressure actually used"),
+)
+
 
 #: Outputs by name.
 REGISTRY: dict[str, OutputSpec] = {spec.name: spec for spec in SECTION_OUTPUTS}

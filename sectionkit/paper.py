@@ -30,9 +30,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from sectionkit.config import SOLVER_DISPLAY
 from sectionkit.geostrophy import ReferenceChoice
 from sectionkit.labels import split_pair_label
-from sectionkit.layers import class_display_name, sigma_symbol
+from sectionkit.layers import class_display_name, constraint_display_name, sigma_symbol
 from sectionkit.operator import SALINITY_NAMES
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.tables import tables
@@ -385,11 +386,8 @@ _TRIANGLE_PHRASE = {
     "zero": "zero velocity below the deepest common level",
     "shear": "shear extrapolated linearly below the deepest common level",
 }
-_SOLVER_PHRASE = {
-    "gauss-markov": "Gauss–Markov estimate",
-    "svd": "truncated SVD",
-    "bounded": "bounded least squares",
-}
+_SOLVER_PHRASE = {key: name + (" estimate" if key == "gauss-markov" else "")
+                  for key, name in SOLVER_DISPLAY.items()}
 
 
 def reference_description(study: Study, results: Results, tex: bool = False) -> str:
@@ -645,12 +643,6 @@ _REFERENCE_KIND_TEXT = {"pressure": "pressure", "bottom": "deepest common",
                         "isopycnal": "isopycnal", "velocity": "known velocity"}
 
 
-def _constraint_text(constraint: str) -> str:
-    """``mass:deep_water`` as printed: ``mass, deep water``."""
-    kind, _, what = constraint.partition(":")
-    return f"{kind}, {class_display_name(what)}" if what else kind
-
-
 def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
     title = "Box constraints before and after the inverse."
 
@@ -684,7 +676,7 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
             decimals = FIXED_DECIMALS[unit]
         rows.append([
             Cell.text(r.box),
-            Cell.text(_constraint_text(str(r.constraint))),
+            Cell.text(constraint_display_name(str(r.constraint))),
             Cell.text("", _unit(unit, True), _unit(unit, False)),
             Cell(value=format_fixed(r.initial, decimals)),
             Cell(value=format_fixed(r.adjusted, decimals)),
@@ -821,21 +813,26 @@ def _property_table(study: Study, results: Results) -> PaperTable:
         Column("Tracer", "Tracer", False),
         Column("Class", "Class", False),
         Column(f"Initial ({_unit('kmol/s', True)})", f"Initial ({_unit('kmol/s', False)})"),
-        Column(f"Adjusted ({_unit('kmol/s', True)})", f"Adjusted ({_unit('kmol/s', False)})"),
     ]
+    inverse = results.inverse is not None
+    if inverse:  # without an inverse, adjusted equals initial: no column of copies
+        cols.append(Column(f"Adjusted ({_unit('kmol/s', True)})",
+                           f"Adjusted ({_unit('kmol/s', False)})"))
     rows = []
     for name, out in results.tracers.items():
         adjusted = out.value(results.estimate)
         err = out.std(results.covariance)
         for k, label in enumerate(out.names):
             tracer, _, layer = label.partition(":")
-            rows.append([
+            row = [
                 Cell.text(name),
                 Cell.text(tracer),
-                Cell.text("all classes" if layer == "total" else layer),
+                Cell.text("all classes" if layer == "total" else class_display_name(layer)),
                 Cell.number(out.initial[k], None, "kmol/s"),
-                Cell.number(adjusted[k], _err(err[k]), "kmol/s"),
-            ])
+            ]
+            if inverse:
+                row.append(Cell.number(adjusted[k], _err(err[k]), "kmol/s"))
+            rows.append(row)
     return PaperTable("property_transports", title, caption(True), caption(False), cols, rows)
 
 

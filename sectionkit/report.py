@@ -5,7 +5,9 @@ Markdown) from :mod:`sectionkit.paper` and figures from
 :mod:`sectionkit.figures`; everything is written into a temporary folder
 that is moved into place only when the whole run has succeeded
 (:func:`write_outputs`). :func:`provenance` records what is needed to
-reproduce a run and :func:`load_provenance` reads it back.
+reproduce a run and :func:`load_provenance` reads it back. The files and
+their columns are described in docs/outputs.md; ``results.nc`` comes from
+:mod:`sectionkit.dataset`.
 """
 
 from __future__ import annotations

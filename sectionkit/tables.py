@@ -2,7 +2,8 @@
 
 One function per output file; :func:`tables` returns them all by file name.
 Values stay at full precision here: :mod:`sectionkit.paper` rounds them for a
-paper and :mod:`sectionkit.report` writes them.
+paper and :mod:`sectionkit.report` writes them. Every column and its unit is
+described in docs/outputs.md.
 """
 
 from __future__ import annotations

@@ -9,7 +9,7 @@ tiers of the style guide on top of them:
    :func:`sectionkit.budget.section_values`) on plain arrays.
 2. :func:`section_budget` — the xarray wrapper: ``xr.apply_ufunc`` with
    ``dask="parallelized"``, core dimensions ``station`` and ``pressure``, new
-   output dimensions ``pair``, ``layer`` and ``interface``. A section whose
+   output dimensions ``pair``, ``class`` and ``interface``. A section whose
    ``SA``/``CT`` carry leading dimensions (``time``, ``member``) gives every
    output with those dimensions; on dask arrays the result is lazy, one task
    per chunk, and runs on a ``dask.distributed`` cluster unchanged.
@@ -32,7 +32,6 @@ cautions here: the kernel runs inside dask tasks.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -46,6 +45,7 @@ from sectionkit.geostrophy import ReferenceChoice, resolve_references
 from sectionkit.labels import split_pair_label
 from sectionkit.layers import Interface, check_interfaces
 from sectionkit.operator import build_operator
+from sectionkit.outputs import KERNEL_OUTPUTS, OutputSpec
 
 __all__ = [
     "OUTPUTS",
@@ -58,61 +58,10 @@ __all__ = [
 CORE_DIMS = ("station", "pressure")
 
 
-@dataclass(frozen=True)
-class OutputSpec:
-    """One output of the budget kernel.
+#: Every output of :func:`budget_kernel`, in the order the wrapper returns them
+#: (the registry :data:`sectionkit.outputs.KERNEL_OUTPUTS`).
+OUTPUTS: tuple[OutputSpec, ...] = KERNEL_OUTPUTS
 
-    Attributes
-    ----------
-    name : str
-        Variable name in the result Dataset.
-    dims : tuple of str
-        Core (trailing) dimensions of the output.
-    units : str
-        Units attribute.
-    long_name : str
-        Long name attribute.
-    """
-
-    name: str
-    dims: tuple[str, ...]
-    units: str
-    long_name: str
-
-
-#: Every output of :func:`budget_kernel`, in the order the wrapper returns them.
-#: Transports are positive to the left of increasing station order (DESIGN.md §4).
-OUTPUTS: tuple[OutputSpec, ...] = (
-    OutputSpec("volume_transport", ("layer",), "Sv", "volume transport by density class"),
-    OutputSpec("mass_transport", ("layer",), "Sv",
-               "mass transport by density class divided by rho0 = 1025 kg m-3"),
-    OutputSpec("salt_transport", ("layer",), "Sv g kg-1",
-               "salt transport by density class (rho SA v / rho0)"),
-    OutputSpec("heat_transport", ("layer",), "PW",
-               "potential enthalpy transport by density class (rho c_p0 CT v)"),
-    OutputSpec("pair_volume_transport", ("pair", "layer"), "Sv",
-               "volume transport of each station pair by density class"),
-    OutputSpec("net", (), "Sv", "net volume transport"),
-    OutputSpec("net_mass", (), "Sv", "net mass transport divided by rho0"),
-    OutputSpec("heat", (), "PW",
-               "net potential enthalpy transport (a heat transport only when net_mass is ~0)"),
-    OutputSpec("freshwater", (), "Sv", "freshwater transport relative to the reference salinity"),
-    OutputSpec("overturning", (), "Sv",
-               "depth-space overturning: signed extremum of the cumulative transport from the "
-               "surface, net transport removed as a uniform velocity"),
-    OutputSpec("overturning_pressure", (), "dbar",
-               "pressure where the integral of the depth-space overturning ends"),
-    OutputSpec("overturning_density", (), "Sv",
-               "density-space overturning: signed extremum of the cumulative class transport "
-               "from the light side, net transport removed as a uniform velocity"),
-    OutputSpec("psi_depth", ("pressure",), "Sv",
-               "cumulative volume transport from the surface through each level (ending half "
-               "way to the next level), net transport removed as a uniform velocity"),
-    OutputSpec("psi_density", ("interface",), "Sv",
-               "cumulative volume transport of the classes lighter than each interface, net "
-               "transport removed as a uniform velocity"),
-    OutputSpec("reference_pressure", ("pair",), "dbar", "reference pressure actually used"),
-)
 
 ReferenceLike = ReferenceChoice | float | str
 
@@ -129,10 +78,10 @@ def _pair_choices(
         if isinstance(value, ReferenceChoice):
             return value
         if isinstance(value, str):
-            if value == "bottom":
+            if value in ("deepest_common", "bottom"):  # "bottom": the old name
                 return ReferenceChoice("bottom")
-            raise ConfigError(f'reference {value!r}: use a pressure in dbar, "bottom" or a '
-                              "ReferenceChoice")
+            raise ConfigError(f'reference {value!r}: use a pressure in dbar, "deepest_common" '
+                              "or a ReferenceChoice")
         return ReferenceChoice("pressure", pressure=float(value))
 
     if isinstance(reference, ReferenceChoice | str | float | int):
@@ -221,7 +170,7 @@ def budget_kernel(
         Class interfaces, light to dense.
     layer_names : sequence of str, optional
         One name per class.
-    reference : ReferenceChoice, float, "bottom", or a sequence of them per pair
+    reference : ReferenceChoice, float, "deepest_common", or a sequence of them per pair
         Reference of every pair (a float is a level of no motion in dbar).
     overrides : mapping of int -> reference, optional
         Per-pair exceptions (0-based pair index).
@@ -357,7 +306,7 @@ def section_budget(
         Class interfaces, light to dense.
     layer_names : sequence of str, optional
         One name per class (``class_0`` ... when not given).
-    reference : ReferenceChoice, float, "bottom", or a sequence per pair
+    reference : ReferenceChoice, float, "deepest_common", or a sequence per pair
         Reference of every pair; a float is a level of no motion in dbar.
     overrides : mapping of int -> reference, optional
         Per-pair exceptions by 0-based pair index.
@@ -440,7 +389,7 @@ def section_budget(
         dask="parallelized",
         output_dtypes=[float] * len(OUTPUTS),
         dask_gufunc_kwargs={
-            "output_sizes": {"pair": n_pair, "layer": n_class,
+            "output_sizes": {"pair": n_pair, "class": n_class,
                              "interface": len(interfaces)}
         },
         keep_attrs=False,
@@ -448,10 +397,12 @@ def section_budget(
     geometry = pair_geometry(section[["lon", "lat"]])
     data = {}
     for spec, value in zip(OUTPUTS, results, strict=True):
-        data[spec.name] = value.assign_attrs(units=spec.units, long_name=spec.long_name)
+        # CF / UDUNITS units that unit libraries read ("Sv" is the sievert to them)
+        data[spec.name] = value.assign_attrs(units=spec.units, display_units=spec.display,
+                                             long_name=spec.long_name)
     ds = xr.Dataset(data)
     coords: dict[str, Any] = {
-        "layer": ("layer", names[:n_class], {"long_name": "density class, light to dense"}),
+        "class": ("class", names[:n_class], {"long_name": "density class, light to dense"}),
         "pair": ("pair", np.arange(n_pair), {"long_name": "station pair (k between stations "
                                                           "k and k+1)"}),
         "pair_lon": ("pair", geometry["lon"].values, {"units": "degrees_east"}),

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import csv
 import hashlib
+import zipfile
 from pathlib import Path
 
 import gsw
@@ -127,6 +128,42 @@ def _assert_netcdf_close(bundled: Path, fresh: Path) -> None:
                 assert np.array_equal(np.asarray(xa), np.asarray(xb)), name
 
 
+def _last_digit(text: str) -> float:
+    """One unit in the last decimal a number is written with (``"35.1234"`` -> 1e-4)."""
+    mantissa, _, exponent = text.lower().partition("e")
+    decimals = len(mantissa.partition(".")[2])
+    return 10.0 ** (-decimals + (int(exponent) if exponent else 0))
+
+
+def _assert_text_close(name: str, text_a: str, text_b: str) -> None:
+    """Exchange-format text: the same lines and fields, numbers equal to their last digit.
+
+    Numbers written with a fixed number of decimals may flip their last digit when another
+    CPU's BLAS kernel moves them by ~1e-7; text fields must be identical.
+    """
+    lines_a, lines_b = text_a.splitlines(), text_b.splitlines()
+    assert len(lines_a) == len(lines_b), f"{name}: {len(lines_a)} lines, fresh {len(lines_b)}"
+    for n, (la, lb) in enumerate(zip(lines_a, lines_b, strict=True), start=1):
+        fa, fb = la.split(","), lb.split(",")
+        assert len(fa) == len(fb), f"{name} line {n}: fields differ"
+        for a, b in zip(fa, fb, strict=True):
+            try:
+                va, vb = float(a), float(b)
+            except ValueError:
+                assert a == b, f"{name} line {n}: {a!r} != {b!r}"
+                continue
+            tol = BLAS_RTOL * max(abs(va), abs(vb)) + 1.01 * max(_last_digit(a), _last_digit(b))
+            assert abs(va - vb) <= tol, f"{name} line {n}: {a} != {b}"
+
+
+def _assert_zip_close(bundled: Path, fresh: Path) -> None:
+    with zipfile.ZipFile(bundled) as za, zipfile.ZipFile(fresh) as zb:
+        assert za.namelist() == zb.namelist(), f"{bundled.name}: members differ"
+        for member in za.namelist():
+            _assert_text_close(f"{bundled.name}/{member}", za.read(member).decode("utf-8"),
+                               zb.read(member).decode("utf-8"))
+
+
 def test_bundled_demo_sections_are_what_the_generator_writes(tmp_path):
     # the committed files must be reproducible from the code as it is: text exactly,
     # numbers to a tolerance that absorbs other CPUs' BLAS kernels (tests run on any CPU)
@@ -136,8 +173,13 @@ def test_bundled_demo_sections_are_what_the_generator_writes(tmp_path):
     for key, path in fresh.items():
         bundled = BUNDLED / path.name
         assert bundled.is_file(), f"{bundled} is missing; run python -m sectionkit.demo --write"
-        if path.suffix == ".csv":
+        if path.name.startswith("truth_"):
             _assert_csv_close(bundled, path)
+        elif path.suffix == ".zip":
+            _assert_zip_close(bundled, path)
+        elif path.suffix == ".csv":
+            _assert_text_close(path.name, bundled.read_text(encoding="utf-8"),
+                               path.read_text(encoding="utf-8"))
         elif path.suffix == ".nc":
             _assert_netcdf_close(bundled, path)
         elif path.suffix == ".zip":  # CTD casts: observed water, no BLAS on the way

@@ -47,7 +47,7 @@ ALPHA = 1e-3
 
 
 def _config(**inverse) -> Config:
-    inv = {"conserve": ["mass", "salt"], "noise_layer": [1.0, 0.5, 0.5], "prior_velocity": 0.01}
+    inv = {"conserve": ["mass", "salt"], "noise_class": [1.0, 0.5, 0.5], "prior_velocity": 0.01}
     inv.update(inverse)
     return parse_config({
         "title": "invented twin box",
@@ -56,7 +56,7 @@ def _config(**inverse) -> Config:
                      {"name": "north", "file": "north.nc", "into_box": False}],
         "reference": {"pressure": 3000.0},
         "ekman": {"stress": {"south": [0.05, 0.0]}},
-        "layers": {"interfaces": [{"sigma": 26.8, "p_ref": 0.0},
+        "classes": {"interfaces": [{"sigma": 26.8, "p_ref": 0.0},
                                   {"sigma": 36.95, "p_ref": 2000.0}],
                    "names": LAYERS},
         "inverse": inv,
@@ -222,7 +222,7 @@ def test_data_noise_spread_matches_its_linear_propagation():
         for layer in LAYERS:
             g = out.gradient[out.index(f"volume:{layer}")][active]
             sd = float(np.sqrt(g @ gain @ n @ gain.T @ g))
-            moved = ens["volume"].sel(section=section, layer=layer).values - base.value(
+            moved = ens["volume"].sel(section=section, **{"class": layer}).values - base.value(
                 section, f"volume:{layer}")
             z.append(moved / sd)
     z = np.stack(z, axis=1)
@@ -246,8 +246,10 @@ def test_summary_statistics_are_those_of_the_members():
     np.testing.assert_allclose(
         ens["volume_spread_ratio"].values,
         values.std(axis=0, ddof=1) / ens["volume_base_error"].values)
-    assert ens["volume"].attrs["units"] == "Sv" and ens["heat"].attrs["units"] == "PW"
-    assert list(ens["layer"].values) == LAYERS
+    # CF / UDUNITS units (1 Sv = 1e6 m3 s-1, 1 PW = 1e15 W); "Sv" only as the display unit
+    assert ens["volume"].attrs["units"] == "1e6 m3 s-1" and ens["heat"].attrs["units"] == "1e15 W"
+    assert ens["volume"].attrs["display_units"] == "Sv"
+    assert list(ens["class"].values) == LAYERS
 
 
 def _write_cf(section: xr.Dataset, path: Path) -> None:

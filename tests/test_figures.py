@@ -31,15 +31,15 @@ def make_study(inverse: dict | None = None) -> Study:
             {"name": "south", "file": "south.nc"},
             {"name": "north", "file": "north.nc", "into_box": False},
         ],
-        "reference": {"pressure": 2000.0, "overrides": {"south:2": "bottom"}},
+        "reference": {"pressure": 2000.0, "overrides": {"south:2": "deepest_common"}},
         "ekman": {"stress": {"south": [-0.06, 0.0]}},
-        "layers": {
+        "classes": {
             "interfaces": [{"sigma": 26.8, "p_ref": 0.0}, {"sigma": 36.9, "p_ref": 2000.0}],
-            "names": ["upper", "mid", "deep"],
+            "names": ["upper", "mid", "deep_water"],
         },
     }
     if inverse is not None:
-        cfg["inverse"] = {"noise_layer": [1.0, 1.0, 1.0], **inverse}
+        cfg["inverse"] = {"noise_class": [1.0, 1.0, 1.0], **inverse}
     sections = {"south": invented_line(5, 25.0), "north": invented_line(6, 40.0)}
     return Study.from_config(parse_config(cfg), sections=sections)
 
@@ -78,13 +78,14 @@ def test_velocity_section_has_labelled_axes_zero_centred_colours_and_colour_bar(
     bottom, top = ax.get_ylim()
     assert bottom > top == 0.0, "pressure increases downward"
     assert isinstance(mesh, QuadMesh)
-    assert mesh.norm.vcenter == 0.0 and mesh.norm.vmin == -mesh.norm.vmax
+    assert mesh.norm.vmin == -mesh.norm.vmax and mesh.norm(0.0) == pytest.approx(0.5)
     assert mesh.get_cmap().name == "RdBu_r"
     colorbars = [a for a in fig.axes if a.get_ylabel() == "velocity (m s⁻¹)"]
     assert len(colorbars) == 1
     # bottom shaded grey, interfaces contoured, reference levels drawn
     assert any(isinstance(c, PolyCollection) for c in ax.collections)
-    assert sum(isinstance(c, ContourSet) for c in ax.collections) == 2
+    # two interfaces and one set of labelled velocity contours
+    assert sum(isinstance(c, ContourSet) for c in ax.collections) == 3
     refs = [c for c in ax.collections if isinstance(c, LineCollection)
             and c.get_label() == "reference level"]
     assert len(refs) == 1 and len(refs[0].get_segments()) == op.n_pair
@@ -143,8 +144,8 @@ def test_class_transport_bars_show_initial_and_adjusted_with_errors(solved):
     initial, adjusted, error = F.output_block(results, "south", names)
     heights = [p.get_height() for p in ax.patches]
     np.testing.assert_allclose(heights, np.concatenate([initial, adjusted]))
-    assert ax.get_ylabel() == "transport (Sv)"
-    assert [t.get_text() for t in ax.get_xticklabels()] == ["upper", "mid", "deep"]
+    assert ax.get_ylabel() == "volume transport (Sv)"
+    assert [t.get_text() for t in ax.get_xticklabels()] == ["upper", "mid", "deep water"]
     np.testing.assert_allclose(error, [results.error("south", n) for n in names])
     bars = [c for c in ax.containers if isinstance(c, BarContainer)]
     assert [b.get_label() for b in bars] == ["initial", "adjusted ± 1σ"]
@@ -160,7 +161,8 @@ def test_overturning_in_depth_and_density(solved):
     assert ax_z.get_ylim()[0] > ax_z.get_ylim()[1]
     op = study.operators["south"]
     psi = [results.value("south", f"psi_depth:{k}") for k in range(op.pressure.size)]
-    (adjusted_line,) = [line for line in ax_z.lines if line.get_label() == "south adjusted"]
+    (adjusted_line,) = [line for line in ax_z.lines
+                        if line.get_label().startswith("south adjusted")]
     np.testing.assert_allclose(adjusted_line.get_xdata(), psi)
     labels = [t.get_text() for t in ax_r.get_yticklabels()]
     assert labels[0] == "top" and labels[-1] == "all" and len(labels) == 4
@@ -203,8 +205,8 @@ def test_inverse_diagnostics_show_singular_values_residuals_and_resolution(solve
     assert titles[0].startswith("scaled singular values")
     assert titles[1] == "constraint residuals" and titles[2] == "resolution of pair adjustments"
     ax = fig.axes[1]
-    assert [t.get_text() for t in ax.get_yticklabels()] == [r[1] for r in
-                                                             results.inverse.system.rows]
+    assert [t.get_text() for t in ax.get_yticklabels()] == [
+        r[1].replace(":", ", ").replace("_", " ") for r in results.inverse.system.rows]
     after = ax.collections[-1].get_offsets()[:, 0]
     np.testing.assert_allclose(after, results.inverse.normalized_residuals)
     assert F.inverse_figure(study, study.solve(inverse=False)) is None
@@ -255,3 +257,123 @@ def test_without_inverse_there_is_no_diagnostics_figure():
     assert sorted(figures) == ["class_transports", "overturning", "station_map",
                                "velocity_north", "velocity_south"]
     assert "no inverse" in figures["velocity_south"].axes[0].get_title(loc="left")
+
+
+# ---------------------------------------------------------------- figures that stand alone
+
+
+def _texts(fig) -> str:
+    """Every text a reader sees: titles, axis labels, tick labels, legends, colour bars."""
+    out = [t.get_text() for t in fig.texts]
+    for ax in fig.axes:
+        out += [ax.get_title(loc) for loc in ("left", "center", "right")]
+        out += [ax.get_xlabel(), ax.get_ylabel()]
+        out += [t.get_text() for t in ax.get_xticklabels() + ax.get_yticklabels()]
+        out += [t.get_text() for t in ax.texts]
+        for child in ax.child_axes:
+            out += [t.get_text() for t in child.get_xticklabels()]
+        legend = ax.get_legend()
+        if legend is not None:
+            out += [t.get_text() for t in legend.get_texts()]
+    for legend in fig.legends:
+        out += [t.get_text() for t in legend.get_texts()]
+    return "\n".join(out)
+
+
+def test_sign_convention_is_stated_in_words_tied_to_each_line(solved):
+    # the invented lines run west to east (longitude increasing with station order): positive
+    # transport, to the left of increasing station order, is northward (DESIGN.md §4)
+    study, results = solved
+    ds = study.sections["south"]
+    assert np.all(np.diff(ds["lon"].values) > 0)
+    first, last = str(ds["station"].values[0]), str(ds["station"].values[-1])
+    phrase = f"positive = northward across {first}→{last}"
+    figs = F.build_figures(study, results)
+    assert phrase in _texts(figs["velocity_south"])
+    assert phrase in _texts(figs["class_transports"])
+    assert "+ northward across" in _texts(figs["overturning"])
+    assert "positive:" in _texts(figs["overturning"])
+
+
+def test_positive_direction_of_a_line_in_compass_words():
+    from sectionkit.geometry import positive_direction
+
+    # to the left of the direction of travel (DESIGN.md §4): west->east counts northward
+    assert positive_direction([-30.0, -10.0], [24.0, 24.0]) == "northward"
+    assert positive_direction([-10.0, -30.0], [24.0, 24.0]) == "southward"
+    assert positive_direction([-20.0, -20.0], [10.0, 30.0]) == "westward"
+    assert positive_direction([-20.0, -20.0], [30.0, 10.0]) == "eastward"
+
+
+def test_velocity_colour_scale_reaches_the_fastest_current():
+    # a narrow boundary jet 30 times faster than the interior: the scale must reach it
+    # (no saturation) while the interior keeps a linear colour range
+    v = np.full((10, 100), 0.05)
+    v[0] = 1.5
+    widths = np.full((10, 1), 100e3)
+    widths[0] = 10e3
+    norm = F.velocity_norm(v, widths)
+    assert norm.vmax >= 1.5 and norm.vmin == -norm.vmax
+    assert float(norm(0.0)) == pytest.approx(0.5)
+    # the interior speed still spans a visible part of the colour range (>= 1/8 of each half)
+    assert float(norm(0.05)) - 0.5 > 0.5 / 8
+    levels = F.velocity_contour_levels(norm)
+    assert 1.0 in levels and -1.0 in levels and 0.0 not in levels
+
+
+def test_velocity_contours_are_labelled_in_m_per_s(solved):
+    study, results = solved
+    fig = F.velocity_figure(study, results, "south")
+    ax = fig.axes[0]
+    labels = [t.get_text() for t in ax.texts]
+    numbers = [float(t) for t in labels if t.replace(".", "").replace("-", "").isdigit()]
+    assert numbers, labels  # clabel texts of the velocity contours
+    assert any(t.startswith("σ₀ 26.8") or t.startswith("σ₂ 36.9") for t in labels)
+
+
+def test_station_labels_have_a_constant_stride_and_do_not_crowd():
+    keep = F.station_label_indices(47, most=16)
+    assert keep[0] == 0 and len(keep) <= 16
+    assert np.all(np.diff(keep) == keep[1] - keep[0])
+    np.testing.assert_array_equal(F.station_label_indices(5), np.arange(5))
+    # stations 10 km apart near the ends, 100 km in the interior: one stride throughout,
+    # wide enough that neighbouring labels keep 0.55 of an even share of the width apart
+    x = np.concatenate([np.arange(5) * 10.0, 40 + np.arange(1, 20) * 100.0])
+    x = np.concatenate([x, x[-1] + np.arange(1, 5) * 10.0])
+    keep = F.station_label_indices(x.size, positions=x)
+    assert np.all(np.diff(keep) == keep[1] - keep[0])
+    assert np.min(np.diff(x[keep])) >= 0.55 * (x[-1] - x[0]) / F.MAX_STATION_LABELS
+
+
+def test_overturning_error_bars_of_different_series_do_not_overlap(solved):
+    study, results = solved
+    fig = F.overturning_figure(study, results)
+    ax_r = fig.axes[1]
+    ys = [tuple(np.round(line.get_ydata(), 6)) for line in ax_r.lines
+          if len(line.get_ydata()) == 4]
+    # south, north x initial, adjusted: each series (line, caps) sits at its own height
+    assert len(set(ys)) == 4
+
+
+def test_inverse_diagnostics_are_titled_with_the_solver_name(solved):
+    study, results = solved
+    fig = F.inverse_figure(study, results)
+    assert fig._suptitle.get_text().startswith("Gauss–Markov")
+
+
+def test_every_axis_of_every_figure_has_labels_with_units(solved):
+    study, results = solved
+    for stem, fig in F.build_figures(study, results).items():
+        for ax in fig.axes:
+            if not ax.get_visible() or not ax.has_data():
+                continue
+            assert ax.get_xlabel() or ax.get_ylabel(), stem
+        text = _texts(fig)
+        assert "_" not in text.replace("velocity_", ""), (stem, [t for t in text.split("\n")
+                                                               if "_" in t])
+    units = {"velocity_south": "(m s⁻¹)", "class_transports": "(Sv)", "overturning": "(Sv)",
+             "station_map": "(degrees)"}
+    figs = F.build_figures(study, results)
+    for stem, unit in units.items():
+        assert unit in _texts(figs[stem]) + "\n".join(
+            a.get_ylabel() for a in figs[stem].axes), stem

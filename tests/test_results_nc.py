@@ -136,3 +136,45 @@ def test_without_an_inverse_adjusted_equals_initial_and_errors_are_missing(witho
                                    ds["class_volume_transport_initial"])
         assert bool(ds["net_volume_transport_error"].isnull().all())
         assert "constraint" not in ds.dims and "unknown" not in ds.dims
+
+
+def test_tracer_transports_are_in_results_nc_in_kmol_per_second():
+    from _synthetic import thermocline_section
+
+    from sectionkit.config import parse_config
+    from sectionkit.dataset import results_dataset
+    from sectionkit.study import Study
+
+    ds = thermocline_section(n=6, dp=10.0)
+    ds["oxygen"] = (("station", "pressure"),
+                    np.where(np.isfinite(ds["SA"].values), 200.0, np.nan),
+                    {"units": "umol/kg", "role": "tracer"})
+    cfg = parse_config({
+        "sections": [{"name": "south", "file": "unused.nc", "bottle": "unused.csv"}],
+        "classes": {"interfaces": [{"sigma": 26.8, "p_ref": 0.0}]},
+        "tracers": {"transport": ["oxygen"]},
+        "inverse": {"conserve": ["mass"]},
+    })
+    study = Study.from_config(cfg, sections={"south": ds})
+    out = results_dataset(study, study.solve())
+    var = out["class_tracer_transport_adjusted"]
+    assert var.dims == ("section", "tracer", "class") and list(out["tracer"].values) == ["oxygen"]
+    assert cf_units.Unit(var.attrs["units"]).is_convertible(cf_units.Unit("mol s-1"))
+    # a uniform 200 umol/kg tracer: 200 umol/kg x rho0 (1025 kg m-3) x 1e6 m3 s-1 per Sv
+    # / 1e9 umol per kmol = 205 kmol s-1 per Sv of mass transport / rho0 (hand calculation)
+    np.testing.assert_allclose(var.values[0, 0], 205.0 * out["class_mass_transport_adjusted"]
+                               .values[0], rtol=1e-9)
+
+
+def test_every_registered_unit_spelling_parses_and_scales_as_its_display_unit():
+    # every CF spelling the registry hands out (results.nc, the xarray layer, ensemble.nc)
+    # is read by UDUNITS, and its SI value is the display unit's (1 Sv = 1e6 m3 s-1, 1 PW =
+    # 1e15 W, common practice; 1 km2 = 1e6 m2; 1 kmol = 1e3 mol)
+    from sectionkit.outputs import SCALE
+
+    si = {"1e6 m3 s-1": "m3 s-1", "1e6 m3 s-1 g kg-1": "m3 s-1 g kg-1", "1e15 W": "W",
+          "m s-1": "m s-1", "dbar": "dbar", "km": "m", "km2": "m2", "kg m-3": "kg m-3",
+          "kmol s-1": "mol s-1", "1": "1"}
+    for display, cf in UDUNITS.items():
+        unit = cf_units.Unit(cf)
+        assert unit.convert(1.0, cf_units.Unit(si[cf])) == pytest.approx(SCALE[display]), display

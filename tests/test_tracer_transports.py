@@ -224,8 +224,8 @@ noise = 0.05
     assert (tracer_rows["adjusted_err"] > 0).all()
     assert "Tracer transports by density class" in (tmp_path / "out" / "tables.md").read_text()
     with xr.open_dataset(tmp_path / "out" / "results.nc") as nc:
-        got = nc["tracer_transport_adjusted"].sel(section="line", tracer="oxygen").values
-        assert nc["tracer_transport_adjusted"].attrs["units"] == "kmol s-1"
+        got = nc["class_tracer_transport_adjusted"].sel(section="line", tracer="oxygen").values
+        assert nc["class_tracer_transport_adjusted"].attrs["units"] == "kmol s-1"
     csv = tracer_rows[tracer_rows["property"] == "oxygen"]["adjusted"].to_numpy()
     np.testing.assert_allclose(got, csv, rtol=1e-6)
     provenance = (tmp_path / "out" / "provenance.json").read_text()

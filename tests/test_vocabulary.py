@@ -163,3 +163,52 @@ def test_ensemble_options_reach_the_perturbation():
     assert (p.temperature, p.salinity, p.pressure, p.mode) == (0.003, 0.004, 2.0, "level")
     assert p.reference_range == (2000.0, 3500.0) and p.prior_factor == (0.5, 2.0)
     assert p.constraints == "twin"
+
+
+def test_csv_only_flags_on_a_netcdf_file_are_an_error(tmp_path, capsys):
+    sec = invented_section(4, dp=10.0, lat0=30.0, bottoms=[800, 1200, 1200, 800])
+    path = write_netcdf(tmp_path / "line.nc", sec)
+    assert main(["check", str(path)]) == 0
+    capsys.readouterr()
+    assert main(["check", "--temperature-kind", "conservative", str(path)]) == 1
+    message = capsys.readouterr().err
+    assert "--temperature-kind applies to CSV files only" in message and "standard_name" in message
+
+
+# ---------------------------------------------------- batch and workbench say it alike
+def _small_study():
+    from _synthetic import invented_line
+
+
+    cfg = parse_config({
+        "sections": [{"name": "south", "file": "s.nc"}, {"name": "north", "file": "n.nc",
+                                                          "into_box": False}],
+        "classes": {"interfaces": [{"sigma": 26.8, "p_ref": 0.0},
+                                   {"sigma": 36.9, "p_ref": 2000.0}]},
+        "inverse": {},
+    })
+    return cfg, {"south": invented_line(5, 25.0), "north": invented_line(6, 40.0)}
+
+
+def test_workbench_and_batch_figures_label_interfaces_alike():
+    from sectionkit.layers import sigma_label
+    from sectionkit.workbench.model import WorkbenchState
+
+    cfg, sections = _small_study()
+    state = WorkbenchState(cfg, sections, autosave=False)
+    labels = [face[0] for face in state.velocity_section("south").interfaces]
+    assert labels == ["σ₀ 26.8", "σ₂ 36.9"]
+    assert labels == [sigma_label(f.sigma, f.p_ref) for f in cfg.interfaces]
+
+
+def test_workbench_section_numbers_say_net_volume_and_net_mass():
+    from sectionkit.study import Study
+    from sectionkit.tables import tables
+    from sectionkit.workbench import render
+
+    cfg, sections = _small_study()
+    study = Study.from_config(cfg, sections=sections)
+    summary = tables(study, study.solve())["section_summary.csv"]
+    text = render.section_numbers_html(summary)
+    assert "net volume (Sv)" in text and "net mass / ρ₀ (Sv)" in text
+    assert "<td style" in text and ">net (Sv)<" not in text

@@ -18,6 +18,7 @@ from sectionkit.config import Config, parse_config
 from sectionkit.geometry import pair_geometry
 from sectionkit.modelsection import model_section, section_time_series
 from sectionkit.operator import RHO0
+from sectionkit.outputs import udunits
 from sectionkit.study import Study
 from sectionkit.xr import OUTPUTS, budget_from_config
 
@@ -36,10 +37,10 @@ def _config(**reference) -> Config:
                      {"name": "north", "file": "north.nc", "into_box": False}],
         "reference": ref,
         "ekman": {"stress": {"south": [0.06, 0.01]}},
-        "layers": {"interfaces": [{"sigma": 26.8, "p_ref": 0.0},
+        "classes": {"interfaces": [{"sigma": 26.8, "p_ref": 0.0},
                                   {"sigma": 36.95, "p_ref": 2000.0}],
                    "names": LAYERS},
-        "inverse": {"conserve": ["mass", "salt"], "noise_layer": [1.0, 0.5, 0.5],
+        "inverse": {"conserve": ["mass", "salt"], "noise_class": [1.0, 0.5, 0.5],
                     "prior_velocity": 0.01},
     })
 
@@ -78,15 +79,16 @@ def test_leading_dimensions_pass_through_with_units_and_layer_names():
     cfg = _config()
     ds = _stacked(_sections()["south"])
     out = budget_from_config(ds, cfg, "south")
-    assert out["volume_transport"].dims == ("member", "time", "layer")
-    assert out["pair_volume_transport"].dims == ("member", "time", "pair", "layer")
+    assert out["volume_transport"].dims == ("member", "time", "class")
+    assert out["pair_volume_transport"].dims == ("member", "time", "pair", "class")
     assert out["net"].dims == ("member", "time")
     assert out["psi_depth"].dims == ("member", "time", "pressure")
     assert out["psi_density"].dims == ("member", "time", "interface")
-    assert list(out["layer"].values) == LAYERS
+    assert list(out["class"].values) == LAYERS
     assert out.sizes["pair"] == ds.sizes["station"] - 1
     for spec in OUTPUTS:
-        assert out[spec.name].attrs["units"] == spec.units
+        assert out[spec.name].attrs["units"] == udunits(spec.display)  # CF spelling, never Sv
+        assert out[spec.name].attrs["display_units"] == spec.display
     assert np.all(np.isfinite(out["volume_transport"].values))
 
 
@@ -114,7 +116,7 @@ def test_without_leading_dimensions_the_wrapper_gives_the_study_numbers():
         for layer in LAYERS:
             for q in ("volume", "mass", "heat"):
                 want = results.value(name, f"{q}:{layer}")
-                got = float(out[f"{q}_transport"].sel(layer=layer))
+                got = float(out[f"{q}_transport"].sel({"class": layer}))
                 assert got == pytest.approx(want, rel=1e-10, abs=1e-12)
         for key in ("net", "net_mass", "heat", "freshwater", "overturning",
                     "overturning_density"):

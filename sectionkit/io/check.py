@@ -6,6 +6,7 @@ import argparse
 import dataclasses
 import sys
 from collections.abc import Mapping, Sequence
+from pathlib import Path
 from typing import Any, TextIO
 
 import numpy as np
@@ -16,6 +17,7 @@ from sectionkit.geometry import great_circle_distance
 from sectionkit.io.bottle import grid_tracers, read_bottle, tracer_variables
 from sectionkit.io.casts import Source
 from sectionkit.io.csvfile import CSV_COLUMNS
+from sectionkit.io.formats import CSV_SUFFIXES
 from sectionkit.io.raw import RawSection
 from sectionkit.io.section import grid_raw_section, read_section
 from sectionkit.io.validate import validate_section
@@ -282,9 +284,23 @@ def run_check(
     except argparse.ArgumentTypeError as exc:
         print(f"error: {exc}", file=err)
         return 1
+    csv_flags = [flag for flag, given, default in (
+        ("--column", args.column, None), ("--temperature-kind", args.temperature_kind, "in-situ"),
+        ("--salinity-kind", args.salinity_kind, "practical"),
+        ("--pressure-units", args.pressure_units, "dbar"),
+        ("--temperature-units", args.temperature_units, "degC")) if given != default]
     for i, file in enumerate(args.files):
         if i:
             print(file=out)
+        if csv_flags and Path(file).is_file() and Path(file).suffix.lower() not in CSV_SUFFIXES:
+            # the readers ignore them for NetCDF, so saying nothing would misinform
+            verb = "applies" if len(csv_flags) == 1 else "apply"
+            print(f"error: {file}: {', '.join(csv_flags)} {verb} to CSV files only; a NetCDF "
+                  "file states what its temperature and salinity are by standard_name and "
+                  "its units by units attributes; drop the option or correct the file's "
+                  "attributes", file=err)
+            status = 1
+            continue
         try:
             text = describe_section(file, args.dp, allow_equator=args.allow_equator,
                                     bottle=getattr(args, "bottle", None), **options)

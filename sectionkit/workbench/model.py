@@ -607,7 +607,7 @@ class WorkbenchState:
         velocity = op.absolute_velocity(snap.offsets[section], adjustment)
         distance = np.concatenate([[0.0], np.cumsum(op.pairs["distance"].values)]) / 1e3
         faces = tuple(
-            (face.label(), op.sigma_pair[face.p_ref], float(face.sigma))
+            (face.display(), op.sigma_pair[face.p_ref], float(face.sigma))  # "σ₁ 32.15"
             for face in self._config.interfaces
         )
         cache = getattr(self, "_interface_cache", {})

@@ -16,6 +16,7 @@ from collections.abc import Mapping
 import numpy as np
 import pandas as pd
 
+from sectionkit.layers import class_display_name
 from sectionkit.workbench.model import BoxBudget, ClassTransports
 from sectionkit.workbench.snapshot import InverseView, LineDirection
 
@@ -82,7 +83,8 @@ def class_table_html(table: ClassTransports,
             mark = (" <span class='sk-flag' style='color:#b35900' title='new class: inverse "
                     "settings are defaults'>new</span>" if layer in flagged else "")
             rows.append(
-                f"<tr><td style='{CELL}'></td><td style='{CELL}'>{html.escape(layer)}{mark}</td>"
+                f"<tr><td style='{CELL}'></td>"
+                f"<td style='{CELL}'>{html.escape(class_display_name(layer))}{mark}</td>"
                 f"<td style='{NUM}'>{_fmt(initial)}</td>"
                 f"<td style='{NUM}'>{_pm(adjusted, float(table.error[s, i]))}</td>"
                 f"<td style='{NUM}'>{_fmt(adjusted - initial)}</td></tr>"
@@ -161,7 +163,8 @@ def section_numbers_html(summary: pd.DataFrame,
     """
     directions = directions or {}
     items = (
-        ("net (Sv)", "net_sv", "net_err_sv", 2),
+        ("net volume (Sv)", "net_sv", "net_err_sv", 2),
+        ("net mass / ρ₀ (Sv)", "net_mass_sv", "net_mass_err_sv", 2),
         ("heat (PW)", "heat_pw", "heat_err_pw", 3),
         ("freshwater (Sv)", "freshwater_sv", "freshwater_err_sv", 3),
         ("overturning, depth (Sv)", "overturning_sv", "overturning_err_sv", 2),

@@ -27,6 +27,7 @@ import numpy as np
 from sectionkit.budget import SV
 from sectionkit.config import Config, InverseSpec
 from sectionkit.errors import ConfigError
+from sectionkit.geometry import compass_name
 from sectionkit.layers import Interface
 from sectionkit.study import Results, Study
 
@@ -34,8 +35,6 @@ from sectionkit.study import Results, Study
 DEFAULT_CLASS_NOISE = 1.0
 #: Per-class salt or heat noise meaning "the automatic value" (config: 0 = automatic).
 AUTOMATIC_NOISE = 0.0
-COMPASS = ("northward", "north-eastward", "eastward", "south-eastward", "southward",
-           "south-westward", "westward", "north-westward")
 MAX_SENSITIVITY_LEVELS = 400
 
 
@@ -81,20 +80,8 @@ class LineDirection:
 
 
 def compass_of(east: float, north: float) -> str:
-    """Eight-point compass name of a direction given by its components.
-
-    Parameters
-    ----------
-    east, north : float
-        Components of the direction, any common unit.
-
-    Returns
-    -------
-    str
-        ``"northward"``, ``"north-eastward"``, ... ``"north-westward"``.
-    """
-    bearing = math.degrees(math.atan2(east, north)) % 360.0  # clockwise from north
-    return COMPASS[int(((bearing + 22.5) % 360.0) // 45.0)]
+    """Eight-point compass name of a direction (``sectionkit.geometry.compass_name``)."""
+    return compass_name(east, north)
 
 
 def line_direction(study: Study, config: Config, section: str) -> LineDirection:
