@@ -23,7 +23,7 @@ import numpy as np
 import xarray as xr
 
 from sectionkit.budget import level_end_pressure
-from sectionkit.outputs import SECTION_OUTPUTS, SIGN, OutputSpec, udunits
+from sectionkit.outputs import SECTION_OUTPUTS, SIGN, udunits
 from sectionkit.study import Results, Study
 
 CF_VERSION = "CF-1.10"
@@ -34,16 +34,6 @@ def _package_version() -> str:
         return metadata.version("sectionkit")
     except metadata.PackageNotFoundError:  # pragma: no cover - running from a checkout
         return "unknown"
-
-
-def _keys(spec: OutputSpec, classes: list[str], n_interface: int, n_level: int) -> list[str]:
-    if "class" in spec.dims:
-        return [spec.key.format(**{"class": c}) for c in classes]
-    if "interface" in spec.dims:
-        return [spec.key.format(n=n) for n in range(n_interface)]
-    if "level" in spec.dims:
-        return [spec.key.format(k=k) for k in range(n_level)]
-    return [spec.key]
 
 
 def _section_variables(study: Study, results: Results, levels: np.ndarray) -> dict:
@@ -63,7 +53,7 @@ def _section_variables(study: Study, results: Results, levels: np.ndarray) -> di
         for s, name in enumerate(sections):
             out = results.outputs[name]
             n_level = study.operators[name].pressure.size
-            for j, key in enumerate(_keys(spec, classes, n_interface, n_level)):
+            for j, key in enumerate(spec.keys(classes, n_interface, n_level)):
                 k = out.index(key)
                 g = out.gradient[k]
                 at = (s, j) if len(spec.dims) > 1 else (s,)

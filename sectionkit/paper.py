@@ -514,7 +514,9 @@ def inverse_description(study: Study, results: Results, tex: bool = False) -> st
                            for n in inv.section_net)
         text += f"; net transport constrained across {listed}"
     if inv.noise_salt:
-        text += f"; salt-anomaly noise {', '.join(_num(x) for x in inv.noise_salt)} Sv g/kg"
+        text += ("; salt-anomaly noise "
+                 + ", ".join(_num(x) if x > 0 else "automatic" for x in inv.noise_salt)
+                 + " Sv g/kg")
     text += _direct_phrase(study, tex)
     text += ". Errors are one posterior standard deviation."
     return text

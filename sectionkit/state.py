@@ -35,13 +35,14 @@ from sectionkit.config import InverseSpec
 from sectionkit.errors import Cautions
 from sectionkit.inverse import ConstraintSystem, InverseResult, assemble, solve
 from sectionkit.operator import QUANTITIES, SectionOperator
+from sectionkit.outputs import REGISTRY
 from sectionkit.solvers import SOLVERS, output_std
 from sectionkit.tracers import TracerOperator, tracer_outputs
 
 if TYPE_CHECKING:  # pragma: no cover
     from sectionkit.study import Study
 
-__all__ = ["BudgetState", "ReferenceState", "Results"]
+__all__ = ["BudgetState", "ReferenceState", "Results", "Selection"]
 
 
 @dataclass(frozen=True)
@@ -274,6 +275,28 @@ class BudgetState:
         return mean if np.any(mean != 0) else None
 
 
+@dataclass(frozen=True)
+class Selection:
+    """Values of one named output of one section (see :meth:`Results.select`).
+
+    Attributes
+    ----------
+    keys : list of str
+        Names of the values in the section's linear outputs.
+    initial, adjusted, error : ndarray (value,)
+        Before and after the inverse, and the posterior standard deviation
+        (NaN without an inverse), in reporting units.
+    gradient : ndarray (value, unknown)
+        Derivative with respect to every unknown, reporting units per unknown unit.
+    """
+
+    keys: list[str]
+    initial: np.ndarray
+    adjusted: np.ndarray
+    error: np.ndarray
+    gradient: np.ndarray
+
+
 @dataclass
 class Results:
     """Everything a report needs, for one solved budget state.
@@ -337,6 +360,40 @@ class Results:
             return float("nan")
         out = self.outputs[section]
         return float(output_std(out.gradient[out.index(name)], self.covariance))
+
+    def block(self, section: str, keys: list[str]) -> Selection:
+        """Initial, adjusted and error of the outputs ``keys`` of one section."""
+        out = self.outputs[section]
+        idx = np.array([out.index(k) for k in keys], dtype=int)
+        gradient = out.gradient[idx]
+        initial = out.initial[idx]
+        adjusted = initial if self.inverse is None else initial + gradient @ self.estimate
+        if self.covariance is None:
+            error = np.full(idx.size, np.nan)
+        else:
+            error = output_std(gradient, self.covariance)
+        return Selection(list(keys), initial, adjusted, error, gradient)
+
+    def select(self, output: str, section: str) -> Selection:
+        """One registered output of one section by name (:data:`sectionkit.outputs.REGISTRY`).
+
+        Parameters
+        ----------
+        output : str
+            Registry name, e.g. ``"class_volume_transport"`` or ``"overturning_depth"``.
+        section : str
+            Section name.
+
+        Returns
+        -------
+        Selection
+            Values along the output's dimensions other than ``section`` (classes,
+            interfaces or levels).
+        """
+        spec = REGISTRY[output]
+        op = self.state.operators[section]
+        return self.block(section, spec.keys(list(op.layer_names), len(op.interfaces),
+                                             op.pressure.size))
 
     def with_data(self, target: np.ndarray) -> Results:
         """The same state solved with other constraint data ``y`` (an ensemble member's).

@@ -503,13 +503,12 @@ def test_view_keeps_a_refused_input_and_shows_why_beside_it(view):
     assert error.layout.display == "none"
 
 
-def test_view_ctrl_z_undoes_outside_text_fields(view):
+def test_view_ctrl_z_undoes_and_ctrl_shift_z_redoes(view):
     view.slider.value = 1500.0
-    view._on_key({"key": "z", "ctrlKey": True, "target": {"tagName": "INPUT"}})
-    assert view.state.config.reference.pressure == 1500.0  # the text field's own undo
-    view._on_key({"key": "z", "ctrlKey": True, "target": {"tagName": "DIV"}})
+    # what the browser sends on Ctrl+Z
+    view.undo_keys._message(view.undo_keys, {"action": "undo"}, [])
     assert view.state.config.reference.pressure == 2000.0
-    view._on_key({"key": "Z", "ctrlKey": True, "shiftKey": True, "target": {"tagName": "DIV"}})
+    view.undo_keys._message(view.undo_keys, {"action": "redo"}, [])
     assert view.state.config.reference.pressure == 1500.0
     assert "redid: reference" in view.status.value
 
@@ -571,6 +570,34 @@ def test_any_error_while_resuming_is_caught_not_only_sectionkit_errors(box_dir, 
     resumed = WorkbenchState.open(session, resume=True)
     assert "ZeroDivisionError: float division by zero" in resumed.resume_error
     assert (tmp_path / "box.autosave.1.toml").is_file()
+
+
+def _event(fig, fx: float, fy: float, kind: str = "mousemove") -> dict:
+    """An ipyevents mouse event at fractions (fx, fy) of a figure's plot area."""
+    width, height = 640.0, 360.0
+    m = fig.fig_margin
+    return {"event": kind, "boundingRectWidth": width, "boundingRectHeight": height,
+            "relativeX": m["left"] + fx * (width - m["left"] - m["right"]),
+            "relativeY": m["top"] + fy * (height - m["top"] - m["bottom"])}
+
+
+def test_view_hover_reads_out_the_velocity_under_the_pointer(view):
+    section = view.state.velocity_section("south")
+    x = section.station_distance[0] + 0.5 * (section.station_distance[-1]
+                                             - section.station_distance[0])
+    p = 0.25 * float(np.nanmax(section.bottom_pressure)) * 1.03  # the y axis ends 3 % deeper
+    pair = int(np.searchsorted(section.station_distance, x) - 1)
+    level = int(np.searchsorted(section.pressure, p))
+    view._on_pointer(_event(view.figure, 0.5, 0.25))
+    assert f"south:{pair}" in view.readout.value
+    assert f"velocity {section.velocity[pair, level] * 100:+.2f} cm/s" in view.readout.value
+
+
+def test_view_click_on_the_sensitivity_chooses_that_level(view):
+    plot = view.sensitivity_plot
+    middle = 0.5 * (plot.x.min + plot.x.max)
+    view._on_sensitivity_click(_event(plot.figure, 0.5, 0.5, "click"))
+    assert view.state.config.reference.pressure == pytest.approx(round(middle / 10.0) * 10.0)
 
 
 def test_view_shows_why_an_autosave_was_not_resumed(box_dir, tmp_path):

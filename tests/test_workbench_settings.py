@@ -15,6 +15,7 @@ conventions.
 from __future__ import annotations
 
 import copy
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -247,3 +248,46 @@ def test_sensitivity_at_a_level_is_the_batch_run_at_that_level(state, box_dir):
     for s, name in enumerate(sens.sections):
         want = expected[expected["section"] == name]["initial_sv"].to_numpy()
         np.testing.assert_allclose(sens.transports[s, k], want, rtol=1e-9, atol=1e-9)
+
+
+def test_settings_kept_while_the_inverse_is_off_survive_an_undone_class_change(state):
+    state.set_inverse_settings(noise_layer=[0.9, 0.6, 0.3])
+    state.set_inverse(False)
+    state.set_interfaces([(27.2, 0.0), (27.6, 0.0), (36.9, 2000.0)])
+    state.undo()
+    state.set_inverse(True)
+    assert state.config.inverse.noise_layer == [0.9, 0.6, 0.3]
+
+
+def test_a_refused_inverse_edit_keeps_the_new_class_flags(state):
+    state.set_interfaces([(27.2, 0.0), (27.6, 0.0), (36.9, 2000.0)])
+    flagged = state.flagged_classes
+    with pytest.raises(ConfigError):
+        state.set_inverse_settings(noise_layer=[1.0, 1.0])  # wrong length
+    assert state.flagged_classes == flagged
+
+
+def test_a_known_transport_without_a_number_is_one_clear_refusal(state):
+    with pytest.raises(ConfigError, match="known transport 'strait': transport = None"):
+        state.set_inverse_settings(known=[{"name": "strait", "noise": 0.1, "class": "upper"}])
+    assert state.config.inverse.known[0].transport == 0.5
+
+
+def test_a_south_to_north_line_counts_westward_flow_positive():
+    # DESIGN.md §4: positive is to the left of increasing station order; facing north,
+    # left is west (common practice)
+    from types import SimpleNamespace
+
+    import xarray as xr
+
+    from sectionkit.config import parse_config
+    from sectionkit.workbench.snapshot import line_direction
+
+    pairs = xr.Dataset({"distance": ("pair", [1e4, 1e4]), "along_east": ("pair", [0.0, 0.0]),
+                        "along_north": ("pair", [1.0, 1.0])})
+    study = SimpleNamespace(operators={"west": SimpleNamespace(pairs=pairs)},
+                            sections={"west": xr.Dataset(coords={"station": ["W1", "W2", "W3"]})})
+    config = parse_config({"sections": [{"name": "west", "file": "w.nc", "into_box": False}]},
+                          base_dir=Path("."))
+    d = line_direction(study, config, "west")
+    assert d.describe() == "+ = westward across W1→W3, out of the box box"

@@ -6,9 +6,10 @@ current one, validates it exactly as a saved file would be validated, and
 recomputes only what depends on the change:
 
 * a new reference (global level, mode or a pair's override) is a linear
-  update: the reference offsets are resolved again (cheap), the class
+  update: the reference offsets are resolved again (cheap), the budget state
+  is derived with them (:meth:`sectionkit.state.BudgetState.derive`), the class
   transports are ``relative + area * offset`` and, with an inverse, the new
-  estimate is the solver's gain applied to the shifted constraint data. The
+  estimate comes from the fitted linear solver's gain (no new fit). The
   full budget (overturning, heat, freshwater) is recomputed only when asked
   for (:attr:`WorkbenchState.results`), so a slider never waits for it;
 * a new Ekman stress or inverse setting runs :meth:`Study.solve` on the
@@ -17,19 +18,21 @@ recomputes only what depends on the change:
   section operators;
 * a configuration naming other section files loads them.
 
-Each change is recorded for undo/redo, written to an autosave file beside
-the session (atomic write) and announced to listeners as a :class:`Change`.
+Each change is recorded for undo/redo (a dragged slider is one step),
+written to an autosave file beside the session (atomic write) and announced
+to listeners as a :class:`Change`.
+
+This module holds the controls and the history. The numbers live in
+:mod:`sectionkit.workbench.snapshot` (:class:`~sectionkit.workbench.snapshot.Engine`:
+full solves and linear updates, and the value objects the tables show); the
+files in :mod:`sectionkit.workbench.session` (autosave writer, backups).
 """
 
 from __future__ import annotations
 
-import atexit
 import copy
 import dataclasses
-import os
-import threading
 import time
-import weakref
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -38,7 +41,6 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from sectionkit.budget import SV, UnknownLayout
 from sectionkit.config import (
     Config,
     InverseSpec,
@@ -50,24 +52,40 @@ from sectionkit.config import (
     parse_reference,
 )
 from sectionkit.errors import Cautions, ConfigError, SectionkitError
+from sectionkit.geometry import along_line_distance
 from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
 from sectionkit.labels import parse_pair_label
 from sectionkit.layers import Interface, check_interfaces
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
+from sectionkit.workbench.session import (
+    AUTOSAVE_COALESCE as AUTOSAVE_COALESCE,  # re-exported: the module's public names
+)
+from sectionkit.workbench.session import (
+    AUTOSAVE_SUFFIX,
+    AutosaveWriter,
+    keep_backup,
+    portable,
+)
 from sectionkit.workbench.snapshot import (
+    BoxBudget,
+    ClassTransports,
+    Engine,
     InverseView,
     LineDirection,
     ReferenceSensitivity,
+    VelocitySection,
     class_names_by_bounds,
+    data_key,
     inverse_view,
     line_direction,
     map_class_settings,
+    operator_key,
+    reference_error_key,
     reference_sensitivity,
+    solve_key,
 )
 
 REFERENCE_MODES = ("pressure", "bottom", "isopycnal")
-AUTOSAVE_SUFFIX = ".autosave.toml"
-AUTOSAVE_COALESCE = 0.05  # s a change waits for newer ones before the autosave is written
 GESTURE_GAP = 1.0  # s: changes of one control closer than this are one undo step (a drag)
 
 Listener = Callable[["Change"], None]
@@ -99,253 +117,6 @@ class Change:
     description: str
     linear: bool
     gesture: str | None = None
-
-
-@dataclass(frozen=True)
-class ClassTransports:
-    """Volume transport of every section in every density class.
-
-    Attributes
-    ----------
-    sections : tuple of str
-        Section names, configuration order.
-    layers : tuple of str
-        Class names, light to dense.
-    initial : ndarray (section, class)
-        Transport with the chosen references, Sv, positive to the left of
-        increasing station order (the section's own frame).
-    adjusted : ndarray (section, class)
-        After the inverse's reference adjustments, Sv (equals ``initial``
-        without an inverse).
-    error : ndarray (section, class)
-        Posterior standard deviation of ``adjusted``, Sv (NaN without an
-        inverse).
-    inverse : bool
-        Whether an inverse adjusted the transports.
-    """
-
-    sections: tuple[str, ...]
-    layers: tuple[str, ...]
-    initial: np.ndarray
-    adjusted: np.ndarray
-    error: np.ndarray
-    inverse: bool
-
-    def to_frame(self) -> pd.DataFrame:
-        """One row per section x class: section, class, initial_sv, adjusted_sv, adjusted_err_sv."""
-        rows = []
-        for s, section in enumerate(self.sections):
-            for i, layer in enumerate(self.layers):
-                rows.append({
-                    "section": section,
-                    "class": layer,
-                    "initial_sv": float(self.initial[s, i]),
-                    "adjusted_sv": float(self.adjusted[s, i]),
-                    "adjusted_err_sv": float(self.error[s, i]),
-                })
-        return pd.DataFrame(rows)
-
-
-@dataclass(frozen=True)
-class BoxBudget:
-    """Net inflow of every box constraint.
-
-    Attributes
-    ----------
-    rows : tuple of (str, str)
-        (box, constraint) with constraint ``mass:<class>``, ``mass:total``,
-        ``salt:<class>`` or ``heat:<class>``.
-    initial, adjusted : ndarray (row,)
-        Net inflow into the box before and after the inverse, in ``units``
-        (positive in).
-    noise : ndarray (row,)
-        One standard deviation of each constraint's noise (NaN without an
-        inverse).
-    units : tuple of str
-        ``"Sv"``, ``"Sv g/kg"`` or ``"PW"`` per row.
-    posterior_std : ndarray (row,) or None
-        Residual std the estimate can achieve, sqrt(diag(N - E P E^T)) in
-        ``units`` (Wunsch 1996, ch. 3); None without an inverse.
-    """
-
-    rows: tuple[tuple[str, str], ...]
-    initial: np.ndarray
-    adjusted: np.ndarray
-    noise: np.ndarray
-    units: tuple[str, ...]
-    posterior_std: np.ndarray | None = None
-
-    @property
-    def normalized_residual(self) -> np.ndarray:
-        """Adjusted inflow over its noise, dimensionless (DESIGN.md §7)."""
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return self.adjusted / self.noise
-
-    @property
-    def posterior_normalized_residual(self) -> np.ndarray:
-        """Adjusted inflow over its posterior residual std (NaN without an inverse)."""
-        if self.posterior_std is None:
-            return np.full(len(self.rows), np.nan)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return np.where(self.posterior_std > 0, self.adjusted / self.posterior_std, np.nan)
-
-    def to_frame(self) -> pd.DataFrame:
-        """One row per constraint, the columns of box_budget.csv."""
-        return pd.DataFrame({
-            "box": [r[0] for r in self.rows],
-            "constraint": [r[1] for r in self.rows],
-            "initial": self.initial,
-            "adjusted": self.adjusted,
-            "noise": self.noise,
-            "normalized_residual": self.normalized_residual,
-            "posterior_residual_std": (np.full(len(self.rows), np.nan)
-                                       if self.posterior_std is None else self.posterior_std),
-            "posterior_normalized_residual": self.posterior_normalized_residual,
-            "unit": list(self.units),
-        })
-
-
-@dataclass(frozen=True)
-class VelocitySection:
-    """What a velocity-section figure shows, on plain arrays.
-
-    Attributes
-    ----------
-    section : str
-        Section name.
-    station_distance : ndarray (station,)
-        Along-line distance of each station from the first, km.
-    pressure : ndarray (level,)
-        Pressure grid, dbar.
-    velocity : ndarray (pair, level)
-        Absolute geostrophic velocity (chosen reference plus any inverse
-        adjustment), m s^-1, positive to the left of increasing station
-        order; NaN below the bottom.
-    reference_pressure : ndarray (pair,)
-        Pressure each pair's reference actually used, dbar.
-    bottom_pressure : ndarray (station,)
-        Sea-floor pressure of each station, dbar.
-    interfaces : tuple of (str, ndarray (pair, level), float)
-        Each class interface: label, the pair-mean potential density anomaly
-        at its reference pressure (kg m^-3) and its value (kg m^-3).
-    reference : str
-        The global reference in words.
-    adjusted : bool
-        Whether inverse adjustments are included.
-    interface_pressure : tuple of (str, ndarray (pair,))
-        Each interface's label and the pressure where each pair's density
-        first reaches it (dbar, NaN where it does not).
-    """
-
-    section: str
-    station_distance: np.ndarray
-    pressure: np.ndarray
-    velocity: np.ndarray
-    reference_pressure: np.ndarray
-    bottom_pressure: np.ndarray
-    interfaces: tuple[tuple[str, np.ndarray, float], ...]
-    reference: str
-    adjusted: bool
-    interface_pressure: tuple[tuple[str, np.ndarray], ...] = ()
-
-    @property
-    def pair_distance(self) -> np.ndarray:
-        """Along-line distance of each pair's mid-point, km."""
-        return 0.5 * (self.station_distance[:-1] + self.station_distance[1:])
-
-
-@dataclass
-class _Snapshot:
-    """The current state's references, estimate, class table and box budget."""
-
-    offsets: dict[str, np.ndarray]
-    ref_pressure: dict[str, np.ndarray]
-    layout: UnknownLayout
-    estimate: np.ndarray | None
-    classes: ClassTransports
-    box: BoxBudget
-    cautions: Cautions | None  # None: not collected yet (see reference_cautions)
-
-
-# ---------------------------------------------------------------- config keys
-def _reference_error_key(cfg: Config) -> list:
-    """References whose stated error sets a pair's inverse prior."""
-    out = []
-    if cfg.reference.kind == "velocity":
-        out.append(("*", cfg.reference.velocity_error))
-    for label, ref in sorted(cfg.overrides.items()):
-        if ref.kind == "velocity":
-            out.append((label, ref.velocity_error))
-    return out
-
-
-def _data_key(cfg: Config) -> str:
-    """Everything that decides which sections are read and how they are gridded."""
-    files = [(s.name, [str(p.resolve()) for p in cfg.section_paths(s)], sorted(s.columns.items()))
-             for s in cfg.sections]
-    return repr((files, cfg.dp, cfg.allow_equator))
-
-
-def _operator_key(cfg: Config) -> str:
-    """Everything the section operators are built from."""
-    faces = [(f.sigma, f.p_ref) for f in cfg.interfaces]
-    bathy = [(s.name, s.bathymetry) for s in cfg.sections]
-    return repr((_data_key(cfg), faces, cfg.layer_names, cfg.bottom_triangle, cfg.ekman_depth,
-                 bathy, str(cfg.base_dir)))
-
-
-def _solve_key(cfg: Config) -> str:
-    """Everything except the references: equal keys allow the linear reference update."""
-    d = cfg.to_dict()
-    ref = d.pop("reference")
-    return repr((d, ref.get("bottom_triangle"), ref.get("allow_equator"),
-                 _reference_error_key(cfg), _operator_key(cfg)))
-
-
-def keep_backup(path: Path) -> Path:
-    """Copy a file to the first free numbered backup beside it (``x.autosave.1.toml``, ...).
-
-    Parameters
-    ----------
-    path : Path
-        The file (an autosave that could not be resumed).
-
-    Returns
-    -------
-    Path
-        The backup written.
-    """
-    stem = path.name.removesuffix(".toml")
-    n = 1
-    while (backup := path.with_name(f"{stem}.{n}.toml")).exists():
-        n += 1
-    backup.write_bytes(path.read_bytes())
-    return backup
-
-
-def _portable(cfg: Config, folder: Path) -> Config:
-    """A copy whose relative file names are taken from ``folder``."""
-    folder = Path(folder).resolve()
-    if folder == Path(cfg.base_dir).resolve():
-        return cfg
-
-    def move(name: str) -> str:
-        path = Path(name)
-        if path.is_absolute():
-            return name
-        target = (Path(cfg.base_dir) / path).resolve()
-        try:
-            return os.path.relpath(target, folder)
-        except ValueError:  # another drive
-            return str(target)
-
-    out = copy.deepcopy(cfg)
-    for spec in out.sections:
-        spec.file = move(spec.file) if isinstance(spec.file, str) else [move(f) for f in spec.file]
-        if spec.bathymetry:
-            spec.bathymetry = move(spec.bathymetry)
-    out.base_dir = folder
-    return out
 
 
 # ---------------------------------------------------------------- the model
@@ -393,28 +164,25 @@ class WorkbenchState:
             self.autosave_path = Path(autosave)
         else:
             self.autosave_path = None
-        self._writer = _AutosaveWriter(self.autosave_path) if self.autosave_path else None
+        self._writer = AutosaveWriter(self.autosave_path) if self.autosave_path else None
         self._listeners: list[Listener] = []
         self._undo: list[tuple[Config, str]] = []  # (configuration before, what changed)
         self._redo: list[tuple[Config, str]] = []
         self._gesture: str | None = None
         self._gesture_time = 0.0
         self.clock: Callable[[], float] = time.monotonic
-        self._stashed_inverse: InverseSpec | None = None
+        self._stashed_inverse: InverseSpec | None = None  # while the inverse is off
+        self._stashed_names: list[str] = []  # the classes its per-class settings belong to
         self.resumed_from: Path | None = None
         self.resume_error: str | None = None
         config = self._validated(config)
-        self.study = study if study is not None else Study.from_config(config, sections=sections)
-        self.study.config = config
+        study = study if study is not None else Study.from_config(config, sections=sections)
+        study.config = config
+        self.engine = Engine(study, self._known_transports)
         self._config = config
         self._reviewed: set[str] = set(config.layer_names)
-        self._full: Results | None = None
-        self._base: Results | None = None
-        self._base_key = ""
-        self._error_cache: tuple[Results, np.ndarray] | None = None
-        self._gradient_cache: tuple[Results, dict[str, np.ndarray]] | None = None
-        self._key = _solve_key(config)
-        self._solve_full(self._key)
+        self._key = solve_key(config)
+        self.engine.solve_full(self._key)
 
     # ------------------------------------------------------------ opening
     @classmethod
@@ -457,6 +225,20 @@ class WorkbenchState:
                     f"instead, and kept the autosave as {kept.name}")
         return state
 
+    @property
+    def study(self) -> Study:
+        """The study of the current configuration (operators, sections)."""
+        return self.engine.study
+
+    @study.setter
+    def study(self, study: Study) -> None:
+        self.engine.study = study
+
+    def _known_transports(self) -> list[KnownTransport]:
+        """Known transports entering the boxes, also while the inverse is switched off."""
+        inverse = self._config.inverse or self._stashed_inverse
+        return list(inverse.known) if inverse is not None else []
+
     # ------------------------------------------------------------ listeners
     def add_listener(self, listener: Listener) -> None:
         """Call ``listener(change)`` after every change."""
@@ -479,15 +261,15 @@ class WorkbenchState:
         Identical to ``Study.from_config(config).solve()`` of the same
         configuration.
         """
-        if self._full is None:
-            self._solve_full(self._key)
-        assert self._full is not None
-        return self._full
+        if self.engine.full is None:
+            self.engine.solve_full(self._key)
+        assert self.engine.full is not None
+        return self.engine.full
 
     @property
     def results_current(self) -> bool:
         """Whether :attr:`results` is ready without computing."""
-        return self._full is not None
+        return self.engine.full is not None
 
     @property
     def section_names(self) -> list[str]:
@@ -515,7 +297,7 @@ class WorkbenchState:
 
     def class_table(self) -> ClassTransports:
         """Class transports of the current state (updated at once by every change)."""
-        return self._snap.classes
+        return self.engine.snap.classes
 
     def box_budget(self) -> BoxBudget:
         """Box constraints of the current state (updated at once by every change).
@@ -523,20 +305,20 @@ class WorkbenchState:
         With an inverse these are the rows of box_budget.csv; without one,
         the net mass inflow of each class and in total (noise NaN).
         """
-        return self._snap.box
+        return self.engine.snap.box
 
     def reference_pressures(self, section: str) -> np.ndarray:
         """Pressure each pair's reference actually uses, dbar."""
-        return self._snap.ref_pressure[section].copy()
+        return self.engine.snap.ref_pressure[section].copy()
 
     def reference_cautions(self) -> list[str]:
         """Cautions of the current references (fall-backs) and of loading."""
-        if self._snap.cautions is None:
+        if self.engine.snap.cautions is None:
             cautions = Cautions()
             cautions.extend(self.study.load_cautions)
             self.study.references(cautions)
-            self._snap.cautions = cautions
-        return [str(c) for c in self._snap.cautions]
+            self.engine.snap.cautions = cautions
+        return [str(c) for c in self.engine.snap.cautions]
 
     def cautions(self) -> list[str]:
         """Every caution of the full results (loading, equator, references, heat)."""
@@ -566,8 +348,8 @@ class WorkbenchState:
         key = (self._key, repr(sorted(self._config.overrides.items())))
         cache = getattr(self, "_sensitivity_cache", None)
         if cache is None or cache[0] != key:
-            ekman = self._base.ekman if self._base is not None else self.study.ekman()
-            cache = (key, reference_sensitivity(self.study, ekman, self._snap.offsets))
+            ekman = self.engine.base.ekman if self.engine.base is not None else self.study.ekman()
+            cache = (key, reference_sensitivity(self.study, ekman, self.engine.snap.offsets))
             self._sensitivity_cache = cache
         return dataclasses.replace(cache[1], current=self._current_pressure())
 
@@ -581,7 +363,7 @@ class WorkbenchState:
 
     def rank_used(self) -> int | None:
         """Singular values the truncated SVD kept (None for the other solvers or no inverse)."""
-        base = self._base
+        base = self.engine.base
         if base is None or base.inverse is None:
             return None
         return base.inverse.rank
@@ -600,12 +382,12 @@ class WorkbenchState:
     def velocity_section(self, section: str) -> VelocitySection:
         """Absolute velocity of a section for the current references and adjustments."""
         op = self.study.operators[section]
-        snap = self._snap
+        snap = self.engine.snap
         adjustment: np.ndarray | float = 0.0
         if snap.estimate is not None:
             adjustment = snap.estimate[snap.layout.pair_slices[section]]
         velocity = op.absolute_velocity(snap.offsets[section], adjustment)
-        distance = np.concatenate([[0.0], np.cumsum(op.pairs["distance"].values)]) / 1e3
+        distance = along_line_distance(op.pairs["distance"].values) / 1e3
         faces = tuple(
             (face.display(), op.sigma_pair[face.p_ref], float(face.sigma))  # "σ₁ 32.15"
             for face in self._config.interfaces
@@ -811,16 +593,15 @@ class WorkbenchState:
         if len(set(names)) != len(names):
             raise ConfigError(f"class names must differ; got {', '.join(names)}")
         inverse = map_class_settings(self._config.inverse, old_names, names)
-        stashed = map_class_settings(self._stashed_inverse, old_names, names)
+        if self._stashed_inverse is not None:  # refuse now what switching it on would refuse
+            map_class_settings(self._stashed_inverse, self._stashed_names, names)
         new = [n for n in names if n not in old_names]
         text = "interfaces: " + (", ".join(f.label() for f in faces) or "none")
-        if new and (inverse is not None or stashed is not None):
+        if new and (inverse is not None or self._stashed_inverse is not None):
             text += f"; new class(es) {', '.join(new)} with default inverse settings"
-        change = self._change("classes", text,
-                              dataclasses.replace(self._config, interfaces=faces,
-                                                  layer_names=names, inverse=inverse))
-        self._stashed_inverse = stashed
-        return change
+        return self._change("classes", text,
+                            dataclasses.replace(self._config, interfaces=faces,
+                                                layer_names=names, inverse=inverse))
 
     def set_ekman_depth(self, depth: float) -> Change:
         """Depth of the Ekman layer, m (rebuilds the operators)."""
@@ -879,18 +660,24 @@ class WorkbenchState:
 
     # ------------------------------------------------------------ controls: inverse
     def set_inverse(self, enabled: bool) -> Change:
-        """Switch the box inverse on (last or default settings) or off."""
+        """Switch the box inverse on (last or default settings) or off.
+
+        Settings kept while it was off follow the classes by name, as a change
+        of classes with the inverse on would carry them.
+        """
         if enabled:
             if self._config.inverse is not None:
                 inverse = self._config.inverse
             elif self._stashed_inverse is not None:
-                inverse = self._stashed_inverse
+                inverse = map_class_settings(self._stashed_inverse, self._stashed_names,
+                                             list(self._config.layer_names))
             else:
                 inverse = InverseSpec()
             text = "inverse on"
         else:
             if self._config.inverse is not None:
                 self._stashed_inverse = self._config.inverse
+                self._stashed_names = list(self._config.layer_names)
             inverse = None
             text = "inverse off"
         return self._change("inverse", text, dataclasses.replace(self._config, inverse=inverse))
@@ -1021,11 +808,15 @@ class WorkbenchState:
         changes = {k: v for k, v in given.items()
                    if v is not None and (inv is None or getattr(inv, k) != v)}
         text = ", ".join(_setting_text(k, v) for k, v in changes.items()) or "unchanged"
-        change = self._set_inverse(f"inverse: {text}", **changes)
+        reviewed = set(self._reviewed)
         if any(given[k] is not None for k in ("noise_layer", "noise_salt", "noise_heat",
                                               "known")):
-            self._reviewed |= set(self._config.layer_names)
-        return change
+            self._reviewed |= set(self._config.layer_names)  # before the listeners hear it
+        try:
+            return self._set_inverse(f"inverse: {text}", **changes)
+        except Exception:
+            self._reviewed = reviewed
+            raise
 
     def _set_inverse(self, text: str, **changes: Any) -> Change:
         if self._config.inverse is None:
@@ -1069,7 +860,7 @@ class WorkbenchState:
         """
         path = Path(path)
         path.parent.mkdir(parents=True, exist_ok=True)
-        return _portable(self._config, path.parent).save(path)
+        return portable(self._config, path.parent).save(path)
 
     def load(self, path: str | Path, *, record: bool = True, kind: str = "load") -> Change:
         """Replace the configuration by a TOML file (undoable).
@@ -1196,21 +987,21 @@ class WorkbenchState:
         old_study = self.study
         rebuilt = False
         if references_only:
-            same_errors = _reference_error_key(new) == _reference_error_key(old)
-            key = self._key if same_errors else _solve_key(new)
+            same_errors = reference_error_key(new) == reference_error_key(old)
+            key = self._key if same_errors else solve_key(new)
         else:
-            key = _solve_key(new)
+            key = solve_key(new)
         try:
-            if not references_only and _data_key(new) != _data_key(old):
+            if not references_only and data_key(new) != data_key(old):
                 self.study = Study.from_config(new)
-            elif not references_only and _operator_key(new) != _operator_key(old):
+            elif not references_only and operator_key(new) != operator_key(old):
                 self.study.config = new
                 rebuilt = True
                 self.study.rebuild_operators()
             else:
                 self.study.config = new
             self._config = new
-            linear = self._refresh(key, global_only and references_only)
+            linear = self.engine.refresh(key, global_only and references_only)
         except Exception:
             self.study = old_study
             self.study.config = old
@@ -1240,179 +1031,6 @@ class WorkbenchState:
             listener(change)
         return change
 
-    def _refresh(self, key: str, global_only: bool = False) -> bool:
-        """Bring the snapshot up to date; True when the linear update sufficed.
-
-        ``key`` is :func:`_solve_key` of the current configuration;
-        ``global_only`` says that only the global reference changed since the
-        current snapshot.
-        """
-        base = self._base
-        linear_ok = base is not None and key == self._base_key and base.state.is_linear
-        if not linear_ok:
-            self._solve_full(key)
-            return False
-        self._linear_update(global_only)
-        return True
-
-    def _solve_full(self, key: str | None = None) -> None:
-        """Run the whole budget (and inverse) on the stored operators."""
-        results = self.study.solve()
-        self._full = results
-        self._base = results
-        self._base_key = _solve_key(self._config) if key is None else key
-        self._snap = self._snapshot_from(results)
-
-    def _snapshot_from(self, results: Results) -> _Snapshot:
-        sections = tuple(self.study.operators)
-        layers = tuple(next(iter(self.study.operators.values())).layer_names)
-        x = results.estimate
-        initial = np.zeros((len(sections), len(layers)))
-        adjusted = np.zeros_like(initial)
-        for s, name in enumerate(sections):
-            out = results.outputs[name]
-            v0 = out.value(None)
-            v1 = out.value(x)
-            for i, layer in enumerate(layers):
-                k = out.index(f"volume:{layer}")
-                initial[s, i] = v0[k]
-                adjusted[s, i] = v1[k]
-        error = self._errors(results, sections, layers)
-        classes = ClassTransports(sections, layers, initial, adjusted, error,
-                                  results.inverse is not None)
-        if results.inverse is not None:
-            sys_ = results.inverse.system
-            box = BoxBudget(tuple(sys_.rows), sys_.initial.copy(), results.inverse.adjusted,
-                            sys_.noise.copy(), tuple(sys_.units),
-                            results.inverse.posterior_residual_std)
-        else:
-            mass = {n: results.outputs[n].value(None)[
-                [results.outputs[n].index(f"mass:{layer}") for layer in layers]]
-                for n in sections}
-            box = self._mass_box(mass, layers)
-        cautions = Cautions()
-        cautions.extend(self.study.load_cautions)
-        cautions.extend(c for c in results.cautions if c.kind.startswith(("reference-below",
-                                                                           "isopycnal")))
-        return _Snapshot(
-            offsets={n: r.offset for n, r in results.references.items()},
-            ref_pressure={n: r.pressure for n, r in results.references.items()},
-            layout=results.layout,
-            estimate=results.estimate if results.inverse is not None else None,
-            classes=classes,
-            box=box,
-            cautions=cautions,
-        )
-
-    def _errors(self, results: Results, sections: tuple[str, ...],
-                layers: tuple[str, ...]) -> np.ndarray:
-        """Posterior errors of class transports, Sv (they do not depend on the references)."""
-        if self._error_cache is not None and self._error_cache[0] is results:
-            return self._error_cache[1]
-        err = np.full((len(sections), len(layers)), np.nan)
-        if results.inverse is not None:
-            for s, name in enumerate(sections):
-                for i, layer in enumerate(layers):
-                    err[s, i] = results.error(name, f"volume:{layer}")
-        self._error_cache = (results, err)
-        return err
-
-    def _volume_gradient(self, base: Results, name: str, layers: tuple[str, ...]) -> np.ndarray:
-        """d(class volume transport)/dx of one section, Sv per unknown (cached per solve)."""
-        cache = self._gradient_cache
-        if cache is None or cache[0] is not base:
-            cache = self._gradient_cache = (base, {})
-        if name not in cache[1]:
-            out = base.outputs[name]
-            cache[1][name] = out.gradient[[out.index(f"volume:{layer}") for layer in layers]]
-        return cache[1][name]
-
-    def _mass_box(self, mass: dict[str, np.ndarray], layers: tuple[str, ...]) -> BoxBudget:
-        """Net mass inflow of each box by class, without an inverse (Sv).
-
-        Known transports entering a box elsewhere count here as in the
-        inverse's constraints, so the initial budget is the same with the
-        inverse on or off.
-        """
-        rows, values = [], []
-        inverse = self._config.inverse or self._stashed_inverse
-        known = inverse.known if inverse is not None else []
-        for box in self._config.effective_boxes():
-            inflow = np.zeros(len(layers))
-            for name in box.enters:
-                inflow = inflow + mass[name]
-            for name in box.leaves:
-                inflow = inflow - mass[name]
-            for kt in known:  # counted as the inverse counts them (inverse.assemble)
-                if (kt.box or box.name) == box.name and kt.layer in layers:
-                    inflow[layers.index(kt.layer)] += kt.transport
-            for i, layer in enumerate(layers):
-                rows.append((box.name, f"mass:{layer}"))
-                values.append(inflow[i])
-            rows.append((box.name, "mass:total"))
-            values.append(inflow.sum())
-        v = np.asarray(values, dtype=float)
-        return BoxBudget(tuple(rows), v, v.copy(), np.full(v.size, np.nan), ("Sv",) * v.size)
-
-    def _linear_update(self, global_only: bool = False) -> None:
-        """New references on unchanged operators, Ekman and inverse settings.
-
-        The base solve's budget state is derived with the new references
-        (:meth:`BudgetState.derive`: the constraint data move by
-        ``E_pairs (offset - offset_base)``) and solved reusing the fitted
-        linear solver (its gain gives the new estimate; the posterior
-        covariance does not depend on the data, so the errors are those of
-        the last full solve).
-        """
-        base = self._base
-        assert base is not None
-        if global_only:
-            cautions = None  # a dragged slider: collected when asked for (reference_cautions)
-            refs = self.study.references(None)
-        else:
-            cautions = Cautions()
-            cautions.extend(self.study.load_cautions)
-            refs = self.study.references(cautions)
-        state = base.state.derive(refs)
-        sections = tuple(self.study.operators)
-        layers = self._snap.classes.layers
-        x = None
-        box = None
-        inverse = state.solve(reuse=base.inverse) if base.inverse is not None else None
-        if inverse is not None:
-            x = inverse.estimate
-            system = inverse.system
-            # the posterior covariance does not depend on the data: same residual std
-            box = BoxBudget(tuple(system.rows), system.initial, inverse.adjusted,
-                            system.noise.copy(), tuple(system.units),
-                            base.inverse.posterior_residual_std)
-        initial = np.zeros((len(sections), len(layers)))
-        adjusted = np.zeros_like(initial)
-        mass = {}
-        for s, name in enumerate(sections):
-            t = state.class_transports(name)
-            vol = t["volume"] / SV
-            mass[name] = t["mass"] / SV
-            initial[s] = vol
-            if x is None:
-                adjusted[s] = vol
-            else:
-                adjusted[s] = vol + self._volume_gradient(base, name, layers) @ x
-        if box is None:
-            box = self._mass_box(mass, layers)
-        classes = ClassTransports(sections, layers, initial, adjusted,
-                                  self._errors(base, sections, layers), x is not None)
-        self._snap = _Snapshot(
-            offsets=state.offsets,
-            ref_pressure={n: r.pressure for n, r in refs.items()},
-            layout=state.layout,
-            estimate=x,
-            classes=classes,
-            box=box,
-            cautions=cautions,
-        )
-        self._full = None
-
     def _autosave(self) -> None:
         if self._writer is not None:
             self._writer.submit(self._config)
@@ -1438,74 +1056,6 @@ class WorkbenchState:
         return None if self._writer is None else self._writer.error
 
 
-_LIVE_WRITERS: weakref.WeakSet[_AutosaveWriter] = weakref.WeakSet()
-
-
-@atexit.register
-def _flush_autosaves() -> None:
-    """Let pending autosaves reach the disk when the interpreter exits."""
-    for writer in list(_LIVE_WRITERS):
-        writer.flush(5.0)
-
-
-class _AutosaveWriter:
-    """Writes the latest configuration to the autosave file on a background thread.
-
-    Changes hand over the (immutable) configuration and return at once;
-    the thread serialises it and replaces the file atomically. Configurations
-    submitted within ``AUTOSAVE_COALESCE`` seconds of each other, or while a
-    write is under way, are coalesced: only the newest one is written. The
-    file is never half-written, and a change is on disk well within a tenth
-    of a second.
-    """
-
-    def __init__(self, path: Path) -> None:
-        self.path = Path(path)
-        self.error: str | None = None
-        self._pending: Config | None = None
-        self._busy = False
-        self._cond = threading.Condition()
-        self._thread: threading.Thread | None = None
-        _LIVE_WRITERS.add(self)
-
-    def submit(self, config: Config) -> None:
-        """Queue ``config`` for writing (replacing any queued one)."""
-        with self._cond:
-            self._pending = config
-            if self._thread is None or not self._thread.is_alive():
-                self._thread = threading.Thread(target=self._run, name="sectionkit-autosave",
-                                                daemon=True)
-                self._thread.start()
-            self._cond.notify_all()
-
-    def flush(self, timeout: float = 10.0) -> bool:
-        """Wait until nothing is queued or being written; True when done in time."""
-        with self._cond:
-            return self._cond.wait_for(lambda: self._pending is None and not self._busy,
-                                       timeout=timeout)
-
-    def _run(self) -> None:
-        while True:
-            with self._cond:
-                if not self._cond.wait_for(lambda: self._pending is not None, timeout=30.0):
-                    self._thread = None
-                    return
-            time.sleep(AUTOSAVE_COALESCE)  # let a dragged slider settle: one write, not fifty
-            with self._cond:
-                config, self._pending = self._pending, None
-                self._busy = True
-            try:
-                self.path.parent.mkdir(parents=True, exist_ok=True)
-                _portable(config, self.path.parent).save(self.path)
-                error = None
-            except Exception as exc:  # reported through the state, never raised
-                error = f"autosave to {self.path} failed: {exc}"
-            with self._cond:
-                self.error = error
-                self._busy = False
-                self._cond.notify_all()
-
-
 def _as_reference(choice: ReferenceChoice | float | str | dict, where: str) -> ReferenceChoice:
     """A validated reference, normalised exactly as reading it from a saved file would."""
     if isinstance(choice, ReferenceChoice):
@@ -1524,9 +1074,19 @@ def _as_known(item: dict | KnownTransport) -> KnownTransport:
     if unknown:
         raise ConfigError(f"known transport: unknown key(s) {', '.join(sorted(unknown))}; use "
                           "name, transport (Sv), noise (Sv), class, box")
-    return KnownTransport(name=str(item.get("name", "known")), transport=item.get("transport"),
-                          noise=item.get("noise"), layer=str(item.get("layer", "")),
-                          box=item.get("box"))
+    name = str(item.get("name", "known"))
+    return KnownTransport(name=name,
+                          transport=_given_number(item, "transport", f"known transport {name!r}"),
+                          noise=_given_number(item, "noise", f"known transport {name!r}"),
+                          layer=str(item.get("layer", "")), box=item.get("box"))
+
+
+def _given_number(item: dict, key: str, where: str) -> float:
+    """``item[key]`` as a finite number (Sv), or one clear error naming it."""
+    value = item.get(key)
+    if isinstance(value, bool) or not isinstance(value, int | float) or value != value:
+        raise ConfigError(f"{where}: {key} = {value!r} must be a number in Sv")
+    return float(value)
 
 
 def _as_net(item: dict | SectionNet) -> SectionNet:
@@ -1537,8 +1097,10 @@ def _as_net(item: dict | SectionNet) -> SectionNet:
     if unknown:
         raise ConfigError(f"section net transport: unknown key(s) {', '.join(sorted(unknown))}; "
                           "use section, transport (Sv), noise (Sv)")
-    return SectionNet(section=str(item.get("section", "")), transport=item.get("transport"),
-                      noise=item.get("noise"))
+    section = str(item.get("section", ""))
+    where = f"net transport of {section!r}"
+    return SectionNet(section=section, transport=_given_number(item, "transport", where),
+                      noise=_given_number(item, "noise", where))
 
 
 def _setting_text(key: str, value: Any) -> str:

@@ -17,25 +17,57 @@ import bqplot as bq
 import ipywidgets as widgets
 import numpy as np
 
-from sectionkit.workbench.model import VelocitySection
-from sectionkit.workbench.snapshot import InverseView, LineDirection, ReferenceSensitivity
+from sectionkit.workbench.snapshot import (
+    InverseView,
+    LineDirection,
+    ReferenceSensitivity,
+    VelocitySection,
+)
 
-MAX_ROWS = 300  # pressure levels sent to the browser for a velocity section
+MAX_ROWS = 240  # pressure levels sent to the browser: about one per pixel of the plot
 LINE_COLOURS = ("#1f77b4", "#d62728", "#2ca02c", "#9467bd", "#8c564b", "#e377c2")
+#: One colour per class, light to dense (the sensitivity view's curves).
 CLASS_COLOURS = ("#4c72b0", "#dd8452", "#55a868", "#c44e52", "#8172b3", "#937860",
                  "#da8bc3", "#8c8c8c", "#ccb974", "#64b5cd")
 VELOCITY_COLOURS = ["#2166ac", "#f7f7f7", "#b2182b"]  # negative, zero, positive
 SELECTED = "#d0a"
 EMPTY2 = np.zeros((1, 2))  # a placeholder for marks drawing several lines
-MARGIN = {"top": 30, "bottom": 45, "left": 65, "right": 85}
+MARGIN = {"top": 30, "bottom": 45, "left": 70, "right": 20}
+TITLE_STYLE = {"font-size": "13px"}
 
 
 def _figure(marks: list, axes: list, css: str, height: str, **kwargs) -> bq.Figure:
+    kwargs.setdefault("display_toolbar", False)  # zoom has its own button
     fig = bq.Figure(marks=marks, axes=axes, fig_margin=dict(MARGIN), animation_duration=0,
+                    title_style=dict(TITLE_STYLE),
                     layout=widgets.Layout(width="100%", height=height, min_width="0"),
                     **kwargs)
     fig.add_class(css)
     return fig
+
+
+def nice_ticks(low: float, high: float, count: int = 5) -> np.ndarray:
+    """About ``count`` round tick values (steps of 1, 2, 2.5 or 5 times a power of ten)."""
+    span = float(high) - float(low)
+    if not math.isfinite(span) or span <= 0:
+        return np.array([float(low)])
+    raw = span / count
+    power = 10.0 ** math.floor(math.log10(raw))
+    step = min((m * power for m in (1.0, 2.0, 2.5, 5.0, 10.0)),
+               key=lambda step: abs(math.log(step / raw)))
+    first = math.ceil(low / step) * step
+    return np.arange(first, high + 1e-9 * step, step)
+
+
+def follow_ticks(axis: bq.Axis, scale: bq.Scale, count: int = 5) -> None:
+    """Keep round tick values on ``axis`` whenever its scale's range changes (zoom, redraw)."""
+    def update(_change=None) -> None:
+        if scale.min is not None and scale.max is not None:
+            low, high = sorted((float(scale.min), float(scale.max)))
+            axis.tick_values = nice_ticks(low, high, count)
+
+    scale.observe(update, names=["min", "max"])
+    update()
 
 
 def data_position(fig: bq.Figure, x_scale: bq.Scale, y_scale: bq.Scale,
@@ -89,7 +121,8 @@ class SectionFigure:
         self.faces = bq.Lines(x=EMPTY2, y=EMPTY2,
                               scales={"x": self.x, "y": self.y},
                               colors=["black"], stroke_width=1.2)
-        self.face_labels = bq.Label(x=[], y=[], text=[], scales={"x": self.x, "y": self.y},
+        self.face_labels = bq.Label(x=[0.0], y=[0.0], text=[""], visible=False,
+                                    scales={"x": self.x, "y": self.y},
                                     colors=["black"], default_size=11, align="start")
         self.refs = bq.Scatter(x=[0.0], y=[0.0], scales={"x": self.x, "y": self.y},
                                colors=["gold"], stroke="black", default_size=22,
@@ -97,20 +130,21 @@ class SectionFigure:
                                display_legend=False)
         self.selected = bq.Lines(x=[0.0], y=[0.0], scales={"x": self.x, "y": self.y},
                                  colors=[SELECTED], stroke_width=2.0)
-        self.colour_axis = bq.ColorAxis(scale=self.c, side="right",
-                                        label="velocity (cm/s)")
+        self.colour_axis = bq.ColorAxis(scale=self.c, side="right", label="cm/s",
+                                        num_ticks=5, tick_format=".1f")
         axes = [bq.Axis(scale=self.x, label="distance along the line (km)"),
                 bq.Axis(scale=self.y, side="left", label="pressure (dbar)",
-                        tick_format="0f"),
+                        tick_format=".0f", label_offset="50px"),
                 self.colour_axis]
+        follow_ticks(axes[0], self.x)
         self.figure = _figure([self.heat, self.floor, self.faces, self.face_labels, self.refs,
                                self.selected], axes, "sk-velocity-figure", "360px")
+        self.figure.fig_margin = {**MARGIN, "top": 10, "right": 75}
         self.section: VelocitySection | None = None
         self._stride = 1
         self._extent: tuple[float, float, float] | None = None
 
-    def draw(self, section: VelocitySection, limit: float, selected_pair: int | None,
-             direction: LineDirection | None = None) -> None:
+    def draw(self, section: VelocitySection, limit: float, selected_pair: int | None) -> None:
         """Redraw from ``section`` with the colour-scale limit ``limit`` (cm s^-1)."""
         self.section = section
         stride = max(1, math.ceil(section.pressure.size / MAX_ROWS))
@@ -128,10 +162,6 @@ class SectionFigure:
                 self.y.min, self.y.max = 0.0, bottom
             with self.c.hold_sync():
                 self.c.min, self.c.max = -limit, limit
-            label = "velocity (cm/s)"
-            if direction is not None:
-                label += f", + {direction.compass}"
-            self.colour_axis.label = label
             with self.heat.hold_sync():
                 self.heat.x, self.heat.y, self.heat.color = xp, p, v
             self.floor.x = section.station_distance
@@ -140,10 +170,6 @@ class SectionFigure:
             with self.refs.hold_sync():
                 self.refs.x, self.refs.y = xp, section.reference_pressure
             self.select(selected_pair)
-            title = f"{section.section}: {section.reference}"
-            if section.adjusted:
-                title += ", with the inverse's adjustments"
-            self.figure.title = title
 
     def update_velocity(self, section: VelocitySection, limit: float) -> None:
         """The fast redraw of a reference change: velocity, reference levels, colour limit."""
@@ -166,29 +192,34 @@ class SectionFigure:
                 continue
             xs.append(xp)
             ys.append(pressure)
-            k = int(np.nanargmin(pressure))
+            # the label where the interface is shallowest away from the ends (outcrops)
+            lo, hi = pressure.size // 5, max(pressure.size - pressure.size // 5, 1)
+            middle = pressure[lo:hi]
+            k = (lo + int(np.nanargmin(middle)) if np.isfinite(middle).any()
+                 else int(np.nanargmin(pressure)))
             lx.append(float(xp[k]))
             ly.append(float(pressure[k]) - 30.0)
             text.append(label)
         with self.faces.hold_sync():
             if xs:
                 self.faces.x, self.faces.y = np.array(xs), np.array(ys)
-            else:
-                self.faces.x, self.faces.y = np.zeros((1, 2)), np.full((1, 2), np.nan)
+            self.faces.visible = bool(xs)
         with self.face_labels.hold_sync():
             self.face_labels.x, self.face_labels.y, self.face_labels.text = lx, ly, text
+            self.face_labels.visible = bool(text)
 
     def select(self, pair: int | None) -> None:
         """Outline one pair (None: none)."""
         s = self.section
         if s is None or pair is None or not 0 <= pair < s.pair_distance.size:
-            self.selected.x, self.selected.y = [np.nan], [np.nan]
+            self.selected.visible = False
             return
         x0, x1 = float(s.station_distance[pair]), float(s.station_distance[pair + 1])
         bottom = float(np.nanmax(s.bottom_pressure)) * 1.03
         with self.selected.hold_sync():
             self.selected.x = [x0, x1, x1, x0, x0]
             self.selected.y = [0.0, 0.0, bottom, bottom, 0.0]
+            self.selected.visible = True
 
     def reset_zoom(self) -> None:
         """Back to the whole section."""
@@ -237,7 +268,9 @@ class StationMap:
         pad_lon = 0.08 * max(float(np.ptp(lon)), 1.0)
         pad_lat = 0.12 * max(float(np.ptp(lat)), 1.0)
         self.x = bq.LinearScale(min=float(lon.min()) - pad_lon, max=float(lon.max()) + pad_lon)
-        self.y = bq.LinearScale(min=float(lat.min()) - pad_lat, max=float(lat.max()) + pad_lat)
+        # room above the top line for its arrow and words
+        self.y = bq.LinearScale(min=float(lat.min()) - pad_lat,
+                                max=float(lat.max()) + 2.5 * pad_lat)
         sc = {"x": self.x, "y": self.y}
         marks: list = []
         for name, members in boxes:
@@ -264,7 +297,8 @@ class StationMap:
             self.pair_marks[name] = dots
             marks.append(dots)
             marks.extend(_direction_marks(name, slon, slat, directions.get(name), sc, colour))
-        self.selected = bq.Scatter(x=[np.nan], y=[np.nan], scales=sc, colors=["white"], fill=False,
+        self.selected = bq.Scatter(x=[0.0], y=[0.0], scales=sc, colors=["white"], fill=False,
+                                   visible=False,
                                    stroke=SELECTED, stroke_width=3, default_size=160)
         marks.append(self.selected)
         self.pairs = pairs
@@ -273,14 +307,17 @@ class StationMap:
         axes = [bq.Axis(scale=self.x, label="longitude (°E)", tick_format=".1f"),
                 bq.Axis(scale=self.y, side="left", label="latitude (°N)",
                         tick_format=".1f")]
+        follow_ticks(axes[0], self.x)
         self.figure = _figure(marks, axes, "sk-map", "340px", min_aspect_ratio=aspect,
-                              max_aspect_ratio=aspect, title="stations and pairs: click a pair")
+                              max_aspect_ratio=aspect)
+        self.figure.fig_margin = {**MARGIN, "top": 10}
 
     def select(self, line: str, pair: int) -> None:
         """Ring the chosen pair."""
         lon, lat = self.pairs[line]
         with self.selected.hold_sync():
             self.selected.x, self.selected.y = [float(lon[pair])], [float(lat[pair])]
+            self.selected.visible = True
 
 
 def _box_ring(lines: list[tuple[np.ndarray, np.ndarray]]) -> tuple[np.ndarray, np.ndarray]:
@@ -333,21 +370,18 @@ class SensitivityFigure:
         self.y = bq.LinearScale()
         sc = {"x": self.x, "y": self.y}
         self.lines = bq.Lines(x=EMPTY2, y=EMPTY2,
-                              scales=sc, colors=list(CLASS_COLOURS),
-                              display_legend=True, labels=["class"], stroke_width=1.6)
-        self.total = bq.Lines(x=[0.0], y=[0.0], scales=sc, colors=["black"], line_style="dashed",
-                              display_legend=True, labels=["sum"])
+                              scales=sc, colors=list(CLASS_COLOURS), stroke_width=1.6)
+        self.total = bq.Lines(x=[0.0], y=[0.0], scales=sc, colors=["black"], line_style="dashed")
         self.current = bq.Lines(x=[0.0, 0.0], y=[0.0, 0.0], scales=sc, colors=[SELECTED],
-                                stroke_width=2, display_legend=True, labels=["current level"])
+                                stroke_width=2)
         self.zero = bq.Lines(x=[0.0, 1.0], y=[0.0, 0.0], scales=sc, colors=["#999999"],
                              stroke_width=0.8)
         self.y_axis = bq.Axis(scale=self.y, side="left", label="transport (Sv)")
         axes = [bq.Axis(scale=self.x, label="global level of no motion (dbar); click to choose"),
                 self.y_axis]
+        follow_ticks(axes[0], self.x)
         self.figure = _figure([self.zero, self.lines, self.total, self.current], axes,
-                              "sk-sensitivity", "300px",
-                              legend_location="top-right",
-                              legend_style={"fill": "white", "opacity": 0.8})
+                              "sk-sensitivity", "300px")
         self.figure.fig_margin = {**MARGIN, "right": 30}
 
     def draw(self, sens: ReferenceSensitivity, section: str,
@@ -365,7 +399,6 @@ class SensitivityFigure:
             with self.lines.hold_sync():
                 self.lines.x = np.tile(p, (t.shape[1], 1))
                 self.lines.y = t.T
-                self.lines.labels = list(sens.layers)
             with self.total.hold_sync():
                 self.total.x, self.total.y = p, t.sum(axis=1)
             self.zero.x = [float(p[0]), float(p[-1])]
@@ -381,9 +414,8 @@ class SensitivityFigure:
     def mark(self, pressure: float | None) -> None:
         """Mark the current global level (None: not a pressure reference)."""
         with self.current.hold_sync():
-            if pressure is None:
-                self.current.x, self.current.y = [np.nan, np.nan], [0.0, 0.0]
-            else:
+            self.current.visible = pressure is not None
+            if pressure is not None:
                 self.current.x = [pressure, pressure]
                 self.current.y = [self.y.min, self.y.max]
 
@@ -400,23 +432,27 @@ class InverseFigures:
                               scales=sc, colors=["#777777"],
                                stroke_width=1)
         self.b_zero = bq.Lines(x=[0.0, 1.0], y=[0.0, 0.0], scales=sc, colors=["#999999"])
-        self.b_label = bq.Label(x=[], y=[], text=[], scales=sc, colors=list(LINE_COLOURS),
+        self.b_label = bq.Label(x=[0.0], y=[0.0], text=[""], scales=sc, colors=list(LINE_COLOURS),
                                 default_size=12)
+        b_axes = [bq.Axis(scale=self.bx,
+                          label="distance along the line (km); lines one after another"),
+                  bq.Axis(scale=self.by, side="left", label="adjustment b (cm/s) ± std")]
+        follow_ticks(b_axes[0], self.bx)
         self.adjustments = _figure(
-            [self.b_zero, self.b_bars, self.b_dots, self.b_label],
-            [bq.Axis(scale=self.bx, label="distance along the line (km); lines one after another"),
-             bq.Axis(scale=self.by, side="left", label="adjustment b (cm/s) ± std")],
+            [self.b_zero, self.b_bars, self.b_dots, self.b_label], b_axes,
             "sk-adjustments", "260px", title="reference-velocity adjustments")
         self.rx, self.ry = bq.LinearScale(), bq.LinearScale(min=0.0, max=1.05)
-        self.res = bq.Lines(x=EMPTY2, y=EMPTY2,
-                              scales={"x": self.rx, "y": self.ry},
-                            colors=list(LINE_COLOURS), marker="circle", marker_size=12,
-                            display_legend=True, labels=["line"])
+        self.res = bq.Scatter(x=[0.0], y=[0.0], scales={"x": self.rx, "y": self.ry,
+                                                        "color": bq.OrdinalColorScale(
+                                                            colors=list(LINE_COLOURS))},
+                              color=[0], default_size=16)
+        r_axes = [bq.Axis(scale=self.rx, label="distance along the line (km)"),
+                  bq.Axis(scale=self.ry, side="left", label="resolution of b")]
+        follow_ticks(r_axes[0], self.rx)
         self.resolution = _figure(
-            [self.res], [bq.Axis(scale=self.rx, label="distance along the line (km)"),
-                         bq.Axis(scale=self.ry, side="left",
-                                 label="resolution of b")],
-            "sk-resolution", "220px", title="resolution (1 = fully determined)")
+            [self.res], r_axes,
+            "sk-resolution", "220px",
+            title="resolution of b (1 = fully determined), lines coloured as above")
         self.sx, self.sy = bq.LinearScale(), bq.LogScale()
         self.sv = bq.Lines(x=[0.0], y=[1.0], scales={"x": self.sx, "y": self.sy},
                            marker="circle", marker_size=14, colors=["#333333"])
@@ -464,15 +500,13 @@ class InverseFigures:
             self.b_zero.x = [float(x_all.min()), float(x_all.max())]
             with self.b_label.hold_sync():
                 self.b_label.x, self.b_label.y, self.b_label.text = lx, ly, text
-        width = max(len(r) for r in rx)
-        pad_nan = lambda a: np.concatenate([a, np.full(width - a.size, np.nan)])  # noqa: E731
         with self.resolution.hold_sync():
             self.rx.min = 0.0
             self.rx.max = float(max(np.max(r) for r in rx))
             with self.res.hold_sync():
-                self.res.x = np.array([pad_nan(r) for r in rx])
-                self.res.y = np.array([pad_nan(r) for r in ry])
-                self.res.labels = list(view.pair_distance)
+                self.res.x = np.concatenate(rx)
+                self.res.y = np.concatenate(ry)
+                self.res.color = np.concatenate(colours)
         s = view.singular_values
         s = s[s > 0]
         with self.singular.hold_sync():
@@ -485,8 +519,7 @@ class InverseFigures:
                 if view.rank is not None:
                     r = view.rank + 0.5
                     self.rank.x, self.rank.y = [r, r], [self.sy.min, self.sy.max]
-                else:
-                    self.rank.x = [np.nan, np.nan]
+                self.rank.visible = view.rank is not None
             title = "singular values"
             if view.rank is not None:
                 title += f" (rank used: {view.rank})"

@@ -17,8 +17,7 @@ import numpy as np
 import pandas as pd
 
 from sectionkit.layers import class_display_name
-from sectionkit.workbench.model import BoxBudget, ClassTransports
-from sectionkit.workbench.snapshot import InverseView, LineDirection
+from sectionkit.workbench.snapshot import BoxBudget, ClassTransports, InverseView, LineDirection
 
 TABLE_STYLE = (
     "border-collapse:collapse;font-size:12px;font-variant-numeric:tabular-nums;"
@@ -183,9 +182,10 @@ def section_numbers_html(summary: pd.DataFrame,
         for _, row in summary.iterrows():
             text = _pm(float(row[col]), float(row[err]), digits)
             if col == "heat_pw" and row.get("heat_kind") == "temperature transport":
-                text += (" <span class='sk-heat-kind' style='color:#b35900;font-size:11px'>"
-                         f"temperature transport (net mass {float(row['net_mass_sv']):+.2f} Sv)"
-                         "</span>")
+                text += ("<br><span class='sk-heat-kind' style='color:#b35900;font-size:11px'"
+                         f" title='net mass transport {float(row['net_mass_sv']):+.2f} Sv: the "
+                         "number depends on the temperature scale'>temperature transport, net "
+                         f"mass {float(row['net_mass_sv']):+.1f} Sv</span>")
             cells.append(f"<td style='{NUM}'>{text}</td>")
         rows.append(f"<tr><td style='{CELL}white-space:nowrap'>{label}</td>{''.join(cells)}</tr>")
     rows.append("</table>")

@@ -32,10 +32,19 @@ from typing import Any
 import ipywidgets as widgets
 from ipyevents import Event
 
+from sectionkit.config import Config, InverseSpec
 from sectionkit.errors import SectionkitError
 from sectionkit.workbench import render
-from sectionkit.workbench.model import Change, WorkbenchState
-from sectionkit.workbench.plots import InverseFigures, SectionFigure, SensitivityFigure, StationMap
+from sectionkit.workbench.keys import UndoKeys
+from sectionkit.workbench.model import Change, VelocitySection, WorkbenchState
+from sectionkit.workbench.plots import (
+    CLASS_COLOURS,
+    SELECTED,
+    InverseFigures,
+    SectionFigure,
+    SensitivityFigure,
+    StationMap,
+)
 
 SLIDER_STEP = 10.0  # dbar per slider step (one arrow-key press)
 REDRAW_DELAY = 0.3  # s of quiet before the slower outputs are redrawn
@@ -44,6 +53,11 @@ SLIDER_GESTURE = "reference-slider"
 PANEL_WIDTH = "360px"
 ERROR_GROUPS = ("reference", "pair", "classes", "wind", "inverse", "session", "history")
 STYLE = {"description_width": "initial"}
+#: Page style of the workbench (ipywidgets draws HTML with a tall line height).
+PAGE_CSS = """<style>
+.sk-workbench .widget-html-content { line-height: 1.35; }
+.sk-workbench .widget-html { margin-top: 1px; margin-bottom: 1px; }
+</style>"""
 
 #: CSS class of each widget, by role.
 CSS_CLASSES = {
@@ -194,8 +208,14 @@ def _note(text: str) -> widgets.HTML:
                         layout=widgets.Layout(width="100%"))
 
 
+def _button(description: str, **kwargs: Any) -> widgets.Button:
+    """A button as wide as its words (never cut short)."""
+    return widgets.Button(description=description, layout=widgets.Layout(width="auto"), **kwargs)
+
+
 def _wide(**kwargs: Any) -> widgets.Layout:
-    return widgets.Layout(width="100%", **kwargs)
+    """Full width of the parent, less the 2 px margin ipywidgets puts on each side."""
+    return widgets.Layout(width="calc(100% - 4px)", **kwargs)
 
 
 class Collapsible(widgets.VBox):
@@ -257,12 +277,12 @@ class WorkbenchView(widgets.VBox):
 
         # ---------------------------------------------------------- Reference panel
         self.mode = _css(widgets.ToggleButtons(
-            options=[("pressure", "pressure"), ("deepest common", "bottom"),
+            options=[("pressure", "pressure"), ("deepest level", "bottom"),
                      ("isopycnal", "isopycnal")],
             tooltips=["a level of no motion at the pressure of the slider",
                       "a level of no motion at each pair's deepest common level",
                       "a level of no motion on the isopycnal below"],
-            style={"button_width": "108px"}, layout=_wide()), "reference_mode")
+            style={"button_width": "auto"}, layout=_wide()), "reference_mode")
         _, deepest, _ = state.pressure_range()
         self.slider = _css(widgets.FloatSlider(
             min=0.0, max=float(deepest), step=SLIDER_STEP, description="level (dbar)",
@@ -273,7 +293,7 @@ class WorkbenchView(widgets.VBox):
         self.iso_pref = _css(widgets.FloatText(description="σ reference pressure (dbar)",
                                                step=1000.0, style=STYLE, layout=_wide()),
                              "isopycnal_pref")
-        self.iso_apply = _css(widgets.Button(description="use this isopycnal"),
+        self.iso_apply = _css(_button("use this isopycnal"),
                               "isopycnal_apply")
         self.line = _css(widgets.Dropdown(description="line", style=STYLE, layout=_wide()),
                          "line")
@@ -296,9 +316,9 @@ class WorkbenchView(widgets.VBox):
                                       "override_velocity")
         self.override_error = _css(widgets.FloatText(description="± (m s⁻¹)", style=STYLE,
                                                      layout=_wide()), "override_error")
-        self.override_apply = _css(widgets.Button(description="set for this pair"),
+        self.override_apply = _css(_button("set for this pair"),
                                    "override_apply")
-        self.override_clear = _css(widgets.Button(description="back to global"),
+        self.override_clear = _css(_button("back to global"),
                                    "override_clear")
         self.override_list = _css(widgets.HTML(layout=_wide()), "override_list")
         self.velocity_sign = _note("")
@@ -323,7 +343,7 @@ class WorkbenchView(widgets.VBox):
             options=[("constant below deepest common level", "constant"),
                      ("zero", "zero"), ("extrapolated shear", "shear")],
             description="bottom triangles", style=STYLE, layout=_wide()), "bottom_triangle")
-        self.interfaces_apply = _css(widgets.Button(description="rebuild classes"),
+        self.interfaces_apply = _css(_button("rebuild classes"),
                                      "interfaces_apply")
         classes_panel = widgets.VBox([
             _note("Interfaces light to dense, each a potential density anomaly (kg m⁻³) at "
@@ -341,7 +361,7 @@ class WorkbenchView(widgets.VBox):
         self.ekman_east: dict[str, widgets.FloatText] = {}
         self.ekman_north: dict[str, widgets.FloatText] = {}
         self.ekman_rows = widgets.VBox(layout=_wide())
-        self.ekman_apply = _css(widgets.Button(description="apply wind"), "ekman_apply")
+        self.ekman_apply = _css(_button("apply wind"), "ekman_apply")
         wind_panel = widgets.VBox([
             _note("Uniform wind stress over each line (N m⁻², east and north); its Ekman "
                   "transport enters the classes of the top layer."),
@@ -387,7 +407,7 @@ class WorkbenchView(widgets.VBox):
         self.section_net_sign = _note("")
         self.bounds = _css(widgets.Textarea(placeholder="pair, lower, upper (m s⁻¹)",
                                             layout=_wide(height="48px")), "bounds")
-        self.inverse_apply = _css(widgets.Button(description="apply inverse settings"),
+        self.inverse_apply = _css(_button("apply inverse settings"),
                                   "inverse_apply")
         self.inverse_box = widgets.VBox([
             self.solver, self.rank, self.rank_used,
@@ -413,8 +433,8 @@ class WorkbenchView(widgets.VBox):
         self.path = _css(widgets.Text(value=str(folder / f"{stem}.saved.toml"),
                                       description="config file", style=STYLE, layout=_wide()),
                          "path")
-        self.save_button = _css(widgets.Button(description="save", icon="save"), "save")
-        self.load_button = _css(widgets.Button(description="load", icon="folder-open"), "load")
+        self.save_button = _css(_button("save", icon="save"), "save")
+        self.load_button = _css(_button("load", icon="folder-open"), "load")
         self.export_folder = _css(widgets.Text(value=str(folder / f"{stem}_results"),
                                                description="results folder", style=STYLE,
                                                layout=_wide()), "export_folder")
@@ -422,7 +442,7 @@ class WorkbenchView(widgets.VBox):
                                                     indent=False,
                                                     layout=widgets.Layout(width="auto")),
                                    "export_figures")
-        self.export_button = _css(widgets.Button(description="export", icon="download"),
+        self.export_button = _css(_button("export", icon="download"),
                                   "export")
         self.export_progress = _css(widgets.FloatProgress(
             value=0.0, min=0.0, max=1.0, description="", bar_style="info",
@@ -461,6 +481,7 @@ class WorkbenchView(widgets.VBox):
                                               layout=widgets.Layout(width="auto")), "zoom")
         self.zoom_reset = _css(widgets.Button(description="whole section",
                                               layout=widgets.Layout(width="auto")), "zoom_reset")
+        self.section_caption = _note("")
         self.readout = _css(widgets.HTML(value="<span style='font-size:12px;color:#555'>point "
                                                "at the section for values</span>",
                                          layout=_wide(min_height="20px")), "readout")
@@ -471,6 +492,7 @@ class WorkbenchView(widgets.VBox):
             [(b.name, b.enters + b.leaves) for b in state.config.effective_boxes()],
             self._pick_pair)
         self.sensitivity_plot = SensitivityFigure()
+        self.sensitivity_legend = _note("")
         self.inverse_plots = InverseFigures()
         self.class_table = _css(widgets.HTML(layout=_wide(overflow="auto", max_height="320px")),
                                 "class_table")
@@ -492,10 +514,13 @@ class WorkbenchView(widgets.VBox):
             Collapsible("Velocity section", [
                 widgets.HBox([self.colour_lock, self.colour_reset, self.zoom, self.zoom_reset],
                              layout=widgets.Layout(flex_flow="row wrap")),
-                self.readout, self.figure]),
-            Collapsible("Station map", [self.map_plot.figure]),
+                self.section_caption, self.readout, self.figure]),
+            Collapsible("Station map", [_note("Stations (small dots) and pairs (large dots) of "
+                                              "each line; click a pair to select it. Arrows "
+                                              "point to positive flow."), self.map_plot.figure]),
             Collapsible("Transports by class", [self.class_table]),
-            Collapsible("Sensitivity to the level of no motion", [self.sensitivity_plot.figure]),
+            Collapsible("Sensitivity to the level of no motion",
+                        [self.sensitivity_legend, self.sensitivity_plot.figure]),
             Collapsible("Budgets of each line", [self.section_numbers]),
             Collapsible("Box constraints (net inflow, + = into the box)", [self.box_budget]),
             self.inverse_block,
@@ -503,9 +528,12 @@ class WorkbenchView(widgets.VBox):
         ], layout=widgets.Layout(flex="3 1 460px", min_width="0", padding="0 0 0 10px")),
             "outputs")
 
+        self.undo_keys = UndoKeys(lambda: self._act(state.undo, "history"),
+                             lambda: self._act(state.redo, "history"))
         super().__init__([
-            widgets.HBox([self.title, self.undo_button, self.redo_button, self.hide_controls],
-                         layout=_wide(align_items="center")),
+            widgets.HBox([self.title, self.undo_button, self.redo_button, self.hide_controls,
+                          self.undo_keys, widgets.HTML(PAGE_CSS, layout=widgets.Layout(
+                              display="none"))], layout=_wide(align_items="center")),
             self.status, self.errors["history"],
             widgets.HBox([self.panels, self.outputs],
                          layout=_wide(flex_flow="row wrap", align_items="flex-start")),
@@ -539,8 +567,6 @@ class WorkbenchView(widgets.VBox):
         self.colour_reset.on_click(lambda _: self._fit_colours())
         self.zoom.observe(self._on_zoom, names="value")
         self.zoom_reset.on_click(lambda _: self.section_plot.reset_zoom())
-        self._keys = Event(source=self, watched_events=["keydown"])
-        self._keys.on_dom_event(self._on_key)
         self._pointer = Event(source=self.figure, watched_events=["mousemove", "click"],
                               throttle_or_debounce="throttle", wait=60)
         self._pointer.on_dom_event(self._on_pointer)
@@ -576,7 +602,7 @@ class WorkbenchView(widgets.VBox):
                                                          self.state.flagged_classes)
         self.box_budget.value = render.box_budget_html(self.state.box_budget(), table.inverse)
 
-    def _section(self):
+    def _section(self) -> VelocitySection:
         return self.state.velocity_section(self.line.value or self.state.section_names[0])
 
     def _update_figure(self) -> None:
@@ -594,12 +620,25 @@ class WorkbenchView(widgets.VBox):
             section = self.state.velocity_section(name)
             direction = self.state.direction(name)
             limit = self.colours.update(section.velocity * 100.0, dragging=False)
-            self.section_plot.draw(section, limit, self.pair.value, direction)
+            self.section_plot.draw(section, limit, self.pair.value)
+            self.section_caption.value = (
+                f"<div style='font-size:12px'><b>{html.escape(name)}</b>: "
+                f"{html.escape(section.reference)}"
+                + (", with the inverse's adjustments" if section.adjusted else "")
+                + f"; velocity in cm/s, {html.escape(direction.describe())}; gold dots: "
+                "reference level of each pair; black lines: class interfaces</div>")
             self.map_plot.select(name, self.pair.value)
             self._update_tables()  # exact values of the full budget
             self.section_numbers.value = render.section_numbers_html(
                 self.state.section_numbers(), self._directions())
-            self.sensitivity_plot.draw(self.state.reference_sensitivity(), name, direction)
+            sens = self.state.reference_sensitivity()
+            self.sensitivity_plot.draw(sens, name, direction)
+            self.sensitivity_legend.value = (
+                "<div style='font-size:12px'>" + " ".join(
+                    f"<span style='color:{CLASS_COLOURS[i % len(CLASS_COLOURS)]}'>━ "
+                    f"{html.escape(layer)}</span>" for i, layer in enumerate(sens.layers))
+                + f" <span>╌ sum</span> <span style='color:{SELECTED}'>┃ current level</span>"
+                + "; click the plot to choose a level</div>")
             self._draw_inverse()
             self.cautions.value = render.cautions_html(self.state.cautions(), self._notes())
             self.draws += 1
@@ -680,7 +719,7 @@ class WorkbenchView(widgets.VBox):
         finally:
             self._syncing = False
 
-    def _sync_reference(self, cfg, names: list[str]) -> None:
+    def _sync_reference(self, cfg: Config, names: list[str]) -> None:
         ref = cfg.reference
         _, deepest, _ = self.state.pressure_range()
         self.slider.max = float(deepest)
@@ -702,7 +741,7 @@ class WorkbenchView(widgets.VBox):
         self._show_pair()
         self._show_overrides()
 
-    def _sync_inverse(self, cfg) -> None:
+    def _sync_inverse(self, cfg: Config) -> None:
         inv = cfg.inverse
         self.inverse_on.value = inv is not None
         self.inverse_box.layout.display = "" if inv is not None else "none"
@@ -728,7 +767,7 @@ class WorkbenchView(widgets.VBox):
         self.bounds.value = "\n".join(f"{label}, {lo:g}, {hi:g}"
                                       for label, (lo, hi) in inv.bounds.items())
 
-    def _build_class_noise(self, names: list[str], inv) -> None:
+    def _build_class_noise(self, names: list[str], inv: InverseSpec) -> None:
         flagged = set(self.state.flagged_classes)
         cells: list[widgets.Widget] = [widgets.HTML(f"<b style='font-size:12px'>{h}</b>")
                                        for h in ("class", "mass", "salt", "heat")]
@@ -742,7 +781,7 @@ class WorkbenchView(widgets.VBox):
                                         (self.noise_salt, inv.noise_salt, "noise_salt"),
                                         (self.noise_heat, inv.noise_heat, "noise_heat")):
                 box = widgets.FloatText(value=float(values[i]) if values else 0.0, step=0.05,
-                                        layout=widgets.Layout(width="100%", min_width="0"))
+                                        layout=_wide(min_width="0"))
                 box.add_class(CSS_CLASSES[role])
                 box.add_class(f"{CSS_CLASSES[role]}-{name}")
                 store[name] = box
@@ -839,6 +878,7 @@ class WorkbenchView(widgets.VBox):
                        "border:1px solid #e0a0a0;border-radius:3px;padding:3px 6px;"
                        f"overflow-wrap:anywhere'>refused: {html.escape(message)}</div>")
         error.layout.display = ""
+        self.undo_keys.reveal(f"sk-error-{group}")
         where = "above" if group == "history" else f"in the {group} controls"
         self._set_status(f"refused ({where}): {message}", error=True)
 
@@ -897,8 +937,9 @@ class WorkbenchView(widgets.VBox):
             finally:
                 self._syncing = False
         self._show_pair()
-        self._set_status(f"selected pair {self._pair_label()}: give it its own reference in "
-                         "the Reference panel")
+        self._last_change = (f"selected pair {self._pair_label()}: give it its own reference "
+                             "in the Reference panel")
+        self._set_status(self._last_change)
 
     def _apply_override(self) -> None:
         kind = self.override_kind.value
@@ -1028,19 +1069,6 @@ class WorkbenchView(widgets.VBox):
         self.figure.interaction = (bq.interacts.PanZoom(scales={"x": [plot.x], "y": [plot.y]})
                                    if change["new"] else None)
 
-    def _on_key(self, event: dict) -> None:
-        """Ctrl+Z undoes, Ctrl+Shift+Z redoes (text fields keep their own undo)."""
-        if str(event.get("key", "")).lower() != "z":
-            return
-        if not (event.get("ctrlKey") or event.get("metaKey")):
-            return
-        if str(event.get("target", {}).get("tagName", "")).upper() in ("INPUT", "TEXTAREA"):
-            return
-        if event.get("shiftKey"):
-            self._act(self.state.redo, "history")
-        else:
-            self._act(self.state.undo, "history")
-
     def _on_pointer(self, event: dict) -> None:
         """Hover readout (pair, pressure, velocity, σ); a click selects the pair."""
         hit = self.section_plot.readout(event)
@@ -1063,7 +1091,7 @@ class WorkbenchView(widgets.VBox):
             seen.add(key)
             value = field[pair, level]
             if value == value:
-                parts.append(f"{html.escape(label.split('=')[0].strip())} {value:.3f}")
+                parts.append(f"{html.escape(key)} {value:.3f}")
         self.readout.value = "<span style='font-size:12px'>" + " · ".join(parts) + "</span>"
 
     def _on_sensitivity_click(self, event: dict) -> None:
