@@ -58,7 +58,7 @@ import xarray as xr
 
 from sectionkit.config import Config, load_config
 from sectionkit.errors import ConfigError
-from sectionkit.outputs import udunits
+from sectionkit.outputs import REGISTRY, udunits
 from sectionkit.study import Results, Study
 
 __all__ = [
@@ -81,16 +81,18 @@ __all__ = [
     "write_ensemble",
 ]
 
-#: Per-class outputs recorded per member: name -> (results name prefix, units).
-CLASS_OUTPUTS = {"volume": ("volume", "Sv"), "mass": ("mass", "Sv"), "heat_class": ("heat", "PW")}
-#: Per-section outputs recorded per member: name -> units.
+#: Per-class outputs recorded per member: ensemble variable -> registry name
+#: (:data:`sectionkit.outputs.REGISTRY`, which holds the unit).
+CLASS_OUTPUTS = {"volume": "class_volume_transport", "mass": "class_mass_transport",
+                 "heat_class": "class_heat_transport"}
+#: Per-section outputs recorded per member: ensemble variable -> registry name.
 SCALAR_OUTPUTS = {
-    "net": "Sv",
-    "net_mass": "Sv",
-    "heat": "PW",
-    "freshwater": "Sv",
-    "overturning": "Sv",
-    "overturning_density": "Sv",
+    "net": "net_volume_transport",
+    "net_mass": "net_mass_transport",
+    "heat": "heat_transport",
+    "freshwater": "freshwater_transport",
+    "overturning": "overturning_depth",
+    "overturning_density": "overturning_density",
 }
 STATISTICS = ("mean", "std", "p2.5", "p50", "p97.5")
 PERCENTILES = (2.5, 50.0, 97.5)
@@ -283,29 +285,20 @@ def resolve_with_data(study: Study, results: Results, target: np.ndarray) -> Res
 
 def _record(study: Study, results: Results, truth: np.ndarray | None) -> dict[str, np.ndarray]:
     """Outputs of one solved state as arrays (section[, layer])."""
-    layers = study.config.layer_names or ["class_0"]
     sections = list(study.operators)
     out: dict[str, np.ndarray] = {}
     x = results.estimate
-    for name, (prefix, _) in CLASS_OUTPUTS.items():
-        names = [f"{prefix}:{layer}" for layer in layers]
-        out[name] = np.array([[results.value(s, n) for n in names] for s in sections])
-        out[f"{name}_initial"] = np.array([[results.value(s, n, adjusted=False) for n in names]
-                                           for s in sections])
-        out[f"{name}_error"] = np.array([[results.error(s, n) for n in names] for s in sections])
-        if truth is not None:
-            out[f"{name}_truth"] = np.array([
-                [results.outputs[s].value(truth)[results.outputs[s].index(n)] for n in names]
-                for s in sections])
-    for name in SCALAR_OUTPUTS:
-        out[name] = np.array([results.value(s, name) for s in sections])
-        out[f"{name}_initial"] = np.array([results.value(s, name, adjusted=False)
-                                           for s in sections])
-        out[f"{name}_error"] = np.array([results.error(s, name) for s in sections])
-        if truth is not None:
-            out[f"{name}_truth"] = np.array([
-                results.outputs[s].value(truth)[results.outputs[s].index(name)]
-                for s in sections])
+    for name, output in (CLASS_OUTPUTS | SCALAR_OUTPUTS).items():
+        chosen = [results.select(output, s) for s in sections]
+        scalar = name in SCALAR_OUTPUTS  # one value per section, not per class
+        for suffix, values in (("", [c.adjusted for c in chosen]),
+                               ("_initial", [c.initial for c in chosen]),
+                               ("_error", [c.error for c in chosen]),
+                               ("_truth", None if truth is None else
+                                [c.initial + c.gradient @ truth for c in chosen])):
+            if values is not None:
+                stacked = np.array(values)
+                out[name + suffix] = stacked[:, 0] if scalar else stacked
     out["estimate"] = np.asarray(x, dtype=float)
     return out
 
@@ -600,8 +593,8 @@ def _assemble(
     n_member = stacked["net"].shape[0]
     data: dict[str, Any] = {}
     outputs: list[tuple[str, tuple[str, ...], str]] = (
-        [(n, ("section", "class"), u) for n, (_, u) in CLASS_OUTPUTS.items()]
-        + [(n, ("section",), u) for n, u in SCALAR_OUTPUTS.items()]
+        [(n, ("section", "class"), REGISTRY[r].display) for n, r in CLASS_OUTPUTS.items()]
+        + [(n, ("section",), REGISTRY[r].display) for n, r in SCALAR_OUTPUTS.items()]
     )
     for name, dims, display in outputs:
         # CF / UDUNITS units that unit libraries read ("Sv" is the sievert to them)

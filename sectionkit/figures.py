@@ -132,14 +132,10 @@ def section_velocity(
     return op.absolute_velocity(offset, adjustment)
 
 
-def _index(out) -> dict[str, int]:
-    return {n: i for i, n in enumerate(out.names)}
-
-
 def output_block(
-    results: Results, name: str, names: Sequence[str]
+    results: Results, name: str, output: str
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Initial value, adjusted value and error of several outputs of one section.
+    """Initial value, adjusted value and error of one registered output of one section.
 
     Parameters
     ----------
@@ -147,26 +143,17 @@ def output_block(
         The results.
     name : str
         Section name.
-    names : sequence of str
-        Output names (``volume:<class>``, ``psi_depth:<k>``, ...).
+    output : str
+        Registry name (:data:`sectionkit.outputs.REGISTRY`), e.g.
+        ``"class_volume_transport"`` or ``"streamfunction_depth"``.
 
     Returns
     -------
-    initial, adjusted, error : ndarray (len(names),)
-        In the outputs' reporting units; ``error`` is NaN without an inverse.
+    initial, adjusted, error : ndarray
+        In the output's reporting units; ``error`` is NaN without an inverse.
     """
-    out = results.outputs[name]
-    where = _index(out)
-    idx = np.array([where[n] for n in names], dtype=int)
-    initial = out.value(None)[idx]
-    adjusted = out.value(results.estimate)[idx]
-    cov = results.covariance
-    if cov is None:
-        error = np.full(idx.size, np.nan)
-    else:
-        g = out.gradient[idx]
-        error = np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", g, cov, g), 0.0))
-    return initial, adjusted, error
+    sel = results.select(output, name)
+    return sel.initial, sel.adjusted, sel.error
 
 
 def interface_field(sigma: np.ndarray) -> np.ndarray:
@@ -940,8 +927,7 @@ def transport_figure(study: Study, results: Results) -> Figure:
     inverse = results.inverse is not None
     for ax, name in zip(axes.flat, names, strict=False):
         op = study.operators[name]
-        initial, adjusted, error = output_block(results, name,
-                                                [f"volume:{c}" for c in op.layer_names])
+        initial, adjusted, error = output_block(results, name, "class_volume_transport")
         plot_class_transports(ax, op.layer_names, initial, adjusted if inverse else None,
                               error if inverse else None, title=name,
                               sign=line_sign_convention(study, name))
@@ -983,8 +969,7 @@ def overturning_figure(study: Study, results: Results) -> Figure:
     for k, (name, op) in enumerate(study.operators.items()):
         c = palette[k]
         positive = line_sign_convention(study, name).replace("positive = ", "+ ")
-        depth_names = [f"psi_depth:{j}" for j in range(op.pressure.size)]
-        ini, adj, err = output_block(results, name, depth_names)
+        ini, adj, err = output_block(results, name, "streamfunction_depth")
         ends = level_end_pressure(op.pressure)  # where each accumulated integral ends
         if inverse:
             plot_overturning_depth(ax_z, ends, ini, label=f"{name} initial", color=c,
@@ -999,8 +984,7 @@ def overturning_figure(study: Study, results: Results) -> Figure:
             # from nothing lighter (0) through each interface to all classes (0: the net
             # transport is removed)
             labels = ["top", *(sigma_label(f.sigma, f.p_ref) for f in op.interfaces), "all"]
-            ini, adj, err = output_block(results, name, [f"psi_density:{n}"
-                                                         for n in range(n_face)])
+            ini, adj, err = output_block(results, name, "streamfunction_density")
             ini, adj, err = (np.concatenate([[0.0], a, [0.0]]) for a in (ini, adj, err))
             first = (2 * k if inverse else k) * dodge - 0.15 * (n_series > 1)
             if inverse:

@@ -26,13 +26,9 @@ def class_table(study: Study, results: Results) -> pd.DataFrame:
     faces = cfg.interfaces
     rows = []
     for name, op in study.operators.items():
-        out = results.outputs[name]
-        initial = out.value(None)
-        adjusted = out.value(results.estimate)
-        length = op.pairs["distance"].values[:, None]
-        area = (op.weights.sum(axis=-1) * length).sum(axis=0) / 1e6  # km^2
+        volume = results.select("class_volume_transport", name)
+        area = op.extra["class_moments"][0] / 1e6  # km^2
         for i, layer in enumerate(op.layer_names):
-            k = out.index(f"volume:{layer}")
             top = faces[i - 1] if i > 0 else None
             bottom = faces[i] if i < len(faces) else None
             rows.append({
@@ -43,9 +39,9 @@ def class_table(study: Study, results: Results) -> pd.DataFrame:
                 "p_ref_top": top.p_ref if top else np.nan,
                 "p_ref_bottom": bottom.p_ref if bottom else np.nan,
                 "area_km2": area[i],
-                "initial_sv": initial[k],
-                "adjusted_sv": adjusted[k],
-                "adjusted_err_sv": results.error(name, f"volume:{layer}"),
+                "initial_sv": volume.initial[i],
+                "adjusted_sv": volume.adjusted[i],
+                "adjusted_err_sv": volume.error[i],
             })
     return pd.DataFrame(rows)
 
@@ -184,13 +180,12 @@ def property_table(study: Study, results: Results) -> pd.DataFrame:
     """
     rows = []
     for name, op in study.operators.items():
-        out = results.outputs[name]
-        adjusted = out.value(results.estimate)
-        err = out.std(results.covariance)
-        for prop, unit in (("heat", "PW"), ("salt", "Sv g/kg")):
-            for layer in op.layer_names:
-                k = out.index(f"{prop}:{layer}")
-                rows.append([name, layer, prop, unit, out.initial[k], adjusted[k], err[k]])
+        for prop in ("heat", "salt"):
+            spec = REGISTRY[f"class_{prop}_transport"]
+            sel = results.select(spec.name, name)
+            for i, layer in enumerate(op.layer_names):
+                rows.append([name, layer, prop, spec.display, sel.initial[i], sel.adjusted[i],
+                             sel.error[i]])
         tracer = results.tracers.get(name)
         if tracer is None:
             continue

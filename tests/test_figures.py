@@ -141,7 +141,7 @@ def test_class_transport_bars_show_initial_and_adjusted_with_errors(solved):
     fig = F.transport_figure(study, results)
     ax = fig.axes[0]
     names = [f"volume:{c}" for c in study.operators["south"].layer_names]
-    initial, adjusted, error = F.output_block(results, "south", names)
+    initial, adjusted, error = F.output_block(results, "south", "class_volume_transport")
     heights = [p.get_height() for p in ax.patches]
     np.testing.assert_allclose(heights, np.concatenate([initial, adjusted]))
     assert ax.get_ylabel() == "volume transport (Sv)"
