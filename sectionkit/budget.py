@@ -276,7 +276,7 @@ def section_values(
         adjustment factor), m^3 s^-1.
     reference_salinity : float, optional
         Salinity the freshwater transport is relative to, g/kg; the section's
-        area-mean Absolute Salinity when None.
+        area-mean budget salinity (S* or SA, see build_operator) when None.
 
     Returns
     -------
@@ -356,7 +356,7 @@ def section_outputs(
         Unknown layout.
     reference_salinity : float, optional
         Salinity the freshwater transport is relative to, g/kg; the
-        section's area-mean Absolute Salinity when None.
+        section's area-mean budget salinity (S* or SA) when None.
     x_for_maximum : ndarray (unknown,), optional
         State at which the overturning maxima are located (the adjusted
         state); the initial state when None.
