@@ -12,6 +12,10 @@ in docs/outputs.md.
 >>> import xarray as xr
 >>> ds = xr.open_dataset("results/results.nc")            # doctest: +SKIP
 >>> ds["class_volume_transport_adjusted"].sel(section="south")   # doctest: +SKIP
+
+Every function here that takes ``study`` and ``results`` takes a
+:class:`~sectionkit.study.Study` and the :class:`~sectionkit.study.Results` it
+solved; their docstrings list only the other parameters.
 """
 
 from __future__ import annotations
@@ -308,19 +312,8 @@ def results_dataset(study: Study, results: Results) -> xr.Dataset:
 def write_results_nc(study: Study, results: Results, folder: str | Path) -> Path:
     """Write ``results.nc`` (every reported number, CF-NetCDF) into ``folder``.
 
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
-    folder : str or Path
-        Output folder (the report's temporary folder during a batch run).
-
-    Returns
-    -------
-    Path
-        The file written.
+    ``folder`` is the output folder (the report's temporary folder during a batch
+    run); returns the file written.
     """
     path = Path(folder) / "results.nc"
     ds = results_dataset(study, results)

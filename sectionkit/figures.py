@@ -15,6 +15,10 @@ Everything is drawn on :class:`matplotlib.figure.Figure` objects with an
 explicit Agg canvas, so pyplot's global state is never touched. Saved files
 carry no timestamps or software versions, so rerunning a study writes
 identical files where matplotlib allows. Sign conventions: docs/conventions.md.
+
+Every function here that takes ``study`` and ``results`` takes a
+:class:`~sectionkit.study.Study` and the :class:`~sectionkit.study.Results` it
+solved; their docstrings list only the other parameters.
 """
 
 from __future__ import annotations
@@ -109,10 +113,6 @@ def section_velocity(
 
     Parameters
     ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
     name : str
         Section name.
     adjusted : bool
@@ -876,10 +876,6 @@ def velocity_figure(study: Study, results: Results, name: str) -> Figure:
 
     Parameters
     ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
     name : str
         Section name.
 
@@ -907,13 +903,6 @@ def velocity_figure(study: Study, results: Results, name: str) -> Figure:
 
 def transport_figure(study: Study, results: Results) -> Figure:
     """Class transports of every section, before and after the inverse, with errors.
-
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
 
     Returns
     -------
@@ -943,13 +932,6 @@ def transport_figure(study: Study, results: Results) -> Figure:
 
 def overturning_figure(study: Study, results: Results) -> Figure:
     """Overturning streamfunction of every section in depth and in density classes.
-
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
 
     Returns
     -------
@@ -1043,13 +1025,6 @@ def map_figure(study: Study) -> Figure:
 def inverse_figure(study: Study, results: Results) -> Figure | None:
     """Diagnostics of the inverse: singular values, residuals, resolution.
 
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
-
     Returns
     -------
     Figure or None
@@ -1090,13 +1065,6 @@ def _save(fig: Figure, folder: Path, stem: str) -> list[Path]:
 def build_figures(study: Study, results: Results) -> dict[str, Figure]:
     """Every figure of a study by file stem.
 
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
-
     Returns
     -------
     dict of str -> Figure
@@ -1119,19 +1087,8 @@ def build_figures(study: Study, results: Results) -> dict[str, Figure]:
 def write_figures(study: Study, results: Results, folder: str | Path) -> list[Path]:
     """Write every figure as PNG (150 dpi) and PDF into ``folder/figures``.
 
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
-    folder : str or Path
-        Output folder (the report's temporary folder during a batch run).
-
-    Returns
-    -------
-    list of Path
-        The files written.
+    ``folder`` is the output folder (the report's temporary folder during a batch
+    run); returns the files written.
     """
     out = Path(folder) / "figures"
     out.mkdir(parents=True, exist_ok=True)

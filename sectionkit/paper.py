@@ -18,6 +18,10 @@ constraints, priors and noise) or that no inverse was run. Output is
 deterministic: rerunning a study writes byte-identical files.
 
 LaTeX needs ``\\usepackage{booktabs,siunitx,longtable}`` in the preamble.
+
+Every function here that takes ``study`` and ``results`` takes a
+:class:`~sectionkit.study.Study` and the :class:`~sectionkit.study.Results` it
+solved; their docstrings list only the other parameters.
 """
 
 from __future__ import annotations
@@ -841,13 +845,6 @@ def _property_table(study: Study, results: Results) -> PaperTable:
 def paper_tables(study: Study, results: Results) -> list[PaperTable]:
     """The four §7 tables, rounded and captioned, in the order of DESIGN.md §7.
 
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
-
     Returns
     -------
     list of PaperTable
@@ -1033,18 +1030,8 @@ def _markdown_table(table: PaperTable, number: int) -> str:
 def to_markdown(tables: Sequence[PaperTable], title: str = "", note: str = "") -> str:
     """All tables as Markdown pipe tables with their captions.
 
-    Parameters
-    ----------
-    tables : sequence of PaperTable
-        From :func:`paper_tables`.
-    title : str
-        Study title, used as the heading.
-    note : str
-        Markdown text of the study setup, printed once under the tables.
-
-    Returns
-    -------
-    str
+    The parameters are those of :func:`to_latex`; here ``title`` is the
+    heading and ``note`` is Markdown. Returns the Markdown text.
     """
     parts = [f"# {markdown_escape(title) or 'sectionkit'}: tables", ""]
     for n, t in enumerate(tables, start=1):
@@ -1057,19 +1044,8 @@ def to_markdown(tables: Sequence[PaperTable], title: str = "", note: str = "") -
 def write_paper_tables(study: Study, results: Results, folder: str | Path) -> list[Path]:
     """Write ``tables.tex`` and ``tables.md`` (DESIGN.md §7) into ``folder``.
 
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
-    folder : str or Path
-        Output folder (the report's temporary folder during a batch run).
-
-    Returns
-    -------
-    list of Path
-        The two files written.
+    ``folder`` is the output folder (the report's temporary folder during a batch
+    run); returns the two files written.
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
