@@ -29,6 +29,7 @@ import xarray as xr
 from sectionkit.budget import level_end_pressure
 from sectionkit.outputs import SECTION_OUTPUTS, SIGN, udunits
 from sectionkit.study import Results, Study
+from sectionkit.tracers import split_output_name
 
 CF_VERSION = "CF-1.10"
 
@@ -100,9 +101,9 @@ def _tracer_variables(study: Study, results: Results) -> tuple[dict, dict]:
         value = out.value(results.estimate)
         std = out.std(results.covariance)
         for k, label in enumerate(out.names):
-            tracer, _, cls = label.partition(":")
+            tracer, cls = split_output_name(label)
             if cls not in classes:
-                continue  # the "total" rows: the sum over classes
+                continue  # the TOTAL rows: the sum over classes
             at = (s, names.index(tracer), classes.index(cls))
             initial[at], adjusted[at], error[at] = out.initial[k], value[k], std[k]
     data = {}

@@ -41,6 +41,7 @@ from sectionkit.layers import class_display_name, constraint_display_name, sigma
 from sectionkit.operator import SALINITY_NAMES
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.tables import tables
+from sectionkit.tracers import TOTAL, split_output_name
 
 #: Decimals quoted for a value without an error, by unit key.
 FIXED_DECIMALS: dict[str, int] = {
@@ -829,11 +830,11 @@ def _property_table(study: Study, results: Results) -> PaperTable:
         adjusted = out.value(results.estimate)
         err = out.std(results.covariance)
         for k, label in enumerate(out.names):
-            tracer, _, layer = label.partition(":")
+            tracer, layer = split_output_name(label)
             row = [
                 Cell.text(name),
                 Cell.text(tracer),
-                Cell.text("all classes" if layer == "total" else class_display_name(layer)),
+                Cell.text("all classes" if layer == TOTAL else class_display_name(layer)),
                 Cell.number(out.initial[k], None, "kmol/s"),
             ]
             if inverse:

@@ -14,6 +14,7 @@ import pandas as pd
 from sectionkit.operator import SALINITY_NAMES
 from sectionkit.outputs import REGISTRY
 from sectionkit.study import Results, Study
+from sectionkit.tracers import TOTAL, split_output_name
 
 
 def class_table(study: Study, results: Results) -> pd.DataFrame:
@@ -192,8 +193,8 @@ def property_table(study: Study, results: Results) -> pd.DataFrame:
         t_adjusted = tracer.value(results.estimate)
         t_err = tracer.std(results.covariance)
         for k, label in enumerate(tracer.names):
-            prop, _, layer = label.partition(":")
-            if layer == "total":
+            prop, layer = split_output_name(label)
+            if layer == TOTAL:
                 continue
             rows.append([name, layer, prop, tracer.units[k], tracer.initial[k], t_adjusted[k],
                          t_err[k]])

@@ -157,6 +157,20 @@ def tracer_gradient(top: TracerOperator, t: int, layout: UnknownLayout,
     return g
 
 
+TOTAL = "total"  # the class name of a tracer's sum over classes in its outputs
+
+
+def output_name(tracer: str, klass: str) -> str:
+    """Name of a tracer's transport in one class (or ``TOTAL``): ``"<tracer>:<class>"``."""
+    return f"{tracer}:{klass}"
+
+
+def split_output_name(name: str) -> tuple[str, str]:
+    """Tracer and class of an output name made by :func:`output_name`."""
+    tracer, _, klass = name.partition(":")
+    return tracer, klass
+
+
 def tracer_outputs(
     top: TracerOperator,
     class_names: list[str],
@@ -188,7 +202,7 @@ def tracer_outputs(
     names, initial, grads = [], [], []
     for t, tracer in enumerate(top.names):
         g = tracer_gradient(top, t, layout, ekman)
-        names += [f"{tracer}:{c}" for c in class_names] + [f"{tracer}:total"]
+        names += [output_name(tracer, c) for c in class_names] + [output_name(tracer, TOTAL)]
         initial += [values[t], [values[t].sum()]]
         grads += [g, g.sum(axis=0, keepdims=True)]
     return LinearOutputs(names, np.concatenate(initial), np.vstack(grads),
