@@ -123,34 +123,22 @@ class _Covariance:
 
     @property
     def size(self) -> int:
-        if self.variances is not None:
-            return int(self.variances.shape[0])
-        assert self._matrix is not None
-        return int(self._matrix.shape[0])
+        return int(self.diagonal.shape[0])
 
     @property
     def diagonal(self) -> Array:
         """Variances, units^2, shape (n,)."""
-        if self.variances is not None:
-            return self.variances
-        assert self._matrix is not None
-        return np.diag(self._matrix).copy()
+        return self.variances if self.is_diagonal else np.diag(self._matrix).copy()
 
     @property
     def matrix(self) -> Array:
         """The full matrix ``C``, units^2, shape (n, n)."""
-        if self.variances is not None:
-            return np.diag(self.variances)
-        assert self._matrix is not None
-        return self._matrix
+        return np.diag(self.variances) if self.is_diagonal else self._matrix
 
     @property
     def factor(self) -> Array:
         """The square-root factor ``S`` (lower triangular), units, shape (n, n)."""
-        if self._sqrt is not None:
-            return np.diag(self._sqrt)
-        assert self._factor is not None
-        return self._factor
+        return np.diag(self._sqrt) if self.is_diagonal else self._factor
 
     @staticmethod
     def _rows(v: Array, x: Array) -> Array:
@@ -166,29 +154,26 @@ class _Covariance:
         """``C^-1 @ x`` through the Cholesky factor."""
         return self.factor_t_solve(self.factor_solve(x))
 
-    def factor_times(self, x: Array) -> Array:
-        """``S @ x``."""
-        if self._sqrt is not None:
+    def factor_times(self, x: Array, transpose: bool = False) -> Array:
+        """``S @ x`` (``S^T @ x`` with ``transpose``)."""
+        if self.is_diagonal:
             return self._rows(self._sqrt, x) * x
-        return self.factor @ x
+        return (self._factor.T if transpose else self._factor) @ x
 
     def factor_t_times(self, x: Array) -> Array:
         """``S^T @ x``."""
-        if self._sqrt is not None:
-            return self._rows(self._sqrt, x) * x
-        return self.factor.T @ x
+        return self.factor_times(x, transpose=True)
 
-    def factor_solve(self, x: Array) -> Array:
-        """``S^-1 @ x`` (triangular solve)."""
-        if self._sqrt is not None:
+    def factor_solve(self, x: Array, transpose: bool = False) -> Array:
+        """``S^-1 @ x`` (``S^-T @ x`` with ``transpose``), a triangular solve."""
+        if self.is_diagonal:
             return x / self._rows(self._sqrt, x)
-        return la.solve_triangular(self.factor, x, lower=True, check_finite=False)
+        return la.solve_triangular(self._factor, x, lower=True, trans="T" if transpose else "N",
+                                   check_finite=False)
 
     def factor_t_solve(self, x: Array) -> Array:
         """``S^-T @ x`` (triangular solve)."""
-        if self._sqrt is not None:
-            return x / self._rows(self._sqrt, x)
-        return la.solve_triangular(self.factor, x, lower=True, trans="T", check_finite=False)
+        return self.factor_solve(x, transpose=True)
 
     def inverse_factor(self) -> Array:
         """``S^-1`` as a matrix, units^-1, shape (n, n)."""
@@ -312,6 +297,28 @@ def _build_covariance(spec: Array, n: int, name: str, what: str, source: str) ->
 def _sym(a: Array) -> Array:
     """Symmetric part of a square matrix."""
     return 0.5 * (a + a.T)
+
+
+def _data_factor(E: Array, re_t: Array, noise: _Covariance, advice: str) -> Array:
+    """Lower Cholesky factor of the data covariance ``C = E R E^T + N``.
+
+    Parameters
+    ----------
+    E : ndarray (M, K)
+        Constraint matrix, units of ``y`` per unit of ``x``.
+    re_t : ndarray (K, M)
+        ``R E^T``, units of ``x`` times units of ``y``.
+    noise : _Covariance
+        ``N``, units of ``y`` squared.
+    advice : str
+        What to do when ``C`` is not positive definite, for the message.
+    """
+    try:
+        return la.cholesky(_sym(E @ re_t + noise.matrix), lower=True, check_finite=False)
+    except la.LinAlgError:
+        raise ComputationError(
+            f"E R E^T + N is not positive definite to working precision; {advice}"
+        ) from None
 
 
 # --------------------------------------------------------------------------
@@ -596,14 +603,9 @@ class _LinearSolver:
 
         # Expected statistics under the model y = E x + n, x ~ (0, R), n ~ (0, N):
         # cov(y) = C = E R E^T + N = L L^T, residual r = (I - T_u) y, estimate = gain y.
-        data_cov = _sym(E @ prior.times(E.T) + noise.matrix)
-        try:
-            data_factor = la.cholesky(data_cov, lower=True, check_finite=False)
-        except la.LinAlgError:
-            raise ComputationError(
-                "E R E^T + N is not positive definite to working precision; the noise "
-                "variances are too small compared with the prior-projected data variance"
-            ) from None
+        data_factor = _data_factor(E, prior.times(E.T), noise,
+                                   "the noise variances are too small compared with the "
+                                   "prior-projected data variance")
         resid_factor = data_factor - self.data_resolution_ @ data_factor  # (I - T_u) L
         self.residual_covariance_ = resid_factor @ resid_factor.T
         chi_res = float(np.sum(noise.factor_solve(self.residuals_) ** 2))
@@ -693,15 +695,8 @@ class GaussMarkov(_LinearSolver):
         self.form_used_ = form
         if form == "data":
             re_t = prior.times(E.T)  # R E^T, (K, M)
-            data_cov = _sym(E @ re_t + noise.matrix)
-            try:
-                c_factor = la.cho_factor(data_cov, lower=True, check_finite=False)
-            except la.LinAlgError:
-                raise ComputationError(
-                    "E R E^T + N is not positive definite to working precision; use "
-                    "form='model' or larger noise variances"
-                ) from None
-            gain = la.cho_solve(c_factor, re_t.T, check_finite=False).T  # R E^T C^-1
+            c_factor = _data_factor(E, re_t, noise, "use form='model' or larger noise variances")
+            gain = la.cho_solve((c_factor, True), re_t.T, check_finite=False).T  # R E^T C^-1
             covariance = prior.matrix - gain @ re_t.T
             return gain @ y, covariance, gain
 
