@@ -60,10 +60,8 @@ def great_circle_distance(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
 
     Parameters
     ----------
-    lon : ndarray (..., station)
-        Longitude, degrees_east.
-    lat : ndarray (..., station)
-        Latitude, degrees_north.
+    lon, lat : ndarray (..., station)
+        Station positions, degrees_east and degrees_north.
 
     Returns
     -------
@@ -76,14 +74,7 @@ def great_circle_distance(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
 
 
 def pair_midpoints(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Mid-points of neighbouring stations.
-
-    Parameters
-    ----------
-    lon : ndarray (..., station)
-        Longitude, degrees_east.
-    lat : ndarray (..., station)
-        Latitude, degrees_north.
+    """Mid-points of neighbouring stations ``lon, lat`` (..., station), degrees.
 
     Returns
     -------
@@ -116,10 +107,8 @@ def equatorial_pairs(
 
     Parameters
     ----------
-    lon : ndarray (station,)
-        Longitude, degrees_east.
-    lat : ndarray (station,)
-        Latitude, degrees_north.
+    lon, lat : ndarray (station,)
+        Station positions, degrees_east and degrees_north.
     band : float
         Half-width of the band, degrees (``EQUATOR_BAND`` by default).
 
@@ -158,10 +147,8 @@ def along_line_direction(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, 
 
     Parameters
     ----------
-    lon : ndarray (..., station)
-        Longitude, degrees_east.
-    lat : ndarray (..., station)
-        Latitude, degrees_north.
+    lon, lat : ndarray (..., station)
+        Station positions, degrees_east and degrees_north.
 
     Returns
     -------
@@ -283,10 +270,8 @@ def positive_direction(lon: np.ndarray, lat: np.ndarray) -> str:
 
     Parameters
     ----------
-    lon : ndarray (station,)
-        Longitude, degrees_east.
-    lat : ndarray (station,)
-        Latitude, degrees_north.
+    lon, lat : ndarray (station,)
+        Station positions, degrees_east and degrees_north.
 
     Returns
     -------

@@ -234,18 +234,7 @@ def latex_escape(text: str) -> str:
 
 
 def markdown_escape(text: str) -> str:
-    """Escape characters that would break a Markdown table cell.
-
-    Parameters
-    ----------
-    text : str
-        Plain text.
-
-    Returns
-    -------
-    str
-        Text with ``|``, ``\\``, ``*``, ``_`` and backticks escaped.
-    """
+    """Plain ``text`` with ``|``, ``\\``, ``*``, ``_`` and backticks escaped for a Markdown cell."""
     out = str(text)
     for ch in ("\\", "|", "*", "_", "`"):
         out = out.replace(ch, "\\" + ch)

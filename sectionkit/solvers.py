@@ -1056,6 +1056,12 @@ def _check_propagation(G: ArrayLike, P: ArrayLike) -> tuple[Array, Array]:
     return g, p
 
 
+def _g_times_p(G: ArrayLike, P: ArrayLike) -> tuple[Array, Array]:
+    """``G`` as an array and ``G P`` (P full or its diagonal), after checking their shapes."""
+    g, p = _check_propagation(G, P)
+    return g, (g * p if p.ndim == 1 else g @ p)
+
+
 def propagate(G: ArrayLike, P: ArrayLike) -> Array:
     """Covariance of linear outputs ``G x``: ``G P G^T``.
 
@@ -1079,8 +1085,7 @@ def propagate(G: ArrayLike, P: ArrayLike) -> Array:
     ConfigError
         ``G`` and ``P`` do not match.
     """
-    g, p = _check_propagation(G, P)
-    gp = g * p if p.ndim == 1 else g @ p
+    g, gp = _g_times_p(G, P)
     if g.ndim == 1:
         return np.asarray(gp @ g)
     out = gp @ np.swapaxes(g, -1, -2)
@@ -1094,25 +1099,10 @@ def output_std(G: ArrayLike, P: ArrayLike) -> Array:
     output rows cost O(L K^2) time and O(L K) memory instead of the O(L^2)
     of the full output covariance.
 
-    Parameters
-    ----------
-    G : array_like (..., L, K) or (K,)
-        Output operator, units of output per unit of ``x``. Leading dimensions
-        broadcast.
-    P : array_like (K, K) or (K,)
-        Covariance of the unknowns (or their variances), units of ``x`` squared.
-
-    Returns
-    -------
-    ndarray (..., L) or ()
-        Standard deviation of each output, units of output.
-
-    Raises
-    ------
-    ConfigError
-        ``G`` and ``P`` do not match.
+    ``G`` and ``P`` are as for :func:`propagate` (a ``ConfigError`` when they
+    do not match). Returns the standard deviation of each output, units of
+    output, shape (..., L) (or () for one row given as a 1-D ``G``).
     """
-    g, p = _check_propagation(G, P)
-    gp = g * p if p.ndim == 1 else g @ p
+    g, gp = _g_times_p(G, P)
     var = np.einsum("...k,...k->...", gp, g)
     return np.sqrt(np.clip(var, 0.0, None))

@@ -186,17 +186,14 @@ def tracer_outputs(
         The section's tracers.
     class_names : list of str
         Class names.
-    offset : ndarray (pair,)
-        Reference offsets of the chosen references, m s^-1.
-    ekman : ndarray (pair,)
-        Ekman volume transport per pair, m^3 s^-1.
-    layout : UnknownLayout
-        Unknown layout.
+    offset, ekman, layout
+        As for :func:`sectionkit.budget.section_outputs` (reference offsets in
+        m s^-1, Ekman transports in m^3 s^-1, the unknowns).
 
     Returns
     -------
     LinearOutputs
-        Names ``<tracer>:<class>`` and ``<tracer>:total``, kmol s^-1.
+        Names ``<tracer>:<class>`` and ``<tracer>:total`` (:func:`output_name`), kmol s^-1.
     """
     values = top.transports(offset, ekman)
     names, initial, grads = [], [], []

@@ -469,15 +469,7 @@ class WorkbenchState:
         return self.set_reference(ReferenceChoice("bottom"))
 
     def set_reference_isopycnal(self, sigma: float, p_ref: float = 0.0) -> Change:
-        """Level of no motion on an isopycnal.
-
-        Parameters
-        ----------
-        sigma : float
-            Potential density anomaly, kg m^-3.
-        p_ref : float
-            Its reference pressure, dbar.
-        """
+        """Level of no motion on the isopycnal ``sigma`` (kg m^-3) referred to ``p_ref`` (dbar)."""
         return self.set_reference(
             ReferenceChoice("isopycnal", sigma=float(sigma), sigma_p_ref=float(p_ref)))
 
@@ -851,13 +843,8 @@ class WorkbenchState:
 
     # ------------------------------------------------------------ files
     def save(self, path: str | Path) -> Path:
-        """Write the configuration as TOML (atomically); relative file names follow the file.
-
-        Parameters
-        ----------
-        path : str or Path
-            Destination .toml file.
-        """
+        """Write the configuration to the .toml file ``path`` (atomically, as
+        :meth:`Config.save`); relative file names are rewritten to follow the file."""
         path = Path(path)
         path.parent.mkdir(parents=True, exist_ok=True)
         return portable(self._config, path.parent).save(path)
