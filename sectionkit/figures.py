@@ -16,7 +16,8 @@ explicit Agg canvas, so pyplot's global state is never touched. Saved files
 carry no timestamps or software versions, so rerunning a study writes
 identical files where matplotlib allows. Sign conventions: docs/conventions.md.
 
-Every function here that takes ``study`` and ``results`` takes a
+Every ``plot_*`` function draws into the :class:`~matplotlib.axes.Axes` ``ax``
+it is given. Every function here that takes ``study`` and ``results`` takes a
 :class:`~sectionkit.study.Study` and the :class:`~sectionkit.study.Results` it
 solved; their docstrings list only the other parameters.
 """
@@ -287,8 +288,6 @@ def plot_velocity_section(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     op : SectionOperator
         The section (grid, pair geometry, class interfaces, pair densities).
     velocity : ndarray (pair, level)
@@ -502,8 +501,6 @@ def plot_class_transports(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     layer_names : sequence of str
         Class names, light to dense.
     initial : ndarray (class,)
@@ -557,8 +554,6 @@ def plot_overturning_depth(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     pressure : ndarray (level,)
         dbar (drawn increasing downward).
     psi : ndarray (level,)
@@ -599,20 +594,14 @@ def plot_overturning_density(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     interface_labels : sequence of str
         Interface names, light to dense (drawn top to bottom).
     psi : ndarray (interface,)
         Transport of all lighter classes, Sv.
     error : ndarray (interface,), optional
         One standard deviation, Sv (error bars).
-    label : str, optional
-        Legend label.
-    color : optional
-        Line colour.
-    linestyle : str
-        Line style.
+    label, color, linestyle
+        Legend label, line colour and style, as for :func:`plot_overturning_depth`.
     offset : float
         Vertical shift of the points, in interface spacings, so that several
         series' error bars do not overlap.
@@ -646,8 +635,6 @@ def plot_station_map(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     lines : dict of str -> (lon, lat)
         Station longitudes (degrees_east) and latitudes (degrees_north) by line.
     depths : dict of str -> ndarray (station,), optional
@@ -747,8 +734,6 @@ def plot_singular_values(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     values : ndarray
         Singular values, descending, dimensionless.
     rank : int, optional
@@ -790,8 +775,6 @@ def plot_residuals(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     labels : sequence of str
         Constraint names.
     before, after : ndarray (constraint,)
@@ -833,8 +816,6 @@ def plot_resolution(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     sections : dict of str -> ndarray (pair,)
         Resolution diagonal of each section's pairs, dimensionless.
     colors : sequence, optional

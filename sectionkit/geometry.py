@@ -143,12 +143,7 @@ def along_line_direction(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, 
     """Unit vector along the line, from station k to k + 1, in local east/north.
 
     Positive transport is to the left of this direction, i.e. along
-    (-t_north, t_east).
-
-    Parameters
-    ----------
-    lon, lat : ndarray (..., station)
-        Station positions, degrees_east and degrees_north.
+    (-t_north, t_east). ``lon, lat`` as for :func:`great_circle_distance`.
 
     Returns
     -------
