@@ -19,11 +19,14 @@ import numpy as np
 
 from sectionkit.labels import parse_pair_label
 from sectionkit.operator import QUANTITIES, SectionOperator
+from sectionkit.outputs import REGISTRY, SCALE
 from sectionkit.solvers import output_std
 
-SV = 1e6  # m^3 s^-1 per Sverdrup (common practice)
-PW = 1e15  # W per petawatt
-QUANTITY_SCALE = {"volume": SV, "mass": SV, "salt": SV, "heat": PW}
+SV = SCALE["Sv"]  # m^3 s^-1 per Sverdrup (common practice)
+PW = SCALE["PW"]  # W per petawatt
+#: Reporting unit of each transported quantity's class transport (the registry's).
+QUANTITY_UNIT = {q: REGISTRY[f"class_{q}_transport"].display for q in QUANTITIES}
+QUANTITY_SCALE = {q: SCALE[unit] for q, unit in QUANTITY_UNIT.items()}
 Q = {name: n for n, name in enumerate(QUANTITIES)}
 
 
@@ -378,7 +381,7 @@ def section_outputs(
     for quantity in QUANTITIES:
         value = values[f"{quantity}_transport"]
         grad = per_q[quantity] = class_transport_gradient(op, quantity, layout, ekman)
-        unit = {"volume": "Sv", "mass": "Sv", "salt": "Sv g/kg", "heat": "PW"}[quantity]
+        unit = QUANTITY_UNIT[quantity]
         for i, layer in enumerate(op.layer_names):
             names.append(f"{quantity}:{layer}")
             initial.append(value[i : i + 1])

@@ -30,6 +30,7 @@ from sectionkit.io.bottle import tracer_name
 from sectionkit.io.units import pressure_to_dbar, temperature_to_celsius
 from sectionkit.labels import parse_pair_label, split_pair_label
 from sectionkit.layers import Interface, check_interfaces
+from sectionkit.solvers import SOLVERS
 from sectionkit.thermo import SALINITY_KINDS, TEMPERATURE_KINDS
 
 if sys.version_info >= (3, 11):
@@ -37,7 +38,7 @@ if sys.version_info >= (3, 11):
 else:  # pragma: no cover
     import tomli as tomllib
 
-SOLVER_NAMES = ("gauss-markov", "svd", "bounded")
+SOLVER_NAMES = tuple(SOLVERS)  # the solvers' registry names (sectionkit.solvers)
 #: How each solver is named in figures, tables and the workbench.
 SOLVER_DISPLAY = {"gauss-markov": "Gauss–Markov", "svd": "truncated SVD",
                   "bounded": "bounded least squares"}

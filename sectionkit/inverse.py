@@ -30,12 +30,20 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from sectionkit.budget import PW, QUANTITY_SCALE, SV, Q, UnknownLayout, class_transport_gradient
+from sectionkit.budget import (
+    PW,
+    QUANTITY_SCALE,
+    QUANTITY_UNIT,
+    SV,
+    Q,
+    UnknownLayout,
+    class_transport_gradient,
+)
 from sectionkit.config import CONSTRAINT_KINDS, BoxSpec, InverseSpec, KnownTransport
 from sectionkit.errors import ComputationError, ConfigError
 from sectionkit.geometry import haversine
 from sectionkit.operator import CP0, RHO0, SectionOperator
-from sectionkit.solvers import make_solver
+from sectionkit.solvers import make_solver, output_std
 from sectionkit.tracers import (
     KMOL_PER_SV_UMOL,
     TRACER_NOISE_FLOOR,
@@ -206,12 +214,12 @@ def assemble(
                 e_rows.append(mass_g[i] + dia[i])
                 initial.append(float(mass_v[i] + known_v[i]))
                 noise.append(float(np.sqrt(spec.noise_layer[i] ** 2 + known_var[i])))
-                units.append("Sv")
+                units.append(QUANTITY_UNIT["mass"])
             rows.append((box.name, "mass:total"))
             e_rows.append(mass_g.sum(axis=0))
             initial.append(float(mass_v.sum() + known_v.sum()))
             noise.append(float(np.sqrt(spec.noise_total**2 + known_var.sum())))
-            units.append("Sv")
+            units.append(QUANTITY_UNIT["mass"])
         if "salt" in spec.conserve:
             salt_v, salt_g = net("salt")
             dia_s = transfer_anomaly(dia, sa_mean)
@@ -223,7 +231,7 @@ def assemble(
                 spread = max(sa_std[i], contrast[i], SALT_NOISE_FLOOR)
                 noise.append(spec.noise_salt[i] if spec.noise_salt and spec.noise_salt[i] > 0
                              else spec.noise_layer[i] * spread)
-                units.append("Sv g/kg")
+                units.append(QUANTITY_UNIT["salt"])
         if "heat" in spec.conserve:
             heat_v, heat_g = net("heat")
             h = RHO0 * CP0 * SV / PW  # PW per (Sv degC)
@@ -236,7 +244,7 @@ def assemble(
                 spread = max(ct_std[i], contrast[i], TEMPERATURE_NOISE_FLOOR)
                 noise.append(spec.noise_heat[i] if spec.noise_heat and spec.noise_heat[i] > 0
                              else spec.noise_layer[i] * spread * h)
-                units.append("PW")
+                units.append(QUANTITY_UNIT["heat"])
         for tracer in [c for c in spec.conserve if c not in CONSTRAINT_KINDS]:
             # like salt: anomaly from the box-class mean concentration, k converts
             # Sv x umol/kg of mass transport to kmol/s (sectionkit.tracers)
@@ -264,7 +272,7 @@ def assemble(
                       .sum(axis=0))
         initial.append(float(t - net.transport))
         noise.append(net.noise)
-        units.append("Sv")
+        units.append(QUANTITY_UNIT["mass"])
     if not rows:
         raise ConfigError("[inverse] conserve is empty: name at least one of mass, salt, heat")
 
@@ -430,8 +438,7 @@ class InverseResult:
         Inverse Problem*, ch. 3): the noise less the part of it the adjusted
         unknowns absorb. Zero (to rounding) where the unknowns fit a row exactly.
         """
-        e = self.system.matrix
-        projected = np.einsum("ij,jk,ik->i", e, self.covariance, e)
+        projected = output_std(self.system.matrix, self.covariance) ** 2  # diag(E P E^T)
         return np.sqrt(np.maximum(self.system.noise**2 - projected, 0.0))
 
     @property

@@ -32,7 +32,7 @@ from typing import Any
 import ipywidgets as widgets
 from ipyevents import Event
 
-from sectionkit.config import Config, InverseSpec
+from sectionkit.config import SOLVER_DISPLAY, SOLVER_NAMES, Config, InverseSpec
 from sectionkit.errors import SectionkitError
 from sectionkit.workbench import render
 from sectionkit.workbench.keys import UndoKeys
@@ -374,9 +374,7 @@ class WorkbenchView(widgets.VBox):
         # ---------------------------------------------------------- Inverse panel
         self.inverse_on = _css(widgets.Checkbox(description="adjust references by the box inverse",
                                                 indent=False, layout=_wide()), "inverse_on")
-        self.solver = _css(widgets.Dropdown(options=[("Gauss–Markov", "gauss-markov"),
-                                                     ("truncated SVD", "svd"),
-                                                     ("bounded least squares", "bounded")],
+        self.solver = _css(widgets.Dropdown(options=[(SOLVER_DISPLAY[k], k) for k in SOLVER_NAMES],
                                             description="solver", style=STYLE, layout=_wide()),
                            "solver")
         self.rank = _css(widgets.BoundedIntText(description="SVD rank (0 = automatic)", min=0,
