@@ -491,12 +491,12 @@ def test_scenario_refuses_mismatched_class_counts():
 
 
 def test_failed_generation_leaves_no_half_written_demo(tmp_path, monkeypatch):
-    import sectionkit.demo as demo
+    import sectionkit.demo.files as files
 
     def broken(*args, **kwargs):
         raise RuntimeError("truth failed")
 
-    monkeypatch.setattr(demo, "demo_truth", broken)
+    monkeypatch.setattr(files, "demo_truth", broken)  # the file writer's step that fails
     out = tmp_path / "demo"
     with pytest.raises(RuntimeError):
         demo.write_demo(out, small=True)
