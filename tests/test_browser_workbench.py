@@ -184,6 +184,29 @@ def test_workbench_in_the_browser(lab, size):
                 "() => { const s = document.querySelector('.sk-status').textContent;"
                 " return s.includes('redid') && s.includes('drawn'); }", timeout=30_000)
 
+            # ---- the hover readout, and a level chosen on the sensitivity view
+            figure = page.locator(".sk-velocity-figure")
+            figure.scroll_into_view_if_needed()
+            box = figure.bounding_box()
+            page.mouse.move(box["x"] + 0.5 * box["width"], box["y"] + 0.5 * box["height"])
+            page.wait_for_function(
+                "() => document.querySelector('.sk-readout').textContent.includes('dbar')",
+                timeout=30_000)
+            assert "pair south:" in page.locator(".sk-readout").inner_text()
+            page.screenshot(path=str(shots / "04b-readout.png"))
+            sens = page.locator(".sk-sensitivity")
+            sens.scroll_into_view_if_needed()
+            box = sens.bounding_box()
+            page.mouse.click(box["x"] + 0.55 * box["width"], box["y"] + 0.5 * box["height"])
+            page.wait_for_function(
+                "() => { const s = document.querySelector('.sk-status').textContent;"
+                " return s.includes('reference: level of no motion at') && !s.includes('3050')"
+                " && s.includes('drawn'); }", timeout=30_000)
+            page.screenshot(path=str(shots / "04c-sensitivity-pick.png"))
+            status = page.locator(".sk-status").inner_text()
+            chosen = float(status.split("level of no motion at ")[1].split(" dbar")[0])
+            assert 0.0 < chosen < 6000.0
+
             # ---- a pair chosen on the station map
             groups = page.evaluate("""() => {
               const out = []; let last = null;
@@ -236,9 +259,9 @@ def test_workbench_in_the_browser(lab, size):
             browser.close()
     assert (root / f"results_{name}" / "class_transports.csv").is_file() or (
         root / f"results_{name}" / "layer_transports.csv").is_file()
-    # the slider change was autosaved beside the (copied) demo configuration
+    # the last reference change was autosaved beside the (copied) demo configuration
     autosave = root / f"demo_{name}" / "demo.autosave.toml"
     deadline = time.monotonic() + 10
-    while f"pressure = {target}" not in (autosave.read_text() if autosave.exists() else ""):
-        assert time.monotonic() < deadline, "the slider change was not autosaved"
+    while f"pressure = {chosen}" not in (autosave.read_text() if autosave.exists() else ""):
+        assert time.monotonic() < deadline, "the reference change was not autosaved"
         time.sleep(0.2)

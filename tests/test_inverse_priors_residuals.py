@@ -74,7 +74,7 @@ def test_workbench_box_table_judges_residuals_by_their_posterior_std():
                        np.array([0.5]), ("Sv",), np.array([0.1]))
     assert budget.posterior_normalized_residual[0] == pytest.approx(3.0)
     page = box_budget_html(budget, inverse=True)
-    assert "adjusted/posterior std" in page and "fde2c8" in page
+    assert "adjusted / posterior std" in page and "fde2c8" in page
     assert budget.to_frame()["posterior_normalized_residual"][0] == pytest.approx(3.0)
 
 

@@ -291,3 +291,10 @@ def test_a_south_to_north_line_counts_westward_flow_positive():
                           base_dir=Path("."))
     d = line_direction(study, config, "west")
     assert d.describe() == "+ = westward across W1→W3, out of the box box"
+
+
+def test_numbered_stations_are_called_stations_in_the_direction():
+    from sectionkit.workbench.snapshot import LineDirection
+
+    d = LineDirection("north", "northward", "1", "41", (("interior", False),))
+    assert d.describe() == "+ = northward across stations 1→41, out of the box interior"

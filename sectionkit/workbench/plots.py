@@ -460,8 +460,9 @@ class InverseFigures:
                              colors=[SELECTED], stroke_width=2)
         self.singular = _figure(
             [self.sv, self.rank], [bq.Axis(scale=self.sx, label="index"),
-                                   bq.Axis(scale=self.sy, side="left",
-                                           label="singular value (scaled)")],
+                                   bq.Axis(scale=self.sy, side="left", tick_format=".0e",
+                                           label="singular value (scaled)",
+                                           label_offset="55px")],
             "sk-singular-values", "220px", title="singular values")
 
     def draw(self, view: InverseView) -> None:

@@ -115,26 +115,29 @@ def box_budget_html(budget: BoxBudget, inverse: bool) -> str:
     str
         An HTML table; rows with ``|residual| > 2`` are flagged.
     """
-    ratio_head = "adjusted/posterior std" if inverse else "adjusted/noise"
-    head = ("box", "constraint", "initial", "adjusted", "noise", ratio_head, "unit")
+    ratio_head = "adjusted / posterior std" if inverse else "adjusted / noise"
+    head = ("constraint (unit)", "initial", "adjusted", "noise", ratio_head)
     rows = [f"<div style='overflow-x:auto'><table style='{TABLE_STYLE}'><tr>"
-            + "".join(f"<th style='{HEAD}white-space:nowrap'>{h}</th>" for h in head) + "</tr>"]
+            + "".join(f"<th style='{HEAD}'>{h}</th>" for h in head) + "</tr>"]
     # judged against what the estimate can achieve, sqrt(diag(N - E P E^T)) (Wunsch 1996,
     # ch. 3); without an inverse the initial inflow over the noise
     ratio = budget.posterior_normalized_residual if inverse else budget.normalized_residual
+    current = None
     for k, (box, constraint) in enumerate(budget.rows):
+        if box != current:  # one heading row per box keeps the table narrow
+            current = box
+            rows.append(f"<tr><td style='{CELL}' colspan='5'><b>{html.escape(box)}</b></td></tr>")
         r = float(ratio[k])
         flag = math.isfinite(r) and abs(r) > LARGE_RESIDUAL
         style = " style='background:#fde2c8'" if flag else ""
         noise = float(budget.noise[k])
         rows.append(
-            f"<tr{style}><td style='{CELL}white-space:nowrap'>{html.escape(box)}</td>"
-            f"<td style='{CELL}white-space:nowrap'>{html.escape(constraint)}</td>"
+            f"<tr{style}><td style='{CELL}white-space:nowrap'>{html.escape(constraint)} "
+            f"<span style='color:#777'>({html.escape(budget.units[k])})</span></td>"
             f"<td style='{NUM}'>{_fmt(float(budget.initial[k]))}</td>"
             f"<td style='{NUM}'>{_fmt(float(budget.adjusted[k])) if inverse else '–'}</td>"
             f"<td style='{NUM}'>{f'{noise:.2f}' if math.isfinite(noise) else '–'}</td>"
-            f"<td style='{NUM}'>{_fmt(r)}</td>"
-            f"<td style='{CELL}white-space:nowrap'>{html.escape(budget.units[k])}</td></tr>"
+            f"<td style='{NUM}'>{_fmt(r)}</td></tr>"
         )
     rows.append("</table></div>")
     note = ("" if inverse else "<div style='font-size:11px;color:#555'>No inverse: the "
@@ -182,12 +185,13 @@ def section_numbers_html(summary: pd.DataFrame,
         for _, row in summary.iterrows():
             text = _pm(float(row[col]), float(row[err]), digits)
             if col == "heat_pw" and row.get("heat_kind") == "temperature transport":
-                text += ("<br><span class='sk-heat-kind' style='color:#b35900;font-size:11px'"
+                text += ("<span class='sk-heat-kind' style='display:block;white-space:normal;"
+                         "color:#b35900;font-size:11px'"
                          f" title='net mass transport {float(row['net_mass_sv']):+.2f} Sv: the "
                          "number depends on the temperature scale'>temperature transport, net "
                          f"mass {float(row['net_mass_sv']):+.1f} Sv</span>")
             cells.append(f"<td style='{NUM}'>{text}</td>")
-        rows.append(f"<tr><td style='{CELL}white-space:nowrap'>{label}</td>{''.join(cells)}</tr>")
+        rows.append(f"<tr><td style='{CELL}'>{label}</td>{''.join(cells)}</tr>")
     rows.append("</table>")
     return "".join(rows)
 

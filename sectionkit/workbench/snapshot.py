@@ -459,8 +459,11 @@ class LineDirection:
 
     @property
     def across(self) -> str:
-        """E.g. ``"northward across S01→S47"``."""
-        return f"{self.compass} across {self.first_station}→{self.last_station}"
+        """E.g. ``"northward across S01→S47"`` (``"across stations 1→41"`` for bare numbers)."""
+        ends = f"{self.first_station}→{self.last_station}"
+        if self.first_station.isdigit() and self.last_station.isdigit():
+            ends = "stations " + ends
+        return f"{self.compass} across {ends}"
 
     @property
     def box_text(self) -> str:

@@ -34,6 +34,7 @@ from ipyevents import Event
 
 from sectionkit.config import SOLVER_DISPLAY, SOLVER_NAMES, Config, InverseSpec
 from sectionkit.errors import SectionkitError
+from sectionkit.layers import class_display_name
 from sectionkit.workbench import render
 from sectionkit.workbench.keys import UndoKeys
 from sectionkit.workbench.model import Change, VelocitySection, WorkbenchState
@@ -490,7 +491,7 @@ class WorkbenchView(widgets.VBox):
         self.inverse_plots = InverseFigures()
         self.class_table = _css(widgets.HTML(layout=_wide(overflow="auto", max_height="320px")),
                                 "class_table")
-        self.box_budget = _css(widgets.HTML(layout=_wide(overflow="auto", max_height="300px")),
+        self.box_budget = _css(widgets.HTML(layout=_wide(overflow="auto", max_height="380px")),
                                "box_budget")
         self.section_numbers = _css(widgets.HTML(layout=_wide(overflow="auto")),
                                     "section_numbers")
@@ -630,7 +631,8 @@ class WorkbenchView(widgets.VBox):
             self.sensitivity_legend.value = (
                 "<div style='font-size:12px'>" + " ".join(
                     f"<span style='color:{CLASS_COLOURS[i % len(CLASS_COLOURS)]}'>━ "
-                    f"{html.escape(layer)}</span>" for i, layer in enumerate(sens.layers))
+                    f"{html.escape(class_display_name(layer))}</span>"
+                    for i, layer in enumerate(sens.layers))
                 + f" <span>╌ sum</span> <span style='color:{SELECTED}'>┃ current level</span>"
                 + "; click the plot to choose a level</div>")
             self._draw_inverse()
@@ -769,8 +771,9 @@ class WorkbenchView(widgets.VBox):
         for i, name in enumerate(names):
             mark = (" <span class='sk-flag' style='color:#b35900'>new</span>"
                     if name in flagged else "")
-            cells.append(widgets.HTML(f"<span style='font-size:12px'>{html.escape(name)}"
-                                      f"{mark}</span>", layout=widgets.Layout(min_width="0")))
+            label = html.escape(class_display_name(name))
+            cells.append(widgets.HTML(f"<span style='font-size:12px'>{label}{mark}</span>",
+                                      layout=widgets.Layout(min_width="0")))
             for store, values, role in ((self.noise_layer, inv.noise_layer, "noise_layer"),
                                         (self.noise_salt, inv.noise_salt, "noise_salt"),
                                         (self.noise_heat, inv.noise_heat, "noise_heat")):
