@@ -19,7 +19,7 @@ project runner ``benchmarks/run.py`` prints them one line per goal.
 - :func:`profile_pipeline` — cProfile of the long-line pipeline, the top
   functions by own time.
 
-Everything runs on invented data (:mod:`sectionkit.modelsection`).
+Everything runs on invented data (the test helpers in ``tests/_synthetic.py``).
 """
 
 from __future__ import annotations

@@ -229,11 +229,10 @@ class Study:
         cautions.extend(self.load_cautions)
         state = BudgetState.prepare(self, cautions, inverse=inverse)
         result = state.solve()
-        x = result.estimate if result else None
         results = state.results(result, cautions)
         outputs = results.outputs
-        for name, out in outputs.items():
-            net_mass = float(out.value(x)[out.index("net_mass")])
+        for name in outputs:
+            net_mass = float(results.select("net_mass_transport", name).adjusted[0])
             if abs(net_mass) > NET_MASS_HEAT_TOLERANCE:
                 cautions.add(
                     "temperature-transport",
