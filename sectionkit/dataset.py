@@ -85,7 +85,7 @@ def _tracer_variables(study: Study, results: Results) -> tuple[dict, dict]:
     names: list[str] = []
     for out in tracers.values():
         for label in out.names:
-            tracer = label.partition(":")[0]
+            tracer = split_output_name(label)[0]
             if tracer not in names:
                 names.append(tracer)
     if not names:
@@ -95,17 +95,13 @@ def _tracer_variables(study: Study, results: Results) -> tuple[dict, dict]:
     shape = (len(sections), len(names), len(classes))
     initial, adjusted, error = (np.full(shape, np.nan) for _ in range(3))
     for s, section in enumerate(sections):
-        out = tracers.get(section)
-        if out is None:
-            continue
-        value = out.value(results.estimate)
-        std = out.std(results.covariance)
-        for k, label in enumerate(out.names):
+        sel = results.tracer_values(section)
+        for k, label in enumerate(sel.keys if sel is not None else []):
             tracer, cls = split_output_name(label)
-            if cls not in classes:
-                continue  # the TOTAL rows: the sum over classes
-            at = (s, names.index(tracer), classes.index(cls))
-            initial[at], adjusted[at], error[at] = out.initial[k], value[k], std[k]
+            if cls in classes:  # not the TOTAL rows (the sum over classes)
+                at = (s, names.index(tracer), classes.index(cls))
+                initial[at], adjusted[at], error[at] = sel.initial[k], sel.adjusted[k], \
+                    sel.error[k]
     data = {}
     for tag, values, what in (("initial", initial, "with the chosen references"),
                               ("adjusted", adjusted, "after the box inverse"),

@@ -815,19 +815,18 @@ def _property_table(study: Study, results: Results) -> PaperTable:
         cols.append(Column(f"Adjusted ({_unit('kmol/s', True)})",
                            f"Adjusted ({_unit('kmol/s', False)})"))
     rows = []
-    for name, out in results.tracers.items():
-        adjusted = out.value(results.estimate)
-        err = out.std(results.covariance)
-        for k, label in enumerate(out.names):
+    for name in results.tracers:
+        sel = results.tracer_values(name)
+        for k, label in enumerate(sel.keys):
             tracer, layer = split_output_name(label)
             row = [
                 Cell.text(name),
                 Cell.text(tracer),
                 Cell.text("all classes" if layer == TOTAL else class_display_name(layer)),
-                Cell.number(out.initial[k], None, "kmol/s"),
+                Cell.number(sel.initial[k], None, "kmol/s"),
             ]
             if inverse:
-                row.append(Cell.number(adjusted[k], _err(err[k]), "kmol/s"))
+                row.append(Cell.number(sel.adjusted[k], _err(sel.error[k]), "kmol/s"))
             rows.append(row)
     return PaperTable("property_transports", title, caption(True), caption(False), cols, rows)
 

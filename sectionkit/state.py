@@ -374,6 +374,19 @@ class Results:
             error = output_std(gradient, self.covariance)
         return Selection(list(keys), initial, adjusted, error, gradient)
 
+    def tracer_values(self, section: str) -> Selection | None:
+        """Every bottle-tracer transport of one section (kmol s^-1), or None without tracers.
+
+        The keys are :func:`sectionkit.tracers.output_name` (``<tracer>:<class>``
+        and ``<tracer>:total``).
+        """
+        out = self.tracers.get(section)
+        if out is None:
+            return None
+        adjusted = out.initial if self.inverse is None else out.value(self.estimate)
+        return Selection(list(out.names), out.initial, adjusted, out.std(self.covariance),
+                         out.gradient)
+
     def select(self, output: str, section: str) -> Selection:
         """One registered output of one section by name (:data:`sectionkit.outputs.REGISTRY`).
 

@@ -15,6 +15,7 @@ from sectionkit.operator import SALINITY_NAMES
 from sectionkit.outputs import REGISTRY
 from sectionkit.study import Results, Study
 from sectionkit.tracers import TOTAL, split_output_name
+from sectionkit.tracers import UNIT as TRACER_UNIT
 
 
 def class_table(study: Study, results: Results) -> pd.DataFrame:
@@ -187,17 +188,12 @@ def property_table(study: Study, results: Results) -> pd.DataFrame:
             for i, layer in enumerate(op.layer_names):
                 rows.append([name, layer, prop, spec.display, sel.initial[i], sel.adjusted[i],
                              sel.error[i]])
-        tracer = results.tracers.get(name)
-        if tracer is None:
-            continue
-        t_adjusted = tracer.value(results.estimate)
-        t_err = tracer.std(results.covariance)
-        for k, label in enumerate(tracer.names):
+        tracer = results.tracer_values(name)
+        for k, label in enumerate(tracer.keys if tracer is not None else []):
             prop, layer = split_output_name(label)
-            if layer == TOTAL:
-                continue
-            rows.append([name, layer, prop, tracer.units[k], tracer.initial[k], t_adjusted[k],
-                         t_err[k]])
+            if layer != TOTAL:
+                rows.append([name, layer, prop, TRACER_UNIT, tracer.initial[k],
+                             tracer.adjusted[k], tracer.error[k]])
     return pd.DataFrame(rows, columns=PROPERTY_COLUMNS)
 
 
