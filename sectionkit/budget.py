@@ -245,8 +245,8 @@ def overturning_fractions(op: SectionOperator) -> tuple[np.ndarray, np.ndarray]:
     density : ndarray (..., interface)
         Area of the classes lighter than each interface over the total.
     """
-    level = op.extra["level_section_area"]
-    klass = op.extra["class_moments"][..., 0, :]
+    level = op.level_section_area
+    klass = op.class_area
     with np.errstate(invalid="ignore", divide="ignore"):
         depth = np.cumsum(level, axis=-1) / level.sum(axis=-1)[..., None]
         density = np.cumsum(klass, axis=-1)[..., :-1] / klass.sum(axis=-1)[..., None]

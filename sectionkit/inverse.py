@@ -114,7 +114,7 @@ def box_class_means(
     sa_mean, sa_std, ct_mean, ct_std : ndarray (class,)
         g/kg and degC.
     """
-    sums = sum(operators[name].extra["class_moments"] for name in box.sections)
+    sums = sum(operators[name].class_moments for name in box.sections)
     area = np.where(sums[0] > 0, sums[0], np.nan)
     sa_mean = sums[1] / area
     ct_mean = sums[3] / area
@@ -248,7 +248,7 @@ def assemble(
         for tracer in [c for c in spec.conserve if c not in CONSTRAINT_KINDS]:
             # like salt: anomaly from the box-class mean concentration, k converts
             # Sv x umol/kg of mass transport to kmol/s (sectionkit.tracers)
-            area = sum(operators[s].extra["class_moments"][0] for s in sections)
+            area = sum(operators[s].class_area for s in sections)
             t_v, t_g, c_mean, c_std = box_tracer_parts(
                 tracer, {s: box.sign(s) for s in sections}, tracers or {}, area, offsets,
                 ekman, layout,

@@ -258,6 +258,56 @@ class SectionOperator:
         ref = np.asarray(offset) + np.asarray(adjustment)
         return self.v_eff + self.response * ref[..., None]
 
+    # ---------------------------------------------------------------- named by-products
+    # (kept from the build; read these, not the ``extra`` dictionary)
+    @property
+    def class_moments(self) -> np.ndarray:
+        """Area integrals of [1, S, S^2, CT, CT^2] over each class, (..., 5, class).
+
+        m^2, g/kg m^2, (g/kg)^2 m^2, degC m^2 and degC^2 m^2; S is the salinity of
+        the salt budgets (:attr:`budget_salinity`).
+        """
+        return self.extra["class_moments"]
+
+    @property
+    def class_area(self) -> np.ndarray:
+        """Cross-sectional area of each class, bottom triangles included, (..., class), m^2."""
+        return self.class_moments[..., 0, :]
+
+    @property
+    def level_section_area(self) -> np.ndarray:
+        """Area of the whole section in each grid level's integration cell, (..., level), m^2."""
+        return self.extra["level_section_area"]
+
+    @property
+    def budget_salinity(self) -> np.ndarray:
+        """Pair-mean salinity of the salt budgets (S* or SA), (..., pair, level), g/kg."""
+        return self.extra["salt_pair"]
+
+    @property
+    def pair_density(self) -> np.ndarray:
+        """Pair-mean in-situ density, (..., pair, level), kg m^-3."""
+        return self.extra["rho_pair"]
+
+    @property
+    def relative_velocity(self) -> np.ndarray:
+        """Velocity relative to the surface between each pair, before bottom triangles.
+
+        (..., pair, level), m s^-1: what a rebuild with other classes reuses.
+        """
+        return self.extra["v_rel"]
+
+    @property
+    def source_section(self) -> xr.Dataset | None:
+        """The canonical section the operator was built from."""
+        return self.extra.get("section")
+
+    @property
+    def track_below_stations(self) -> dict[int, tuple[float, float]]:
+        """Pairs whose bathymetry track lies below both stations: pair -> (track, deeper
+        station) sea-floor pressure, dbar."""
+        return self.extra.get("track_below_stations", {})
+
 
 def _masked(a: np.ndarray) -> np.ndarray:
     """The array with NaN (below the bottom) set to zero."""

@@ -116,7 +116,7 @@ class Study:
         for spec in cfg.sections:
             ds = self.sections[spec.name]
             previous = self.operators.get(spec.name)
-            if previous is not None and previous.extra.get("section") is not ds:
+            if previous is not None and previous.source_section is not ds:
                 previous = None  # new data: dynamic height again
             if progress:
                 progress(("classes of " if previous else "dynamic height and classes of ")
@@ -131,7 +131,7 @@ class Study:
                 bottom_triangle=cfg.bottom_triangle,
                 ekman_depth=cfg.ekman_depth,
                 bathymetry=_bathymetry(cfg, spec, ds),
-                relative_velocity_of_pairs=None if previous is None else previous.extra["v_rel"],
+                relative_velocity_of_pairs=None if previous is None else previous.relative_velocity,
                 salinity=cfg.salt_salinity,
             )
             present = [t for t in cfg.tracers if t in ds]
@@ -240,7 +240,7 @@ class Study:
                     "temperature transport relative to 0 degC, not a heat transport",
                 )
         for name, op in self.operators.items():
-            below = op.extra.get("track_below_stations", {})
+            below = op.track_below_stations
             if below:
                 listed = ", ".join(f"{name}:{j} (track {pt:.0f} dbar, deeper station "
                                    f"{pb:.0f} dbar)" for j, (pt, pb) in below.items())

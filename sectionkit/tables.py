@@ -29,7 +29,7 @@ def class_table(study: Study, results: Results) -> pd.DataFrame:
     rows = []
     for name, op in study.operators.items():
         volume = results.select("class_volume_transport", name)
-        area = op.extra["class_moments"][0] / 1e6  # km^2
+        area = op.class_area / 1e6  # km^2
         for i, layer in enumerate(op.layer_names):
             top = faces[i - 1] if i > 0 else None
             bottom = faces[i] if i < len(faces) else None

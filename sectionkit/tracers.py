@@ -126,7 +126,7 @@ def build_tracer_operator(
             )
         fields.append(c)
     c_pair = np.stack([_masked(pair_mean(c)) for c in fields])  # (tracer, pair, level)
-    rho = _masked(op.extra["rho_pair"])
+    rho = _masked(op.pair_density)
     prop = rho[None] * c_pair  # umol m^-3
     length = op.pairs["distance"].values[None, :, None]  # m
     v0 = _masked(op.v_eff)

@@ -135,14 +135,14 @@ class DemoTruth:
         """Area-weighted mean salinity of each class over both lines, g kg^-1.
 
         The salinity of the salt budgets (Preformed Salinity S* by default,
-        ``extra["salt_pair"]`` of the operators).
+        :attr:`SectionOperator.budget_salinity`).
         """
         num = 0.0
         den = 0.0
         for line in self.scenario.lines:
             op = self.operators[line.name]
             w = op.weights * op.pairs["distance"].values[:, None, None]  # (pair, class, level) m^2
-            sa = np.nan_to_num(op.extra["salt_pair"])[:, None, :]
+            sa = np.nan_to_num(op.budget_salinity)[:, None, :]
             num = num + (w * sa).sum(axis=(0, 2))
             den = den + w.sum(axis=(0, 2))
         return np.asarray(num / den)
