@@ -22,7 +22,7 @@ import gsw
 import numpy as np
 import xarray as xr
 
-from sectionkit.errors import EquatorError, SectionDataError
+from sectionkit.errors import Cautions, EquatorError, SectionDataError
 from sectionkit.geometry import EQUATOR_HARD_BAND, pair_geometry
 from sectionkit.geostrophy import (
     extend_into_bottom_triangle,
@@ -30,6 +30,7 @@ from sectionkit.geostrophy import (
     pair_level_limits,
     pair_mean,
     relative_velocity,
+    resolve_references,
 )
 from sectionkit.labels import pair_labels
 from sectionkit.layers import (
@@ -257,6 +258,26 @@ class SectionOperator:
         """
         ref = np.asarray(offset) + np.asarray(adjustment)
         return self.v_eff + self.response * ref[..., None]
+
+    def resolve_references(
+        self, choices: list, cautions: Cautions | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Reference pressure used (dbar) and velocity offset (m s^-1) of every pair.
+
+        :func:`sectionkit.geostrophy.resolve_references` on this operator's
+        velocities, grid, deepest levels and bottom-triangle rule: the one way
+        a section's references are resolved (batch, workbench, xarray layer).
+
+        Parameters
+        ----------
+        choices : list of ReferenceChoice
+            One per pair.
+        cautions : Cautions, optional
+            Receives references below the floor and missing isopycnals, by pair name.
+        """
+        return resolve_references(choices, self.v_eff, self.pressure, self.common,
+                                  self.sigma_for(choices), cautions, self.pair_labels,
+                                  deepest=self.deepest, bottom_triangle=self.bottom_triangle)
 
     # ---------------------------------------------------------------- named by-products
     # (kept from the build; read these, not the ``extra`` dictionary)

@@ -21,7 +21,6 @@ from sectionkit.config import Config, check_pair_labels
 from sectionkit.direct import DirectReference, direct_reference
 from sectionkit.errors import Cautions, InputFileError
 from sectionkit.geometry import along_line_distance, great_circle_distance
-from sectionkit.geostrophy import resolve_references
 from sectionkit.io import load_section
 from sectionkit.io.adcp import read_velocity_profiles
 from sectionkit.io.validate import check_gridded_levels, check_pair_latitudes
@@ -154,11 +153,7 @@ class Study:
         out = {}
         for name, op in self.operators.items():
             choices = [self.config.reference_for(label) for label in op.pair_labels]
-            p_used, offset = resolve_references(
-                choices, op.v_eff, op.pressure, op.common, op.sigma_for(choices),
-                cautions, op.pair_labels, deepest=op.deepest,
-                bottom_triangle=op.bottom_triangle,
-            )
+            p_used, offset = op.resolve_references(choices, cautions)
             kinds = [c.kind for c in choices]
             direct = self.direct.get(name)
             if direct is not None and self.config.adcp.use == "known":

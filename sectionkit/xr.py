@@ -41,7 +41,7 @@ from sectionkit.budget import section_values
 from sectionkit.config import Config
 from sectionkit.errors import ConfigError, SectionDataError
 from sectionkit.geometry import pair_geometry
-from sectionkit.geostrophy import ReferenceChoice, resolve_references
+from sectionkit.geostrophy import ReferenceChoice
 from sectionkit.labels import split_pair_label
 from sectionkit.layers import Interface, check_interfaces
 from sectionkit.operator import build_operator
@@ -207,9 +207,7 @@ def budget_kernel(
                         bottom_triangle=bottom_triangle, ekman_depth=ekman_depth,
                         bathymetry=bathymetry, max_dp=max_dp, salinity=salinity)
     choices = _pair_choices(reference, overrides, op.n_pair)
-    p_used, offset = resolve_references(choices, op.v_eff, op.pressure, op.common,
-                                        op.sigma_for(choices), deepest=op.deepest,
-                                        bottom_triangle=op.bottom_triangle)
+    p_used, offset = op.resolve_references(choices)
     ek = op.ekman_volume(stress[..., 0], stress[..., 1])
     out = section_values(op, offset, adjustment, ek, reference_salinity)
     out["reference_pressure"] = p_used
