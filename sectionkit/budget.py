@@ -17,6 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from sectionkit.errors import ConfigError
 from sectionkit.labels import parse_pair_label
 from sectionkit.operator import QUANTITIES, SectionOperator
 from sectionkit.outputs import REGISTRY, SCALE
@@ -204,6 +205,15 @@ def class_transport_gradient(
     return g
 
 
+def _check_pairs(op: SectionOperator, what: str, value: np.ndarray | float) -> None:
+    """Refuse a per-pair argument whose last axis is not the section's pairs, naming both shapes."""
+    shape = np.shape(value)
+    if shape and shape[-1] != op.n_pair:
+        raise ConfigError(f"{what} has shape {shape}, but section {op.name!r} has {op.n_pair} "
+                          f"pairs: give a number or an array of shape (..., {op.n_pair}) with "
+                          "the pairs last")
+
+
 def _signed_extremum(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Value of largest magnitude along the last axis (sign kept) and its index."""
     k = np.argmax(np.abs(values), axis=-1)
@@ -295,6 +305,8 @@ def section_values(
         ``overturning_pressure`` (dbar, where that integral ends) and
         ``overturning_density`` (Sv).
     """
+    for what, value in (("offset", offset), ("adjustment", adjustment), ("ekman", ekman)):
+        _check_pairs(op, what, value)
     ek = np.asarray(ekman, dtype=float)
     if ek.ndim == 0:
         ek = np.full(op.n_pair, float(ek))

@@ -112,3 +112,20 @@ def test_box_side_sign_is_plus_for_a_section_entering_and_minus_for_one_leaving(
     assert (box.sign("south"), box.sign("north")) == (1.0, -1.0)
     with pytest.raises(ConfigError, match="does not bound box 'interior'"):
         box.sign("east")
+
+
+def test_a_per_pair_argument_of_the_wrong_length_names_both_shapes():
+    # gsw's style: the refusal states the shapes it found
+    from _synthetic import thermocline_section
+
+    from sectionkit.budget import section_values
+    from sectionkit.layers import Interface
+    from sectionkit.operator import build_operator
+
+    op = build_operator(thermocline_section(n=5, dp=20.0, lat0=30.0, name="south"),
+                        [Interface(27.0, 0.0)], ["warm", "cold"])
+    with pytest.raises(ConfigError, match=r"adjustment has shape \(3, 7\), but section "
+                                          r"'south' has 4 pairs.*\(\.\.\., 4\)"):
+        section_values(op, np.zeros(4), np.zeros((3, 7)))
+    leading = section_values(op, np.zeros(4), np.zeros((3, 4)))  # leading dims are fine
+    assert leading["net"].shape == (3,)
