@@ -30,7 +30,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from sectionkit.budget import SV, UnknownLayout
+from sectionkit.budget import SV, Q, UnknownLayout
 from sectionkit.config import Config, InverseSpec
 from sectionkit.errors import Cautions, ConfigError
 from sectionkit.geometry import compass_name, pair_along_line_distance
@@ -563,7 +563,7 @@ def reference_sensitivity(study: Study, ekman: dict[str, np.ndarray],
         offsets = -np.take_along_axis(op.v_eff.T, k, axis=0)  # v_eff (pair, level) -> (level, pair)
         offsets = np.where(own[None, :], own_offsets[name][None, :], offsets)
         t = op.transports(offsets, 0.0, ekman[name], 1.0)  # (level, quantity, pair, class)
-        out[s] = t[:, 0].sum(axis=-2) / SV
+        out[s] = t[:, Q["volume"]].sum(axis=-2) / SV
     ref = cfg.reference
     current = float(ref.pressure) if ref.kind == "pressure" and ref.pressure is not None else None
     return ReferenceSensitivity(pressure.astype(float), out, tuple(ops),
