@@ -12,11 +12,11 @@ from pathlib import Path
 import netCDF4
 import numpy as np
 
-from sectionkit.budget import SV
+from sectionkit.budget import SV, Q
 from sectionkit.demo.exchange import add_exchange_line
 from sectionkit.demo.ocean import _canonical, _observe, _Observed
 from sectionkit.demo.scenario import DemoScenario, _pick, toml_config
-from sectionkit.demo.truth import _Q, DemoTruth, demo_truth
+from sectionkit.demo.truth import DemoTruth, demo_truth
 
 # ---------------------------------------------------------------------------
 # files
@@ -166,7 +166,7 @@ def _truth_tables(truth: DemoTruth) -> dict[str, tuple[list[str], list[list[str]
     layers = []
     for line in sc.lines:
         op = truth.operators[line.name]
-        area = op.area[_Q["volume"]].sum(axis=0)
+        area = op.area[Q["volume"]].sum(axis=0)
         ek = truth.ekman_by_class(line.name, "mass") / SV
         init_v = truth.class_transports(line.name, "volume", true=False) / SV
         init_m = truth.class_transports(line.name, "mass", true=False) / SV

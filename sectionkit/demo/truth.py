@@ -8,18 +8,16 @@ import numpy as np
 import tomllib
 import xarray as xr
 
-from sectionkit.budget import SV
+from sectionkit.budget import SV, Q
 from sectionkit.config import BoxSpec, SectionNet, parse_config
 from sectionkit.demo.ocean import generate_section, station_distances
 from sectionkit.demo.scenario import DemoScenario, LineSpec, _pick, _rng, toml_config
 from sectionkit.errors import ComputationError
 from sectionkit.geometry import pair_along_line_distance
 from sectionkit.inverse import interface_transfers, transfer_anomaly
-from sectionkit.operator import QUANTITIES, SectionOperator, build_operator
+from sectionkit.operator import SectionOperator, build_operator
 from sectionkit.state import BudgetState
 from sectionkit.study import Study
-
-_Q = {q: n for n, q in enumerate(QUANTITIES)}
 
 # ---------------------------------------------------------------------------
 # truth
@@ -97,14 +95,14 @@ class DemoTruth:
         """
         op = self.operators[name]
         b = self.b_true[name] if true else 0.0
-        return op.transports(self.offset[name], b, ekman=self.ekman[name])[_Q[quantity]].sum(
+        return op.transports(self.offset[name], b, ekman=self.ekman[name])[Q[quantity]].sum(
             axis=0
         )
 
     def ekman_by_class(self, name: str, quantity: str = "mass") -> np.ndarray:
         """Ekman part of a line's class transports, in the operator's units."""
         op = self.operators[name]
-        return (self.ekman[name][:, None] * op.ekman_share[_Q[quantity]]).sum(axis=0)
+        return (self.ekman[name][:, None] * op.ekman_share[Q[quantity]]).sum(axis=0)
 
     def box_inflow(self, quantity: str = "mass") -> np.ndarray:
         """Net inflow of each class through the lines (Ekman included), operator units."""
