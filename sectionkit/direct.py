@@ -137,7 +137,9 @@ def direct_reference(
     g = op.pairs
     te, tn = g["along_east"].values, g["along_north"].values
     stations = {station_key(p.key): p for p in profiles if p.kind == "station"}
-    pairs = {int(p.key): p for p in profiles if p.kind == "pair"}
+    # pair profiles named for another section (one file for several lines) are not ours
+    pairs = {int(p.key): p for p in profiles
+             if p.kind == "pair" and p.section in (None, op.name)}
     n = op.n_pair
     measured = np.full(n, np.nan)
     sem = np.full(n, np.nan)

@@ -124,7 +124,8 @@ def test_pair_profiles_from_cf_netcdf_are_used_for_their_pair(tmp_path):
         ids._Encoding = "ascii"
         ids[:] = np.array(["line:0", "line:1"], dtype="S8")
     profiles = read_velocity_profiles(path)
-    assert [(p.kind, p.key) for p in profiles] == [("pair", "0"), ("pair", "1")]
+    assert [(p.kind, p.key, p.section) for p in profiles] == [("pair", "0", "line"),
+                                                              ("pair", "1", "line")]
     np.testing.assert_allclose(profiles[0].v, 0.03)  # cm s-1 converted
 
 
@@ -167,3 +168,14 @@ def test_workbench_slider_with_direct_velocity_priors_equals_a_batch_run(tmp_pat
             np.testing.assert_allclose(quick["adjusted_sv"].iloc[c],
                                        results.value("line", f"volume:{layer}"),
                                        rtol=1e-9, atol=1e-9)
+
+
+def test_pair_profiles_of_another_section_are_not_used(tmp_path):
+    rows = [{"section": sec, "pair": k, "pressure": p, "u": 0.0, "v": v}
+            for sec, v in (("line", 0.05), ("other", -0.5)) for k in (0, 1)
+            for p in np.arange(500.0, 1500.0, 50.0)]
+    pd.DataFrame(rows).to_csv(tmp_path / "ladcp.csv", index=False)
+    study = Study.from_config(_config(tmp_path, "known", inverse=False),
+                              sections={"line": _still_section()})
+    # an east-west line: northward is normal; only this section's 0.05 m/s is used
+    np.testing.assert_allclose(study.direct["line"].measured, 0.05, atol=1e-12)

@@ -4,7 +4,8 @@ Two layouts, per station or per station pair:
 
 - **CSV** long form, one row per sample: ``station`` (a station id of the
   section) or ``pair`` (0-based pair index), ``pressure`` (dbar), ``u``
-  (eastward) and ``v`` (northward) in m s^-1; ``#`` lines are comments.
+  (eastward) and ``v`` (northward) in m s^-1, and optionally ``section``
+  (which section a pair index belongs to); ``#`` lines are comments.
 - **CF-NetCDF** profiles: velocities found by standard_name
   (``eastward_sea_water_velocity``, ``northward_sea_water_velocity``; units
   m s-1 or cm s-1), pressure by ``sea_water_pressure`` (or ``axis = "Z"``
@@ -52,6 +53,9 @@ class VelocityProfile:
         dbar.
     u, v : ndarray (sample,)
         Eastward and northward velocity, m s^-1.
+    section : str or None
+        The section a pair profile belongs to (``<section>:<k>`` ids, or a
+        ``section`` column); None when the file does not say.
     """
 
     kind: str
@@ -60,6 +64,7 @@ class VelocityProfile:
     pressure: np.ndarray
     u: np.ndarray
     v: np.ndarray
+    section: str | None = None
 
 
 def _check_speed(profile: VelocityProfile) -> None:
@@ -87,8 +92,11 @@ def _read_csv(file: str) -> list[VelocityProfile]:
             f"u, v (m s^-1); columns present: {', '.join(table.columns)}"
         )
     kind = keys[0]
+    by = [kind] + (["section"] if "section" in table.columns else [])
     out = []
-    for key, rows in table.groupby(kind, sort=False):
+    for group, rows in table.groupby(by, sort=False):
+        key = group[0] if isinstance(group, tuple) else group
+        section = str(group[1]).strip() if isinstance(group, tuple) and len(group) > 1 else None
         try:
             p, u, v = (rows[c].to_numpy(dtype=float) for c in ("pressure", "u", "v"))
         except ValueError as exc:
@@ -100,7 +108,7 @@ def _read_csv(file: str) -> list[VelocityProfile]:
             if value != int(value) or value < 0:
                 raise InputFileError(f"file {file}: pair {label!r} is not a 0-based pair index")
             label = str(int(value))
-        out.append(VelocityProfile(kind, label, file, p, u, v))
+        out.append(VelocityProfile(kind, label, file, p, u, v, section))
     return out
 
 
@@ -147,8 +155,12 @@ def _read_netcdf(file: str) -> list[VelocityProfile]:
     out = []
     for i, pid in enumerate(ids):
         match = _PAIR_ID.match(pid.strip())
-        kind, key = ("pair", match.group(1)) if match and ":" in pid else ("station", pid.strip())
-        out.append(VelocityProfile(kind, key, file, p[i].astype(float), u[i], v[i]))
+        if match and ":" in pid:
+            prefix = pid.strip().rpartition(":")[0].strip()
+            kind, key, section = "pair", match.group(1), (None if prefix == "pair" else prefix)
+        else:
+            kind, key, section = "station", pid.strip(), None
+        out.append(VelocityProfile(kind, key, file, p[i].astype(float), u[i], v[i], section))
     return out
 
 
@@ -173,7 +185,7 @@ def read_velocity_profiles(path: str | os.PathLike) -> list[VelocityProfile]:
         ok = np.isfinite(prof.pressure) & np.isfinite(prof.u) & np.isfinite(prof.v)
         order = np.argsort(prof.pressure[ok], kind="stable")
         clean = VelocityProfile(prof.kind, prof.key, prof.file, prof.pressure[ok][order],
-                                prof.u[ok][order], prof.v[ok][order])
+                                prof.u[ok][order], prof.v[ok][order], prof.section)
         _check_speed(clean)
         out.append(clean)
     if not out:
