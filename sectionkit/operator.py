@@ -123,8 +123,31 @@ class SectionOperator:
         first asked for).
     class_salinity, class_temperature : ndarray (..., class)
         Area-weighted mean salinity of the salt budgets (Preformed Salinity S*
-        or SA, ``extra["salinity"]``; g/kg) and CT (degC) of each class;
+        or SA, see ``salinity``; g/kg) and CT (degC) of each class;
         ``mean_salinity`` is the section's area mean of the same salinity.
+    salinity : {"preformed", "absolute"}
+        Which salinity the salt budgets use.
+    class_moments : ndarray (..., 5, class)
+        Area integrals of [1, S, S^2, CT, CT^2] over each class: m^2, g/kg m^2,
+        (g/kg)^2 m^2, degC m^2 and degC^2 m^2 (S: ``budget_salinity``).
+    level_section_area : ndarray (..., level)
+        Area of the whole section in each grid level's integration cell, m^2.
+    budget_salinity : ndarray (..., pair, level)
+        Pair-mean salinity of the salt budgets (S* or SA), g/kg.
+    pair_sa, pair_ct : ndarray (..., pair, level)
+        Pair-mean Absolute Salinity (g/kg) and Conservative Temperature (degC).
+    pair_density : ndarray (..., pair, level)
+        Pair-mean in-situ density, kg m^-3.
+    station_sa, station_ct : ndarray (..., station, level)
+        The section's SA (g/kg) and CT (degC), for densities asked for later.
+    relative_velocity : ndarray (..., pair, level)
+        Velocity relative to the surface before bottom triangles, m s^-1 (what a
+        rebuild with other classes reuses).
+    source_section : xr.Dataset or None
+        The canonical section the operator was built from.
+    track_below_stations : dict of int -> (float, float)
+        Pairs whose bathymetry track lies below both stations: pair -> (track,
+        deeper station) sea-floor pressure, dbar.
     """
 
     name: str
@@ -149,7 +172,18 @@ class SectionOperator:
     mean_salinity: np.ndarray
     ekman_depth: float
     bottom_triangle: str
-    extra: dict = field(default_factory=dict)
+    salinity: str = "preformed"
+    class_moments: np.ndarray | None = None
+    level_section_area: np.ndarray | None = None
+    budget_salinity: np.ndarray | None = None
+    pair_sa: np.ndarray | None = None
+    pair_ct: np.ndarray | None = None
+    pair_density: np.ndarray | None = None
+    station_sa: np.ndarray | None = None
+    station_ct: np.ndarray | None = None
+    relative_velocity: np.ndarray | None = None
+    source_section: xr.Dataset | None = None
+    track_below_stations: dict[int, tuple[float, float]] = field(default_factory=dict)
 
     @property
     def n_pair(self) -> int:
@@ -238,7 +272,7 @@ class SectionOperator:
                 self.sigma_pair[pr]  # computed on first access
             else:
                 self.sigma_pair[pr] = pair_mean(potential_density_anomaly(
-                    self.extra["station_sa"], self.extra["station_ct"], pr))
+                    self.station_sa, self.station_ct, pr))
         return self.sigma_pair
 
     def absolute_velocity(self, offset: np.ndarray, adjustment: np.ndarray | float = 0.0):
@@ -279,55 +313,10 @@ class SectionOperator:
                                   self.sigma_for(choices), cautions, self.pair_labels,
                                   deepest=self.deepest, bottom_triangle=self.bottom_triangle)
 
-    # ---------------------------------------------------------------- named by-products
-    # (kept from the build; read these, not the ``extra`` dictionary)
-    @property
-    def class_moments(self) -> np.ndarray:
-        """Area integrals of [1, S, S^2, CT, CT^2] over each class, (..., 5, class).
-
-        m^2, g/kg m^2, (g/kg)^2 m^2, degC m^2 and degC^2 m^2; S is the salinity of
-        the salt budgets (:attr:`budget_salinity`).
-        """
-        return self.extra["class_moments"]
-
     @property
     def class_area(self) -> np.ndarray:
         """Cross-sectional area of each class, bottom triangles included, (..., class), m^2."""
         return self.class_moments[..., 0, :]
-
-    @property
-    def level_section_area(self) -> np.ndarray:
-        """Area of the whole section in each grid level's integration cell, (..., level), m^2."""
-        return self.extra["level_section_area"]
-
-    @property
-    def budget_salinity(self) -> np.ndarray:
-        """Pair-mean salinity of the salt budgets (S* or SA), (..., pair, level), g/kg."""
-        return self.extra["salt_pair"]
-
-    @property
-    def pair_density(self) -> np.ndarray:
-        """Pair-mean in-situ density, (..., pair, level), kg m^-3."""
-        return self.extra["rho_pair"]
-
-    @property
-    def relative_velocity(self) -> np.ndarray:
-        """Velocity relative to the surface between each pair, before bottom triangles.
-
-        (..., pair, level), m s^-1: what a rebuild with other classes reuses.
-        """
-        return self.extra["v_rel"]
-
-    @property
-    def source_section(self) -> xr.Dataset | None:
-        """The canonical section the operator was built from."""
-        return self.extra.get("section")
-
-    @property
-    def track_below_stations(self) -> dict[int, tuple[float, float]]:
-        """Pairs whose bathymetry track lies below both stations: pair -> (track, deeper
-        station) sea-floor pressure, dbar."""
-        return self.extra.get("track_below_stations", {})
 
 
 def _masked(a: np.ndarray) -> np.ndarray:
@@ -368,7 +357,7 @@ def build_operator(
         Integration step of gsw's dynamic height, dbar.
     relative_velocity_of_pairs : ndarray (..., pair, level), optional
         The velocity relative to the surface of this same section from an
-        earlier build (``extra["v_rel"]``), m s^-1: a change of classes,
+        earlier build (``relative_velocity``), m s^-1: a change of classes,
         bottom-triangle rule or Ekman depth then needs no new dynamic height.
     salinity : {"preformed", "absolute"}
         Salinity of the salt transports, class salinities and the freshwater
@@ -541,12 +530,19 @@ def build_operator(
         mean_salinity=mean_salinity,
         ekman_depth=float(ekman_depth),
         bottom_triangle=bottom_triangle,
-        extra={"sa_pair": sa_pair, "salt_pair": salt_pair, "salinity": salinity,
-               "ct_pair": ct_pair, "rho_pair": rho_pair,
-               "class_moments": class_moments, "station_sa": sa, "station_ct": ct,
-               "v_rel": v_rel, "section": section, "level_section_area": level_section_area,
-               "track_below_stations": {j: (p_track, float(max(bottom[j], bottom[j + 1])))
-                                        for j, p_track in below.items()}},
+        salinity=salinity,
+        class_moments=class_moments,
+        level_section_area=level_section_area,
+        budget_salinity=salt_pair,
+        pair_sa=sa_pair,
+        pair_ct=ct_pair,
+        pair_density=rho_pair,
+        station_sa=sa,
+        station_ct=ct,
+        relative_velocity=v_rel,
+        source_section=section,
+        track_below_stations={j: (p_track, float(max(bottom[j], bottom[j + 1])))
+                              for j, p_track in below.items()},
     )
 
 
