@@ -5,19 +5,25 @@ Prints one line per goal::
     <name>: <measured> (goal <goal>) met
     <name>: <measured> (goal <goal>) short (by X)
 
-Goals: the long-line pipeline against gsw dynamic height alone (<= 3x); a
-reference update against a full recompute (<= 1/100); the 600-unknown
-inverse with propagation (< 1 s, from ``bench_solvers`` when present);
-ensemble throughput with 2 workers against 1 (>= 1.7x); bounded peak memory
-of a long chunked model-output section; and the workbench's slider goals
-when ``bench_workbench`` is present.
+Goals: the long-line pipeline against gsw dynamic height alone (<= 3x) and
+against a hand-written gsw + numpy notebook peer on the same line (peer at
+least 2x slower), timed in interleaved rounds of one run; a reference update
+against a full recompute (<= 1/100); the 600-unknown inverse with
+propagation (< 1 s, from ``bench_solvers`` when present); ensemble
+throughput with 2 workers against 1 (>= 1.7x); members per second of a
+1000-member demo-box ensemble on 2 workers (>= 3x the earlier engine's
+recorded figure, with a progress bar, bit-for-bit equal to the serial run);
+bounded peak memory of a long chunked model-output section; and the
+workbench's slider goals when ``bench_workbench`` is present.
 
 Usage::
 
-    python benchmarks/run.py [--quick] [--profile] [--json FILE]
+    python benchmarks/run.py [--quick] [--profile] [--json FILE] [--earlier REF]
 
 ``--quick`` runs smaller cases (under a minute); ``--profile`` also prints a
-cProfile listing of the pipeline's hot paths.
+cProfile listing of the pipeline's hot paths; ``--earlier REF`` also runs the
+demo-box ensemble of the engine at git revision REF, alternating with this
+one, for a gain measured under the same machine load.
 """
 
 from __future__ import annotations
@@ -32,6 +38,12 @@ import sys
 import time
 from pathlib import Path
 from typing import Any
+
+# one BLAS thread, as the ensemble's dask workers use: on 2 cores shared with other jobs a
+# second BLAS thread only waits for a core (set before numpy is imported; an explicit
+# setting in the environment wins)
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
@@ -113,23 +125,42 @@ def _own_inverse() -> Measurement:
                        unit="s")
 
 
+def _earlier_tree(ref: str) -> str:
+    """``sectionkit`` and ``demo_sections`` of a git revision, extracted to a temporary folder."""
+    import subprocess
+    import tempfile
+
+    tree = tempfile.mkdtemp(prefix="sectionkit-earlier-")
+    archive = subprocess.run(["git", "-C", str(HERE.parent), "archive", ref, "sectionkit",
+                              "demo_sections"], capture_output=True, check=True)
+    subprocess.run(["tar", "-x", "-C", tree], input=archive.stdout, check=True)
+    return tree
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run every benchmark and print one line per goal."""
     parser = argparse.ArgumentParser(description="sectionkit performance goals")
     parser.add_argument("--quick", action="store_true", help="smaller cases, under a minute")
     parser.add_argument("--profile", action="store_true", help="print the pipeline profile")
     parser.add_argument("--json", default=None, help="also write the measurements as JSON")
+    parser.add_argument("--earlier", default=None, metavar="REF",
+                        help="also run the demo ensemble of the engine at this git revision, "
+                             "alternating with this one (same load)")
     args = parser.parse_args(argv)
+    earlier = _earlier_tree(args.earlier) if args.earlier else None
 
     print(f"machine: {_machine()}")
+    print(f"load average at start (1, 5, 15 min): {os.getloadavg()}; BLAS threads: "
+          f"{os.environ.get('OPENBLAS_NUM_THREADS')}")
     print(f"mode: {'quick' if args.quick else 'full'}")
     start = time.perf_counter()
     measured: list[Measurement] = []
     steps = [
-        lambda: [bench_pipeline.pipeline_vs_floor(args.quick)],
+        lambda: bench_pipeline.pipeline_vs_floor(args.quick),
         lambda: [bench_pipeline.reference_update(args.quick)],
         lambda: _inverse(args.quick),
         lambda: [bench_pipeline.ensemble_scaling(args.quick)],
+        lambda: [bench_pipeline.demo_ensemble_throughput(args.quick, earlier=earlier)],
         lambda: [bench_pipeline.model_output_memory(args.quick)],
         lambda: _optional("bench_workbench", args.quick),
     ]
@@ -141,7 +172,8 @@ def main(argv: list[str] | None = None) -> int:
                 text = f"{value:.4g}" if isinstance(value, float) else str(value)
                 print(f"    {key}: {text}")
     print(f"goals met: {sum(m.met for m in measured)}/{len(measured)} "
-          f"in {time.perf_counter() - start:.0f} s")
+          f"in {time.perf_counter() - start:.0f} s; "
+          f"load average at the end (1, 5, 15 min): {os.getloadavg()}")
     if args.profile:
         print("\nprofile of the long-line pipeline (cProfile):")
         print(bench_pipeline.profile_pipeline(args.quick))

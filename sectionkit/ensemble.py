@@ -199,27 +199,46 @@ def shift_profiles(values: np.ndarray, pressure: np.ndarray, shift: np.ndarray) 
     pressure = np.asarray(pressure, dtype=float)
     shift = np.asarray(shift, dtype=float)
     ok = np.isfinite(out)
+    plan = _shift_plan(ok, pressure, shift)
+    if plan is not None:
+        return _apply_shift(out, plan)
     count = ok.sum(axis=-1)
-    step = np.diff(pressure)
-    # casts valid from the surface down on an even grid: one vectorised interpolation
-    if (out.ndim == 2 and step.size and np.all(step > 0)
-            and np.all(np.abs(step - step[0]) <= 1e-12 * step[0])
-            and np.array_equal(ok, np.arange(out.shape[-1]) < count[:, None])):
-        top = np.maximum(count - 1, 0)[:, None]
-        u = np.clip(np.arange(out.shape[-1]) - (shift / step[0])[:, None], 0.0, top)
-        j = np.minimum(np.floor(u).astype(np.intp), np.maximum(top - 1, 0))
-        w = u - j
-        v0 = np.take_along_axis(out, j, axis=-1)
-        v1 = np.take_along_axis(out, np.minimum(j + 1, top), axis=-1)
-        moved = ok & (count >= 2)[:, None] & (shift != 0.0)[:, None]
-        out = np.where(moved, v0 + w * (v1 - v0), out)
-        return out
     for s in range(values.shape[0]):
         ok_s = ok[s]
         if count[s] < 2 or shift[s] == 0.0:
             continue
         out[s, ok_s] = np.interp(pressure[ok_s] - shift[s], pressure[ok_s], values[s, ok_s])
     return out
+
+
+def _shift_plan(ok: np.ndarray, pressure: np.ndarray, shift: np.ndarray) -> tuple | None:
+    """Interpolation indices and weights of :func:`shift_profiles` for casts valid from the
+    surface down on an even grid (None otherwise)."""
+    step = np.diff(pressure)
+    if not (ok.ndim == 2 and step.size and np.all(step > 0)
+            and np.all(np.abs(step - step[0]) <= 1e-12 * step[0])):
+        return None
+    count = np.count_nonzero(ok, axis=-1)
+    if not np.array_equal(ok, np.arange(ok.shape[-1]) < count[:, None]):
+        return None
+    top = np.maximum(count - 1, 0)[:, None]
+    u = np.clip(np.arange(ok.shape[-1]) - (shift / step[0])[:, None], 0.0, top)
+    j = np.minimum(np.floor(u).astype(np.intp), np.maximum(top - 1, 0))
+    w = u - j
+    moved = ok & (count >= 2)[:, None] & (shift != 0.0)[:, None]
+    row = (np.arange(ok.shape[0]) * ok.shape[-1])[:, None]  # flat indices of the levels
+    return j + row, np.minimum(j + 1, top) + row, w, moved
+
+
+def _apply_shift(values: np.ndarray, plan: tuple) -> np.ndarray:
+    j0, j1, w, moved = plan
+    flat = values.reshape(-1)
+    v0 = np.take(flat, j0)
+    v1 = np.take(flat, j1)
+    v1 -= v0
+    v1 *= w
+    v1 += v0
+    return np.where(moved, v1, values)
 
 
 def perturb_section(
@@ -251,8 +270,13 @@ def perturb_section(
     dt = rng.normal(0.0, 1.0, shape) * perturb.temperature
     ds = rng.normal(0.0, 1.0, shape) * perturb.salinity
     if perturb.pressure > 0:
-        sa = shift_profiles(sa, p, dp)
-        ct = shift_profiles(ct, p, dp)
+        ok = np.isfinite(sa)
+        plan = _shift_plan(ok, p, dp) if np.array_equal(ok, np.isfinite(ct)) else None
+        if plan is not None:  # one set of indices and weights for both
+            sa, ct = _apply_shift(sa, plan), _apply_shift(ct, plan)
+        else:
+            sa = shift_profiles(sa, p, dp)
+            ct = shift_profiles(ct, p, dp)
     out = section.copy()
     for name, value in (("SA", sa + ds), ("CT", ct + dt)):
         if section[name].dims == ("station", "pressure"):
@@ -325,7 +349,10 @@ def run_member(study: Study, seed: np.random.SeedSequence, perturb: Perturbation
         ``reference_pressure`` (dbar) and ``prior_factor``.
     """
     s_ref, s_prior, s_sensor, s_data = seed.spawn(4)
-    config = copy.deepcopy(study.config)
+    # only the reference and the inverse's priors change: copy those, share the rest
+    config = copy.copy(study.config)
+    if config.inverse is not None:
+        config.inverse = copy.copy(config.inverse)
     ref_p = np.nan
     if perturb.reference_range is not None:
         ref_p = float(np.random.default_rng(s_ref).uniform(*perturb.reference_range))
@@ -468,7 +495,8 @@ def _run_members(
 
 
 def member_batch_size(members: int, workers: int) -> int:
-    """Members per dask task: about eight tasks per worker, at most 16 members each.
+    """Members per dask task: at least eight tasks per worker, at most 8 members each
+    (the last tasks then keep both workers busy to the end).
 
     Parameters
     ----------
@@ -482,7 +510,7 @@ def member_batch_size(members: int, workers: int) -> int:
     int
         Members per task, >= 1.
     """
-    return max(1, min(16, members // (8 * max(workers, 1))))
+    return max(1, min(8, members // (8 * max(workers, 1))))
 
 
 def run_members(study: Study, seeds: Sequence[np.random.SeedSequence], perturb: Perturbation

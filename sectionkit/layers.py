@@ -299,12 +299,22 @@ def deciding_densities(
             undecided = ~(no_data | sides)
         lead, pair, blk = np.nonzero(undecided)
         if lead.size:
-            st = np.stack([pair, pair + 1], axis=-1)  # (block, 2)
-            rows = (lead[:, None], st, blk[:, None])
-            sig = potential_density_anomaly(blocks_sa[rows], blocks_ct[rows], pr)
+            # each station block once, though both its pairs may need it
+            need = np.zeros(empty.shape, dtype=bool)
+            need[:, :-1] |= undecided
+            need[:, 1:] |= undecided
+            station_sigma = np.empty(blocks_sa.shape)  # pages touched only where written
+            at = np.nonzero(need)
+            station_sigma[at] = potential_density_anomaly(blocks_sa[at], blocks_ct[at], pr)
+            sig = np.stack([station_sigma[lead, pair, blk], station_sigma[lead, pair + 1, blk]],
+                           axis=1)  # (block, 2, level in block)
             out_blocks[lead, pair, blk] = _pair_of(sig)[:, 0]
         result[pr] = out.reshape(out_shape)
     return result
+
+
+#: TEOS-10 gravity gradient parameter of gsw.z_from_p, m^-1 (GSW's gamma; checked in the tests).
+_GAMMA = 2.26e-7
 
 
 def cell_thickness(p: np.ndarray, lat: np.ndarray) -> np.ndarray:
@@ -322,7 +332,20 @@ def cell_thickness(p: np.ndarray, lat: np.ndarray) -> np.ndarray:
     ndarray (pair, level - 1)
         Height between levels k and k + 1, m (gsw.z_from_p).
     """
-    z = gsw.z_from_p(np.asarray(p, float)[None, :], np.asarray(lat, float)[:, None])
+    p = np.asarray(p, float)
+    lat = np.asarray(lat, float)
+    # gsw.z_from_p as its C code forms it, z = -2 c / (b + sqrt(b^2 - 4 a c)), with c the
+    # enthalpy of the standard ocean at p and a, b gravity terms of latitude: one row of
+    # each, then element-wise arithmetic only (TEOS-10; equal to gsw.z_from_p to round-off)
+    sin2 = np.sin(np.deg2rad(lat)) ** 2
+    b = 9.780327 * (1.0 + (5.2792e-3 + (2.32e-5 * sin2)) * sin2)
+    a = -0.5 * _GAMMA * b
+    c = gsw.enthalpy_SSO_0(p)
+    den = np.multiply.outer(4.0 * a, c)
+    np.subtract((b * b)[:, None], den, out=den)
+    np.sqrt(den, out=den)
+    den += b[:, None]
+    z = np.divide(-2.0 * c, den, out=den)
     return -np.diff(z, axis=-1)
 
 
@@ -363,6 +386,157 @@ def bottom_width_fraction(
     return frac
 
 
+@dataclass
+class ClassLevels:
+    """Class weights in compact form: a class per level plus the split cells.
+
+    The dense weights (:meth:`dense`) are ``w[..., i, k] = level_weight[k]``
+    where ``level_class[k] == i``, plus ``split_weight`` at the few
+    ``(split_index)`` positions of cells an interface crosses.
+
+    Attributes
+    ----------
+    level_class : ndarray (..., pair, level) of int8
+        Class of each level (how many interfaces it is denser than);
+        ``n_class`` (no class) where the level has no data.
+    level_weight : ndarray (..., pair, level)
+        Depth-integration weight of each level from the cells no interface
+        crosses, and the tail below the last level, m.
+    split_index : tuple of ndarray
+        Leading indices, pair, class and level of each split-cell weight.
+    split_weight : ndarray (split,)
+        Weights of the split cells, m.
+    n_class : int
+        Number of classes.
+    column : ndarray (..., pair, level)
+        Full-column weight of each level (all classes), m.
+    """
+
+    level_class: np.ndarray
+    level_weight: np.ndarray
+    split_index: tuple[np.ndarray, ...]
+    split_weight: np.ndarray
+    n_class: int
+    column: np.ndarray
+
+    def dense(self) -> np.ndarray:
+        """Weights (..., pair, class, level), m (see :func:`class_weights`)."""
+        lc = self.level_class
+        out = np.empty(lc.shape[:-1] + (self.n_class, lc.shape[-1]))
+        for i in range(self.n_class):
+            np.multiply(lc == i, self.level_weight, out=out[..., i, :])
+        np.add.at(out, self.split_index, self.split_weight)
+        return out
+
+
+def _trapezoid_levels(half: np.ndarray) -> np.ndarray:
+    """Per level, the half-cell weights of the segments above and below it (..., level)."""
+    out = np.empty(half.shape[:-1] + (half.shape[-1] + 1,))
+    out[..., 0] = half[..., 0]
+    out[..., -1] = half[..., -1]
+    np.add(half[..., 1:], half[..., :-1], out=out[..., 1:-1])
+    return out
+
+
+def class_levels(
+    sigma: np.ndarray | Sequence[np.ndarray],
+    interfaces: np.ndarray,
+    thickness: np.ndarray,
+    width: np.ndarray,
+    tail: np.ndarray | None = None,
+) -> ClassLevels:
+    """Class weights of every level, in compact form (see :func:`class_weights`).
+
+    Parameters
+    ----------
+    sigma : ndarray (..., pair, interface, level), or a sequence of (..., pair, level)
+        Pair-mean potential density anomaly at each interface's own reference
+        pressure, kg m^-3; NaN below the deeper station's bottom.
+    interfaces : ndarray (interface,)
+        Interface values, kg m^-3.
+    thickness : ndarray (pair, level - 1)
+        Segment thickness, m.
+    width : ndarray (pair, level - 1)
+        Fraction of the pair's width that is water in each segment.
+    tail : ndarray (pair,), optional
+        Thickness below the last level down to the bottom, m.
+
+    Returns
+    -------
+    ClassLevels
+    """
+    faces = [sigma[..., n, :] for n in range(sigma.shape[-2])] if isinstance(
+        sigma, np.ndarray) else list(sigma)
+    n_if = len(faces)
+    n_class = n_if + 1
+    n_level = faces[0].shape[-1]
+    finite = np.isfinite(faces[0])
+    valid = finite[..., :-1] & finite[..., 1:]  # (..., pair, seg)
+    level_class = np.zeros(faces[0].shape, dtype=np.int8)
+    crossed = np.zeros(valid.shape, dtype=bool)
+    for n in range(n_if):  # one interface at a time keeps memory at (pair, level)
+        above = faces[n] > interfaces[n]
+        level_class += above
+        crossed |= above[..., :-1] != above[..., 1:]
+    crossed &= valid
+    scale = np.multiply(thickness, width)
+    scale = np.where(valid, scale, 0.0)  # (..., pair, seg)
+    half = 0.5 * scale
+    column = _trapezoid_levels(half)
+    # segments no interface crosses lie in one class: trapezoid weights
+    np.copyto(half, 0.0, where=crossed)
+    level_weight = _trapezoid_levels(half)
+    # crossed segments (a few per pair): split at the sorted crossings and integrate
+    # the linear field exactly over each sub-interval
+    where_crossed = np.nonzero(crossed)
+    idx: list[tuple[np.ndarray, ...]] = []
+    vals: list[np.ndarray] = []
+    if where_crossed[0].size:
+        lead = where_crossed[:-1]
+        seg = where_crossed[-1]
+        c0 = np.stack([faces[n][..., :-1][where_crossed] - interfaces[n] for n in range(n_if)],
+                      axis=-1)  # (n_crossed, interface)
+        c1 = np.stack([faces[n][..., 1:][where_crossed] - interfaces[n] for n in range(n_if)],
+                      axis=-1)
+        w = scale[where_crossed]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            t_cross = np.where((c0 > 0) != (c1 > 0), c0 / (c0 - c1), 0.0)
+        n_c = c0.shape[0]
+        bp = np.sort(np.concatenate([np.zeros((n_c, 1)), np.clip(t_cross, 0.0, 1.0),
+                                     np.ones((n_c, 1))], axis=-1), axis=-1)
+        a = bp[:, :-1]
+        b = bp[:, 1:]
+        tm = 0.5 * (a + b)  # (n_crossed, sub)
+        cls = ((c0[:, None, :] + tm[:, :, None] * (c1 - c0)[:, None, :]) > 0).sum(axis=-1)
+        alpha = np.zeros((n_c, n_class))
+        beta = np.zeros((n_c, n_class))
+        rows = np.broadcast_to(np.arange(n_c)[:, None], cls.shape)
+        np.add.at(alpha, (rows, cls), b - a)
+        np.add.at(beta, (rows, cls), 0.5 * (b * b - a * a))
+        for i in range(n_class):
+            klass = np.full(n_c, i)
+            idx.append(lead + (klass, seg))
+            vals.append((alpha[:, i] - beta[:, i]) * w)
+            idx.append(lead + (klass, seg + 1))
+            vals.append(beta[:, i] * w)
+    if tail is not None:
+        last = n_level - 1 - np.argmax(finite[..., ::-1], axis=-1)  # (..., pair)
+        has_data = finite.any(axis=-1)
+        tail_w = np.where(has_data, np.broadcast_to(tail, last.shape), 0.0)
+        tail_w = tail_w[..., None]
+        for target in (level_weight, column):
+            cur = np.take_along_axis(target, last[..., None], axis=-1)
+            np.put_along_axis(target, last[..., None], cur + tail_w, axis=-1)
+    np.copyto(level_class, np.int8(n_class), where=~finite)
+    if idx:
+        split_index = tuple(np.concatenate(parts) for parts in zip(*idx, strict=True))
+        split_weight = np.concatenate(vals)
+    else:
+        split_index = tuple(np.zeros(0, dtype=np.intp) for _ in range(finite.ndim + 1))
+        split_weight = np.zeros(0)
+    return ClassLevels(level_class, level_weight, split_index, split_weight, n_class, column)
+
+
 def class_weights(
     sigma: np.ndarray | Sequence[np.ndarray],
     interfaces: np.ndarray,
@@ -394,68 +568,4 @@ def class_weights(
         Weights, m: the depth integral over class ``i`` of a field ``q`` is
         ``sum_k w[..., i, k] * q[k]``.
     """
-    faces = [sigma[..., n, :] for n in range(sigma.shape[-2])] if isinstance(
-        sigma, np.ndarray) else list(sigma)
-    n_if = len(faces)
-    n_class = n_if + 1
-    n_level = faces[0].shape[-1]
-    valid = np.isfinite(faces[0][..., :-1]) & np.isfinite(faces[0][..., 1:])  # (..., pair, seg)
-    start_class = np.zeros(valid.shape, dtype=np.int16)
-    crossed = np.zeros(valid.shape, dtype=bool)
-    for n in range(n_if):  # one interface at a time keeps memory at (pair, seg)
-        above0 = faces[n][..., :-1] > interfaces[n]
-        start_class += above0
-        crossed |= above0 != (faces[n][..., 1:] > interfaces[n])
-    crossed &= valid
-    scale = np.where(valid, thickness * width, 0.0)  # (..., pair, seg)
-    out = np.zeros(valid.shape[:-1] + (n_class, n_level))
-    # segments no interface crosses lie in one class: trapezoid weights
-    half = np.where(crossed, 0.0, 0.5 * scale)
-    for i in range(n_class):
-        part = np.where(start_class == i, half, 0.0)
-        out[..., i, :-1] += part
-        out[..., i, 1:] += part
-    # crossed segments (a few per pair): split at the sorted crossings and integrate
-    # the linear field exactly over each sub-interval
-    where_crossed = np.nonzero(crossed)
-    if where_crossed[0].size:
-        lead = where_crossed[:-1]
-        seg = where_crossed[-1]
-        c0 = np.stack([faces[n][..., :-1][where_crossed] - interfaces[n] for n in range(n_if)],
-                      axis=-1)  # (n_crossed, interface)
-        c1 = np.stack([faces[n][..., 1:][where_crossed] - interfaces[n] for n in range(n_if)],
-                      axis=-1)
-        w = scale[where_crossed]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            t_cross = np.where((c0 > 0) != (c1 > 0), c0 / (c0 - c1), 0.0)
-        n_c = c0.shape[0]
-        bp = np.sort(np.concatenate([np.zeros((n_c, 1)), np.clip(t_cross, 0.0, 1.0),
-                                     np.ones((n_c, 1))], axis=-1), axis=-1)
-        a = bp[:, :-1]
-        b = bp[:, 1:]
-        tm = 0.5 * (a + b)  # (n_crossed, sub)
-        cls = ((c0[:, None, :] + tm[:, :, None] * (c1 - c0)[:, None, :]) > 0).sum(axis=-1)
-        alpha = np.zeros((n_c, n_class))
-        beta = np.zeros((n_c, n_class))
-        rows = np.broadcast_to(np.arange(n_c)[:, None], cls.shape)
-        np.add.at(alpha, (rows, cls), b - a)
-        np.add.at(beta, (rows, cls), 0.5 * (b * b - a * a))
-        for i in range(n_class):
-            klass = np.full(n_c, i)
-            out[lead + (klass, seg)] += (alpha[:, i] - beta[:, i]) * w
-            out[lead + (klass, seg + 1)] += beta[:, i] * w
-    if tail is not None:
-        finite = np.isfinite(faces[0])
-        last = n_level - 1 - np.argmax(finite[..., ::-1], axis=-1)  # (..., pair)
-        last_sigma = np.stack(
-            [np.take_along_axis(f, last[..., None], axis=-1)[..., 0] for f in faces], axis=-1
-        )
-        last_cls = (np.nan_to_num(last_sigma) > interfaces).sum(axis=-1)
-        has_data = finite.any(axis=-1)
-        tail_w = np.where(has_data, np.broadcast_to(tail, last.shape), 0.0)
-        onehot = last_cls[..., None] == np.arange(n_class)
-        contrib = onehot * tail_w[..., None]  # (..., pair, class)
-        idx = np.broadcast_to(last[..., None, None], contrib.shape + (1,))
-        cur = np.take_along_axis(out, idx, axis=-1)[..., 0]
-        np.put_along_axis(out, idx, (cur + contrib)[..., None], axis=-1)
-    return out
+    return class_levels(sigma, interfaces, thickness, width, tail).dense()

@@ -16,6 +16,7 @@ recomputation of dynamic height.
 
 from __future__ import annotations
 
+import threading
 from dataclasses import dataclass, field
 
 import gsw
@@ -34,10 +35,12 @@ from sectionkit.geostrophy import (
 )
 from sectionkit.labels import pair_labels
 from sectionkit.layers import (
+    ClassLevels,
     Interface,
     bottom_width_fraction,
     cell_thickness,
     check_interfaces,
+    class_levels,
     class_weights,
     deciding_densities,
     potential_density_anomaly,
@@ -101,7 +104,8 @@ class SectionOperator:
     common : ndarray (..., pair) of int
         Index of the deepest common level.
     weights : ndarray (..., pair, class, level)
-        Depth-integration weights of each class, m.
+        Depth-integration weights of each class, m (a property: formed from
+        ``class_levels`` when first asked for, then kept).
     relative : ndarray (..., quantity, pair, class)
         Transport for zero reference offset (velocity relative to the
         surface); units per ``QUANTITY_UNITS``.
@@ -125,6 +129,8 @@ class SectionOperator:
         Area-weighted mean salinity of the salt budgets (Preformed Salinity S*
         or SA, see ``salinity``; g/kg) and CT (degC) of each class;
         ``mean_salinity`` is the section's area mean of the same salinity.
+    class_levels : sectionkit.layers.ClassLevels
+        The class weights in compact form (a class per level, split cells).
     salinity : {"preformed", "absolute"}
         Which salinity the salt budgets use.
     class_moments : ndarray (..., 5, class)
@@ -159,7 +165,6 @@ class SectionOperator:
     response: np.ndarray
     common: np.ndarray
     deepest: np.ndarray
-    weights: np.ndarray
     relative: np.ndarray
     area: np.ndarray
     ekman_share: np.ndarray
@@ -184,6 +189,15 @@ class SectionOperator:
     relative_velocity: np.ndarray | None = None
     source_section: xr.Dataset | None = None
     track_below_stations: dict[int, tuple[float, float]] = field(default_factory=dict)
+    class_levels: ClassLevels | None = None
+    _dense_weights: np.ndarray | None = field(default=None, repr=False)
+
+    @property
+    def weights(self) -> np.ndarray:
+        """Depth-integration weights (..., pair, class, level) of each class, m."""
+        if self._dense_weights is None:
+            self._dense_weights = self.class_levels.dense()[..., : len(self.layer_names), :]
+        return self._dense_weights
 
     @property
     def n_pair(self) -> int:
@@ -319,6 +333,17 @@ class SectionOperator:
         return self.class_moments[..., 0, :]
 
 
+def _pair_mean(station_values: np.ndarray) -> np.ndarray:
+    """:func:`sectionkit.geostrophy.pair_mean` (the same numbers) without fancy indexing."""
+    a = station_values[..., :-1, :]
+    b = station_values[..., 1:, :]
+    mean = np.add(a, b)
+    mean *= 0.5
+    np.copyto(mean, a, where=np.isnan(b))  # the deeper station alone ...
+    np.copyto(mean, b, where=np.isnan(a))  # ... whichever it is (NaN where both are)
+    return mean
+
+
 def _masked(a: np.ndarray) -> np.ndarray:
     """The array with NaN (below the bottom) set to zero."""
     return np.where(np.isnan(a), 0.0, a)
@@ -374,7 +399,8 @@ def build_operator(
     p = section["pressure"].values.astype(float)
     sa = section["SA"].transpose(..., "station", "pressure").values
     ct = section["CT"].transpose(..., "station", "pressure").values
-    geometry = pair_geometry(section)
+    bottom = section["bottom_pressure"].values.astype(float)
+    geometry, thickness, width = _fixed_parts(section, p, bottom, bathymetry)
     distance = geometry["distance"].values
     f = geometry["f"].values
     on_equator = np.flatnonzero(np.abs(geometry["lat"].values) < EQUATOR_HARD_BAND)
@@ -393,7 +419,6 @@ def build_operator(
 
     last = last_valid_level(sa + ct)
     common, deepest = pair_level_limits(last)
-    bottom = section["bottom_pressure"].values.astype(float)
     # water where a bathymetry track lies below both stations: the deeper station's
     # properties continue down to it and the triangle rule gives its velocity
     below = _track_below_stations(p, bottom, bathymetry)
@@ -416,11 +441,11 @@ def build_operator(
         rho_station = gsw.rho(sa, ct, p)
     v_eff, response = extend_into_bottom_triangle(v_rel, p, common, deepest, bottom_triangle)
 
-    sa_pair = pair_mean(sa)
-    ct_pair = pair_mean(ct)
-    salt_pair = pair_mean(budget_salinity(sa, p, section["lon"].values, section["lat"].values,
+    sa_pair = _pair_mean(sa)
+    ct_pair = _pair_mean(ct)
+    salt_pair = _pair_mean(budget_salinity(sa, p, section["lon"].values, section["lat"].values,
                                           salinity))
-    rho_pair = pair_mean(rho_station)
+    rho_pair = _pair_mean(rho_station)
     del rho_station
     # potential density only where it can decide a class (class weights identical to the
     # full evaluation); the full pair-mean fields are computed when first asked for
@@ -444,8 +469,6 @@ def build_operator(
     # without interfaces one class holds everything: compare with an unreachable density
     values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([1e9])
 
-    thickness = cell_thickness(p, geometry["lat"].values)
-    width = bottom_width_fraction(p, bottom[:-1], bottom[1:], bathymetry)
     tail = _tail_thickness(p, deepest, bottom, geometry["lat"].values)
     if below:
         tail = np.array(tail, copy=True)
@@ -456,49 +479,30 @@ def build_operator(
             frac = float(np.mean(samples > 0.5 * (p_last + p_track)))
             dz = float(gsw.z_from_p(p_last, lat_pair[j]) - gsw.z_from_p(p_track, lat_pair[j]))
             tail[..., j] = dz * frac
-    weights = class_weights(sigma_if, values, thickness, width, tail)
-    if not interfaces:
-        weights = weights[..., :1, :]
+    levels = class_levels(sigma_if, values, thickness, width, tail)
+    n_class = len(interfaces) + 1  # without interfaces, the one unreachable value adds none
 
-    rho0 = _masked(rho_pair)
-    sa0 = _masked(salt_pair)  # the salinity of the salt budgets (S* or SA)
-    ct0 = _masked(ct_pair)
-    props = {
-        "volume": np.ones_like(rho0),
-        "mass": rho0 / RHO0,
-        "salt": rho0 * sa0 / RHO0,
-        "heat": rho0 * CP0 * ct0,
-    }
+    # every class integral at once: each quantity times v (relative transport) and
+    # times the response (area), then the area moments [1, S, S^2, CT, CT^2], with S the
+    # salinity of the salt budgets (S* or SA)
     length = distance[:, None]
-    v0 = _masked(v_eff)
-    r0 = _masked(response)
-    # every class integral in one batched matrix product over the level axis:
-    # each quantity times v (relative transport) and times the response (area),
-    # then the area moments [1, SA, SA^2, CT, CT^2] of the class means
-    n_q = len(props)
-    fields = np.empty(v0.shape[:-1] + (2 * n_q + 5, v0.shape[-1]))
-    for m, q in enumerate(props.values()):
-        np.multiply(q, v0, out=fields[..., m, :])
-        np.multiply(q, r0, out=fields[..., n_q + m, :])
-    fields[..., 2 * n_q, :] = 1.0
-    fields[..., 2 * n_q + 1, :] = sa0
-    np.multiply(sa0, sa0, out=fields[..., 2 * n_q + 2, :])
-    fields[..., 2 * n_q + 3, :] = ct0
-    np.multiply(ct0, ct0, out=fields[..., 2 * n_q + 4, :])
-    integrals = np.matmul(weights, np.swapaxes(fields, -1, -2)) * length[..., None]
-    del fields
+    n_q = len(QUANTITIES)
+    integrals = _class_integrals(levels, v_eff, response, rho_pair, salt_pair, ct_pair)
+    integrals = integrals[..., :n_class, :] * length[..., None]  # (..., pair, class, field)
     relative = np.moveaxis(integrals[..., :n_q], -1, -3)  # (..., quantity, pair, class)
     area = np.moveaxis(integrals[..., n_q : 2 * n_q], -1, -3)
     # area moments of SA and CT per class: [area, SA, SA^2, CT, CT^2] integrals (m^2 units)
     class_moments = np.moveaxis(integrals[..., 2 * n_q :].sum(axis=-3), -1, -2)  # (..., 5, class)
 
-    column = weights.sum(axis=-2)  # (..., pair, level)
-    level_relative = (length * column * v0).sum(axis=-2)
-    level_area = length * column * r0
-    level_section_area = (length * column).sum(axis=-2)  # (..., level) m^2, all water
+    column = levels.column  # (..., pair, level), all classes
+    level_relative = np.einsum("j,...jk->...k", distance, column * _masked(v_eff))
+    level_area = length * column * _masked(response)
+    level_section_area = np.einsum("j,...jk->...k", distance, column)  # (..., level) m^2
 
     ekman_share, level_ekman = _ekman_share(
-        sigma_if, values, p, geometry["lat"].values, ekman_depth, props
+        sigma_if, values, p, geometry["lat"].values, ekman_depth,
+        _quantities(rho_pair, salt_pair, ct_pair, slice(0, _ekman_levels(p, geometry["lat"].values,
+                                                                       ekman_depth))),
     )
 
     vol_area = class_moments[..., 0, :]
@@ -517,7 +521,6 @@ def build_operator(
         response=response,
         common=common,
         deepest=deepest,
-        weights=weights,
         relative=relative,
         area=area,
         ekman_share=ekman_share,
@@ -530,6 +533,7 @@ def build_operator(
         mean_salinity=mean_salinity,
         ekman_depth=float(ekman_depth),
         bottom_triangle=bottom_triangle,
+        class_levels=levels,
         salinity=salinity,
         class_moments=class_moments,
         level_section_area=level_section_area,
@@ -575,8 +579,32 @@ def budget_salinity(
     if salinity != "preformed":
         raise SectionDataError(f"salinity = {salinity!r} is not one of "
                                f"{', '.join(SALINITY_NAMES)}")
-    return gsw.Sstar_from_SA(sa, p, np.asarray(lon, float)[..., None],
-                             np.asarray(lat, float)[..., None])
+    return sa * _sstar_factor(np.asarray(p, float), np.asarray(lon, float),
+                              np.asarray(lat, float))
+
+
+_SSTAR: dict[bytes, np.ndarray] = {}
+
+
+def _sstar_factor(p: np.ndarray, lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
+    """S*/SA at every station and level (it depends on position and pressure only).
+
+    gsw.Sstar_from_SA is SA (1 - (1 + r1) SAAR) / (1 + SAAR) with SAAR from the
+    TEOS-10 atlas at (p, lon, lat): linear in SA, so the ratio is evaluated once
+    per set of positions and grid and kept (the last few), read-only.
+    """
+    key = p.tobytes() + b"|" + lon.tobytes() + b"|" + lat.tobytes()
+    with _FIXED_LOCK:
+        factor = _SSTAR.get(key)
+    if factor is None:
+        factor = gsw.Sstar_from_SA(np.ones(lon.shape + p.shape), p, lon[..., None],
+                                   lat[..., None])
+        factor.setflags(write=False)
+        with _FIXED_LOCK:
+            _SSTAR[key] = factor
+            while len(_SSTAR) > _FIXED_SIZE:
+                _SSTAR.pop(next(iter(_SSTAR)))
+    return factor
 
 
 def _track_below_stations(
@@ -634,6 +662,157 @@ def _tail_thickness(
     return np.broadcast_to(dz * frac, deepest.shape)
 
 
+def _ekman_levels(p: np.ndarray, lat: np.ndarray, depth: float) -> int:
+    """Number of grid levels that cover the Ekman layer of every pair (and one more)."""
+    n_lev = int(np.searchsorted(p, gsw.p_from_z(-depth, float(np.max(np.abs(lat))))) + 2)
+    return min(max(n_lev, 2), p.size)
+
+
+def _quantities(rho: np.ndarray, sa: np.ndarray, ct: np.ndarray, levels: slice
+                ) -> dict[str, np.ndarray]:
+    """Each transported quantity per m^3 s^-1 of volume transport on some levels (NaN as 0)."""
+    rho0 = _masked(rho[..., levels])
+    sa0 = _masked(sa[..., levels])
+    ct0 = _masked(ct[..., levels])
+    return {"volume": np.ones_like(rho0), "mass": rho0 / RHO0, "salt": rho0 * sa0 / RHO0,
+            "heat": rho0 * CP0 * ct0}
+
+
+_SCRATCH = threading.local()
+#: Grid points per block of the class integrals (13 fields of them stay in cache).
+_CACHE_POINTS = 40_000
+_FIXED: dict[tuple, tuple[xr.Dataset, np.ndarray, np.ndarray]] = {}
+_FIXED_LOCK = threading.Lock()
+_FIXED_SIZE = 4
+
+
+def clear_kept_parts() -> None:
+    """Forget the position-only parts kept between builds (geometry, cell heights, S*/SA).
+
+    Builds then compute them again, as the first build of a section does.
+    """
+    with _FIXED_LOCK:
+        _FIXED.clear()
+        _SSTAR.clear()
+
+
+def _fixed_parts(section: xr.Dataset, p: np.ndarray, bottom: np.ndarray, bathymetry: list | None
+                 ) -> tuple[xr.Dataset, np.ndarray, np.ndarray]:
+    """Pair geometry, cell thickness and bottom width fraction of a section.
+
+    They depend on positions, bottoms and the grid only, which ensemble members
+    and repeated builds share: the last few are kept, keyed by the values
+    themselves (never by identity), and the arrays are returned read-only.
+    """
+    key = (section["lon"].values.tobytes(), section["lat"].values.tobytes(),
+           section["station"].values.tobytes(), bottom.tobytes(), p.tobytes(),
+           None if bathymetry is None else tuple(
+               None if t is None else np.asarray(t, float).tobytes() for t in bathymetry))
+    with _FIXED_LOCK:
+        hit = _FIXED.pop(key, None)
+        if hit is not None:
+            _FIXED[key] = hit  # most recently used last
+    if hit is None:
+        geometry = pair_geometry(section)
+        thickness = cell_thickness(p, geometry["lat"].values)
+        width = bottom_width_fraction(p, bottom[:-1], bottom[1:], bathymetry)
+        thickness.setflags(write=False)
+        width.setflags(write=False)
+        hit = (geometry, thickness, width)
+        with _FIXED_LOCK:
+            _FIXED[key] = hit
+            while len(_FIXED) > _FIXED_SIZE:
+                _FIXED.pop(next(iter(_FIXED)))
+    geometry, thickness, width = hit
+    return geometry.copy(deep=True), thickness, width
+
+
+def _scratch(shape: tuple[int, ...]) -> np.ndarray:
+    """A work array of this thread, reused from build to build (no fresh pages each time)."""
+    n = int(np.prod(shape))
+    buf = getattr(_SCRATCH, "buffer", None)
+    if buf is None or buf.size < n:
+        buf = np.empty(n)
+        _SCRATCH.buffer = buf
+    return buf[:n].reshape(shape)
+
+
+def _class_integrals(levels: ClassLevels, v: np.ndarray, response: np.ndarray, rho: np.ndarray,
+                     sa: np.ndarray, ct: np.ndarray) -> np.ndarray:
+    """Depth integrals over every class of the 13 fields of the operator, per pair.
+
+    Fields: v, v rho/RHO0, v rho S/RHO0, v rho c_p0 CT (relative transports), the
+    same with the response instead of v (areas), then 1, S, S^2, CT, CT^2. Runs
+    of levels of one class are summed at once (``np.add.reduceat``), a few
+    pairs at a time so that the products stay in the processor's cache; the
+    split cells are added from ``levels``' split weights.
+
+    Returns
+    -------
+    ndarray (..., pair, class, 13)
+        Integrals per metre of pair width (field unit times m).
+    """
+    shape = v.shape
+    n_lev = shape[-1]
+    n_row = int(np.prod(shape[:-1]))
+    n_class = levels.n_class
+    lc_all = levels.level_class.reshape(n_row, n_lev)
+    tw_all = levels.level_weight.reshape(n_row, n_lev)
+    v2, r2, rho2, sa2, ct2 = (a.reshape(n_row, n_lev) for a in (v, response, rho, sa, ct))
+    out = np.zeros((13, n_row, n_class + 1))
+    chunk = max(1, _CACHE_POINTS // n_lev)
+    y_all = _scratch((13, min(chunk, n_row) * n_lev))
+    for a in range(0, n_row, chunk):
+        rows = slice(a, min(a + chunk, n_row))
+        n = rows.stop - rows.start
+        vv, rr, rh, ss, cc, tw = (x[rows] for x in (v2, r2, rho2, sa2, ct2, tw_all))
+        # a level without any of the fields belongs to no class (index n_class, dropped);
+        # rho is NaN wherever S or CT is
+        bad = np.isnan(vv) | np.isnan(rr) | np.isnan(rh)
+        lc = np.where(bad, np.int8(n_class), lc_all[rows])
+        mass = rh / RHO0
+        salt = mass * ss
+        heat = rh * CP0
+        heat *= cc
+        y = y_all[:, : n * n_lev].reshape(13, n, n_lev)
+        for base, carrier in ((0, vv), (4, rr)):
+            np.multiply(tw, carrier, out=y[base])
+            for k, q in enumerate((mass, salt, heat), start=1):
+                np.multiply(y[base], q, out=y[base + k])
+        y[8] = tw
+        np.multiply(tw, ss, out=y[9])
+        np.multiply(y[9], ss, out=y[10])
+        np.multiply(tw, cc, out=y[11])
+        np.multiply(y[11], cc, out=y[12])
+        change = np.empty((n, n_lev), dtype=bool)
+        change[:, 0] = True
+        np.not_equal(lc[:, 1:], lc[:, :-1], out=change[:, 1:])
+        starts = np.flatnonzero(change)
+        sums = np.add.reduceat(y.reshape(13, n * n_lev), starts, axis=1)  # (13, run)
+        target = (starts // n_lev) * (n_class + 1) + lc.reshape(-1)[starts]
+        part = out[:, rows].reshape(13, n * (n_class + 1))
+        for f in range(13):
+            part[f] += np.bincount(target, weights=sums[f], minlength=n * (n_class + 1))
+        out[:, rows] = part.reshape(13, n, n_class + 1)
+    out = out[..., :n_class]
+    if levels.split_weight.size:
+        idx = levels.split_index
+        row = np.ravel_multi_index(idx[:-2], shape[:-1])
+        klass, lev = idx[-2], idx[-1]
+        w = levels.split_weight
+        at = (row, lev)
+        mm = rho2[at] / RHO0
+        ss = mm * sa2[at]
+        hh = rho2[at] * CP0 * ct2[at]
+        vv, rr = v2[at] * w, r2[at] * w
+        sa_w, ct_w = sa2[at] * w, ct2[at] * w
+        parts = [vv, vv * mm, vv * ss, vv * hh, rr, rr * mm, rr * ss, rr * hh,
+                 w, sa_w, sa_w * sa2[at], ct_w, ct_w * ct2[at]]
+        for f, part in enumerate(parts):
+            np.add.at(out[f], (row, klass), part)
+    return np.moveaxis(out, 0, -1).reshape(shape[:-1] + (n_class, 13))
+
+
 def _ekman_share(
     sigma_if: list[np.ndarray],
     values: np.ndarray,
@@ -648,8 +827,7 @@ def _ekman_share(
     each pair and split among the classes found there. Also returns the
     fraction carried at each grid level, (..., pair, level).
     """
-    n_lev = int(np.searchsorted(p, gsw.p_from_z(-depth, float(np.max(np.abs(lat))))) + 2)
-    n_lev = min(max(n_lev, 2), p.size)
+    n_lev = _ekman_levels(p, lat, depth)
     z = -gsw.z_from_p(p[None, :n_lev], lat[:, None])  # depth, m (pair, level)
     seg_top = z[:, :-1]
     seg_bot = z[:, 1:]
@@ -661,7 +839,7 @@ def _ekman_share(
     total = w.sum(axis=(-2, -1))  # (..., pair)
     with np.errstate(invalid="ignore", divide="ignore"):
         share = [
-            np.einsum("...jik,...jk->...ji", w, _masked(q[..., :n_lev])) / total[..., None]
+            np.einsum("...jik,...jk->...ji", w, q[..., :n_lev]) / total[..., None]
             for q in props.values()
         ]
     column = w.sum(axis=-2)

@@ -302,95 +302,116 @@ def _uniform_refinement(p: np.ndarray, max_dp: float) -> int | None:
     return n
 
 
-def _pchip_edge(h0: np.ndarray, h1: np.ndarray, m0: np.ndarray, m1: np.ndarray) -> np.ndarray:
-    """End-point derivative of the shape-preserving cubic (the scipy/gsw rule)."""
-    d = ((2 * h0 + h1) * m0 - h0 * m1) / (h0 + h1)
-    d = np.where(np.sign(d) != np.sign(m0), 0.0, d)
-    big = (np.sign(m0) != np.sign(m1)) & (np.abs(d) > 3.0 * np.abs(m0))
-    return np.where(big, 3.0 * m0, d)
+def _pchip_edge(d0: np.ndarray, d1: np.ndarray) -> np.ndarray:
+    """End-point derivative (times the grid step) of the shape-preserving cubic on an even
+    grid, from the first two level differences (the scipy/gsw edge rule)."""
+    d = 0.5 * (3.0 * d0 - d1)
+    d = np.where(np.sign(d) != np.sign(d0), 0.0, d)
+    big = (np.sign(d0) != np.sign(d1)) & (np.abs(d) > 3.0 * np.abs(d0))
+    return np.where(big, 3.0 * d0, d)
 
 
-def _pchip_slopes(y: np.ndarray, h: float, count: np.ndarray) -> np.ndarray:
-    """Derivatives of the shape-preserving cubic through each profile's valid points.
+def _pchip_slopes(y: np.ndarray, count: np.ndarray) -> np.ndarray:
+    """Derivatives times the grid step of the shape-preserving cubic through each profile.
 
-    ``y`` (profile, level) is valid on its first ``count`` levels (grid step
-    ``h``); the derivatives follow gsw's pchip (interior harmonic mean of the
-    neighbouring slopes, zero at extrema; end points by the edge rule; a
-    two-point profile is a straight line).
+    ``y`` (profile, level) is valid on its first ``count`` levels of an even
+    grid; the derivatives follow gsw's pchip: at interior points the harmonic
+    mean of the neighbouring slopes, zero at an extremum or next to a flat
+    step; the edge rule at both ends; a straight line through two points.
     """
-    m = (y[:, 1:] - y[:, :-1]) / h  # slopes, (profile, level - 1)
-    mm, mp = m[:, :-1], m[:, 1:]
-    w1 = 2 * h + h
-    w2 = h + 2 * h
-    with np.errstate(invalid="ignore", divide="ignore"):
-        inner = (w1 + w2) / (w1 / mm + w2 / mp)
-    flat = (np.sign(mm) != np.sign(mp)) | (mm == 0) | (mp == 0)
+    diff = np.subtract(y[:, 1:], y[:, :-1])  # slope times the step, (profile, level - 1)
+    dm, dp = diff[:, :-1], diff[:, 1:]
     d = np.empty_like(y)
-    d[:, 1:-1] = np.where(flat, 0.0, inner)
+    inner = d[:, 1:-1]
+    np.multiply(dm, dp, out=inner)
+    flat = inner <= 0.0  # a change of sign or a flat neighbour (NaN only below the bottom)
+    inner *= 2.0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        inner /= dm + dp
+    np.copyto(inner, 0.0, where=flat)
     rows = np.arange(y.shape[0])
-    hh = np.full(y.shape[0], h)
     three = count >= 3
     last = np.clip(count - 1, 1, None)
     with np.errstate(invalid="ignore", divide="ignore"):
-        m_last = m[rows, last - 1]
-        m_prev = m[rows, np.clip(last - 2, 0, None)]
-        first = _pchip_edge(hh, hh, m[:, 0], m[:, 1] if m.shape[1] > 1 else m[:, 0])
-        end = _pchip_edge(hh, hh, m_last, m_prev)
-    d[:, 0] = np.where(three, first, m[:, 0])
-    d[rows, last] = np.where(three, end, m_last)
+        d_last = diff[rows, last - 1]
+        d_prev = diff[rows, np.clip(last - 2, 0, None)]
+        first = _pchip_edge(diff[:, 0], diff[:, 1] if diff.shape[1] > 1 else diff[:, 0])
+        end = _pchip_edge(d_last, d_prev)
+    d[:, 0] = np.where(three, first, diff[:, 0])
+    d[rows, last] = np.where(three, end, d_last)
     return d
+
+
+def _hermite(y: np.ndarray, d: np.ndarray, t: np.ndarray, n: int) -> np.ndarray:
+    """The cubic through levels k and k+1 (values ``y``, derivatives times the step ``d``)
+    at fraction ``t`` of each step; the mid-point in closed form when ``n`` is 2."""
+    y0, y1 = y[:, :-1], y[:, 1:]
+    d0, d1 = d[:, :-1], d[:, 1:]
+    if n == 2:  # (y0 + y1) / 2 + (d0 - d1) / 8
+        out = np.add(y0, y1)
+        out *= 0.5
+        tmp = np.subtract(d0, d1)
+        tmp *= 0.125
+        out += tmp
+        return out
+    tt = t * t
+    ttt = tt * t
+    # the cubic Hermite basis, as gsw evaluates it
+    out = np.multiply(y0, 2 * ttt - 3 * tt + 1)
+    tmp = np.multiply(d0, ttt - 2 * tt + t)
+    out += tmp
+    out += np.multiply(y1, -2 * ttt + 3 * tt, out=tmp)
+    out += np.multiply(d1, ttt - tt, out=tmp)
+    return out
 
 
 def _fast_block(sa: np.ndarray, ct: np.ndarray, p: np.ndarray, n: int, max_dp: float,
                 count: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Anomaly and dynamic height of a block of (profile, level) on a uniform grid."""
-    n_prof, n_lev = sa.shape
+    """Anomaly and dynamic height of a block of (profile, level) on a uniform grid.
+
+    With ``n`` > 1 integration points per grid step, SA and CT at the points
+    p[k] + i max_dp in between come from gsw's shape-preserving cubic; each
+    step's trapezoid sum over its sub-intervals is then accumulated from the
+    surface (gsw accumulates the sub-intervals one by one: the same to
+    round-off).
+    """
+    b = gsw.specvol_anom_standard(sa, ct, p)
     if n == 1:
-        b = gsw.specvol_anom_standard(sa, ct, p)
-        dp_fine = np.diff(p)
-        b_fine = b
+        step = np.add(b[:, 1:], b[:, :-1])
+        dp = np.diff(p)
+        half_dp = 0.5 * float(dp[0])
+        if np.all(dp == dp[0]) and half_dp == 2.0 ** np.round(np.log2(half_dp)):
+            step *= -half_dp * _DB2PA  # exactly gsw's rounding: 0.5 dp is a power of two
+        else:
+            step *= 0.5
+            step *= dp
+            step *= _DB2PA
+            np.negative(step, out=step)
     else:
         # gsw inserts p[0] + max_dp * i between the grid levels and interpolates SA and CT
         # there with the shape-preserving cubic of each profile's valid levels
         h = float(p[1] - p[0])
-        n_fine = (n_lev - 1) * n + 1
-        p_fine = p[0] + max_dp * np.arange(n_fine, dtype=float)
-        p_fine[::n] = p  # the grid levels themselves
-        sa_f = np.empty((n_prof, n_fine))
-        ct_f = np.empty((n_prof, n_fine))
-        sa_f[:, ::n] = sa
-        ct_f[:, ::n] = ct
-        for y, y_f in ((sa, sa_f), (ct, ct_f)):
-            d = _pchip_slopes(y, h, count)
-            d *= h
-            y0, y1 = y[:, :-1], y[:, 1:]
-            d0, d1 = d[:, :-1], d[:, 1:]
-            tmp = np.empty(y0.shape)
-            for j in range(1, n):
-                t = (p_fine[j:-1:n] - p[:-1]) / h
-                tt = t * t
-                ttt = tt * t
-                # same terms and order of addition as gsw's Hermite evaluation
-                out = y_f[:, j::n]
-                np.multiply(y0, 2 * ttt - 3 * tt + 1, out=out)
-                out += np.multiply(d0, ttt - 2 * tt + t, out=tmp)
-                out += np.multiply(y1, -2 * ttt + 3 * tt, out=tmp)
-                out += np.multiply(d1, ttt - tt, out=tmp)
-        b_fine = gsw.specvol_anom_standard(sa_f, ct_f, p_fine)
-        del sa_f, ct_f
-        b = np.ascontiguousarray(b_fine[:, ::n])
-        dp_fine = np.diff(p_fine)
-    # trapezoid steps -0.5 (b[i] + b[i+1]) dp db2pa, summed from the surface in gsw's order
-    step = np.add(b_fine[:, 1:], b_fine[:, :-1])
-    step *= 0.5
-    step *= dp_fine
-    step *= _DB2PA
-    np.negative(step, out=step)
-    psi_fine = np.empty(b_fine.shape)
-    psi_fine[:, 0] = 0.0
-    np.cumsum(step, axis=-1, out=psi_fine[:, 1:])  # NaN from the first level below the bottom
+        inner_p = [p[0] + max_dp * (np.arange(p.size - 1) * n + j) for j in range(1, n)]
+        slopes = [_pchip_slopes(y, count) for y in (sa, ct)]  # derivative times the step
+        step = np.zeros((sa.shape[0], p.size - 1))
+        previous, p_prev = b[:, :-1], p[:-1]
+        # one interpolated point of every step at a time (memory of the grid, not of n)
+        for pj in [*inner_p, None]:
+            if pj is None:
+                current, p_cur = b[:, 1:], p[1:]
+            else:
+                sa_j, ct_j = (_hermite(y, d, (pj - p[:-1]) / h, n)
+                              for y, d in zip((sa, ct), slopes, strict=True))
+                current, p_cur = gsw.specvol_anom_standard(sa_j, ct_j, pj), pj
+            part = np.add(current, previous)
+            part *= 0.5 * (p_cur - p_prev) * _DB2PA
+            step += part
+            previous, p_prev = current, p_cur
+        np.negative(step, out=step)
+    psi = np.empty(b.shape)
+    psi[:, 0] = 0.0
+    np.cumsum(step, axis=-1, out=psi[:, 1:])  # NaN from the first level below the bottom
     del step
-    psi = np.ascontiguousarray(psi_fine[:, ::n]) if n > 1 else psi_fine
     psi[count < 2] = np.nan
     return b, psi
 

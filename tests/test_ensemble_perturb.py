@@ -49,3 +49,25 @@ def test_perturbing_a_section_leaves_the_original_unchanged():
     assert not np.array_equal(out["SA"].values, section["SA"].values, equal_nan=True)
     same = perturb_section(section, np.random.default_rng(5), NO_PERTURBATION)
     np.testing.assert_array_equal(same["CT"].values, section["CT"].values)
+
+
+def test_a_member_leaves_the_studys_configuration_unchanged():
+    # members draw their own reference and prior factor on a copy of the configuration
+    from sectionkit.config import parse_config
+    from sectionkit.ensemble import run_member
+    from sectionkit.study import Study
+
+    config = parse_config({
+        "grid": {"dp": 25.0},
+        "sections": [{"name": "south", "file": "south.nc"}],
+        "reference": {"pressure": 3000.0},
+        "layers": {"interfaces": [{"sigma": 26.8, "p_ref": 0.0}]},
+        "inverse": {"conserve": ["mass"], "noise_layer": [1.0, 1.0], "prior_velocity": 0.01},
+    })
+    section = synthetic_section(8, 25.0, 5000.0, lat=28.0, seed=1, name="south", noise=20)
+    study = Study.from_config(config, sections={"south": section})
+    perturb = Perturbation(reference_range=(2000.0, 2500.0), prior_factor=(3.0, 4.0))
+    record = run_member(study, np.random.SeedSequence(0), perturb)
+    assert 2000.0 <= float(record["reference_pressure"]) <= 2500.0
+    assert study.config.reference.pressure == 3000.0
+    assert study.config.inverse.prior_velocity == 0.01

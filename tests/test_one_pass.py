@@ -92,3 +92,40 @@ def test_anomaly_and_density_match_teos10_check_values():
         assert np.max(np.abs(eos.anomaly - cv["specvol_anom_standard"].T)[ok]) \
             < cv["specvol_anom_standard_ca"]
         assert np.max(np.abs(eos.in_situ_density() - cv["rho"].T)[ok]) < cv["rho_ca"]
+
+
+def test_preformed_salinity_equals_gsw_sstar_from_sa():
+    # TEOS-10 Preformed Salinity (gsw.Sstar_from_SA) is SA times a ratio that depends on
+    # position and pressure only; the ratio is kept between builds
+    from sectionkit.operator import budget_salinity
+
+    sa, ct, p = _profiles(1, 300, 10.0, seed=5)
+    sa = sa[0]
+    lon = np.linspace(-40.0, -10.0, sa.shape[0])
+    lat = np.linspace(20.0, 35.0, sa.shape[0])
+    expected = gsw.Sstar_from_SA(sa, p, lon[:, None], lat[:, None])
+    for _ in range(2):  # computed, then kept
+        _assert_same(budget_salinity(sa, p, lon, lat, "preformed"), expected, 1e-15)
+
+
+def test_cell_heights_equal_gsw_z_from_p():
+    # the cells' heights from gsw.z_from_p at every latitude, polar to equatorial
+    from sectionkit.layers import cell_thickness
+
+    p = np.arange(0.0, 6500.0, 2.0)
+    lat = np.linspace(-78.0, 85.0, 40)
+    expected = -np.diff(gsw.z_from_p(p[None, :], lat[:, None]), axis=-1)
+    np.testing.assert_allclose(cell_thickness(p, lat), expected, rtol=1e-13, atol=0.0)
+
+
+def test_pair_means_take_the_deeper_station_alone_below_the_shallower():
+    # numpy's nanmean of the two stations: their mean, or the one with data
+    import warnings
+
+    from sectionkit.operator import _pair_mean
+
+    sa, ct, p = _profiles(2, 120, 5.0, seed=6)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # both stations empty: NaN
+        expected = np.nanmean(np.stack([sa[..., :-1, :], sa[..., 1:, :]]), axis=0)
+    np.testing.assert_array_equal(_pair_mean(sa), expected)
