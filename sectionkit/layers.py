@@ -223,10 +223,9 @@ def deciding_densities(
 
     Parameters
     ----------
-    sa : ndarray (..., station, level)
-        Absolute Salinity, g/kg; NaN below the bottom.
-    ct : ndarray (..., station, level)
-        Conservative Temperature, degC; NaN below the bottom.
+    sa, ct : ndarray (..., station, level)
+        Absolute Salinity (g/kg) and Conservative Temperature (degC) on the
+        grid; NaN below each station's bottom.
     interfaces : dict of float -> sequence of float
         Interface values (kg m^-3) by their reference pressure (dbar).
     stride : int
@@ -548,19 +547,11 @@ def class_weights(
 
     Parameters
     ----------
-    sigma : ndarray (..., pair, interface, level), or a sequence of (..., pair, level)
-        Pair-mean potential density anomaly at each interface's own reference
-        pressure, kg m^-3; NaN below the deeper station's bottom. A sequence
-        (one array per interface) avoids stacking large arrays.
-    interfaces : ndarray (interface,)
-        Interface values, kg m^-3.
-    thickness : ndarray (pair, level - 1)
-        Segment thickness, m.
-    width : ndarray (pair, level - 1)
-        Fraction of the pair's width that is water in each segment.
-    tail : ndarray (pair,), optional
-        Thickness below the last level down to the bottom, m (a sliver
-        smaller than one grid step), integrated with the last level's value.
+    sigma, interfaces, thickness, width, tail
+        As for :func:`class_levels` (kg m^-3, kg m^-3, m, 1, m). ``sigma`` may
+        also be a sequence of one (..., pair, level) array per interface, which
+        avoids stacking large arrays; ``tail`` (a sliver smaller than one grid
+        step) is integrated with the last level's value.
 
     Returns
     -------
