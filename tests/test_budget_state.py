@@ -126,3 +126,18 @@ def test_the_state_is_immutable(sections):
     state = BudgetState.prepare(_study(sections))
     with pytest.raises(dataclasses.FrozenInstanceError):
         state.layout = None
+
+
+def test_select_by_registry_name_gives_the_class_transports_and_their_errors(sections):
+    # the registry's name for a number and its key in a section's outputs are one thing;
+    # the error is sqrt(g P g^T) of that row (DESIGN.md section 2), written out with numpy
+    results = _study(sections).solve()
+    sel = results.select("class_volume_transport", "south")
+    out = results.outputs["south"]
+    rows = [out.index(f"volume:{c}") for c in ("warm", "cold")]
+    np.testing.assert_allclose(sel.initial, out.initial[rows], rtol=1e-14)
+    g = out.gradient[rows]
+    np.testing.assert_allclose(sel.adjusted, out.initial[rows] + g @ results.estimate, rtol=1e-12)
+    np.testing.assert_allclose(sel.error, np.sqrt(np.diag(g @ results.covariance @ g.T)),
+                               rtol=1e-10)
+    assert results.select("overturning_depth", "north").adjusted.shape == (1,)
