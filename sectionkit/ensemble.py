@@ -370,8 +370,10 @@ def run_member(study: Study, seed: np.random.SeedSequence, perturb: Perturbation
                     for spec in config.sections}
         member = Study.from_config(config, sections=sections)
     else:
+        # the same operators, tracers and direct velocities (none depends on what is perturbed)
         member = Study(config=config, sections=study.sections, operators=study.operators,
-                       load_cautions=study.load_cautions)
+                       load_cautions=study.load_cautions,
+                       tracer_operators=study.tracer_operators, direct=study.direct)
     results = member.solve()
     truth = None
     if perturb.constraints != "none" and results.inverse is not None:
