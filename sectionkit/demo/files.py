@@ -15,7 +15,7 @@ import numpy as np
 from sectionkit.budget import SV, Q
 from sectionkit.demo.exchange import add_exchange_line
 from sectionkit.demo.ocean import _canonical, _observe, _Observed
-from sectionkit.demo.scenario import DemoScenario, _pick, toml_config
+from sectionkit.demo.scenario import TOML_HEADER, DemoScenario, _pick, demo_config
 from sectionkit.demo.truth import DemoTruth, demo_truth
 
 # ---------------------------------------------------------------------------
@@ -326,10 +326,9 @@ def write_demo(
         # bottle tracers, LADCP), and demo.toml reads it from those files
         exchange = scenario.lines[-1].name
         config, written = add_exchange_line(tmp, exchange, observed[exchange], truth,
-                                            toml_config(scenario, files), files[exchange],
-                                            scenario.seed)
+                                            demo_config(scenario, files), scenario.seed)
         names.update({f"{exchange}_{key}": fname for key, fname in written.items()})
-        (tmp / "demo.toml").write_text(config, encoding="utf-8")
+        (tmp / "demo.toml").write_text(TOML_HEADER + config.to_toml(), encoding="utf-8")
         names["config"] = "demo.toml"
         for fname, (header, rows) in _truth_tables(truth).items():
             _write_csv(tmp / fname, header, rows)

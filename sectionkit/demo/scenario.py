@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from sectionkit.config import Config, parse_config
 from sectionkit.errors import ComputationError
 from sectionkit.layers import Interface
 
@@ -339,78 +340,57 @@ def _pick(scenario: DemoScenario | None, small: bool) -> DemoScenario:
     return DemoScenario.small() if small else DemoScenario()
 
 
-def _tf(value: float) -> str:
-    """A TOML float that always reads back as a float (``27.0``, ``-0.06``)."""
-    return repr(float(value))
+#: Comment block at the top of ``demo.toml`` (the rest is :meth:`Config.to_toml`).
+TOML_HEADER = """\
+# Synthetic demo written by sectionkit.demo; regenerate with
+#   python -m sectionkit.demo --write demo_sections
+# The truth (truth_*.csv) is relative to the reference below: a level of no
+# motion that is plausible, but not the truth. Units: dp and pressures in dbar,
+# Ekman stress in N m^-2 (east, north), prior_velocity in m s^-1, transports,
+# noise and prior_diapycnal in Sv (salt noise in Sv g/kg), prior_ekman a fraction.
+# The basin south of the southern line is closed: no net flow across it
+# (section_net). The northern line is read from its exchange files (CTD casts,
+# bottle tracers, LADCP profiles); south_line.nc and north_line.nc hold the
+# same casts as CF-NetCDF.
+
+"""
 
 
-def toml_config(scenario: DemoScenario, files: dict[str, str]) -> str:
-    """``demo.toml`` of a scenario, commented for its reader; ``files``: each line's file."""
+def demo_config(scenario: DemoScenario, files: dict[str, str]) -> Config:
+    """The configuration of ``demo.toml`` for a scenario (``files``: each line's file name).
+
+    Written with :meth:`Config.to_toml` after :data:`TOML_HEADER`; the demo truth
+    is conditioned on the constraints this configuration's inverse assembles.
+    """
     south, north = scenario.lines
-    faces = ",\n  ".join(
-        f"{{ sigma = {_tf(f.sigma)}, p_ref = {_tf(f.p_ref)} }}" for f in scenario.interfaces
-    )
-    names = ", ".join(f'"{n}"' for n in scenario.layer_names)
-    stress = ", ".join(
-        f"{line.name} = [{_tf(line.wind_stress[0])}, {_tf(line.wind_stress[1])}]"
-        for line in scenario.lines
-    )
-    noise_layer = ", ".join(_tf(v) for v in scenario.noise_layer)
-    noise_salt = ", ".join(_tf(v) for v in scenario.noise_salt)
     strait = "_".join(scenario.strait.lower().split())
-    out = [
-        f'title = "{scenario.basin} demo box ({scenario.ship} cruise {scenario.cruise}, invented)"',
-        "",
-        "# Synthetic demo written by sectionkit.demo; regenerate with",
-        "#   python -m sectionkit.demo --write demo_sections",
-        "# The truth (truth_*.csv) is relative to the reference below.",
-        "",
-        "[grid]",
-        f"dp = {_tf(scenario.dp)}                         # dbar",
-        "",
-    ]
-    for line in scenario.lines:
-        out += [
-            "[[sections]]",
-            f'name = "{line.name}"',
-            f'file = "{files[line.name]}"',
-            f"into_box = {'true' if line.into_box else 'false'}",
-            "",
-        ]
-    out += [
-        "[[boxes]]",
-        'name = "interior"',
-        f'enters = ["{south.name}"]',
-        f'leaves = ["{north.name}"]',
-        "",
-        "[reference]",
-        f"pressure = {_tf(scenario.reference_pressure)}          # plausible, but not the truth",
-        f'bottom_triangle = "{scenario.bottom_triangle}"',
-        "",
-        "[ekman]",
-        f"depth = {_tf(scenario.ekman_depth)}",
-        f"stress = {{ {stress} }}   # N m^-2, (east, north)",
-        "",
-        "[classes]",
-        f"interfaces = [\n  {faces},\n]",
-        f"names = [{names}]",
-        "",
-        "[inverse]",
-        'solver = "gauss-markov"',
-        'conserve = ["mass", "salt"]',
-        f"prior_velocity = {_tf(scenario.inverse_prior_velocity)}         # m s^-1",
-        f"prior_diapycnal = {_tf(scenario.inverse_prior_diapycnal)}         # Sv per interface",
-        f"prior_ekman = {_tf(scenario.inverse_prior_ekman)}             # fractional",
-        f"noise_total = {_tf(scenario.noise_total)}             # Sv",
-        f"noise_class = [{noise_layer}]   # Sv, one per class",
-        f"noise_salt = [{noise_salt}]   # Sv g/kg, one per class (includes model error)",
-        (
-            f'known = [ {{ name = "{strait}", transport = {_tf(scenario.strait_transport)}, '
-            f"noise = {_tf(scenario.strait_noise)}, "
-            f'class = "{scenario.strait_layer}", box = "interior" }} ]'
-        ),
-        "# the basin south of the southern line is closed: no net flow across it",
-        'section_net = [ { section = "south", transport = 0.0, noise = 1.0 } ]',
-        "",
-    ]
-    return "\n".join(out)
+    return parse_config({
+        "title": f"{scenario.basin} demo box ({scenario.ship} cruise {scenario.cruise}, "
+                 "invented)",
+        "grid": {"dp": float(scenario.dp)},
+        "sections": [{"name": line.name, "file": files[line.name], "into_box": line.into_box}
+                     for line in scenario.lines],
+        "boxes": [{"name": "interior", "enters": [south.name], "leaves": [north.name]}],
+        "reference": {"pressure": float(scenario.reference_pressure),
+                      "bottom_triangle": scenario.bottom_triangle},
+        "ekman": {"depth": float(scenario.ekman_depth),
+                  "stress": {line.name: [float(line.wind_stress[0]), float(line.wind_stress[1])]
+                             for line in scenario.lines}},
+        "classes": {"interfaces": [{"sigma": float(f.sigma), "p_ref": float(f.p_ref)}
+                                   for f in scenario.interfaces],
+                    "names": list(scenario.layer_names)},
+        "inverse": {
+            "solver": "gauss-markov",
+            "conserve": ["mass", "salt"],
+            "prior_velocity": float(scenario.inverse_prior_velocity),
+            "prior_diapycnal": float(scenario.inverse_prior_diapycnal),
+            "prior_ekman": float(scenario.inverse_prior_ekman),
+            "noise_total": float(scenario.noise_total),
+            "noise_class": [float(v) for v in scenario.noise_layer],
+            "noise_salt": [float(v) for v in scenario.noise_salt],
+            "known": [{"name": strait, "transport": float(scenario.strait_transport),
+                       "noise": float(scenario.strait_noise), "class": scenario.strait_layer,
+                       "box": "interior"}],
+            "section_net": [{"section": south.name, "transport": 0.0, "noise": 1.0}],
+        },
+    })

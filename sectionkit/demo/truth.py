@@ -5,13 +5,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import tomllib
 import xarray as xr
 
 from sectionkit.budget import SV, Q
-from sectionkit.config import BoxSpec, SectionNet, parse_config
+from sectionkit.config import BoxSpec, SectionNet
 from sectionkit.demo.ocean import generate_section, station_distances
-from sectionkit.demo.scenario import DemoScenario, LineSpec, _pick, _rng, toml_config
+from sectionkit.demo.scenario import DemoScenario, LineSpec, _pick, _rng, demo_config
 from sectionkit.errors import ComputationError
 from sectionkit.geometry import pair_along_line_distance
 from sectionkit.inverse import interface_transfers, transfer_anomaly
@@ -244,8 +243,7 @@ def demo_truth(
     # the truth is conditioned on the same constraint rows the inverse of demo.toml
     # assembles (one budget state), with the transfers at their true values and exact
     # class mass budgets: demo.toml's configuration, mass only, every transfer an unknown
-    config = parse_config(tomllib.loads(toml_config(
-        scenario, {line.name: f"{line.name}_line.nc" for line in scenario.lines})))
+    config = demo_config(scenario, {line.name: f"{line.name}_line.nc" for line in scenario.lines})
     config.inverse.conserve = ["mass"]
     config.inverse.prior_diapycnal = 1.0
     inflow = scenario.lines[0]
