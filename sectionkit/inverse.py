@@ -42,6 +42,7 @@ from sectionkit.budget import (
 from sectionkit.config import CONSTRAINT_KINDS, BoxSpec, InverseSpec, KnownTransport
 from sectionkit.errors import ComputationError, ConfigError
 from sectionkit.geometry import haversine
+from sectionkit.labels import constraint_label
 from sectionkit.operator import CP0, RHO0, SectionOperator
 from sectionkit.solvers import make_solver, output_std
 from sectionkit.tracers import (
@@ -210,12 +211,12 @@ def assemble(
 
         if "mass" in spec.conserve:
             for i, layer in enumerate(layer_names):
-                rows.append((box.name, f"mass:{layer}"))
+                rows.append((box.name, constraint_label("mass", layer)))
                 e_rows.append(mass_g[i] + dia[i])
                 initial.append(float(mass_v[i] + known_v[i]))
                 noise.append(float(np.sqrt(spec.noise_layer[i] ** 2 + known_var[i])))
                 units.append(QUANTITY_UNIT["mass"])
-            rows.append((box.name, "mass:total"))
+            rows.append((box.name, constraint_label("mass")))
             e_rows.append(mass_g.sum(axis=0))
             initial.append(float(mass_v.sum() + known_v.sum()))
             noise.append(float(np.sqrt(spec.noise_total**2 + known_var.sum())))
@@ -225,7 +226,7 @@ def assemble(
             dia_s = transfer_anomaly(dia, sa_mean)
             contrast = _neighbour_contrast(sa_mean)
             for i, layer in enumerate(layer_names):
-                rows.append((box.name, f"salt:{layer}"))
+                rows.append((box.name, constraint_label("salt", layer)))
                 e_rows.append(salt_g[i] - sa_mean[i] * mass_g[i] + dia_s[i])
                 initial.append(float(salt_v[i] - sa_mean[i] * mass_v[i]))
                 spread = max(sa_std[i], contrast[i], SALT_NOISE_FLOOR)
@@ -238,7 +239,7 @@ def assemble(
             dia_h = transfer_anomaly(dia, ct_mean) * h
             contrast = _neighbour_contrast(ct_mean)
             for i, layer in enumerate(layer_names):
-                rows.append((box.name, f"heat:{layer}"))
+                rows.append((box.name, constraint_label("heat", layer)))
                 e_rows.append(heat_g[i] - h * ct_mean[i] * mass_g[i] + dia_h[i])
                 initial.append(float(heat_v[i] - h * ct_mean[i] * mass_v[i]))
                 spread = max(ct_std[i], contrast[i], TEMPERATURE_NOISE_FLOOR)
@@ -258,7 +259,7 @@ def assemble(
             contrast = _neighbour_contrast(c_mean)
             stated = spec.noise_tracer.get(tracer)
             for i, layer in enumerate(layer_names):
-                rows.append((box.name, f"{tracer}:{layer}"))
+                rows.append((box.name, constraint_label(tracer, layer)))
                 e_rows.append(t_g[i] - k * c_mean[i] * mass_g[i] + dia_c[i])
                 initial.append(float(t_v[i] - k * c_mean[i] * mass_v[i]))
                 spread = max(c_std[i], contrast[i], TRACER_NOISE_FLOOR)

@@ -91,3 +91,26 @@ def parse_pair_label(label: str, pairs: Mapping[str, int], where: str = "pair") 
         raise ConfigError(f"{where}: pair {label!r} does not exist; section {section} has "
                           f"{n} pairs, {section}:0 to {section}:{n - 1}")
     return section, k
+
+
+#: The class name of a box's total (all classes) in its constraint rows.
+TOTAL_CLASS = "total"
+
+
+def constraint_label(kind: str, klass: str = TOTAL_CLASS) -> str:
+    """Name of a box constraint row: ``"<kind>:<class>"`` (``mass:deep``, ``mass:total``).
+
+    Parameters
+    ----------
+    kind : str
+        ``mass``, ``salt``, ``heat``, a tracer name or ``net_mass``.
+    klass : str
+        Class name, or :data:`TOTAL_CLASS` for the sum over classes.
+    """
+    return f"{kind}:{klass}"
+
+
+def split_constraint_label(label: str) -> tuple[str, str]:
+    """Kind and class of a constraint row name (class ``""`` when it has none, as ``net_mass``)."""
+    kind, _, klass = str(label).partition(":")
+    return kind, klass

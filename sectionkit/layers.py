@@ -24,6 +24,7 @@ import gsw
 import numpy as np
 
 from sectionkit.errors import ConfigError
+from sectionkit.labels import split_constraint_label
 
 
 @dataclass(frozen=True)
@@ -104,7 +105,7 @@ def class_display_name(name: str) -> str:
 
 def constraint_display_name(constraint: str) -> str:
     """A constraint row as printed: ``mass:deep_water`` -> ``mass, deep water``."""
-    kind, _, what = str(constraint).partition(":")
+    kind, what = split_constraint_label(constraint)
     return f"{kind}, {class_display_name(what)}" if what else kind
 
 

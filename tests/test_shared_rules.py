@@ -129,3 +129,13 @@ def test_a_per_pair_argument_of_the_wrong_length_names_both_shapes():
         section_values(op, np.zeros(4), np.zeros((3, 7)))
     leading = section_values(op, np.zeros(4), np.zeros((3, 4)))  # leading dims are fine
     assert leading["net"].shape == (3,)
+
+
+def test_constraint_rows_are_named_kind_colon_class_and_read_back():
+    # the box_budget.csv constraint column (DESIGN.md section 7): "mass:deep", "mass:total"
+    from sectionkit.labels import constraint_label, split_constraint_label
+
+    assert constraint_label("mass", "deep") == "mass:deep"
+    assert constraint_label("mass") == "mass:total"
+    assert split_constraint_label("salt:upper_deep") == ("salt", "upper_deep")
+    assert split_constraint_label("net_mass") == ("net_mass", "")

@@ -17,6 +17,7 @@ from sectionkit.demo.exchange import add_exchange_line
 from sectionkit.demo.ocean import _canonical, _observe, _Observed
 from sectionkit.demo.scenario import TOML_HEADER, DemoScenario, _pick, demo_config
 from sectionkit.demo.truth import DemoTruth, demo_truth
+from sectionkit.labels import constraint_label
 
 # ---------------------------------------------------------------------------
 # files
@@ -200,13 +201,13 @@ def _truth_tables(truth: DemoTruth) -> dict[str, tuple[list[str], list[list[str]
     for i, layer in enumerate(sc.layer_names):
         box.append(
             [
-                f"mass:{layer}", "Sv", _fmt(inflow[i], 6), _fmt(ekman_in[i], 6),
+                constraint_label("mass", layer), "Sv", _fmt(inflow[i], 6), _fmt(ekman_in[i], 6),
                 _fmt(truth.known[i], 6), _fmt(w[i] - w[i + 1], 6), _fmt(residual[i], 9), "",
             ]
         )
     box.append(
         [
-            "mass:total", "Sv", _fmt(inflow.sum(), 6), _fmt(float(np.sum(ekman_in)), 6),
+            constraint_label("mass"), "Sv", _fmt(inflow.sum(), 6), _fmt(float(np.sum(ekman_in)), 6),
             _fmt(truth.known.sum(), 6), _fmt(0.0, 6), _fmt(float(residual.sum()), 9), "",
         ]
     )
@@ -215,7 +216,7 @@ def _truth_tables(truth: DemoTruth) -> dict[str, tuple[list[str], list[list[str]
     for i, layer in enumerate(sc.layer_names):
         box.append(
             [
-                f"salt:{layer}", "Sv g/kg", _fmt(sections[i], 6), "", _fmt(0.0, 6),
+                constraint_label("salt", layer), "Sv g/kg", _fmt(sections[i], 6), "", _fmt(0.0, 6),
                 _fmt(transfers[i], 6), _fmt(salt_res[i], 6),
                 _fmt(salt_res[i] / sc.noise_salt[i], 3),
             ]

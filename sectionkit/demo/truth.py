@@ -14,6 +14,7 @@ from sectionkit.demo.scenario import DemoScenario, LineSpec, _pick, _rng, demo_c
 from sectionkit.errors import ComputationError
 from sectionkit.geometry import pair_along_line_distance
 from sectionkit.inverse import interface_transfers, transfer_anomaly
+from sectionkit.labels import constraint_label
 from sectionkit.operator import SectionOperator, build_operator
 from sectionkit.state import BudgetState
 from sectionkit.study import Study
@@ -253,7 +254,7 @@ def demo_truth(
     state = BudgetState.prepare(study)
     ops = study.operators
     system, layout = state.system, state.layout
-    rows = np.array([c != "mass:total" for _, c in system.rows])
+    rows = np.array([c != constraint_label("mass") for _, c in system.rows])
     pairs = np.concatenate([np.arange(layout.pair_slices[line.name].start,
                                       layout.pair_slices[line.name].stop)
                             for line in scenario.lines])

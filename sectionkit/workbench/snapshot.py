@@ -34,6 +34,7 @@ from sectionkit.budget import SV, Q, UnknownLayout
 from sectionkit.config import Config, InverseSpec
 from sectionkit.errors import Cautions, ConfigError
 from sectionkit.geometry import compass_name, pair_along_line_distance
+from sectionkit.labels import constraint_label
 from sectionkit.layers import Interface
 from sectionkit.study import Results, Study
 
@@ -365,9 +366,9 @@ class Engine:
                 if (kt.box or box.name) == box.name and kt.layer in layers:
                     inflow[layers.index(kt.layer)] += kt.transport
             for i, layer in enumerate(layers):
-                rows.append((box.name, f"mass:{layer}"))
+                rows.append((box.name, constraint_label("mass", layer)))
                 values.append(inflow[i])
-            rows.append((box.name, "mass:total"))
+            rows.append((box.name, constraint_label("mass")))
             values.append(inflow.sum())
         v = np.asarray(values, dtype=float)
         return BoxBudget(tuple(rows), v, v.copy(), np.full(v.size, np.nan), ("Sv",) * v.size)
