@@ -473,11 +473,12 @@ def _run_members(
     size = member_batch_size(n, len(client.scheduler_info().get("workers", {})) or 1)
     starts = list(range(0, n, size))
     batches = [list(seeds[a : a + size]) for a in starts]
+    # the unperturbed run first, so that it does not end the ensemble on one worker alone
+    base_future = client.submit(unperturbed, shared, key=f"sectionkit-base-{token}",
+                                pure=False)
     futures = client.map(run_members, [shared] * len(batches), batches,
                          [perturb] * len(batches),
                          key=[f"sectionkit-members-{token}-{a}" for a in starts], pure=False)
-    base_future = client.submit(unperturbed, shared, key=f"sectionkit-base-{token}",
-                                pure=False)
     first = {f.key: a for a, f in zip(starts, futures, strict=True)}
     results: list[dict[str, np.ndarray] | None] = [None] * n
     done = 0
