@@ -19,7 +19,7 @@ project runner ``benchmarks/run.py`` prints them one line per goal.
 - :func:`profile_pipeline` — cProfile of the long-line pipeline, the top
   functions by own time.
 
-Everything runs on invented data (:mod:`sectionkit.modelsection`).
+Everything runs on invented data (the test helpers in ``tests/_synthetic.py``).
 """
 
 from __future__ import annotations
@@ -44,11 +44,16 @@ ROOT = Path(__file__).resolve().parents[1]
 
 
 def _ensure_importable() -> None:
-    """Let the script run from a source checkout without installing the package."""
+    """Let the script run from a source checkout without installing the package.
+
+    The invented sections of the tests (``tests/_synthetic.py``) are the benchmarks' input too.
+    """
     try:
         import sectionkit  # noqa: F401
     except ImportError:
         sys.path.insert(0, str(ROOT))
+    if str(ROOT / "tests") not in sys.path:
+        sys.path.insert(0, str(ROOT / "tests"))
 
 
 @dataclass
@@ -126,8 +131,9 @@ def long_line_study(n_station: int = 200, dp: float = 1.0, p_max: float = 6000.0
     sections : dict of str -> xr.Dataset
     """
     _ensure_importable()
+    from _synthetic import synthetic_section
+
     from sectionkit.config import parse_config
-    from sectionkit.modelsection import synthetic_section
 
     section = synthetic_section(n_station, dp, p_max, lat=30.0, seed=0, name="line", noise=10.0)
     config = parse_config({
@@ -342,8 +348,9 @@ def ensemble_box(n_station: int = 40, dp: float = 2.0):
     sections : dict of str -> xr.Dataset
     """
     _ensure_importable()
+    from _synthetic import synthetic_section
+
     from sectionkit.config import parse_config
-    from sectionkit.modelsection import synthetic_section
 
     config = parse_config({
         "title": "invented ensemble box",
@@ -702,8 +709,11 @@ def _memory_child(n_time: int, chunk: int, n_station: int) -> dict[str, float]:
     """Run in a fresh interpreter: a chunked model-output line to time series; peak memory."""
     import dask
 
+    _ensure_importable()
+    from _synthetic import synthetic_model_output
+
     from sectionkit.config import parse_config
-    from sectionkit.modelsection import section_time_series, synthetic_model_output
+    from sectionkit.modelsection import section_time_series
 
     config = parse_config({
         "grid": {"dp": 10.0},

@@ -184,13 +184,13 @@ def run(quick: bool = False) -> list[tuple[str, float, float]]:
     prior, noise = system["prior"], system["noise"]
 
     t_solve, solver = _time(lambda: GaussMarkov(prior, noise).fit(E, y), repeats)
-    t_prop, _ = _time(lambda: propagate(G, solver.covariance), repeats)
-    t_std, _ = _time(lambda: output_std(G, solver.covariance), repeats)
+    t_prop, _ = _time(lambda: propagate(G, solver.covariance_), repeats)
+    t_std, _ = _time(lambda: output_std(G, solver.covariance_), repeats)
     total = t_assembly + t_solve + t_prop + t_std
     m, k = E.shape
     results = [
         (f"solvers: assembly (E {m}x{k}, G {G.shape[0]}x{k})", t_assembly, GOAL_SECONDS),
-        (f"solvers: gauss-markov solve ({solver.form_used} form)", t_solve, GOAL_SECONDS),
+        (f"solvers: gauss-markov solve ({solver.form_used_} form)", t_solve, GOAL_SECONDS),
         (f"solvers: propagate G P G^T ({G.shape[0]}x{G.shape[0]})", t_prop, GOAL_SECONDS),
         ("solvers: output_std (einsum, diagonal only)", t_std, GOAL_SECONDS),
         ("solvers: total update", total, GOAL_SECONDS),

@@ -120,7 +120,7 @@ def _own_inverse() -> Measurement:
     g = rng.normal(size=(1900, 600))
     start = time.perf_counter()
     solver = GaussMarkov(np.full(600, 0.02**2), np.full(60, 0.25)).fit(e, rng.normal(size=60))
-    output_std(g, solver.covariance)
+    output_std(g, solver.covariance_)
     return Measurement("inverse 600 unknowns + propagation", time.perf_counter() - start, 1.0,
                        unit="s")
 

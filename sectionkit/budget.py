@@ -17,11 +17,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from sectionkit.errors import ConfigError
+from sectionkit.labels import parse_pair_label
 from sectionkit.operator import QUANTITIES, SectionOperator
+from sectionkit.outputs import REGISTRY, SCALE
+from sectionkit.solvers import output_std
 
-SV = 1e6  # m^3 s^-1 per Sverdrup (common practice)
-PW = 1e15  # W per petawatt
-QUANTITY_SCALE = {"volume": SV, "mass": SV, "salt": SV, "heat": PW}
+SV = SCALE["Sv"]  # m^3 s^-1 per Sverdrup (common practice)
+PW = SCALE["PW"]  # W per petawatt
+#: Reporting unit of each transported quantity's class transport (the registry's).
+QUANTITY_UNIT = {q: REGISTRY[f"class_{q}_transport"].display for q in QUANTITIES}
+QUANTITY_SCALE = {q: SCALE[unit] for q, unit in QUANTITY_UNIT.items()}
 Q = {name: n for n, name in enumerate(QUANTITIES)}
 
 
@@ -48,6 +54,44 @@ class UnknownLayout:
     ekman: dict[str, int]
     size: int
     labels: list[str]
+
+    @property
+    def pairs(self) -> dict[str, int]:
+        """Number of pairs of every section."""
+        return {name: sl.stop - sl.start for name, sl in self.pair_slices.items()}
+
+    def pair_index(self, label: str, where: str = "pair") -> int:
+        """Position in ``x`` of the adjustment of the pair ``"<section>:<k>"``.
+
+        Raises
+        ------
+        ConfigError
+            No such pair (the message names the valid range).
+        """
+        section, k = parse_pair_label(label, self.pairs, where)
+        return self.pair_slices[section].start + k
+
+    def section_adjustment(self, name: str, x: np.ndarray) -> tuple[np.ndarray, float]:
+        """One section's share of a state vector.
+
+        Parameters
+        ----------
+        name : str
+            Section.
+        x : ndarray (unknown,)
+            Unknowns.
+
+        Returns
+        -------
+        adjustment : ndarray (pair,)
+            Reference-velocity adjustment of every pair, m s^-1.
+        ekman_factor : float
+            Factor on the section's Ekman transport, ``1 + x_ekman`` (1 when
+            the section has no Ekman unknown), dimensionless.
+        """
+        x = np.asarray(x, dtype=float)
+        k = self.ekman.get(name)
+        return x[self.pair_slices[name]], 1.0 + (float(x[k]) if k is not None else 0.0)
 
 
 def make_layout(
@@ -119,8 +163,7 @@ class LinearOutputs:
         """Standard deviation of each output, sqrt(diag(G P G^T)); NaN without P."""
         if covariance is None:
             return np.full(len(self.names), np.nan)
-        g = self.gradient
-        return np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", g, covariance, g), 0.0))
+        return output_std(self.gradient, covariance)
 
     def __post_init__(self) -> None:
         self._position = {name: k for k, name in enumerate(self.names)}
@@ -160,6 +203,15 @@ def class_transport_gradient(
     if op.name in layout.ekman:
         g[:, layout.ekman[op.name]] = (ekman[:, None] * op.ekman_share[q]).sum(axis=0) / scale
     return g
+
+
+def _check_pairs(op: SectionOperator, what: str, value: np.ndarray | float) -> None:
+    """Refuse a per-pair argument whose last axis is not the section's pairs, naming both shapes."""
+    shape = np.shape(value)
+    if shape and shape[-1] != op.n_pair:
+        raise ConfigError(f"{what} has shape {shape}, but section {op.name!r} has {op.n_pair} "
+                          f"pairs: give a number or an array of shape (..., {op.n_pair}) with "
+                          "the pairs last")
 
 
 def _signed_extremum(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -203,8 +255,8 @@ def overturning_fractions(op: SectionOperator) -> tuple[np.ndarray, np.ndarray]:
     density : ndarray (..., interface)
         Area of the classes lighter than each interface over the total.
     """
-    level = op.extra["level_section_area"]
-    klass = op.extra["class_moments"][..., 0, :]
+    level = op.level_section_area
+    klass = op.class_area
     with np.errstate(invalid="ignore", divide="ignore"):
         depth = np.cumsum(level, axis=-1) / level.sum(axis=-1)[..., None]
         density = np.cumsum(klass, axis=-1)[..., :-1] / klass.sum(axis=-1)[..., None]
@@ -253,6 +305,8 @@ def section_values(
         ``overturning_pressure`` (dbar, where that integral ends) and
         ``overturning_density`` (Sv).
     """
+    for what, value in (("offset", offset), ("adjustment", adjustment), ("ekman", ekman)):
+        _check_pairs(op, what, value)
     ek = np.asarray(ekman, dtype=float)
     if ek.ndim == 0:
         ek = np.full(op.n_pair, float(ek))
@@ -339,7 +393,7 @@ def section_outputs(
     for quantity in QUANTITIES:
         value = values[f"{quantity}_transport"]
         grad = per_q[quantity] = class_transport_gradient(op, quantity, layout, ekman)
-        unit = {"volume": "Sv", "mass": "Sv", "salt": "Sv g/kg", "heat": "PW"}[quantity]
+        unit = QUANTITY_UNIT[quantity]
         for i, layer in enumerate(op.layer_names):
             names.append(f"{quantity}:{layer}")
             initial.append(value[i : i + 1])

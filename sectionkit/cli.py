@@ -25,6 +25,7 @@ def run_budget(config_path: Path, out_dir: Path, *, figures: bool = True,
     """Run the whole chain of one configuration and write its outputs."""
     from sectionkit.config import load_config
     from sectionkit.outdir import check_output_folder
+    from sectionkit.outputs import REGISTRY
     from sectionkit.report import default_writers, load_provenance, write_outputs
     from sectionkit.study import Study
 
@@ -44,12 +45,16 @@ def run_budget(config_path: Path, out_dir: Path, *, figures: bool = True,
     written = write_outputs(study, results, out_dir, extras)
     print(f"{config.title}: wrote {len(written)} files to {out_dir}")
     for name in study.operators:
-        line = (f"  {name}: net volume {results.value(name, 'net'):+.2f} Sv, "
-                f"net mass/rho0 {results.value(name, 'net_mass'):+.2f} Sv, "
-                f"heat {results.value(name, 'heat'):+.3f} PW, "
-                f"overturning {results.value(name, 'overturning'):+.2f} Sv")
+        def number(output: str, digits: int, section: str = name) -> str:
+            unit = REGISTRY[output].display
+            return f"{results.select(output, section).adjusted[0]:+.{digits}f} {unit}"
+
+        line = (f"  {name}: net volume {number('net_volume_transport', 2)}, "
+                f"net mass/rho0 {number('net_mass_transport', 2)}, "
+                f"heat {number('heat_transport', 3)}, "
+                f"overturning {number('overturning_depth', 2)}")
         if results.inverse is not None:
-            line += f" (± {results.error(name, 'overturning'):.2f})"
+            line += f" (± {results.select('overturning_depth', name).error[0]:.2f})"
         print(line)
     if results.cautions:
         print("cautions:")

@@ -28,7 +28,9 @@ from sectionkit.errors import ConfigError, InputFileError, SectionkitError
 from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
 from sectionkit.io.bottle import tracer_name
 from sectionkit.io.units import pressure_to_dbar, temperature_to_celsius
+from sectionkit.labels import parse_pair_label, split_pair_label
 from sectionkit.layers import Interface, check_interfaces
+from sectionkit.solvers import SOLVERS
 from sectionkit.thermo import SALINITY_KINDS, TEMPERATURE_KINDS
 
 if sys.version_info >= (3, 11):
@@ -36,7 +38,7 @@ if sys.version_info >= (3, 11):
 else:  # pragma: no cover
     import tomli as tomllib
 
-SOLVER_NAMES = ("gauss-markov", "svd", "bounded")
+SOLVER_NAMES = tuple(SOLVERS)  # the solvers' registry names (sectionkit.solvers)
 #: How each solver is named in figures, tables and the workbench.
 SOLVER_DISPLAY = {"gauss-markov": "Gauss–Markov", "svd": "truncated SVD",
                   "bounded": "bounded least squares"}
@@ -332,6 +334,26 @@ class BoxSpec:
     name: str
     enters: list[str] = field(default_factory=list)
     leaves: list[str] = field(default_factory=list)
+
+    @property
+    def sections(self) -> list[str]:
+        """Every section bounding the box: those entering, then those leaving."""
+        return self.enters + self.leaves
+
+    def sign(self, section: str) -> float:
+        """+1 for a section whose positive transport enters the box, -1 for one leaving it.
+
+        Raises
+        ------
+        ConfigError
+            The section does not bound this box.
+        """
+        if section in self.enters:
+            return 1.0
+        if section in self.leaves:
+            return -1.0
+        raise ConfigError(f"section {section!r} does not bound box {self.name!r} "
+                          f"(sections: {', '.join(self.sections)})")
 
 
 @dataclass
@@ -795,8 +817,9 @@ def _station_list(value: Any, where: str) -> list[str] | None:
 
 
 def _check_pair_label(label: str, names: list[str], where: str) -> None:
-    sec, _, idx = label.partition(":")
-    if sec not in names or not idx.isdigit():
+    sec, k = split_pair_label(label)
+    idx = "" if k is None else str(k)
+    if sec not in names or k is None:
         hint = did_you_mean(sec, names)
         if sec in names:
             hint = ""  # the section is right: the index is what is wrong
@@ -820,11 +843,8 @@ def check_pair_labels(config: Config, pairs: dict[str, int]) -> None:
     if config.inverse is not None:
         labels += [("[inverse] bounds", label) for label in config.inverse.bounds]
     for where, label in labels:
-        section, _, k = label.partition(":")
-        n = pairs.get(section)
-        if n is not None and int(k) >= n:
-            raise ConfigError(f"{where}: pair {label!r} does not exist; section {section} has "
-                              f"{n} pairs, {section}:0 to {section}:{n - 1}")
+        if split_pair_label(label)[0] in pairs:
+            parse_pair_label(label, pairs, where)
 
 
 def _parse_inverse(inv: dict[str, Any], cfg: Config) -> InverseSpec:

@@ -12,6 +12,10 @@ in docs/outputs.md.
 >>> import xarray as xr
 >>> ds = xr.open_dataset("results/results.nc")            # doctest: +SKIP
 >>> ds["class_volume_transport_adjusted"].sel(section="south")   # doctest: +SKIP
+
+Every function here that takes ``study`` and ``results`` takes a
+:class:`~sectionkit.study.Study` and the :class:`~sectionkit.study.Results` it
+solved; their docstrings list only the other parameters.
 """
 
 from __future__ import annotations
@@ -23,8 +27,9 @@ import numpy as np
 import xarray as xr
 
 from sectionkit.budget import level_end_pressure
-from sectionkit.outputs import SECTION_OUTPUTS, SIGN, OutputSpec, udunits
+from sectionkit.outputs import SECTION_OUTPUTS, SIGN, udunits
 from sectionkit.study import Results, Study
+from sectionkit.tracers import split_output_name
 
 CF_VERSION = "CF-1.10"
 
@@ -34,16 +39,6 @@ def _package_version() -> str:
         return metadata.version("sectionkit")
     except metadata.PackageNotFoundError:  # pragma: no cover - running from a checkout
         return "unknown"
-
-
-def _keys(spec: OutputSpec, classes: list[str], n_interface: int, n_level: int) -> list[str]:
-    if "class" in spec.dims:
-        return [spec.key.format(**{"class": c}) for c in classes]
-    if "interface" in spec.dims:
-        return [spec.key.format(n=n) for n in range(n_interface)]
-    if "level" in spec.dims:
-        return [spec.key.format(k=k) for k in range(n_level)]
-    return [spec.key]
 
 
 def _section_variables(study: Study, results: Results, levels: np.ndarray) -> dict:
@@ -63,7 +58,7 @@ def _section_variables(study: Study, results: Results, levels: np.ndarray) -> di
         for s, name in enumerate(sections):
             out = results.outputs[name]
             n_level = study.operators[name].pressure.size
-            for j, key in enumerate(_keys(spec, classes, n_interface, n_level)):
+            for j, key in enumerate(spec.keys(classes, n_interface, n_level)):
                 k = out.index(key)
                 g = out.gradient[k]
                 at = (s, j) if len(spec.dims) > 1 else (s,)
@@ -90,7 +85,7 @@ def _tracer_variables(study: Study, results: Results) -> tuple[dict, dict]:
     names: list[str] = []
     for out in tracers.values():
         for label in out.names:
-            tracer = label.partition(":")[0]
+            tracer = split_output_name(label)[0]
             if tracer not in names:
                 names.append(tracer)
     if not names:
@@ -100,17 +95,13 @@ def _tracer_variables(study: Study, results: Results) -> tuple[dict, dict]:
     shape = (len(sections), len(names), len(classes))
     initial, adjusted, error = (np.full(shape, np.nan) for _ in range(3))
     for s, section in enumerate(sections):
-        out = tracers.get(section)
-        if out is None:
-            continue
-        value = out.value(results.estimate)
-        std = out.std(results.covariance)
-        for k, label in enumerate(out.names):
-            tracer, _, cls = label.partition(":")
-            if cls not in classes:
-                continue  # the "total" rows: the sum over classes
-            at = (s, names.index(tracer), classes.index(cls))
-            initial[at], adjusted[at], error[at] = out.initial[k], value[k], std[k]
+        sel = results.tracer_values(section)
+        for k, label in enumerate(sel.keys if sel is not None else []):
+            tracer, cls = split_output_name(label)
+            if cls in classes:  # not the TOTAL rows (the sum over classes)
+                at = (s, names.index(tracer), classes.index(cls))
+                initial[at], adjusted[at], error[at] = sel.initial[k], sel.adjusted[k], \
+                    sel.error[k]
     data = {}
     for tag, values, what in (("initial", initial, "with the chosen references"),
                               ("adjusted", adjusted, "after the box inverse"),
@@ -318,19 +309,8 @@ def results_dataset(study: Study, results: Results) -> xr.Dataset:
 def write_results_nc(study: Study, results: Results, folder: str | Path) -> Path:
     """Write ``results.nc`` (every reported number, CF-NetCDF) into ``folder``.
 
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
-    folder : str or Path
-        Output folder (the report's temporary folder during a batch run).
-
-    Returns
-    -------
-    Path
-        The file written.
+    ``folder`` is the output folder (the report's temporary folder during a batch
+    run); returns the file written.
     """
     path = Path(folder) / "results.nc"
     ds = results_dataset(study, results)

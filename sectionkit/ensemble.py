@@ -56,11 +56,9 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from sectionkit.budget import section_outputs
 from sectionkit.config import Config, load_config
 from sectionkit.errors import ConfigError
-from sectionkit.inverse import solve
-from sectionkit.outputs import udunits
+from sectionkit.outputs import REGISTRY, udunits
 from sectionkit.study import Results, Study
 
 __all__ = [
@@ -83,16 +81,18 @@ __all__ = [
     "write_ensemble",
 ]
 
-#: Per-class outputs recorded per member: name -> (results name prefix, units).
-CLASS_OUTPUTS = {"volume": ("volume", "Sv"), "mass": ("mass", "Sv"), "heat_class": ("heat", "PW")}
-#: Per-section outputs recorded per member: name -> units.
+#: Per-class outputs recorded per member: ensemble variable -> registry name
+#: (:data:`sectionkit.outputs.REGISTRY`, which holds the unit).
+CLASS_OUTPUTS = {"volume": "class_volume_transport", "mass": "class_mass_transport",
+                 "heat_class": "class_heat_transport"}
+#: Per-section outputs recorded per member: ensemble variable -> registry name.
 SCALAR_OUTPUTS = {
-    "net": "Sv",
-    "net_mass": "Sv",
-    "heat": "PW",
-    "freshwater": "Sv",
-    "overturning": "Sv",
-    "overturning_density": "Sv",
+    "net": "net_volume_transport",
+    "net_mass": "net_mass_transport",
+    "heat": "heat_transport",
+    "freshwater": "freshwater_transport",
+    "overturning": "overturning_depth",
+    "overturning_density": "overturning_density",
 }
 STATISTICS = ("mean", "std", "p2.5", "p50", "p97.5")
 PERCENTILES = (2.5, 50.0, 97.5)
@@ -287,27 +287,13 @@ def perturb_section(
 
 
 # ------------------------------------------------------------------ one member
-def _bounds(config: Config, results: Results) -> tuple[np.ndarray | None, np.ndarray | None]:
-    """Lower and upper bounds of the unknowns from ``[inverse] bounds`` (as Study.solve)."""
-    if config.inverse is None or not config.inverse.bounds:
-        return None, None
-    layout = results.layout
-    lower = np.full(layout.size, -np.inf)
-    upper = np.full(layout.size, np.inf)
-    for label, (lo, hi) in config.inverse.bounds.items():
-        section, _, k = label.partition(":")
-        idx = layout.pair_slices[section].start + int(k)
-        lower[idx], upper[idx] = lo, hi
-    return lower, upper
-
-
 def resolve_with_data(study: Study, results: Results, target: np.ndarray) -> Results:
     """Solve the study's inverse again with a different imbalance ``y``.
 
     Parameters
     ----------
     study : Study
-        The study that produced ``results``.
+        The study that produced ``results`` (kept for callers; the state is in ``results``).
     results : Results
         A solved state (with an inverse).
     target : ndarray (row,)
@@ -318,44 +304,25 @@ def resolve_with_data(study: Study, results: Results, target: np.ndarray) -> Res
     Results
         References, Ekman and layout of ``results``; a new inverse and outputs.
     """
-    system = dataclasses.replace(results.inverse.system, initial=-np.asarray(target, float))
-    lower, upper = _bounds(study.config, results)
-    inverse = solve(system, study.config.inverse, lower, upper)
-    outputs = {
-        name: section_outputs(op, results.references[name].offset, results.ekman[name],
-                              results.layout, study.config.reference_salinity,
-                              inverse.estimate)
-        for name, op in study.operators.items()
-    }
-    return Results(results.references, results.ekman, results.layout, outputs, inverse,
-                   results.cautions)
+    return results.with_data(target)
 
 
 def _record(study: Study, results: Results, truth: np.ndarray | None) -> dict[str, np.ndarray]:
     """Outputs of one solved state as arrays (section[, layer])."""
-    layers = study.config.layer_names or ["class_0"]
     sections = list(study.operators)
     out: dict[str, np.ndarray] = {}
     x = results.estimate
-    for name, (prefix, _) in CLASS_OUTPUTS.items():
-        names = [f"{prefix}:{layer}" for layer in layers]
-        out[name] = np.array([[results.value(s, n) for n in names] for s in sections])
-        out[f"{name}_initial"] = np.array([[results.value(s, n, adjusted=False) for n in names]
-                                           for s in sections])
-        out[f"{name}_error"] = np.array([[results.error(s, n) for n in names] for s in sections])
-        if truth is not None:
-            out[f"{name}_truth"] = np.array([
-                [results.outputs[s].value(truth)[results.outputs[s].index(n)] for n in names]
-                for s in sections])
-    for name in SCALAR_OUTPUTS:
-        out[name] = np.array([results.value(s, name) for s in sections])
-        out[f"{name}_initial"] = np.array([results.value(s, name, adjusted=False)
-                                           for s in sections])
-        out[f"{name}_error"] = np.array([results.error(s, name) for s in sections])
-        if truth is not None:
-            out[f"{name}_truth"] = np.array([
-                results.outputs[s].value(truth)[results.outputs[s].index(name)]
-                for s in sections])
+    for name, output in (CLASS_OUTPUTS | SCALAR_OUTPUTS).items():
+        chosen = [results.select(output, s) for s in sections]
+        scalar = name in SCALAR_OUTPUTS  # one value per section, not per class
+        for suffix, values in (("", [c.adjusted for c in chosen]),
+                               ("_initial", [c.initial for c in chosen]),
+                               ("_error", [c.error for c in chosen]),
+                               ("_truth", None if truth is None else
+                                [c.initial + c.gradient @ truth for c in chosen])):
+            if values is not None:
+                stacked = np.array(values)
+                out[name + suffix] = stacked[:, 0] if scalar else stacked
     out["estimate"] = np.asarray(x, dtype=float)
     return out
 
@@ -403,8 +370,10 @@ def run_member(study: Study, seed: np.random.SeedSequence, perturb: Perturbation
                     for spec in config.sections}
         member = Study.from_config(config, sections=sections)
     else:
+        # the same operators, tracers and direct velocities (none depends on what is perturbed)
         member = Study(config=config, sections=study.sections, operators=study.operators,
-                       load_cautions=study.load_cautions)
+                       load_cautions=study.load_cautions,
+                       tracer_operators=study.tracer_operators, direct=study.direct)
     results = member.solve()
     truth = None
     if perturb.constraints != "none" and results.inverse is not None:
@@ -655,8 +624,8 @@ def _assemble(
     n_member = stacked["net"].shape[0]
     data: dict[str, Any] = {}
     outputs: list[tuple[str, tuple[str, ...], str]] = (
-        [(n, ("section", "class"), u) for n, (_, u) in CLASS_OUTPUTS.items()]
-        + [(n, ("section",), u) for n, u in SCALAR_OUTPUTS.items()]
+        [(n, ("section", "class"), REGISTRY[r].display) for n, r in CLASS_OUTPUTS.items()]
+        + [(n, ("section",), REGISTRY[r].display) for n, r in SCALAR_OUTPUTS.items()]
     )
     for name, dims, display in outputs:
         # CF / UDUNITS units that unit libraries read ("Sv" is the sievert to them)

@@ -15,6 +15,11 @@ Everything is drawn on :class:`matplotlib.figure.Figure` objects with an
 explicit Agg canvas, so pyplot's global state is never touched. Saved files
 carry no timestamps or software versions, so rerunning a study writes
 identical files where matplotlib allows. Sign conventions: docs/conventions.md.
+
+Every ``plot_*`` function draws into the :class:`~matplotlib.axes.Axes` ``ax``
+it is given. Every function here that takes ``study`` and ``results`` takes a
+:class:`~sectionkit.study.Study` and the :class:`~sectionkit.study.Results` it
+solved; their docstrings list only the other parameters.
 """
 
 from __future__ import annotations
@@ -33,7 +38,7 @@ from matplotlib.ticker import FixedLocator, FuncFormatter, MaxNLocator, NullLoca
 
 from sectionkit.budget import level_end_pressure
 from sectionkit.config import SOLVER_DISPLAY
-from sectionkit.geometry import sign_convention
+from sectionkit.geometry import along_line_distance, pair_along_line_distance, sign_convention
 from sectionkit.layers import class_display_name, constraint_display_name, sigma_label
 from sectionkit.operator import SectionOperator
 from sectionkit.study import Results, Study
@@ -94,13 +99,12 @@ def station_distance(op: SectionOperator) -> np.ndarray:
     ndarray (station,)
         km.
     """
-    return np.concatenate([[0.0], np.cumsum(op.pairs["distance"].values)]) / 1e3
+    return along_line_distance(op.pairs["distance"].values) / 1e3
 
 
 def pair_distance(op: SectionOperator) -> np.ndarray:
     """Along-line distance of every pair mid-point, km."""
-    d = station_distance(op)
-    return 0.5 * (d[:-1] + d[1:])
+    return pair_along_line_distance(op.pairs["distance"].values) / 1e3
 
 
 def section_velocity(
@@ -110,10 +114,6 @@ def section_velocity(
 
     Parameters
     ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
     name : str
         Section name.
     adjusted : bool
@@ -133,14 +133,10 @@ def section_velocity(
     return op.absolute_velocity(offset, adjustment)
 
 
-def _index(out) -> dict[str, int]:
-    return {n: i for i, n in enumerate(out.names)}
-
-
 def output_block(
-    results: Results, name: str, names: Sequence[str]
+    results: Results, name: str, output: str
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Initial value, adjusted value and error of several outputs of one section.
+    """Initial value, adjusted value and error of one registered output of one section.
 
     Parameters
     ----------
@@ -148,26 +144,17 @@ def output_block(
         The results.
     name : str
         Section name.
-    names : sequence of str
-        Output names (``volume:<class>``, ``psi_depth:<k>``, ...).
+    output : str
+        Registry name (:data:`sectionkit.outputs.REGISTRY`), e.g.
+        ``"class_volume_transport"`` or ``"streamfunction_depth"``.
 
     Returns
     -------
-    initial, adjusted, error : ndarray (len(names),)
-        In the outputs' reporting units; ``error`` is NaN without an inverse.
+    initial, adjusted, error : ndarray
+        In the output's reporting units; ``error`` is NaN without an inverse.
     """
-    out = results.outputs[name]
-    where = _index(out)
-    idx = np.array([where[n] for n in names], dtype=int)
-    initial = out.value(None)[idx]
-    adjusted = out.value(results.estimate)[idx]
-    cov = results.covariance
-    if cov is None:
-        error = np.full(idx.size, np.nan)
-    else:
-        g = out.gradient[idx]
-        error = np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", g, cov, g), 0.0))
-    return initial, adjusted, error
+    sel = results.select(output, name)
+    return sel.initial, sel.adjusted, sel.error
 
 
 def interface_field(sigma: np.ndarray) -> np.ndarray:
@@ -301,8 +288,6 @@ def plot_velocity_section(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     op : SectionOperator
         The section (grid, pair geometry, class interfaces, pair densities).
     velocity : ndarray (pair, level)
@@ -516,8 +501,6 @@ def plot_class_transports(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     layer_names : sequence of str
         Class names, light to dense.
     initial : ndarray (class,)
@@ -571,8 +554,6 @@ def plot_overturning_depth(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     pressure : ndarray (level,)
         dbar (drawn increasing downward).
     psi : ndarray (level,)
@@ -613,20 +594,14 @@ def plot_overturning_density(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     interface_labels : sequence of str
         Interface names, light to dense (drawn top to bottom).
     psi : ndarray (interface,)
         Transport of all lighter classes, Sv.
     error : ndarray (interface,), optional
         One standard deviation, Sv (error bars).
-    label : str, optional
-        Legend label.
-    color : optional
-        Line colour.
-    linestyle : str
-        Line style.
+    label, color, linestyle
+        Legend label, line colour and style, as for :func:`plot_overturning_depth`.
     offset : float
         Vertical shift of the points, in interface spacings, so that several
         series' error bars do not overlap.
@@ -660,8 +635,6 @@ def plot_station_map(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     lines : dict of str -> (lon, lat)
         Station longitudes (degrees_east) and latitudes (degrees_north) by line.
     depths : dict of str -> ndarray (station,), optional
@@ -754,62 +727,6 @@ def _lat_text(y: float, _pos=None) -> str:
     return f"{abs(y):g}°{'N' if y > 0 else 'S'}"
 
 
-def scaled_singular_values(results: Results) -> tuple[np.ndarray, str]:
-    """Singular values of the noise- and prior-scaled constraint matrix.
-
-    Taken from the solver when it has them (truncated SVD); otherwise
-    computed from the constraint system as the singular values of
-    ``diag(1/noise) E diag(prior)`` over the unknowns with a prior, which is
-    the same matrix for diagonal prior and noise covariances.
-
-    Parameters
-    ----------
-    results : Results
-        Results with an inverse.
-
-    Returns
-    -------
-    values : ndarray
-        Descending, dimensionless.
-    source : str
-        ``"solver"`` or ``"constraint system"``.
-    """
-    inv = results.inverse
-    values = getattr(inv.solver, "singular_values", None)
-    if values is not None:
-        return np.asarray(values, dtype=float), "solver"
-    system = inv.system
-    active = system.prior > 0
-    scaled = system.matrix[:, active] * system.prior[active] / system.noise[:, None]
-    return np.linalg.svd(scaled, compute_uv=False), "constraint system"
-
-
-def resolution_diagonal(results: Results) -> np.ndarray:
-    """Diagonal of the model resolution for every unknown (NaN where there is no prior).
-
-    Parameters
-    ----------
-    results : Results
-        Results with an inverse.
-
-    Returns
-    -------
-    ndarray (unknown,)
-        Dimensionless, 1 for a fully resolved unknown, 0 for one the
-        constraints cannot see.
-    """
-    inv = results.inverse
-    active = inv.system.prior > 0
-    out = np.full(active.size, np.nan)
-    res = getattr(inv.solver, "resolution", None)
-    if res is not None:
-        out[active] = np.diag(np.asarray(res, dtype=float))
-    else:  # 1 - posterior / prior variance, exact for Gauss-Markov
-        prior = inv.system.prior[active] ** 2
-        out[active] = 1.0 - np.diag(inv.covariance)[active] / prior
-    return out
-
-
 def plot_singular_values(
     ax: Axes, values: np.ndarray, rank: int | None = None, *, source: str = ""
 ) -> None:
@@ -817,8 +734,6 @@ def plot_singular_values(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     values : ndarray
         Singular values, descending, dimensionless.
     rank : int, optional
@@ -860,8 +775,6 @@ def plot_residuals(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     labels : sequence of str
         Constraint names.
     before, after : ndarray (constraint,)
@@ -903,8 +816,6 @@ def plot_resolution(
 
     Parameters
     ----------
-    ax : Axes
-        Where to draw.
     sections : dict of str -> ndarray (pair,)
         Resolution diagonal of each section's pairs, dimensionless.
     colors : sequence, optional
@@ -946,10 +857,6 @@ def velocity_figure(study: Study, results: Results, name: str) -> Figure:
 
     Parameters
     ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
     name : str
         Section name.
 
@@ -978,13 +885,6 @@ def velocity_figure(study: Study, results: Results, name: str) -> Figure:
 def transport_figure(study: Study, results: Results) -> Figure:
     """Class transports of every section, before and after the inverse, with errors.
 
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
-
     Returns
     -------
     Figure
@@ -997,8 +897,7 @@ def transport_figure(study: Study, results: Results) -> Figure:
     inverse = results.inverse is not None
     for ax, name in zip(axes.flat, names, strict=False):
         op = study.operators[name]
-        initial, adjusted, error = output_block(results, name,
-                                                [f"volume:{c}" for c in op.layer_names])
+        initial, adjusted, error = output_block(results, name, "class_volume_transport")
         plot_class_transports(ax, op.layer_names, initial, adjusted if inverse else None,
                               error if inverse else None, title=name,
                               sign=line_sign_convention(study, name))
@@ -1014,13 +913,6 @@ def transport_figure(study: Study, results: Results) -> Figure:
 
 def overturning_figure(study: Study, results: Results) -> Figure:
     """Overturning streamfunction of every section in depth and in density classes.
-
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
 
     Returns
     -------
@@ -1040,8 +932,7 @@ def overturning_figure(study: Study, results: Results) -> Figure:
     for k, (name, op) in enumerate(study.operators.items()):
         c = palette[k]
         positive = line_sign_convention(study, name).replace("positive = ", "+ ")
-        depth_names = [f"psi_depth:{j}" for j in range(op.pressure.size)]
-        ini, adj, err = output_block(results, name, depth_names)
+        ini, adj, err = output_block(results, name, "streamfunction_depth")
         ends = level_end_pressure(op.pressure)  # where each accumulated integral ends
         if inverse:
             plot_overturning_depth(ax_z, ends, ini, label=f"{name} initial", color=c,
@@ -1056,8 +947,7 @@ def overturning_figure(study: Study, results: Results) -> Figure:
             # from nothing lighter (0) through each interface to all classes (0: the net
             # transport is removed)
             labels = ["top", *(sigma_label(f.sigma, f.p_ref) for f in op.interfaces), "all"]
-            ini, adj, err = output_block(results, name, [f"psi_density:{n}"
-                                                         for n in range(n_face)])
+            ini, adj, err = output_block(results, name, "streamfunction_density")
             ini, adj, err = (np.concatenate([[0.0], a, [0.0]]) for a in (ini, adj, err))
             first = (2 * k if inverse else k) * dodge - 0.15 * (n_series > 1)
             if inverse:
@@ -1116,13 +1006,6 @@ def map_figure(study: Study) -> Figure:
 def inverse_figure(study: Study, results: Results) -> Figure | None:
     """Diagnostics of the inverse: singular values, residuals, resolution.
 
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
-
     Returns
     -------
     Figure or None
@@ -1132,19 +1015,19 @@ def inverse_figure(study: Study, results: Results) -> Figure | None:
     if inv is None:
         return None
     system = inv.system
-    values, source = scaled_singular_values(results)
-    rank = getattr(inv.solver, "rank", None) if study.config.inverse.solver == "svd" else None
+    values = inv.scaled_singular_values
+    rank = inv.rank
     boxes = {r[0] for r in system.rows}
     labels = [f"{b}: {constraint_display_name(c)}" if len(boxes) > 1
               else constraint_display_name(c) for b, c in system.rows]
     before = system.initial / system.noise
     after = inv.normalized_residuals
-    diag = resolution_diagonal(results)
+    diag = np.where(inv.solved_for, inv.resolution_diagonal, np.nan)
     per_section = {name: diag[results.layout.pair_slices[name]] for name in study.operators}
 
     fig = new_figure(13.0, max(4.2, 0.22 * len(labels) + 1.6))
     axes = fig.subplots(1, 3, gridspec_kw={"width_ratios": [1.0, 1.15, 1.35]})
-    plot_singular_values(axes[0], values, rank, source=source)
+    plot_singular_values(axes[0], values, rank)
     plot_residuals(axes[1], labels, before, after)
     plot_resolution(axes[2], per_section)
     solver = SOLVER_DISPLAY.get(study.config.inverse.solver, study.config.inverse.solver)
@@ -1162,13 +1045,6 @@ def _save(fig: Figure, folder: Path, stem: str) -> list[Path]:
 
 def build_figures(study: Study, results: Results) -> dict[str, Figure]:
     """Every figure of a study by file stem.
-
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
 
     Returns
     -------
@@ -1192,19 +1068,8 @@ def build_figures(study: Study, results: Results) -> dict[str, Figure]:
 def write_figures(study: Study, results: Results, folder: str | Path) -> list[Path]:
     """Write every figure as PNG (150 dpi) and PDF into ``folder/figures``.
 
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
-    folder : str or Path
-        Output folder (the report's temporary folder during a batch run).
-
-    Returns
-    -------
-    list of Path
-        The files written.
+    ``folder`` is the output folder (the report's temporary folder during a batch
+    run); returns the files written.
     """
     out = Path(folder) / "figures"
     out.mkdir(parents=True, exist_ok=True)
@@ -1231,8 +1096,6 @@ __all__ = [
     "plot_singular_values",
     "plot_station_map",
     "plot_velocity_section",
-    "resolution_diagonal",
-    "scaled_singular_values",
     "section_velocity",
     "station_distance",
     "transport_figure",

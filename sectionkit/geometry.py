@@ -60,10 +60,8 @@ def great_circle_distance(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
 
     Parameters
     ----------
-    lon : ndarray (..., station)
-        Longitude, degrees_east.
-    lat : ndarray (..., station)
-        Latitude, degrees_north.
+    lon, lat : ndarray (..., station)
+        Station positions, degrees_east and degrees_north.
 
     Returns
     -------
@@ -76,14 +74,7 @@ def great_circle_distance(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
 
 
 def pair_midpoints(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Mid-points of neighbouring stations.
-
-    Parameters
-    ----------
-    lon : ndarray (..., station)
-        Longitude, degrees_east.
-    lat : ndarray (..., station)
-        Latitude, degrees_north.
+    """Mid-points of neighbouring stations ``lon, lat`` (..., station), degrees.
 
     Returns
     -------
@@ -116,10 +107,8 @@ def equatorial_pairs(
 
     Parameters
     ----------
-    lon : ndarray (station,)
-        Longitude, degrees_east.
-    lat : ndarray (station,)
-        Latitude, degrees_north.
+    lon, lat : ndarray (station,)
+        Station positions, degrees_east and degrees_north.
     band : float
         Half-width of the band, degrees (``EQUATOR_BAND`` by default).
 
@@ -154,14 +143,7 @@ def along_line_direction(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, 
     """Unit vector along the line, from station k to k + 1, in local east/north.
 
     Positive transport is to the left of this direction, i.e. along
-    (-t_north, t_east).
-
-    Parameters
-    ----------
-    lon : ndarray (..., station)
-        Longitude, degrees_east.
-    lat : ndarray (..., station)
-        Latitude, degrees_north.
+    (-t_north, t_east). ``lon, lat`` as for :func:`great_circle_distance`.
 
     Returns
     -------
@@ -218,6 +200,41 @@ def pair_geometry(section: xr.Dataset) -> xr.Dataset:
     )
 
 
+def along_line_distance(pair_distance: np.ndarray) -> np.ndarray:
+    """Distance of every station from the first one, along the line.
+
+    Parameters
+    ----------
+    pair_distance : ndarray (..., pair)
+        Distance between neighbouring stations (:func:`great_circle_distance`), m.
+
+    Returns
+    -------
+    ndarray (..., station)
+        Accumulated distance, m; 0 at the first station.
+    """
+    d = np.asarray(pair_distance, dtype=float)
+    zero = np.zeros(d.shape[:-1] + (1,))
+    return np.concatenate([zero, np.cumsum(d, axis=-1)], axis=-1)
+
+
+def pair_along_line_distance(pair_distance: np.ndarray) -> np.ndarray:
+    """Distance of every pair's mid-point from the first station, along the line.
+
+    Parameters
+    ----------
+    pair_distance : ndarray (..., pair)
+        Distance between neighbouring stations, m.
+
+    Returns
+    -------
+    ndarray (..., pair)
+        Half-way between the pair's two stations, m.
+    """
+    station = along_line_distance(pair_distance)
+    return 0.5 * (station[..., :-1] + station[..., 1:])
+
+
 COMPASS = ("northward", "north-eastward", "eastward", "south-eastward", "southward",
            "south-westward", "westward", "north-westward")
 
@@ -248,10 +265,8 @@ def positive_direction(lon: np.ndarray, lat: np.ndarray) -> str:
 
     Parameters
     ----------
-    lon : ndarray (station,)
-        Longitude, degrees_east.
-    lat : ndarray (station,)
-        Latitude, degrees_north.
+    lon, lat : ndarray (station,)
+        Station positions, degrees_east and degrees_north.
 
     Returns
     -------

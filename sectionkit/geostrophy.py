@@ -31,10 +31,9 @@ def dynamic_height(
 
     Parameters
     ----------
-    sa : ndarray (..., station, level)
-        Absolute Salinity, g/kg; NaN below the bottom.
-    ct : ndarray (..., station, level)
-        Conservative Temperature, degC; NaN below the bottom.
+    sa, ct : ndarray (..., station, level)
+        Absolute Salinity (g/kg) and Conservative Temperature (degC) of each
+        station, NaN below its bottom.
     p : ndarray (level,)
         Sea pressure, dbar, increasing.
     max_dp : float

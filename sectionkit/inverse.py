@@ -30,12 +30,21 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from sectionkit.budget import PW, SV, UnknownLayout, class_transport_gradient
+from sectionkit.budget import (
+    PW,
+    QUANTITY_SCALE,
+    QUANTITY_UNIT,
+    SV,
+    Q,
+    UnknownLayout,
+    class_transport_gradient,
+)
 from sectionkit.config import CONSTRAINT_KINDS, BoxSpec, InverseSpec, KnownTransport
 from sectionkit.errors import ComputationError, ConfigError
 from sectionkit.geometry import haversine
+from sectionkit.labels import constraint_label
 from sectionkit.operator import CP0, RHO0, SectionOperator
-from sectionkit.solvers import make_solver
+from sectionkit.solvers import make_solver, output_std
 from sectionkit.tracers import (
     KMOL_PER_SV_UMOL,
     TRACER_NOISE_FLOOR,
@@ -96,10 +105,6 @@ class ConstraintSystem:
         return -self.initial
 
 
-def _box_sign(box: BoxSpec, section: str) -> float:
-    return 1.0 if section in box.enters else -1.0
-
-
 def box_class_means(
     box: BoxSpec, operators: dict[str, SectionOperator]
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -110,7 +115,7 @@ def box_class_means(
     sa_mean, sa_std, ct_mean, ct_std : ndarray (class,)
         g/kg and degC.
     """
-    sums = sum(operators[name].extra["class_moments"] for name in box.enters + box.leaves)
+    sums = sum(operators[name].class_moments for name in box.sections)
     area = np.where(sums[0] > 0, sums[0], np.nan)
     sa_mean = sums[1] / area
     ct_mean = sums[3] / area
@@ -129,7 +134,7 @@ def assemble(
     spec: InverseSpec,
     layout: UnknownLayout,
     layer_names: list[str],
-    velocity_prior: np.ndarray | None = None,
+    velocity_prior: dict[str, np.ndarray] | None = None,
     tracers: dict[str, TracerOperator] | None = None,
     velocity_prior_mean: np.ndarray | None = None,
 ) -> ConstraintSystem:
@@ -151,15 +156,15 @@ def assemble(
         Unknown layout (pairs, transfers, Ekman factors).
     layer_names : list of str
         Class names.
-    velocity_prior : ndarray (n_pairs_total,), optional
-        Prior standard deviation of each pair's adjustment (m s^-1); the
-        global ``prior_velocity`` where None.
+    velocity_prior : dict of str -> ndarray (pair,), optional
+        Prior standard deviation of each section's pair adjustments (m s^-1);
+        the global ``prior_velocity`` where None.
     tracers : dict of str -> TracerOperator, optional
         Tracer operators by section, for tracers named in ``spec.conserve``
         (rows ``<tracer>:<class>`` in kmol s^-1, see :mod:`sectionkit.tracers`).
-    velocity_prior_mean : ndarray (n_pairs_total,), optional
-        Prior mean of each pair's adjustment (m s^-1), e.g. from direct
-        velocity profiles; zero where None.
+    velocity_prior_mean : ndarray (unknown,), optional
+        Prior mean of every unknown (m s^-1 for the pairs), e.g. from direct
+        velocity profiles, placed by the layout; zero where None.
     """
     n_class = len(layer_names)
     rows: list[tuple[str, str]] = []
@@ -172,22 +177,22 @@ def assemble(
         known_by_box.setdefault(kt.box or boxes[0].name, []).append(kt)
 
     for box in boxes:
-        sections = box.enters + box.leaves
+        sections = box.sections
         per = {}
         for name in sections:
             op = operators[name]
             t = op.transports(offsets[name], 0.0, ekman[name], 1.0).sum(axis=-2)  # (q, class)
             per[name] = {
-                "mass": (t[1] / SV, class_transport_gradient(op, "mass", layout, ekman[name])),
-                "salt": (t[2] / SV, class_transport_gradient(op, "salt", layout, ekman[name])),
-                "heat": (t[3] / PW, class_transport_gradient(op, "heat", layout, ekman[name])),
+                kind: (t[Q[kind]] / QUANTITY_SCALE[kind],
+                       class_transport_gradient(op, kind, layout, ekman[name]))
+                for kind in ("mass", "salt", "heat")
             }
         sa_mean, sa_std, ct_mean, ct_std = box_class_means(box, operators)
         known = known_by_box.get(box.name, [])
 
         def net(kind: str, per=per, box=box, sections=sections):
-            value = sum(_box_sign(box, s) * per[s][kind][0] for s in sections)
-            grad = sum(_box_sign(box, s) * per[s][kind][1] for s in sections)
+            value = sum(box.sign(s) * per[s][kind][0] for s in sections)
+            grad = sum(box.sign(s) * per[s][kind][1] for s in sections)
             return np.asarray(value, float), np.asarray(grad, float)
 
         mass_v, mass_g = net("mass")
@@ -206,47 +211,47 @@ def assemble(
 
         if "mass" in spec.conserve:
             for i, layer in enumerate(layer_names):
-                rows.append((box.name, f"mass:{layer}"))
+                rows.append((box.name, constraint_label("mass", layer)))
                 e_rows.append(mass_g[i] + dia[i])
                 initial.append(float(mass_v[i] + known_v[i]))
                 noise.append(float(np.sqrt(spec.noise_layer[i] ** 2 + known_var[i])))
-                units.append("Sv")
-            rows.append((box.name, "mass:total"))
+                units.append(QUANTITY_UNIT["mass"])
+            rows.append((box.name, constraint_label("mass")))
             e_rows.append(mass_g.sum(axis=0))
             initial.append(float(mass_v.sum() + known_v.sum()))
             noise.append(float(np.sqrt(spec.noise_total**2 + known_var.sum())))
-            units.append("Sv")
+            units.append(QUANTITY_UNIT["mass"])
         if "salt" in spec.conserve:
             salt_v, salt_g = net("salt")
             dia_s = transfer_anomaly(dia, sa_mean)
             contrast = _neighbour_contrast(sa_mean)
             for i, layer in enumerate(layer_names):
-                rows.append((box.name, f"salt:{layer}"))
+                rows.append((box.name, constraint_label("salt", layer)))
                 e_rows.append(salt_g[i] - sa_mean[i] * mass_g[i] + dia_s[i])
                 initial.append(float(salt_v[i] - sa_mean[i] * mass_v[i]))
                 spread = max(sa_std[i], contrast[i], SALT_NOISE_FLOOR)
                 noise.append(spec.noise_salt[i] if spec.noise_salt and spec.noise_salt[i] > 0
                              else spec.noise_layer[i] * spread)
-                units.append("Sv g/kg")
+                units.append(QUANTITY_UNIT["salt"])
         if "heat" in spec.conserve:
             heat_v, heat_g = net("heat")
             h = RHO0 * CP0 * SV / PW  # PW per (Sv degC)
             dia_h = transfer_anomaly(dia, ct_mean) * h
             contrast = _neighbour_contrast(ct_mean)
             for i, layer in enumerate(layer_names):
-                rows.append((box.name, f"heat:{layer}"))
+                rows.append((box.name, constraint_label("heat", layer)))
                 e_rows.append(heat_g[i] - h * ct_mean[i] * mass_g[i] + dia_h[i])
                 initial.append(float(heat_v[i] - h * ct_mean[i] * mass_v[i]))
                 spread = max(ct_std[i], contrast[i], TEMPERATURE_NOISE_FLOOR)
                 noise.append(spec.noise_heat[i] if spec.noise_heat and spec.noise_heat[i] > 0
                              else spec.noise_layer[i] * spread * h)
-                units.append("PW")
+                units.append(QUANTITY_UNIT["heat"])
         for tracer in [c for c in spec.conserve if c not in CONSTRAINT_KINDS]:
             # like salt: anomaly from the box-class mean concentration, k converts
             # Sv x umol/kg of mass transport to kmol/s (sectionkit.tracers)
-            area = sum(operators[s].extra["class_moments"][0] for s in sections)
+            area = sum(operators[s].class_area for s in sections)
             t_v, t_g, c_mean, c_std = box_tracer_parts(
-                tracer, {s: _box_sign(box, s) for s in sections}, tracers or {}, area, offsets,
+                tracer, {s: box.sign(s) for s in sections}, tracers or {}, area, offsets,
                 ekman, layout,
             )
             k = KMOL_PER_SV_UMOL
@@ -254,7 +259,7 @@ def assemble(
             contrast = _neighbour_contrast(c_mean)
             stated = spec.noise_tracer.get(tracer)
             for i, layer in enumerate(layer_names):
-                rows.append((box.name, f"{tracer}:{layer}"))
+                rows.append((box.name, constraint_label(tracer, layer)))
                 e_rows.append(t_g[i] - k * c_mean[i] * mass_g[i] + dia_c[i])
                 initial.append(float(t_v[i] - k * c_mean[i] * mass_v[i]))
                 spread = max(c_std[i], contrast[i], TRACER_NOISE_FLOOR)
@@ -262,19 +267,19 @@ def assemble(
                 units.append(TRACER_UNIT)
     for net in spec.section_net:
         op = operators[net.section]
-        t = op.transports(offsets[net.section], 0.0, ekman[net.section], 1.0)[1].sum() / SV
+        t = op.transports(offsets[net.section], 0.0, ekman[net.section], 1.0)[Q["mass"]].sum() / SV
         rows.append((f"section:{net.section}", "net_mass"))
         e_rows.append(class_transport_gradient(op, "mass", layout, ekman[net.section])
                       .sum(axis=0))
         initial.append(float(t - net.transport))
         noise.append(net.noise)
-        units.append("Sv")
+        units.append(QUANTITY_UNIT["mass"])
     if not rows:
         raise ConfigError("[inverse] conserve is empty: name at least one of mass, salt, heat")
 
     prior = np.zeros(layout.size)
-    n_pairs = sum(op.n_pair for op in operators.values())
-    prior[:n_pairs] = spec.prior_velocity if velocity_prior is None else velocity_prior
+    for name, sl in layout.pair_slices.items():
+        prior[sl] = spec.prior_velocity if velocity_prior is None else velocity_prior[name]
     for idx in layout.diapycnal.values():
         prior[idx] = spec.prior_diapycnal
     for idx in layout.ekman.values():
@@ -289,8 +294,7 @@ def assemble(
             covariance[sl, sl] = rho * np.outer(prior[sl], prior[sl])
     prior_mean = None
     if velocity_prior_mean is not None and np.any(velocity_prior_mean != 0):
-        prior_mean = np.zeros(layout.size)
-        prior_mean[:n_pairs] = velocity_prior_mean
+        prior_mean = np.asarray(velocity_prior_mean, dtype=float)
     return ConstraintSystem(rows, np.vstack(e_rows), np.asarray(initial), np.asarray(noise),
                             prior, units, covariance, prior_mean)
 
@@ -435,8 +439,7 @@ class InverseResult:
         Inverse Problem*, ch. 3): the noise less the part of it the adjusted
         unknowns absorb. Zero (to rounding) where the unknowns fit a row exactly.
         """
-        e = self.system.matrix
-        projected = np.einsum("ij,jk,ik->i", e, self.covariance, e)
+        projected = output_std(self.system.matrix, self.covariance) ** 2  # diag(E P E^T)
         return np.sqrt(np.maximum(self.system.noise**2 - projected, 0.0))
 
     @property
@@ -447,16 +450,36 @@ class InverseResult:
             return np.where(sd > 0, self.adjusted / sd, np.nan)
 
     @property
+    def solved_for(self) -> np.ndarray:
+        """True for every unknown with a prior (the solver's columns), bool (unknown,)."""
+        return self.system.prior > 0
+
+    @property
     def resolution_diagonal(self) -> np.ndarray:
-        """Diagonal of the model resolution matrix per unknown (0 where not solved for)."""
+        """Diagonal of the solver's model resolution per unknown, dimensionless.
+
+        1 for an unknown the constraints determine fully, 0 for one they cannot
+        see; 0 also for an unknown that was not solved for (no prior, see
+        :attr:`solved_for`).
+        """
         out = np.zeros(self.system.prior.size)
-        active = self.system.prior > 0
-        out[active] = np.diag(self.solver.resolution)
+        out[self.solved_for] = np.diag(self.solver.resolution_)
         return out
+
+    @property
+    def scaled_singular_values(self) -> np.ndarray:
+        """Singular values of the noise- and prior-scaled constraint matrix, descending, 1."""
+        return self.solver.scaled_singular_values_
+
+    @property
+    def rank(self) -> int | None:
+        """Rank the truncated SVD kept; None for solvers without one."""
+        rank = getattr(self.solver, "rank_", None)
+        return None if rank is None else int(rank)
 
     def summary(self) -> dict:
         """Solver, size, rank and chi-squared statistics, for reports."""
-        chi2 = self.solver.chi2
+        chi2 = self.solver.chi2_
         info = {
             "solver": type(self.solver).__name__,
             "constraints": int(self.system.matrix.shape[0]),
@@ -466,9 +489,8 @@ class InverseResult:
             "chi2_estimate": float(chi2.estimate),
             "chi2_estimate_expected": float(chi2.estimate_expected),
         }
-        rank = getattr(self.solver, "rank", None)
-        if rank is not None:
-            info["rank"] = int(rank)
+        if self.rank is not None:
+            info["rank"] = self.rank
         return info
 
 
@@ -506,7 +528,7 @@ def solve(
     mean = None if system.prior_mean is None else system.prior_mean[active]
     solver.fit(e, system.target, prior_mean=mean)
     estimate = np.zeros(system.prior.size)
-    estimate[active] = solver.estimate
+    estimate[active] = solver.estimate_
     cov = np.zeros((system.prior.size, system.prior.size))
-    cov[np.ix_(active, active)] = solver.covariance
+    cov[np.ix_(active, active)] = solver.covariance_
     return InverseResult(system, estimate, cov, solver)

@@ -24,6 +24,7 @@ import gsw
 import numpy as np
 
 from sectionkit.errors import ConfigError
+from sectionkit.labels import split_constraint_label
 
 
 @dataclass(frozen=True)
@@ -104,7 +105,7 @@ def class_display_name(name: str) -> str:
 
 def constraint_display_name(constraint: str) -> str:
     """A constraint row as printed: ``mass:deep_water`` -> ``mass, deep water``."""
-    kind, _, what = str(constraint).partition(":")
+    kind, what = split_constraint_label(constraint)
     return f"{kind}, {class_display_name(what)}" if what else kind
 
 
@@ -223,10 +224,9 @@ def deciding_densities(
 
     Parameters
     ----------
-    sa : ndarray (..., station, level)
-        Absolute Salinity, g/kg; NaN below the bottom.
-    ct : ndarray (..., station, level)
-        Conservative Temperature, degC; NaN below the bottom.
+    sa, ct : ndarray (..., station, level)
+        Absolute Salinity (g/kg) and Conservative Temperature (degC) on the
+        grid; NaN below each station's bottom.
     interfaces : dict of float -> sequence of float
         Interface values (kg m^-3) by their reference pressure (dbar).
     stride : int
@@ -548,19 +548,11 @@ def class_weights(
 
     Parameters
     ----------
-    sigma : ndarray (..., pair, interface, level), or a sequence of (..., pair, level)
-        Pair-mean potential density anomaly at each interface's own reference
-        pressure, kg m^-3; NaN below the deeper station's bottom. A sequence
-        (one array per interface) avoids stacking large arrays.
-    interfaces : ndarray (interface,)
-        Interface values, kg m^-3.
-    thickness : ndarray (pair, level - 1)
-        Segment thickness, m.
-    width : ndarray (pair, level - 1)
-        Fraction of the pair's width that is water in each segment.
-    tail : ndarray (pair,), optional
-        Thickness below the last level down to the bottom, m (a sliver
-        smaller than one grid step), integrated with the last level's value.
+    sigma, interfaces, thickness, width, tail
+        As for :func:`class_levels` (kg m^-3, kg m^-3, m, 1, m). ``sigma`` may
+        also be a sequence of one (..., pair, level) array per interface, which
+        avoids stacking large arrays; ``tail`` (a sliver smaller than one grid
+        step) is integrated with the last level's value.
 
     Returns
     -------

@@ -23,7 +23,7 @@ import gsw
 import numpy as np
 import xarray as xr
 
-from sectionkit.errors import EquatorError, SectionDataError
+from sectionkit.errors import Cautions, EquatorError, SectionDataError
 from sectionkit.geometry import EQUATOR_HARD_BAND, pair_geometry
 from sectionkit.geostrophy import (
     extend_into_bottom_triangle,
@@ -31,7 +31,9 @@ from sectionkit.geostrophy import (
     pair_level_limits,
     pair_mean,
     relative_velocity,
+    resolve_references,
 )
+from sectionkit.labels import pair_labels
 from sectionkit.layers import (
     ClassLevels,
     Interface,
@@ -125,10 +127,33 @@ class SectionOperator:
         first asked for).
     class_salinity, class_temperature : ndarray (..., class)
         Area-weighted mean salinity of the salt budgets (Preformed Salinity S*
-        or SA, ``extra["salinity"]``; g/kg) and CT (degC) of each class;
+        or SA, see ``salinity``; g/kg) and CT (degC) of each class;
         ``mean_salinity`` is the section's area mean of the same salinity.
     class_levels : sectionkit.layers.ClassLevels
         The class weights in compact form (a class per level, split cells).
+    salinity : {"preformed", "absolute"}
+        Which salinity the salt budgets use.
+    class_moments : ndarray (..., 5, class)
+        Area integrals of [1, S, S^2, CT, CT^2] over each class: m^2, g/kg m^2,
+        (g/kg)^2 m^2, degC m^2 and degC^2 m^2 (S: ``budget_salinity``).
+    level_section_area : ndarray (..., level)
+        Area of the whole section in each grid level's integration cell, m^2.
+    budget_salinity : ndarray (..., pair, level)
+        Pair-mean salinity of the salt budgets (S* or SA), g/kg.
+    pair_sa, pair_ct : ndarray (..., pair, level)
+        Pair-mean Absolute Salinity (g/kg) and Conservative Temperature (degC).
+    pair_density : ndarray (..., pair, level)
+        Pair-mean in-situ density, kg m^-3.
+    station_sa, station_ct : ndarray (..., station, level)
+        The section's SA (g/kg) and CT (degC), for densities asked for later.
+    relative_velocity : ndarray (..., pair, level)
+        Velocity relative to the surface before bottom triangles, m s^-1 (what a
+        rebuild with other classes reuses).
+    source_section : xr.Dataset or None
+        The canonical section the operator was built from.
+    track_below_stations : dict of int -> (float, float)
+        Pairs whose bathymetry track lies below both stations: pair -> (track,
+        deeper station) sea-floor pressure, dbar.
     """
 
     name: str
@@ -152,17 +177,27 @@ class SectionOperator:
     mean_salinity: np.ndarray
     ekman_depth: float
     bottom_triangle: str
-    extra: dict = field(default_factory=dict)
+    salinity: str = "preformed"
+    class_moments: np.ndarray | None = None
+    level_section_area: np.ndarray | None = None
+    budget_salinity: np.ndarray | None = None
+    pair_sa: np.ndarray | None = None
+    pair_ct: np.ndarray | None = None
+    pair_density: np.ndarray | None = None
+    station_sa: np.ndarray | None = None
+    station_ct: np.ndarray | None = None
+    relative_velocity: np.ndarray | None = None
+    source_section: xr.Dataset | None = None
+    track_below_stations: dict[int, tuple[float, float]] = field(default_factory=dict)
     class_levels: ClassLevels | None = None
+    _dense_weights: np.ndarray | None = field(default=None, repr=False)
 
     @property
     def weights(self) -> np.ndarray:
         """Depth-integration weights (..., pair, class, level) of each class, m."""
-        w = self.extra.get("class_weights")
-        if w is None:
-            w = self.class_levels.dense()[..., : len(self.layer_names), :]
-            self.extra["class_weights"] = w
-        return w
+        if self._dense_weights is None:
+            self._dense_weights = self.class_levels.dense()[..., : len(self.layer_names), :]
+        return self._dense_weights
 
     @property
     def n_pair(self) -> int:
@@ -172,7 +207,7 @@ class SectionOperator:
     @property
     def pair_labels(self) -> list[str]:
         """Pair names as used in configuration overrides, ``"<section>:<k>"``."""
-        return [f"{self.name}:{k}" for k in range(self.n_pair)]
+        return pair_labels(self.name, self.n_pair)
 
     def ekman_volume(self, stress_east: float, stress_north: float) -> np.ndarray:
         """Ekman volume transport across each pair for a uniform wind stress.
@@ -251,7 +286,7 @@ class SectionOperator:
                 self.sigma_pair[pr]  # computed on first access
             else:
                 self.sigma_pair[pr] = pair_mean(potential_density_anomaly(
-                    self.extra["station_sa"], self.extra["station_ct"], pr))
+                    self.station_sa, self.station_ct, pr))
         return self.sigma_pair
 
     def absolute_velocity(self, offset: np.ndarray, adjustment: np.ndarray | float = 0.0):
@@ -271,6 +306,31 @@ class SectionOperator:
         """
         ref = np.asarray(offset) + np.asarray(adjustment)
         return self.v_eff + self.response * ref[..., None]
+
+    def resolve_references(
+        self, choices: list, cautions: Cautions | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Reference pressure used (dbar) and velocity offset (m s^-1) of every pair.
+
+        :func:`sectionkit.geostrophy.resolve_references` on this operator's
+        velocities, grid, deepest levels and bottom-triangle rule: the one way
+        a section's references are resolved (batch, workbench, xarray layer).
+
+        Parameters
+        ----------
+        choices : list of ReferenceChoice
+            One per pair.
+        cautions : Cautions, optional
+            Receives references below the floor and missing isopycnals, by pair name.
+        """
+        return resolve_references(choices, self.v_eff, self.pressure, self.common,
+                                  self.sigma_for(choices), cautions, self.pair_labels,
+                                  deepest=self.deepest, bottom_triangle=self.bottom_triangle)
+
+    @property
+    def class_area(self) -> np.ndarray:
+        """Cross-sectional area of each class, bottom triangles included, (..., class), m^2."""
+        return self.class_moments[..., 0, :]
 
 
 def _pair_mean(station_values: np.ndarray) -> np.ndarray:
@@ -322,7 +382,7 @@ def build_operator(
         Integration step of gsw's dynamic height, dbar.
     relative_velocity_of_pairs : ndarray (..., pair, level), optional
         The velocity relative to the surface of this same section from an
-        earlier build (``extra["v_rel"]``), m s^-1: a change of classes,
+        earlier build (``relative_velocity``), m s^-1: a change of classes,
         bottom-triangle rule or Ekman depth then needs no new dynamic height.
     salinity : {"preformed", "absolute"}
         Salinity of the salt transports, class salinities and the freshwater
@@ -452,34 +512,21 @@ def build_operator(
     mean_salinity = class_moments[..., 1, :].sum(axis=-1) / vol_area.sum(axis=-1)
 
     return SectionOperator(
-        name=name,
-        pressure=p,
-        pairs=geometry,
-        layer_names=names if interfaces else names[:1],
-        interfaces=list(interfaces),
-        v_eff=v_eff,
-        response=response,
-        common=common,
-        deepest=deepest,
-        relative=relative,
-        area=area,
-        ekman_share=ekman_share,
-        level_relative=level_relative,
-        level_area=level_area,
-        level_ekman=level_ekman,
-        sigma_pair=sigma_pair,
-        class_salinity=class_salinity,
-        class_temperature=class_temperature,
-        mean_salinity=mean_salinity,
-        ekman_depth=float(ekman_depth),
-        bottom_triangle=bottom_triangle,
-        class_levels=levels,
-        extra={"sa_pair": sa_pair, "salt_pair": salt_pair, "salinity": salinity,
-               "ct_pair": ct_pair, "rho_pair": rho_pair,
-               "class_moments": class_moments, "station_sa": sa, "station_ct": ct,
-               "v_rel": v_rel, "section": section, "level_section_area": level_section_area,
-               "track_below_stations": {j: (p_track, float(max(bottom[j], bottom[j + 1])))
-                                        for j, p_track in below.items()}},
+        name=name, pressure=p, pairs=geometry,
+        layer_names=names if interfaces else names[:1], interfaces=list(interfaces),
+        # the linear operator
+        v_eff=v_eff, response=response, common=common, deepest=deepest,
+        relative=relative, area=area, ekman_share=ekman_share,
+        level_relative=level_relative, level_area=level_area, level_ekman=level_ekman,
+        sigma_pair=sigma_pair, class_salinity=class_salinity,
+        class_temperature=class_temperature, mean_salinity=mean_salinity,
+        ekman_depth=float(ekman_depth), bottom_triangle=bottom_triangle, class_levels=levels,
+        # by-products kept for budgets, rebuilds and cautions
+        salinity=salinity, class_moments=class_moments, level_section_area=level_section_area,
+        budget_salinity=salt_pair, pair_sa=sa_pair, pair_ct=ct_pair, pair_density=rho_pair,
+        station_sa=sa, station_ct=ct, relative_velocity=v_rel, source_section=section,
+        track_below_stations={j: (p_track, float(max(bottom[j], bottom[j + 1])))
+                              for j, p_track in below.items()},
     )
 
 

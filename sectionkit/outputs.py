@@ -97,6 +97,26 @@ class OutputSpec:
         """SI value of one unit of the reported number."""
         return SCALE[self.display]
 
+    def keys(self, classes: list[str], n_interface: int, n_level: int) -> list[str]:
+        """Names of this output's values in a section's linear outputs, in dimension order.
+
+        Parameters
+        ----------
+        classes : list of str
+            Class names, light to dense.
+        n_interface : int
+            Number of class interfaces.
+        n_level : int
+            Number of pressure levels.
+        """
+        if "class" in self.dims:
+            return [self.key.format(**{"class": c}) for c in classes]
+        if "interface" in self.dims:
+            return [self.key.format(n=n) for n in range(n_interface)]
+        if "level" in self.dims:
+            return [self.key.format(k=k) for k in range(n_level)]
+        return [self.key]
+
 
 SIGN = "positive to the left of increasing station order (the section's own frame)"
 

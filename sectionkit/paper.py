@@ -18,6 +18,10 @@ constraints, priors and noise) or that no inverse was run. Output is
 deterministic: rerunning a study writes byte-identical files.
 
 LaTeX needs ``\\usepackage{booktabs,siunitx,longtable}`` in the preamble.
+
+Every function here that takes ``study`` and ``results`` takes a
+:class:`~sectionkit.study.Study` and the :class:`~sectionkit.study.Results` it
+solved; their docstrings list only the other parameters.
 """
 
 from __future__ import annotations
@@ -32,10 +36,12 @@ import pandas as pd
 
 from sectionkit.config import SOLVER_DISPLAY
 from sectionkit.geostrophy import ReferenceChoice
+from sectionkit.labels import split_pair_label
 from sectionkit.layers import class_display_name, constraint_display_name, sigma_symbol
 from sectionkit.operator import SALINITY_NAMES
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.tables import tables
+from sectionkit.tracers import TOTAL, split_output_name
 
 #: Decimals quoted for a value without an error, by unit key.
 FIXED_DECIMALS: dict[str, int] = {
@@ -228,18 +234,7 @@ def latex_escape(text: str) -> str:
 
 
 def markdown_escape(text: str) -> str:
-    """Escape characters that would break a Markdown table cell.
-
-    Parameters
-    ----------
-    text : str
-        Plain text.
-
-    Returns
-    -------
-    str
-        Text with ``|``, ``\\``, ``*``, ``_`` and backticks escaped.
-    """
+    """Plain ``text`` with ``|``, ``\\``, ``*``, ``_`` and backticks escaped for a Markdown cell."""
     out = str(text)
     for ch in ("\\", "|", "*", "_", "`"):
         out = out.replace(ch, "\\" + ch)
@@ -411,8 +406,8 @@ def reference_description(study: Study, results: Results, tex: bool = False) -> 
     order = {name: k for k, name in enumerate(cfg.section_names())}
 
     def pair_key(label: str) -> tuple:
-        section, _, k = label.rpartition(":")
-        return (order.get(section, len(order)), section, int(k) if k.isdigit() else -1, label)
+        section, k = split_pair_label(label)
+        return (order.get(section, len(order)), section, -1 if k is None else k, label)
 
     overrides = {k: cfg.overrides[k] for k in sorted(cfg.overrides, key=pair_key)}
     n = len(overrides)
@@ -487,9 +482,8 @@ def inverse_description(study: Study, results: Results, tex: bool = False) -> st
     percent = r"\%" if tex else "%"
     solver = _SOLVER_PHRASE.get(inv.solver, esc(inv.solver))
     if inv.solver == "svd":
-        used = getattr(results.inverse.solver, "rank", inv.rank)
-        svals = getattr(results.inverse.solver, "singular_values", None)
-        total = f" of {len(svals)}" if svals is not None else ""
+        used = results.inverse.rank
+        total = f" of {len(results.inverse.scaled_singular_values)}"
         rule = "" if inv.rank else ", chosen where the scaled singular values exceed 1"
         solver += f" (rank {used}{total}{rule})"
     text = f"Inverse: {solver} conserving {' and '.join(inv.conserve)}"
@@ -821,32 +815,24 @@ def _property_table(study: Study, results: Results) -> PaperTable:
         cols.append(Column(f"Adjusted ({_unit('kmol/s', True)})",
                            f"Adjusted ({_unit('kmol/s', False)})"))
     rows = []
-    for name, out in results.tracers.items():
-        adjusted = out.value(results.estimate)
-        err = out.std(results.covariance)
-        for k, label in enumerate(out.names):
-            tracer, _, layer = label.partition(":")
+    for name in results.tracers:
+        sel = results.tracer_values(name)
+        for k, label in enumerate(sel.keys):
+            tracer, layer = split_output_name(label)
             row = [
                 Cell.text(name),
                 Cell.text(tracer),
-                Cell.text("all classes" if layer == "total" else class_display_name(layer)),
-                Cell.number(out.initial[k], None, "kmol/s"),
+                Cell.text("all classes" if layer == TOTAL else class_display_name(layer)),
+                Cell.number(sel.initial[k], None, "kmol/s"),
             ]
             if inverse:
-                row.append(Cell.number(adjusted[k], _err(err[k]), "kmol/s"))
+                row.append(Cell.number(sel.adjusted[k], _err(sel.error[k]), "kmol/s"))
             rows.append(row)
     return PaperTable("property_transports", title, caption(True), caption(False), cols, rows)
 
 
 def paper_tables(study: Study, results: Results) -> list[PaperTable]:
     """The four §7 tables, rounded and captioned, in the order of DESIGN.md §7.
-
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
 
     Returns
     -------
@@ -1033,18 +1019,8 @@ def _markdown_table(table: PaperTable, number: int) -> str:
 def to_markdown(tables: Sequence[PaperTable], title: str = "", note: str = "") -> str:
     """All tables as Markdown pipe tables with their captions.
 
-    Parameters
-    ----------
-    tables : sequence of PaperTable
-        From :func:`paper_tables`.
-    title : str
-        Study title, used as the heading.
-    note : str
-        Markdown text of the study setup, printed once under the tables.
-
-    Returns
-    -------
-    str
+    The parameters are those of :func:`to_latex`; here ``title`` is the
+    heading and ``note`` is Markdown. Returns the Markdown text.
     """
     parts = [f"# {markdown_escape(title) or 'sectionkit'}: tables", ""]
     for n, t in enumerate(tables, start=1):
@@ -1057,19 +1033,8 @@ def to_markdown(tables: Sequence[PaperTable], title: str = "", note: str = "") -
 def write_paper_tables(study: Study, results: Results, folder: str | Path) -> list[Path]:
     """Write ``tables.tex`` and ``tables.md`` (DESIGN.md §7) into ``folder``.
 
-    Parameters
-    ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
-    folder : str or Path
-        Output folder (the report's temporary folder during a batch run).
-
-    Returns
-    -------
-    list of Path
-        The two files written.
+    ``folder`` is the output folder (the report's temporary folder during a batch
+    run); returns the two files written.
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)

@@ -8,6 +8,10 @@ that is moved into place only when the whole run has succeeded
 reproduce a run and :func:`load_provenance` reads it back. The files and
 their columns are described in docs/outputs.md; ``results.nc`` comes from
 :mod:`sectionkit.dataset`.
+
+Every function here that takes ``study`` and ``results`` takes a
+:class:`~sectionkit.study.Study` and the :class:`~sectionkit.study.Results` it
+solved; their docstrings list only the other parameters.
 """
 
 from __future__ import annotations
@@ -107,10 +111,6 @@ def provenance(study: Study, results: Results, outputs: list[str] | None = None)
 
     Parameters
     ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
     outputs : list of str, optional
         The files of the result set (relative paths), this one included.
     """
@@ -231,10 +231,6 @@ def write_outputs(
 
     Parameters
     ----------
-    study : Study
-        The study.
-    results : Results
-        Its results.
     out_dir : str or Path
         Destination folder (created when missing; refused when it holds files
         sectionkit did not write).

@@ -20,21 +20,29 @@ through :data:`SOLVERS` / :func:`make_solver`:
 Results common to every solver (after ``fit(E, y)``), with ``M`` constraints
 and ``K`` unknowns:
 
-===========================  ==========  ===================================================
-attribute                    shape       meaning
-===========================  ==========  ===================================================
-``estimate``                 (K,)        estimated unknowns, units of ``x``
-``covariance``               (K, K)      error covariance of ``estimate``, units of ``x`` ^2
-``posterior_std``            (K,)        ``sqrt(diag(covariance))``, units of ``x``
-``gain``                     (K, M)      ``d estimate / d y`` (linear response to the data)
-``resolution``               (K, K)      model resolution ``T_v = gain @ E``
-``data_resolution``          (M, M)      data resolution ``T_u = E @ gain``
-``residuals``                (M,)        ``y - E @ estimate``, units of ``y``
-``normalized_residuals``     (M,)        ``residuals / sqrt(diag(N))``, dimensionless
-``residual_covariance``      (M, M)      expected covariance of ``residuals`` under the
-                                         prior and noise model, units of ``y`` ^2
-``chi2``                     ChiSquared  misfit statistics with their expected values
-===========================  ==========  ===================================================
+=============================  ==========  =================================================
+attribute                      shape       meaning
+=============================  ==========  =================================================
+``estimate_``                  (K,)        estimated unknowns, units of ``x``
+``covariance_``                (K, K)      error covariance of ``estimate_``, units of ``x`` ^2
+``posterior_std_``             (K,)        ``sqrt(diag(covariance_))``, units of ``x``
+``gain_``                      (K, M)      ``d estimate_ / d y`` (linear response to the data)
+``resolution_``                (K, K)      model resolution ``T_v = gain_ @ E``
+``data_resolution_``           (M, M)      data resolution ``T_u = E @ gain_``
+``residuals_``                 (M,)        ``y - E @ estimate_``, units of ``y``
+``normalized_residuals_``      (M,)        ``residuals_ / sqrt(diag(N))``, dimensionless
+``residual_covariance_``       (M, M)      expected covariance of ``residuals_`` under the
+                                           prior and noise model, units of ``y`` ^2
+``chi2_``                      ChiSquared  misfit statistics with their expected values
+``scaled_singular_values_``    (min(M,K),) singular values of ``W^-1 E S`` (``N = W W^T``,
+                                           ``R = S S^T``), descending, dimensionless
+=============================  ==========  =================================================
+
+Settings (``rank``, ``form``, ``lower``, ``upper``) keep the constructor's names;
+results end in ``_`` (scikit-learn style: ``rank`` is the setting of
+:class:`TruncatedSVD`, ``rank_`` the rank it used). ``is_linear`` on the class
+says whether the estimate is linear in the data with a data-independent gain
+(:meth:`_LinearSolver.estimate_for`).
 
 All covariance algebra goes through Cholesky factors and triangular solves; no
 matrix is inverted explicitly except where a solver states it (the bounded
@@ -115,34 +123,22 @@ class _Covariance:
 
     @property
     def size(self) -> int:
-        if self.variances is not None:
-            return int(self.variances.shape[0])
-        assert self._matrix is not None
-        return int(self._matrix.shape[0])
+        return int(self.diagonal.shape[0])
 
     @property
     def diagonal(self) -> Array:
         """Variances, units^2, shape (n,)."""
-        if self.variances is not None:
-            return self.variances
-        assert self._matrix is not None
-        return np.diag(self._matrix).copy()
+        return self.variances if self.is_diagonal else np.diag(self._matrix).copy()
 
     @property
     def matrix(self) -> Array:
         """The full matrix ``C``, units^2, shape (n, n)."""
-        if self.variances is not None:
-            return np.diag(self.variances)
-        assert self._matrix is not None
-        return self._matrix
+        return np.diag(self.variances) if self.is_diagonal else self._matrix
 
     @property
     def factor(self) -> Array:
         """The square-root factor ``S`` (lower triangular), units, shape (n, n)."""
-        if self._sqrt is not None:
-            return np.diag(self._sqrt)
-        assert self._factor is not None
-        return self._factor
+        return np.diag(self._sqrt) if self.is_diagonal else self._factor
 
     @staticmethod
     def _rows(v: Array, x: Array) -> Array:
@@ -158,29 +154,26 @@ class _Covariance:
         """``C^-1 @ x`` through the Cholesky factor."""
         return self.factor_t_solve(self.factor_solve(x))
 
-    def factor_times(self, x: Array) -> Array:
-        """``S @ x``."""
-        if self._sqrt is not None:
+    def factor_times(self, x: Array, transpose: bool = False) -> Array:
+        """``S @ x`` (``S^T @ x`` with ``transpose``)."""
+        if self.is_diagonal:
             return self._rows(self._sqrt, x) * x
-        return self.factor @ x
+        return (self._factor.T if transpose else self._factor) @ x
 
     def factor_t_times(self, x: Array) -> Array:
         """``S^T @ x``."""
-        if self._sqrt is not None:
-            return self._rows(self._sqrt, x) * x
-        return self.factor.T @ x
+        return self.factor_times(x, transpose=True)
 
-    def factor_solve(self, x: Array) -> Array:
-        """``S^-1 @ x`` (triangular solve)."""
-        if self._sqrt is not None:
+    def factor_solve(self, x: Array, transpose: bool = False) -> Array:
+        """``S^-1 @ x`` (``S^-T @ x`` with ``transpose``), a triangular solve."""
+        if self.is_diagonal:
             return x / self._rows(self._sqrt, x)
-        return la.solve_triangular(self.factor, x, lower=True, check_finite=False)
+        return la.solve_triangular(self._factor, x, lower=True, trans="T" if transpose else "N",
+                                   check_finite=False)
 
     def factor_t_solve(self, x: Array) -> Array:
         """``S^-T @ x`` (triangular solve)."""
-        if self._sqrt is not None:
-            return x / self._rows(self._sqrt, x)
-        return la.solve_triangular(self.factor, x, lower=True, trans="T", check_finite=False)
+        return self.factor_solve(x, transpose=True)
 
     def inverse_factor(self) -> Array:
         """``S^-1`` as a matrix, units^-1, shape (n, n)."""
@@ -306,6 +299,28 @@ def _sym(a: Array) -> Array:
     return 0.5 * (a + a.T)
 
 
+def _data_factor(E: Array, re_t: Array, noise: _Covariance, advice: str) -> Array:
+    """Lower Cholesky factor of the data covariance ``C = E R E^T + N``.
+
+    Parameters
+    ----------
+    E : ndarray (M, K)
+        Constraint matrix, units of ``y`` per unit of ``x``.
+    re_t : ndarray (K, M)
+        ``R E^T``, units of ``x`` times units of ``y``.
+    noise : _Covariance
+        ``N``, units of ``y`` squared.
+    advice : str
+        What to do when ``C`` is not positive definite, for the message.
+    """
+    try:
+        return la.cholesky(_sym(E @ re_t + noise.matrix), lower=True, check_finite=False)
+    except la.LinAlgError:
+        raise ComputationError(
+            f"E R E^T + N is not positive definite to working precision; {advice}"
+        ) from None
+
+
 # --------------------------------------------------------------------------
 # Results shared by every solver
 # --------------------------------------------------------------------------
@@ -360,32 +375,37 @@ class _LinearSolver:
     #: Registry name of the solver.
     name: ClassVar[str] = ""
     #: Names of the attributes that exist only after :meth:`fit`.
+    #: True when the estimate is ``prior_mean + gain_ @ (y - E prior_mean)`` with a gain that
+    #: does not depend on ``y``: :meth:`estimate_for` then gives the estimate for other data
+    #: without a new fit.
+    is_linear: ClassVar[bool] = True
+    #: Names of the attributes that exist only after :meth:`fit` (scikit-learn style:
+    #: fitted results end in ``_``, settings do not).
     _fitted_names: ClassVar[tuple[str, ...]] = (
-        "estimate",
-        "covariance",
-        "posterior_std",
-        "gain",
-        "resolution",
-        "data_resolution",
-        "residuals",
-        "normalized_residuals",
-        "residual_covariance",
-        "chi2",
+        "estimate_",
+        "covariance_",
+        "posterior_std_",
+        "gain_",
+        "resolution_",
+        "data_resolution_",
+        "residuals_",
+        "normalized_residuals_",
+        "residual_covariance_",
+        "chi2_",
+        "scaled_singular_values_",
     )
 
-    estimate: Array
-    covariance: Array
-    posterior_std: Array
-    gain: Array
-    resolution: Array
-    data_resolution: Array
-    residuals: Array
-    normalized_residuals: Array
-    residual_covariance: Array
-    chi2: ChiSquared
-
-    #: Constructor settings stored under another attribute name.
-    _setting_attrs: ClassVar[dict[str, str]] = {}
+    estimate_: Array
+    covariance_: Array
+    posterior_std_: Array
+    gain_: Array
+    resolution_: Array
+    data_resolution_: Array
+    residuals_: Array
+    normalized_residuals_: Array
+    residual_covariance_: Array
+    chi2_: ChiSquared
+    scaled_singular_values_: Array
 
     def __init__(self, prior_variance: ArrayLike, noise_variance: ArrayLike) -> None:
         self.prior_variance = _parse_covariance(prior_variance, "prior_variance", "unknown")
@@ -403,7 +423,7 @@ class _LinearSolver:
         params = inspect.signature(type(self).__init__).parameters
         shown = []
         for key in list(params)[1:]:
-            value = self.__dict__.get(self._setting_attrs.get(key, key))
+            value = self.__dict__.get(key)
             if isinstance(value, np.ndarray):
                 text = f"{float(value):g}" if value.ndim == 0 else f"<array {value.shape}>"
             else:
@@ -465,6 +485,42 @@ class _LinearSolver:
         estimate, covariance, gain = self._solve(E, y - E @ x0, prior, noise)
         self._finish(E, y, prior, noise, estimate + x0, covariance, gain)
         return self
+
+    def estimate_for(self, y: ArrayLike, prior_mean: ArrayLike | None = None) -> Array:
+        """The estimate for other data ``y`` with the fitted gain, without a new fit.
+
+        For a linear solver (``is_linear``) the estimate is
+        ``x0 + gain_ (y - E x0)`` and neither the gain nor the covariance
+        depends on ``y`` or ``x0``; so this equals a new :meth:`fit` on the same
+        ``E`` and covariances, and ``covariance_`` holds for it too.
+
+        Parameters
+        ----------
+        y : array_like (M,)
+            Constraint data, units of ``y``.
+        prior_mean : array_like (K,), optional
+            Prior mean ``x0``, units of ``x`` (zero when None).
+
+        Returns
+        -------
+        ndarray (K,)
+            Units of ``x``.
+
+        Raises
+        ------
+        ComputationError
+            The solver is not linear (its gain depends on the data).
+        """
+        if not type(self).is_linear:
+            raise ComputationError(f"{type(self).__name__} is not linear in the data (its gain "
+                                   "depends on which bounds are active): fit it again")
+        gain = self.gain_
+        k, m = gain.shape
+        y = np.asarray(y, dtype=float)
+        if y.shape != (m,):
+            raise ConfigError(f"y has shape {y.shape} but the fitted gain expects ({m},)")
+        x0 = self._check_prior_mean(prior_mean, k)
+        return x0 + gain @ (y - self._fitted_matrix @ x0)
 
     @staticmethod
     def _check_prior_mean(prior_mean: ArrayLike | None, k: int) -> Array:
@@ -530,33 +586,34 @@ class _LinearSolver:
     ) -> None:
         """Set the result attributes shared by every solver."""
         m, _ = E.shape
-        self.estimate = estimate
-        self.covariance = _sym(covariance)
-        self.posterior_std = np.sqrt(np.clip(np.diag(self.covariance), 0.0, None))
-        self.gain = gain
-        self.resolution = gain @ E
-        self.data_resolution = E @ gain
-        self.residuals = y - E @ estimate
-        self.normalized_residuals = self.residuals / np.sqrt(noise.diagonal)
+        self._fitted_matrix = E
+        self.estimate_ = estimate
+        self.covariance_ = _sym(covariance)
+        self.posterior_std_ = np.sqrt(np.clip(np.diag(self.covariance_), 0.0, None))
+        self.gain_ = gain
+        self.resolution_ = gain @ E
+        self.data_resolution_ = E @ gain
+        self.residuals_ = y - E @ estimate
+        self.normalized_residuals_ = self.residuals_ / np.sqrt(noise.diagonal)
+        svd = getattr(self, "singular_values_", None)
+        if svd is None:
+            scaled = prior.factor_t_times(noise.factor_solve(E).T).T  # W^-1 E S
+            svd = la.svdvals(scaled, check_finite=False)
+        self.scaled_singular_values_ = np.asarray(svd, dtype=float)
 
         # Expected statistics under the model y = E x + n, x ~ (0, R), n ~ (0, N):
         # cov(y) = C = E R E^T + N = L L^T, residual r = (I - T_u) y, estimate = gain y.
-        data_cov = _sym(E @ prior.times(E.T) + noise.matrix)
-        try:
-            data_factor = la.cholesky(data_cov, lower=True, check_finite=False)
-        except la.LinAlgError:
-            raise ComputationError(
-                "E R E^T + N is not positive definite to working precision; the noise "
-                "variances are too small compared with the prior-projected data variance"
-            ) from None
-        resid_factor = data_factor - self.data_resolution @ data_factor  # (I - T_u) L
-        self.residual_covariance = resid_factor @ resid_factor.T
-        chi_res = float(np.sum(noise.factor_solve(self.residuals) ** 2))
+        data_factor = _data_factor(E, prior.times(E.T), noise,
+                                   "the noise variances are too small compared with the "
+                                   "prior-projected data variance")
+        resid_factor = data_factor - self.data_resolution_ @ data_factor  # (I - T_u) L
+        self.residual_covariance_ = resid_factor @ resid_factor.T
+        chi_res = float(np.sum(noise.factor_solve(self.residuals_) ** 2))
         # the estimate measured against the prior: its departure from the prior mean
         chi_est = float(np.sum(prior.factor_solve(estimate - self._prior_mean) ** 2))
         exp_res = float(np.sum(noise.factor_solve(resid_factor) ** 2))
         exp_est = float(np.sum(prior.factor_solve(gain @ data_factor) ** 2))
-        self.chi2 = ChiSquared(
+        self.chi2_ = ChiSquared(
             residuals=chi_res,
             residuals_expected=exp_res,
             estimate=chi_est,
@@ -606,21 +663,21 @@ class GaussMarkov(_LinearSolver):
 
     Attributes
     ----------
-    form_used : str
+    form_used_ : str
         ``"data"`` or ``"model"``: the form that :meth:`fit` used.
-    estimate, covariance, posterior_std, gain, resolution, data_resolution,
-    residuals, normalized_residuals, residual_covariance, chi2
-        See the module documentation. Here ``gain = R E^T (E R E^T + N)^-1``,
+    estimate_, covariance_, posterior_std_, gain_, resolution_, data_resolution_,
+    residuals_, normalized_residuals_, residual_covariance_, chi2_
+        See the module documentation. Here ``gain_ = R E^T (E R E^T + N)^-1``,
         ``resolution = T_v = R E^T (E R E^T + N)^-1 E = I - P R^-1``,
         ``residual_covariance = N - E P E^T``, and the expected ``chi2.total``
         is exactly M.
     """
 
     name = "gauss-markov"
-    _fitted_names = (*_LinearSolver._fitted_names, "form_used")
+    _fitted_names = (*_LinearSolver._fitted_names, "form_used_")
     _FORMS = ("auto", "data", "model")
 
-    form_used: str
+    form_used_: str
 
     def __init__(
         self, prior_variance: ArrayLike, noise_variance: ArrayLike, form: str = "auto"
@@ -635,18 +692,11 @@ class GaussMarkov(_LinearSolver):
     ) -> tuple[Array, Array, Array]:
         m, k = E.shape
         form = self.form if self.form != "auto" else ("data" if m < k else "model")
-        self.form_used = form
+        self.form_used_ = form
         if form == "data":
             re_t = prior.times(E.T)  # R E^T, (K, M)
-            data_cov = _sym(E @ re_t + noise.matrix)
-            try:
-                c_factor = la.cho_factor(data_cov, lower=True, check_finite=False)
-            except la.LinAlgError:
-                raise ComputationError(
-                    "E R E^T + N is not positive definite to working precision; use "
-                    "form='model' or larger noise variances"
-                ) from None
-            gain = la.cho_solve(c_factor, re_t.T, check_finite=False).T  # R E^T C^-1
+            c_factor = _data_factor(E, re_t, noise, "use form='model' or larger noise variances")
+            gain = la.cho_solve((c_factor, True), re_t.T, check_finite=False).T  # R E^T C^-1
             covariance = prior.matrix - gain @ re_t.T
             return gain @ y, covariance, gain
 
@@ -718,26 +768,26 @@ class TruncatedSVD(_LinearSolver):
 
     Attributes
     ----------
-    requested_rank : int
-        The ``rank`` setting (0 = automatic).
     rank : int
+        The setting (0 = automatic).
+    rank_ : int
         The rank k actually used (after :meth:`fit`).
-    singular_values : ndarray (min(M, K),)
-        All singular values of the scaled system ``E'``, descending, dimensionless.
-    estimate, covariance, posterior_std, gain, resolution, data_resolution,
-    residuals, normalized_residuals, residual_covariance, chi2
-        See the module documentation. ``resolution = S V_k V_k^T S^-1`` and
-        ``data_resolution = W U_k U_k^T W^-1`` (the maps from truth to
+    singular_values_ : ndarray (min(M, K),)
+        All singular values of the scaled system ``E'``, descending, dimensionless
+        (the same as ``scaled_singular_values_``).
+    estimate_, covariance_, posterior_std_, gain_, resolution_, data_resolution_,
+    residuals_, normalized_residuals_, residual_covariance_, chi2_
+        See the module documentation. ``resolution_ = S V_k V_k^T S^-1`` and
+        ``data_resolution_ = W U_k U_k^T W^-1`` (the maps from truth to
         estimate and from data to ``E x_hat``, in original units; for diagonal
         noise its diagonal equals that of ``U_k U_k^T``). Both have trace k.
     """
 
     name = "svd"
-    _fitted_names = (*_LinearSolver._fitted_names, "rank", "singular_values")
-    _setting_attrs = {"rank": "requested_rank"}
+    _fitted_names = (*_LinearSolver._fitted_names, "rank_", "singular_values_")
 
-    rank: int
-    singular_values: Array
+    rank_: int
+    singular_values_: Array
 
     def __init__(self, prior_variance: ArrayLike, noise_variance: ArrayLike, rank: int = 0) -> None:
         super().__init__(prior_variance, noise_variance)
@@ -746,16 +796,16 @@ class TruncatedSVD(_LinearSolver):
                 f"rank = {rank!r}: give a whole number of singular values to keep, "
                 f"or 0 to choose it from the noise level"
             )
-        self.requested_rank = int(rank)
+        self.rank = int(rank)
 
     def _solve(
         self, E: Array, y: Array, prior: _Covariance, noise: _Covariance
     ) -> tuple[Array, Array, Array]:
         m, k_unknowns = E.shape
         limit = min(m, k_unknowns)
-        if self.requested_rank > limit:
+        if self.rank > limit:
             raise ConfigError(
-                f"rank = {self.requested_rank} is larger than min(constraints, unknowns) = "
+                f"rank = {self.rank} is larger than min(constraints, unknowns) = "
                 f"min({m}, {k_unknowns}) = {limit}; choose rank <= {limit} "
                 f"(or 0 to pick it from the noise level)"
             )
@@ -765,8 +815,8 @@ class TruncatedSVD(_LinearSolver):
             u, s, vt = la.svd(e_scaled, full_matrices=False, check_finite=False)
         except la.LinAlgError:
             raise ComputationError("the SVD of the scaled system did not converge") from None
-        self.singular_values = s
-        rank = self.requested_rank if self.requested_rank else int(np.sum(s > 1.0))
+        self.singular_values_ = s
+        rank = self.rank if self.rank else int(np.sum(s > 1.0))
         tol = (s[0] if s.size else 0.0) * max(m, k_unknowns) * np.finfo(float).eps
         if rank and s[rank - 1] <= tol:
             numerical = int(np.sum(s > tol))
@@ -775,7 +825,7 @@ class TruncatedSVD(_LinearSolver):
                 f"working precision (the scaled system has numerical rank {numerical}); "
                 f"choose rank <= {numerical}"
             )
-        self.rank = rank
+        self.rank_ = rank
         uk, sk, vk = u[:, :rank], s[:rank], vt[:rank].T
         s_vk = prior.factor_times(vk)  # S V_k, (K, k)
         gain = s_vk @ (noise.factor_t_solve(uk) / sk).T  # S V_k Lambda^-1 U_k^T W^-1
@@ -823,17 +873,18 @@ class BoundedLeastSquares(_LinearSolver):
 
     Attributes
     ----------
-    active : ndarray of int (K,)
+    active_ : ndarray of int (K,)
         -1 where the unknown sits at its lower bound, +1 at its upper bound, 0 free.
-    estimate, covariance, posterior_std, gain, resolution, data_resolution,
-    residuals, normalized_residuals, residual_covariance, chi2
+    estimate_, covariance_, posterior_std_, gain_, resolution_, data_resolution_,
+    residuals_, normalized_residuals_, residual_covariance_, chi2_
         See the module documentation and the covariance approximation above.
     """
 
     name = "bounded"
-    _fitted_names = (*_LinearSolver._fitted_names, "active")
+    _fitted_names = (*_LinearSolver._fitted_names, "active_")
+    is_linear = False  # the active set, hence the gain, depends on the data
 
-    active: NDArray[np.int_]
+    active_: NDArray[np.int_]
 
     def __init__(
         self,
@@ -902,7 +953,7 @@ class BoundedLeastSquares(_LinearSolver):
         estimate = np.clip(result.x, lower, upper)
         estimate[active < 0] = lower[active < 0]
         estimate[active > 0] = upper[active > 0]
-        self.active = active
+        self.active_ = active
 
         free = np.flatnonzero(active == 0)
         covariance = np.zeros((k, k))
@@ -1005,6 +1056,12 @@ def _check_propagation(G: ArrayLike, P: ArrayLike) -> tuple[Array, Array]:
     return g, p
 
 
+def _g_times_p(G: ArrayLike, P: ArrayLike) -> tuple[Array, Array]:
+    """``G`` as an array and ``G P`` (P full or its diagonal), after checking their shapes."""
+    g, p = _check_propagation(G, P)
+    return g, (g * p if p.ndim == 1 else g @ p)
+
+
 def propagate(G: ArrayLike, P: ArrayLike) -> Array:
     """Covariance of linear outputs ``G x``: ``G P G^T``.
 
@@ -1028,8 +1085,7 @@ def propagate(G: ArrayLike, P: ArrayLike) -> Array:
     ConfigError
         ``G`` and ``P`` do not match.
     """
-    g, p = _check_propagation(G, P)
-    gp = g * p if p.ndim == 1 else g @ p
+    g, gp = _g_times_p(G, P)
     if g.ndim == 1:
         return np.asarray(gp @ g)
     out = gp @ np.swapaxes(g, -1, -2)
@@ -1043,25 +1099,10 @@ def output_std(G: ArrayLike, P: ArrayLike) -> Array:
     output rows cost O(L K^2) time and O(L K) memory instead of the O(L^2)
     of the full output covariance.
 
-    Parameters
-    ----------
-    G : array_like (..., L, K) or (K,)
-        Output operator, units of output per unit of ``x``. Leading dimensions
-        broadcast.
-    P : array_like (K, K) or (K,)
-        Covariance of the unknowns (or their variances), units of ``x`` squared.
-
-    Returns
-    -------
-    ndarray (..., L) or ()
-        Standard deviation of each output, units of output.
-
-    Raises
-    ------
-    ConfigError
-        ``G`` and ``P`` do not match.
+    ``G`` and ``P`` are as for :func:`propagate` (a ``ConfigError`` when they
+    do not match). Returns the standard deviation of each output, units of
+    output, shape (..., L) (or () for one row given as a 1-D ``G``).
     """
-    g, p = _check_propagation(G, P)
-    gp = g * p if p.ndim == 1 else g @ p
+    g, gp = _g_times_p(G, P)
     var = np.einsum("...k,...k->...", gp, g)
     return np.sqrt(np.clip(var, 0.0, None))

@@ -16,68 +16,21 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from sectionkit.budget import LinearOutputs, UnknownLayout, make_layout, section_outputs
+from sectionkit.budget import UnknownLayout, make_layout
 from sectionkit.config import Config, check_pair_labels
 from sectionkit.direct import DirectReference, direct_reference
-from sectionkit.errors import Cautions, ConfigError, InputFileError
-from sectionkit.geometry import great_circle_distance
-from sectionkit.geostrophy import resolve_references
-from sectionkit.inverse import InverseResult, assemble, solve
+from sectionkit.errors import Cautions, InputFileError
+from sectionkit.geometry import along_line_distance, great_circle_distance
 from sectionkit.io import load_section
 from sectionkit.io.adcp import read_velocity_profiles
 from sectionkit.io.validate import check_gridded_levels, check_pair_latitudes
 from sectionkit.operator import SectionOperator, build_operator
-from sectionkit.tracers import TracerOperator, build_tracer_operator, tracer_outputs
+from sectionkit.state import BudgetState, ReferenceState, Results
+from sectionkit.tracers import TracerOperator, build_tracer_operator
+
+__all__ = ["NET_MASS_HEAT_TOLERANCE", "ReferenceState", "Results", "Study"]
 
 NET_MASS_HEAT_TOLERANCE = 0.1  # Sv: above it, heat is reported as a temperature transport
-
-
-@dataclass
-class ReferenceState:
-    """Resolved references of one section."""
-
-    kinds: list[str]
-    pressure: np.ndarray  # (pair,) dbar actually used
-    offset: np.ndarray  # (pair,) m s^-1
-
-
-@dataclass
-class Results:
-    """Everything a report needs, for one state of the study."""
-
-    references: dict[str, ReferenceState]
-    ekman: dict[str, np.ndarray]
-    layout: UnknownLayout
-    outputs: dict[str, LinearOutputs]
-    inverse: InverseResult | None
-    cautions: Cautions
-    tracers: dict[str, LinearOutputs] = field(default_factory=dict)  # kmol s^-1 per section
-
-    @property
-    def estimate(self) -> np.ndarray:
-        """Adjusted unknowns (zeros without an inverse)."""
-        return self.inverse.estimate if self.inverse else np.zeros(self.layout.size)
-
-    @property
-    def covariance(self) -> np.ndarray | None:
-        """Posterior covariance (None without an inverse)."""
-        return self.inverse.covariance if self.inverse else None
-
-    def value(self, section: str, name: str, adjusted: bool = True) -> float:
-        """One output of one section, initial or adjusted."""
-        out = self.outputs[section]
-        k = out.index(name)
-        if not adjusted or self.inverse is None:
-            return float(out.initial[k])
-        return float(out.initial[k] + out.gradient[k] @ self.estimate)
-
-    def error(self, section: str, name: str) -> float:
-        """Posterior standard deviation of one output (NaN without an inverse)."""
-        if self.covariance is None:
-            return float("nan")
-        out = self.outputs[section]
-        g = out.gradient[out.index(name)]
-        return float(np.sqrt(max(g @ self.covariance @ g, 0.0)))
 
 
 Loader = Callable[..., tuple[xr.Dataset, Cautions]]
@@ -162,7 +115,7 @@ class Study:
         for spec in cfg.sections:
             ds = self.sections[spec.name]
             previous = self.operators.get(spec.name)
-            if previous is not None and previous.extra.get("section") is not ds:
+            if previous is not None and previous.source_section is not ds:
                 previous = None  # new data: dynamic height again
             if progress:
                 progress(("classes of " if previous else "dynamic height and classes of ")
@@ -177,7 +130,7 @@ class Study:
                 bottom_triangle=cfg.bottom_triangle,
                 ekman_depth=cfg.ekman_depth,
                 bathymetry=_bathymetry(cfg, spec, ds),
-                relative_velocity_of_pairs=None if previous is None else previous.extra["v_rel"],
+                relative_velocity_of_pairs=None if previous is None else previous.relative_velocity,
                 salinity=cfg.salt_salinity,
             )
             present = [t for t in cfg.tracers if t in ds]
@@ -200,11 +153,7 @@ class Study:
         out = {}
         for name, op in self.operators.items():
             choices = [self.config.reference_for(label) for label in op.pair_labels]
-            p_used, offset = resolve_references(
-                choices, op.v_eff, op.pressure, op.common, op.sigma_for(choices),
-                cautions, op.pair_labels, deepest=op.deepest,
-                bottom_triangle=op.bottom_triangle,
-            )
+            p_used, offset = op.resolve_references(choices, cautions)
             kinds = [c.kind for c in choices]
             direct = self.direct.get(name)
             if direct is not None and self.config.adcp.use == "known":
@@ -239,15 +188,17 @@ class Study:
                                   != (0.0, 0.0)]
         return make_layout(self.operators, boxes, len(self.config.interfaces), ekman_sections)
 
-    def velocity_prior(self, layout: UnknownLayout) -> np.ndarray:
-        """Prior standard deviation of each pair's adjustment, m s^-1.
+    def velocity_prior(self, layout: UnknownLayout | None = None) -> dict[str, np.ndarray]:
+        """Prior standard deviation of each pair's adjustment by section, m s^-1.
 
-        Pairs referenced to a known velocity use its stated error (when > 0).
+        Pairs referenced to a known velocity use its stated error (when > 0);
+        pairs with a direct velocity use the error of its range mean.
         """
         inv = self.config.inverse
-        prior = []
+        out = {}
         for name, op in self.operators.items():
             direct = self.direct.get(name)
+            prior = []
             for k, label in enumerate(op.pair_labels):
                 ref = self.config.reference_for(label)
                 if direct is not None and np.isfinite(direct.error[k]):
@@ -256,25 +207,8 @@ class Study:
                     prior.append(ref.velocity_error)
                 else:
                     prior.append(inv.prior_velocity)
-        return np.asarray(prior)
-
-    def velocity_prior_mean(self, refs: dict[str, ReferenceState]) -> np.ndarray | None:
-        """Prior mean of each pair's adjustment from direct velocities, m s^-1 (or None).
-
-        With ``[adcp] use = "prior"`` a pair with a direct reference velocity
-        ``r`` gets the prior mean ``r - offset`` (the adjustment that would
-        make its geostrophic velocity match the measured range mean).
-        """
-        if not self.direct or self.config.adcp is None or self.config.adcp.use != "prior":
-            return None
-        mean = []
-        for name, op in self.operators.items():
-            direct = self.direct.get(name)
-            if direct is None:
-                mean.append(np.zeros(op.n_pair))
-                continue
-            mean.append(np.nan_to_num(direct.velocity - refs[name].offset))
-        return np.concatenate(mean)
+            out[name] = np.asarray(prior, dtype=float)
+        return out
 
     # ------------------------------------------------------------ results
     def solve(self, inverse: bool = True) -> Results:
@@ -288,32 +222,12 @@ class Study:
         cfg = self.config
         cautions = Cautions()
         cautions.extend(self.load_cautions)
-        refs = self.references(cautions)
-        ekman = self.ekman()
-        layout = self.layout()
-        result = None
-        if inverse and cfg.inverse is not None:
-            offsets = {n: r.offset for n, r in refs.items()}
-            system = assemble(self.operators, offsets, ekman, cfg.effective_boxes(), cfg.inverse,
-                              layout, cfg.layer_names, self.velocity_prior(layout),
-                              tracers=self.tracer_operators,
-                              velocity_prior_mean=self.velocity_prior_mean(refs))
-            lower = upper = None
-            if cfg.inverse.bounds:
-                lower = np.full(layout.size, -np.inf)
-                upper = np.full(layout.size, np.inf)
-                for label, (lo, hi) in cfg.inverse.bounds.items():
-                    idx = _pair_index(layout, label)
-                    lower[idx], upper[idx] = lo, hi
-            result = solve(system, cfg.inverse, lower, upper)
-        x = result.estimate if result else None
-        outputs = {
-            name: section_outputs(op, refs[name].offset, ekman[name], layout,
-                                  cfg.reference_salinity, x)
-            for name, op in self.operators.items()
-        }
-        for name, out in outputs.items():
-            net_mass = float(out.value(x)[out.index("net_mass")])
+        state = BudgetState.prepare(self, cautions, inverse=inverse)
+        result = state.solve()
+        results = state.results(result, cautions)
+        outputs = results.outputs
+        for name in outputs:
+            net_mass = float(results.select("net_mass_transport", name).adjusted[0])
             if abs(net_mass) > NET_MASS_HEAT_TOLERANCE:
                 cautions.add(
                     "temperature-transport",
@@ -321,7 +235,7 @@ class Study:
                     "temperature transport relative to 0 degC, not a heat transport",
                 )
         for name, op in self.operators.items():
-            below = op.extra.get("track_below_stations", {})
+            below = op.track_below_stations
             if below:
                 listed = ", ".join(f"{name}:{j} (track {pt:.0f} dbar, deeper station "
                                    f"{pb:.0f} dbar)" for j, (pt, pb) in below.items())
@@ -331,12 +245,6 @@ class Study:
                     "water is included with the deeper station's properties and the bottom "
                     "triangle's velocity rule",
                 )
-        tracers = {
-            name: tracer_outputs(top, self.operators[name].layer_names, refs[name].offset,
-                                 ekman[name], layout)
-            for name, top in self.tracer_operators.items()
-        }
-        results = Results(refs, ekman, layout, outputs, result, cautions, tracers)
         for name in outputs:
             net, err = results.value(name, "net"), results.error(name, "net")
             limit = err if np.isfinite(err) else NET_MASS_HEAT_TOLERANCE
@@ -364,14 +272,6 @@ class Study:
         return results
 
 
-def _pair_index(layout: UnknownLayout, label: str) -> int:
-    section, _, k = label.partition(":")
-    sl = layout.pair_slices.get(section)
-    if sl is None or int(k) >= sl.stop - sl.start:
-        raise ConfigError(f"pair {label!r} does not exist")
-    return sl.start + int(k)
-
-
 def _bathymetry(cfg: Config, spec, ds: xr.Dataset) -> list | None:
     """Per-pair bottom pressures sampled along a bathymetry track, or None."""
     if not spec.bathymetry:
@@ -385,8 +285,7 @@ def _bathymetry(cfg: Config, spec, ds: xr.Dataset) -> list | None:
         if col not in track:
             raise InputFileError(f"bathymetry file {path} has no column {col!r}; expected "
                                  "distance_km (along the line from the first station) and depth_m")
-    dist = np.concatenate([[0.0], np.cumsum(great_circle_distance(ds["lon"].values,
-                                                                  ds["lat"].values))]) / 1e3
+    dist = along_line_distance(great_circle_distance(ds["lon"].values, ds["lat"].values)) / 1e3
     lat = ds["lat"].values
     out = []
     for j in range(dist.size - 1):

@@ -14,6 +14,8 @@ import pandas as pd
 from sectionkit.operator import SALINITY_NAMES
 from sectionkit.outputs import REGISTRY
 from sectionkit.study import Results, Study
+from sectionkit.tracers import TOTAL, split_output_name
+from sectionkit.tracers import UNIT as TRACER_UNIT
 
 
 def class_table(study: Study, results: Results) -> pd.DataFrame:
@@ -26,13 +28,9 @@ def class_table(study: Study, results: Results) -> pd.DataFrame:
     faces = cfg.interfaces
     rows = []
     for name, op in study.operators.items():
-        out = results.outputs[name]
-        initial = out.value(None)
-        adjusted = out.value(results.estimate)
-        length = op.pairs["distance"].values[:, None]
-        area = (op.weights.sum(axis=-1) * length).sum(axis=0) / 1e6  # km^2
+        volume = results.select("class_volume_transport", name)
+        area = op.class_area / 1e6  # km^2
         for i, layer in enumerate(op.layer_names):
-            k = out.index(f"volume:{layer}")
             top = faces[i - 1] if i > 0 else None
             bottom = faces[i] if i < len(faces) else None
             rows.append({
@@ -43,9 +41,9 @@ def class_table(study: Study, results: Results) -> pd.DataFrame:
                 "p_ref_top": top.p_ref if top else np.nan,
                 "p_ref_bottom": bottom.p_ref if bottom else np.nan,
                 "area_km2": area[i],
-                "initial_sv": initial[k],
-                "adjusted_sv": adjusted[k],
-                "adjusted_err_sv": results.error(name, f"volume:{layer}"),
+                "initial_sv": volume.initial[i],
+                "adjusted_sv": volume.adjusted[i],
+                "adjusted_err_sv": volume.error[i],
             })
     return pd.DataFrame(rows)
 
@@ -184,24 +182,18 @@ def property_table(study: Study, results: Results) -> pd.DataFrame:
     """
     rows = []
     for name, op in study.operators.items():
-        out = results.outputs[name]
-        adjusted = out.value(results.estimate)
-        err = out.std(results.covariance)
-        for prop, unit in (("heat", "PW"), ("salt", "Sv g/kg")):
-            for layer in op.layer_names:
-                k = out.index(f"{prop}:{layer}")
-                rows.append([name, layer, prop, unit, out.initial[k], adjusted[k], err[k]])
-        tracer = results.tracers.get(name)
-        if tracer is None:
-            continue
-        t_adjusted = tracer.value(results.estimate)
-        t_err = tracer.std(results.covariance)
-        for k, label in enumerate(tracer.names):
-            prop, _, layer = label.partition(":")
-            if layer == "total":
-                continue
-            rows.append([name, layer, prop, tracer.units[k], tracer.initial[k], t_adjusted[k],
-                         t_err[k]])
+        for prop in ("heat", "salt"):
+            spec = REGISTRY[f"class_{prop}_transport"]
+            sel = results.select(spec.name, name)
+            for i, layer in enumerate(op.layer_names):
+                rows.append([name, layer, prop, spec.display, sel.initial[i], sel.adjusted[i],
+                             sel.error[i]])
+        tracer = results.tracer_values(name)
+        for k, label in enumerate(tracer.keys if tracer is not None else []):
+            prop, layer = split_output_name(label)
+            if layer != TOTAL:
+                rows.append([name, layer, prop, TRACER_UNIT, tracer.initial[k],
+                             tracer.adjusted[k], tracer.error[k]])
     return pd.DataFrame(rows, columns=PROPERTY_COLUMNS)
 
 

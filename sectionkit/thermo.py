@@ -656,22 +656,24 @@ def pressure_grid(p_max: float, dp: float) -> np.ndarray:
     return np.arange(last_level(p_max, dp) + 1) * float(dp)
 
 
-def last_level(p: float, dp: float) -> int:
-    """Index of the deepest grid level at or above pressure ``p``.
+def last_level(p: float | np.ndarray, dp: float) -> int | np.ndarray:
+    """Index of the deepest grid level at or above pressure ``p`` (a station's floor).
 
     Parameters
     ----------
-    p : float
-        Pressure, dbar, >= 0.
+    p : float or ndarray (...)
+        Pressure, dbar, >= 0 (e.g. each station's sea-floor pressure).
     dp : float
         Grid step, dbar.
 
     Returns
     -------
-    int
-        floor(p / dp), tolerant of round-off (p = 3 * 0.1 counts as 3 steps).
+    int or ndarray of int (...)
+        floor(p / dp), tolerant of round-off (p = 3 * 0.1 counts as 3 steps);
+        an int for a scalar ``p``.
     """
-    return max(0, int(np.floor(p / dp + 1e-9)))
+    k = np.maximum(0, np.floor(np.asarray(p, dtype=float) / dp + 1e-9)).astype(int)
+    return int(k) if k.ndim == 0 else k
 
 
 @dataclass

@@ -126,7 +126,7 @@ def build_tracer_operator(
             )
         fields.append(c)
     c_pair = np.stack([_masked(pair_mean(c)) for c in fields])  # (tracer, pair, level)
-    rho = _masked(op.extra["rho_pair"])
+    rho = _masked(op.pair_density)
     prop = rho[None] * c_pair  # umol m^-3
     length = op.pairs["distance"].values[None, :, None]  # m
     v0 = _masked(op.v_eff)
@@ -157,6 +157,20 @@ def tracer_gradient(top: TracerOperator, t: int, layout: UnknownLayout,
     return g
 
 
+TOTAL = "total"  # the class name of a tracer's sum over classes in its outputs
+
+
+def output_name(tracer: str, klass: str) -> str:
+    """Name of a tracer's transport in one class (or ``TOTAL``): ``"<tracer>:<class>"``."""
+    return f"{tracer}:{klass}"
+
+
+def split_output_name(name: str) -> tuple[str, str]:
+    """Tracer and class of an output name made by :func:`output_name`."""
+    tracer, _, klass = name.partition(":")
+    return tracer, klass
+
+
 def tracer_outputs(
     top: TracerOperator,
     class_names: list[str],
@@ -172,23 +186,20 @@ def tracer_outputs(
         The section's tracers.
     class_names : list of str
         Class names.
-    offset : ndarray (pair,)
-        Reference offsets of the chosen references, m s^-1.
-    ekman : ndarray (pair,)
-        Ekman volume transport per pair, m^3 s^-1.
-    layout : UnknownLayout
-        Unknown layout.
+    offset, ekman, layout
+        As for :func:`sectionkit.budget.section_outputs` (reference offsets in
+        m s^-1, Ekman transports in m^3 s^-1, the unknowns).
 
     Returns
     -------
     LinearOutputs
-        Names ``<tracer>:<class>`` and ``<tracer>:total``, kmol s^-1.
+        Names ``<tracer>:<class>`` and ``<tracer>:total`` (:func:`output_name`), kmol s^-1.
     """
     values = top.transports(offset, ekman)
     names, initial, grads = [], [], []
     for t, tracer in enumerate(top.names):
         g = tracer_gradient(top, t, layout, ekman)
-        names += [f"{tracer}:{c}" for c in class_names] + [f"{tracer}:total"]
+        names += [output_name(tracer, c) for c in class_names] + [output_name(tracer, TOTAL)]
         initial += [values[t], [values[t].sum()]]
         grads += [g, g.sum(axis=0, keepdims=True)]
     return LinearOutputs(names, np.concatenate(initial), np.vstack(grads),

@@ -41,7 +41,8 @@ from sectionkit.budget import section_values
 from sectionkit.config import Config
 from sectionkit.errors import ConfigError, SectionDataError
 from sectionkit.geometry import pair_geometry
-from sectionkit.geostrophy import ReferenceChoice, resolve_references
+from sectionkit.geostrophy import ReferenceChoice
+from sectionkit.labels import split_pair_label
 from sectionkit.layers import Interface, check_interfaces
 from sectionkit.operator import build_operator
 from sectionkit.outputs import KERNEL_OUTPUTS, OutputSpec
@@ -206,9 +207,7 @@ def budget_kernel(
                         bottom_triangle=bottom_triangle, ekman_depth=ekman_depth,
                         bathymetry=bathymetry, max_dp=max_dp, salinity=salinity)
     choices = _pair_choices(reference, overrides, op.n_pair)
-    p_used, offset = resolve_references(choices, op.v_eff, op.pressure, op.common,
-                                        op.sigma_for(choices), deepest=op.deepest,
-                                        bottom_triangle=op.bottom_triangle)
+    p_used, offset = op.resolve_references(choices)
     ek = op.ekman_volume(stress[..., 0], stress[..., 1])
     out = section_values(op, offset, adjustment, ek, reference_salinity)
     out["reference_pressure"] = p_used
@@ -473,9 +472,9 @@ def budget_from_config(
     n_pair = section.sizes["station"] - 1
     overrides = {}
     for label, choice in config.overrides.items():
-        sec, _, k = label.partition(":")
-        if sec == name:
-            overrides[int(k)] = choice
+        sec, k = split_pair_label(label)
+        if sec == name and k is not None:
+            overrides[k] = choice
     tau: Any = config.ekman_stress.get(name, (0.0, 0.0)) if stress is None else stress
     if results is not None:
         layout = results.layout
@@ -483,9 +482,8 @@ def budget_from_config(
         if sl.stop - sl.start != n_pair:
             raise ConfigError(f"the results hold {sl.stop - sl.start} pairs for section "
                               f"{name!r} but the section has {n_pair}")
-        adjustment = results.estimate[sl]
-        if name in layout.ekman:
-            factor = 1.0 + float(results.estimate[layout.ekman[name]])
+        adjustment, factor = layout.section_adjustment(name, results.estimate)
+        if factor != 1.0:
             tau = (_stress_array(tau) * factor) if isinstance(tau, xr.DataArray) else (
                 tau[0] * factor, tau[1] * factor)
     return section_budget(

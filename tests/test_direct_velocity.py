@@ -179,3 +179,14 @@ def test_pair_profiles_of_another_section_are_not_used(tmp_path):
                               sections={"line": _still_section()})
     # an east-west line: northward is normal; only this section's 0.05 m/s is used
     np.testing.assert_allclose(study.direct["line"].measured, 0.05, atol=1e-12)
+
+
+def test_an_unperturbed_ensemble_member_keeps_the_direct_velocity_prior_means(tmp_path):
+    # a member that perturbs nothing is the study itself: same prior means, same estimate
+    from sectionkit.ensemble import Perturbation, run_member
+
+    _ladcp_csv(tmp_path / "ladcp.csv", 0.0, 0.04)
+    study = Study.from_config(_config(tmp_path, "prior"), sections={"line": _still_section()})
+    member = run_member(study, np.random.SeedSequence(1),
+                        Perturbation(temperature=0.0, salinity=0.0, pressure=0.0))
+    np.testing.assert_allclose(member["estimate"], study.solve().estimate, atol=1e-12)

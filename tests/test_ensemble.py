@@ -25,6 +25,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import xarray as xr
+from _synthetic import synthetic_model_output, synthetic_section
 from scipy import stats
 
 from sectionkit.config import Config, parse_config
@@ -35,7 +36,7 @@ from sectionkit.ensemble import (
     run_ensemble,
     write_ensemble,
 )
-from sectionkit.modelsection import section_time_series, synthetic_model_output, synthetic_section
+from sectionkit.modelsection import section_time_series
 from sectionkit.study import Study
 
 distributed = pytest.importorskip("distributed")

@@ -3,9 +3,9 @@
 from __future__ import annotations
 
 import numpy as np
+from _synthetic import synthetic_section
 
 from sectionkit.ensemble import NO_PERTURBATION, Perturbation, perturb_section, shift_profiles
-from sectionkit.modelsection import synthetic_section
 
 
 def _interp_loop(values, p, shift):

@@ -92,7 +92,7 @@ def test_twin_truth_lies_within_two_sigma_at_the_stated_rate():
         inside_t += np.sum(np.abs(g @ (result.estimate - x_true)) <= 2 * sd_t)
         count_t += sd_t.size
         # the posterior residual y - E x = -adjusted, scaled by its predicted std
-        residual_sd = np.sqrt(np.diag(result.solver.residual_covariance))
+        residual_sd = np.sqrt(np.diag(result.solver.residual_covariance_))
         scaled.append(-result.adjusted / residual_sd)
     rate_x = inside_x / count_x
     rate_t = inside_t / count_t

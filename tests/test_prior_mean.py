@@ -34,45 +34,45 @@ def test_gauss_markov_with_prior_mean_equals_the_closed_form(form, shape):
     E, y, R, N, x0 = _problem(*shape)
     x, P = _closed_form(E, y, R, N, x0)
     solver = GaussMarkov(R, N, form=form).fit(E, y, prior_mean=x0)
-    np.testing.assert_allclose(solver.estimate, x, rtol=1e-9, atol=1e-12)
-    np.testing.assert_allclose(solver.covariance, P, rtol=1e-9, atol=1e-12)
-    np.testing.assert_allclose(solver.residuals, y - E @ x, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(solver.estimate_, x, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(solver.covariance_, P, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(solver.residuals_, y - E @ x, rtol=1e-9, atol=1e-12)
 
 
 def test_prior_mean_is_the_answer_when_the_data_say_nothing_new():
     # data equal to E x0: nothing to adjust (closed form: y - E x0 = 0)
     E, _, R, N, x0 = _problem()
     solver = GaussMarkov(R, N).fit(E, E @ x0, prior_mean=x0)
-    np.testing.assert_allclose(solver.estimate, x0, rtol=0, atol=1e-12)
-    assert solver.chi2.estimate == pytest.approx(0.0, abs=1e-20)
+    np.testing.assert_allclose(solver.estimate_, x0, rtol=0, atol=1e-12)
+    assert solver.chi2_.estimate == pytest.approx(0.0, abs=1e-20)
 
 
 def test_chi2_of_the_estimate_is_measured_from_the_prior_mean():
     E, y, R, N, x0 = _problem()
     x, _ = _closed_form(E, y, R, N, x0)
     solver = GaussMarkov(R, N).fit(E, y, prior_mean=x0)
-    assert solver.chi2.estimate == pytest.approx(float(np.sum((x - x0) ** 2 / R)), rel=1e-9)
+    assert solver.chi2_.estimate == pytest.approx(float(np.sum((x - x0) ** 2 / R)), rel=1e-9)
 
 
 def test_bounded_solver_with_loose_bounds_and_prior_mean_equals_gauss_markov():
     E, y, R, N, x0 = _problem()
     x, P = _closed_form(E, y, R, N, x0)
     solver = BoundedLeastSquares(R, N, lower=-100.0, upper=100.0).fit(E, y, prior_mean=x0)
-    np.testing.assert_allclose(solver.estimate, x, rtol=1e-7, atol=1e-9)
+    np.testing.assert_allclose(solver.estimate_, x, rtol=1e-7, atol=1e-9)
 
 
 def test_bounds_apply_to_the_unknowns_not_to_their_departure_from_the_prior_mean():
     E, y, R, N, _ = _problem()
     x0 = np.full(E.shape[1], 5.0)  # prior mean outside the bounds
     solver = BoundedLeastSquares(R, N, lower=-1.0, upper=1.0).fit(E, y, prior_mean=x0)
-    assert np.all(solver.estimate <= 1.0 + 1e-12) and np.all(solver.estimate >= -1.0 - 1e-12)
+    assert np.all(solver.estimate_ <= 1.0 + 1e-12) and np.all(solver.estimate_ >= -1.0 - 1e-12)
 
 
 def test_svd_at_full_rank_with_prior_mean_solves_the_shifted_system():
     # square, full-rank scaled system: the rank-k solution is exact for y - E x0
     E, y, R, N, x0 = _problem(5, 5)
     solver = TruncatedSVD(R, N, rank=5).fit(E, y, prior_mean=x0)
-    np.testing.assert_allclose(solver.estimate, x0 + np.linalg.solve(E, y - E @ x0),
+    np.testing.assert_allclose(solver.estimate_, x0 + np.linalg.solve(E, y - E @ x0),
                                rtol=1e-8, atol=1e-10)
 
 

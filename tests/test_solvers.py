@@ -106,7 +106,7 @@ def test_gauss_markov_equals_weighted_least_squares_normal_equations(system: Sys
     # (E^T N^-1 E + R^-1)^-1 E^T N^-1 y.
     expected, _ = normal_equation_solution(system)
     fitted = GaussMarkov(system.prior, system.noise).fit(system.E, system.y)
-    np.testing.assert_allclose(fitted.estimate, expected, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(fitted.estimate_, expected, rtol=1e-9, atol=1e-12)
 
 
 def test_gauss_markov_covariance_is_inverse_information_matrix(system: System) -> None:
@@ -114,7 +114,7 @@ def test_gauss_markov_covariance_is_inverse_information_matrix(system: System) -
     # P = (E^T N^-1 E + R^-1)^-1, the inverse of the information matrix.
     _, expected = normal_equation_solution(system)
     fitted = GaussMarkov(system.prior, system.noise).fit(system.E, system.y)
-    np.testing.assert_allclose(fitted.covariance, expected, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(fitted.covariance_, expected, rtol=1e-9, atol=1e-12)
 
 
 @settings(max_examples=40, deadline=None)
@@ -134,9 +134,9 @@ def test_gauss_markov_data_and_model_space_forms_agree(
     data = GaussMarkov(s.prior, s.noise, form="data").fit(s.E, s.y)
     model = GaussMarkov(s.prior, s.noise, form="model").fit(s.E, s.y)
     scale = float(np.max(np.abs(s.R)))
-    np.testing.assert_allclose(data.estimate, model.estimate, rtol=1e-8, atol=1e-10 * scale)
-    np.testing.assert_allclose(data.covariance, model.covariance, atol=1e-9 * scale)
-    np.testing.assert_allclose(data.resolution, model.resolution, atol=1e-9)
+    np.testing.assert_allclose(data.estimate_, model.estimate_, rtol=1e-8, atol=1e-10 * scale)
+    np.testing.assert_allclose(data.covariance_, model.covariance_, atol=1e-9 * scale)
+    np.testing.assert_allclose(data.resolution_, model.resolution_, atol=1e-9)
 
 
 @pytest.mark.parametrize(
@@ -146,15 +146,15 @@ def test_gauss_markov_uses_data_space_form_when_fewer_rows_than_unknowns(
     shape: str, form: str
 ) -> None:
     s = make_system(*SHAPES[shape], full=False)
-    assert GaussMarkov(s.prior, s.noise).fit(s.E, s.y).form_used == form
+    assert GaussMarkov(s.prior, s.noise).fit(s.E, s.y).form_used_ == form
 
 
 def test_gauss_markov_resolution_is_identity_minus_posterior_over_prior(system: System) -> None:
     # Wunsch 1996, The Ocean Circulation Inverse Problem, ch. 3 (from memory):
     # T_v = R E^T (E R E^T + N)^-1 E = I - P R^-1.
     fitted = GaussMarkov(system.prior, system.noise).fit(system.E, system.y)
-    expected = np.eye(system.k) - fitted.covariance @ np.linalg.inv(system.R)
-    np.testing.assert_allclose(fitted.resolution, expected, atol=1e-9)
+    expected = np.eye(system.k) - fitted.covariance_ @ np.linalg.inv(system.R)
+    np.testing.assert_allclose(fitted.resolution_, expected, atol=1e-9)
 
 
 def test_gauss_markov_residual_covariance_is_noise_minus_mapped_posterior(
@@ -163,8 +163,8 @@ def test_gauss_markov_residual_covariance_is_noise_minus_mapped_posterior(
     # Wunsch 1996, The Ocean Circulation Inverse Problem, ch. 3 (from memory):
     # cov(n_hat) = N - E P E^T  (= N (E R E^T + N)^-1 N).
     fitted = GaussMarkov(system.prior, system.noise).fit(system.E, system.y)
-    expected = system.N - system.E @ fitted.covariance @ system.E.T
-    np.testing.assert_allclose(fitted.residual_covariance, expected, atol=1e-10)
+    expected = system.N - system.E @ fitted.covariance_ @ system.E.T
+    np.testing.assert_allclose(fitted.residual_covariance_, expected, atol=1e-10)
 
 
 def test_gauss_markov_covariance_is_error_covariance_of_the_linear_estimator(
@@ -174,9 +174,9 @@ def test_gauss_markov_covariance_is_error_covariance_of_the_linear_estimator(
     # cov = (I - T_v) R (I - T_v)^T + K N K^T; for Gauss-Markov this is P
     # (Wunsch 1996, The Ocean Circulation Inverse Problem, ch. 3, from memory).
     fitted = GaussMarkov(system.prior, system.noise).fit(system.E, system.y)
-    i_minus_t = np.eye(system.k) - fitted.resolution
-    expected = i_minus_t @ system.R @ i_minus_t.T + fitted.gain @ system.N @ fitted.gain.T
-    np.testing.assert_allclose(fitted.covariance, expected, atol=1e-10)
+    i_minus_t = np.eye(system.k) - fitted.resolution_
+    expected = i_minus_t @ system.R @ i_minus_t.T + fitted.gain_ @ system.N @ fitted.gain_.T
+    np.testing.assert_allclose(fitted.covariance_, expected, atol=1e-10)
 
 
 def test_gauss_markov_minimum_objective_equals_data_quadratic_form(system: System) -> None:
@@ -186,7 +186,7 @@ def test_gauss_markov_minimum_objective_equals_data_quadratic_form(system: Syste
     fitted = GaussMarkov(system.prior, system.noise).fit(system.E, system.y)
     c = system.E @ system.R @ system.E.T + system.N
     expected = float(system.y @ np.linalg.solve(c, system.y))
-    assert fitted.chi2.total == pytest.approx(expected, rel=1e-10)
+    assert fitted.chi2_.total == pytest.approx(expected, rel=1e-10)
 
 
 def test_gauss_markov_expected_chi2_splits_constraints_between_residuals_and_estimate(
@@ -196,10 +196,10 @@ def test_gauss_markov_expected_chi2_splits_constraints_between_residuals_and_est
     # total M (Wunsch 1996, The Ocean Circulation Inverse Problem, ch. 3, from memory;
     # follows from cov(n_hat) = N (E R E^T + N)^-1 N and cov(x_hat) = R - P).
     fitted = GaussMarkov(system.prior, system.noise).fit(system.E, system.y)
-    trace_u = float(np.trace(fitted.data_resolution))
-    assert fitted.chi2.residuals_expected == pytest.approx(system.m - trace_u, rel=1e-10)
-    assert fitted.chi2.estimate_expected == pytest.approx(np.trace(fitted.resolution), rel=1e-10)
-    assert fitted.chi2.total_expected == pytest.approx(system.m, rel=1e-12)
+    trace_u = float(np.trace(fitted.data_resolution_))
+    assert fitted.chi2_.residuals_expected == pytest.approx(system.m - trace_u, rel=1e-10)
+    assert fitted.chi2_.estimate_expected == pytest.approx(np.trace(fitted.resolution_), rel=1e-10)
+    assert fitted.chi2_.total_expected == pytest.approx(system.m, rel=1e-12)
 
 
 # --------------------------------------------------------------------------
@@ -217,7 +217,7 @@ def test_full_rank_svd_equals_weighted_least_squares_without_prior_term() -> Non
     n_inv = np.linalg.inv(s.N)
     expected = np.linalg.solve(s.E.T @ n_inv @ s.E, s.E.T @ n_inv @ s.y)
     fitted = TruncatedSVD(s.prior, s.noise, rank=s.k).fit(s.E, s.y)
-    np.testing.assert_allclose(fitted.estimate, expected, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(fitted.estimate_, expected, rtol=1e-9, atol=1e-12)
 
 
 def test_full_rank_svd_covariance_is_inverse_weighted_normal_matrix() -> None:
@@ -227,7 +227,7 @@ def test_full_rank_svd_covariance_is_inverse_weighted_normal_matrix() -> None:
     s = make_system(12, 5, full=False, seed=4)
     expected = np.linalg.inv(s.E.T @ np.linalg.inv(s.N) @ s.E)
     fitted = TruncatedSVD(s.prior, s.noise, rank=s.k).fit(s.E, s.y)
-    np.testing.assert_allclose(fitted.covariance, expected, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(fitted.covariance_, expected, rtol=1e-9, atol=1e-12)
 
 
 @pytest.mark.parametrize("rank", [1, 2, 4, 6])
@@ -236,7 +236,7 @@ def test_rank_k_svd_resolution_has_trace_k(rank: int) -> None:
     # Inverse Problem, ch. 3, from memory).
     s = make_system(6, 10, full=True, seed=5)
     fitted = TruncatedSVD(s.prior, s.noise, rank=rank).fit(s.E, s.y)
-    assert np.trace(fitted.resolution) == pytest.approx(rank, rel=1e-10)
+    assert np.trace(fitted.resolution_) == pytest.approx(rank, rel=1e-10)
 
 
 @pytest.mark.parametrize("rank", [1, 3, 5])
@@ -245,7 +245,7 @@ def test_rank_k_svd_data_resolution_has_trace_k(rank: int) -> None:
     # from memory); scaling back by W keeps the trace.
     s = make_system(12, 5, full=True, seed=6)
     fitted = TruncatedSVD(s.prior, s.noise, rank=rank).fit(s.E, s.y)
-    assert np.trace(fitted.data_resolution) == pytest.approx(rank, rel=1e-10)
+    assert np.trace(fitted.data_resolution_) == pytest.approx(rank, rel=1e-10)
 
 
 def _symmetric_sqrt(a: np.ndarray) -> np.ndarray:
@@ -261,7 +261,7 @@ def test_svd_singular_values_are_those_of_the_row_and_column_scaled_system() -> 
     scaled = np.linalg.inv(_symmetric_sqrt(s.N)) @ s.E @ _symmetric_sqrt(s.R)
     expected = np.linalg.svd(scaled, compute_uv=False)
     fitted = TruncatedSVD(s.prior, s.noise, rank=3).fit(s.E, s.y)
-    np.testing.assert_allclose(fitted.singular_values, expected, rtol=1e-10)
+    np.testing.assert_allclose(fitted.singular_values_, expected, rtol=1e-10)
 
 
 def test_automatic_rank_keeps_singular_values_above_unit_noise() -> None:
@@ -277,8 +277,8 @@ def test_automatic_rank_keeps_singular_values_above_unit_noise() -> None:
     scaled = u @ np.diag(chosen) @ v[:, :m].T
     E = np.diag(np.sqrt(noise)) @ scaled @ np.linalg.inv(np.linalg.cholesky(prior))
     fitted = TruncatedSVD(prior, noise).fit(E, rng.normal(size=m))
-    np.testing.assert_allclose(fitted.singular_values, chosen, rtol=1e-9)
-    assert fitted.rank == 4
+    np.testing.assert_allclose(fitted.singular_values_, chosen, rtol=1e-9)
+    assert fitted.rank_ == 4
 
 
 def test_svd_covariance_is_noise_part_plus_null_space_part() -> None:
@@ -287,9 +287,9 @@ def test_svd_covariance_is_noise_part_plus_null_space_part() -> None:
     # Inverse Problem, ch. 3, from memory: solution variance plus null-space variance).
     s = make_system(6, 10, full=True, seed=9)
     fitted = TruncatedSVD(s.prior, s.noise, rank=3).fit(s.E, s.y)
-    i_minus_t = np.eye(s.k) - fitted.resolution
-    expected = fitted.gain @ s.N @ fitted.gain.T + i_minus_t @ s.R @ i_minus_t.T
-    np.testing.assert_allclose(fitted.covariance, expected, atol=1e-10)
+    i_minus_t = np.eye(s.k) - fitted.resolution_
+    expected = fitted.gain_ @ s.N @ fitted.gain_.T + i_minus_t @ s.R @ i_minus_t.T
+    np.testing.assert_allclose(fitted.covariance_, expected, atol=1e-10)
 
 
 # --------------------------------------------------------------------------
@@ -325,20 +325,20 @@ def run_twin(solver_factory, system: System, draws: int, seed: int) -> Twin:
     estimates, norm_res, chi_res, chi_tot = [], [], [], []
     for y in data:
         solver.fit(system.E, y)
-        estimates.append(solver.estimate)
-        norm_res.append(solver.normalized_residuals)
-        chi_res.append(solver.chi2.residuals)
-        chi_tot.append(solver.chi2.total)
+        estimates.append(solver.estimate_)
+        norm_res.append(solver.normalized_residuals_)
+        chi_res.append(solver.chi2_.residuals)
+        chi_tot.append(solver.chi2_.total)
     return Twin(
         system=system,
         truth=truth,
         estimates=np.array(estimates),
-        std=solver.posterior_std,
-        covariance=solver.covariance,
+        std=solver.posterior_std_,
+        covariance=solver.covariance_,
         normalized_residuals=np.array(norm_res),
         chi2_residuals=np.array(chi_res),
         chi2_total=np.array(chi_tot),
-        chi2_residuals_expected=solver.chi2.residuals_expected,
+        chi2_residuals_expected=solver.chi2_.residuals_expected,
     )
 
 
@@ -462,27 +462,27 @@ def test_twin_truth_within_two_posterior_std_of_truncated_svd_estimate_95_percen
 def test_bounded_with_inactive_bounds_equals_gauss_markov(system: System) -> None:
     # Same objective as Gauss-Markov; bounds far outside the solution change nothing.
     gm = GaussMarkov(system.prior, system.noise).fit(system.E, system.y)
-    width = 10.0 * (np.abs(gm.estimate) + gm.posterior_std)
+    width = 10.0 * (np.abs(gm.estimate_) + gm.posterior_std_)
     bounded = BoundedLeastSquares(system.prior, system.noise, lower=-width, upper=width)
     bounded.fit(system.E, system.y)
-    assert not np.any(bounded.active)
-    np.testing.assert_allclose(bounded.estimate, gm.estimate, rtol=1e-8, atol=1e-12)
-    np.testing.assert_allclose(bounded.covariance, gm.covariance, rtol=1e-8, atol=1e-12)
-    np.testing.assert_allclose(bounded.resolution, gm.resolution, atol=1e-9)
+    assert not np.any(bounded.active_)
+    np.testing.assert_allclose(bounded.estimate_, gm.estimate_, rtol=1e-8, atol=1e-12)
+    np.testing.assert_allclose(bounded.covariance_, gm.covariance_, rtol=1e-8, atol=1e-12)
+    np.testing.assert_allclose(bounded.resolution_, gm.resolution_, atol=1e-9)
 
 
 def _bounded_case(side: str) -> tuple[System, BoundedLeastSquares, int, float]:
     """Put a bound one posterior std beyond the Gauss-Markov estimate of one unknown."""
     s = make_system(6, 10, full=False, seed=16)
     gm = GaussMarkov(s.prior, s.noise).fit(s.E, s.y)
-    j = int(np.argmax(np.abs(gm.estimate) / gm.posterior_std))
+    j = int(np.argmax(np.abs(gm.estimate_) / gm.posterior_std_))
     if side == "lower":
-        bound = gm.estimate[j] + gm.posterior_std[j]
+        bound = gm.estimate_[j] + gm.posterior_std_[j]
         lower = np.full(s.k, -np.inf)
         lower[j] = bound
         solver = BoundedLeastSquares(s.prior, s.noise, lower=lower)
     else:
-        bound = gm.estimate[j] - gm.posterior_std[j]
+        bound = gm.estimate_[j] - gm.posterior_std_[j]
         upper = np.full(s.k, np.inf)
         upper[j] = bound
         solver = BoundedLeastSquares(s.prior, s.noise, upper=upper)
@@ -492,9 +492,9 @@ def _bounded_case(side: str) -> tuple[System, BoundedLeastSquares, int, float]:
 @pytest.mark.parametrize("side", ["lower", "upper"])
 def test_bounded_estimate_respects_an_active_bound(side: str) -> None:
     _, fitted, j, bound = _bounded_case(side)
-    assert fitted.estimate[j] == bound
-    assert fitted.active[j] == (-1 if side == "lower" else 1)
-    assert np.count_nonzero(fitted.active) == 1
+    assert fitted.estimate_[j] == bound
+    assert fitted.active_[j] == (-1 if side == "lower" else 1)
+    assert np.count_nonzero(fitted.active_) == 1
 
 
 @pytest.mark.parametrize("side", ["lower", "upper"])
@@ -503,9 +503,9 @@ def test_bounded_estimate_satisfies_optimality_conditions(side: str) -> None:
     # Hanson 1974, Solving Least Squares Problems, from memory): the gradient of the
     # objective vanishes for free unknowns, is >= 0 at a lower bound, <= 0 at an upper.
     s, fitted, j, _ = _bounded_case(side)
-    x = fitted.estimate
+    x = fitted.estimate_
     gradient = -s.E.T @ np.linalg.solve(s.N, s.y - s.E @ x) + np.linalg.solve(s.R, x)
-    free = fitted.active == 0
+    free = fitted.active_ == 0
     scale = float(np.max(np.abs(gradient)))
     np.testing.assert_allclose(gradient[free], 0.0, atol=1e-8 * max(scale, 1.0))
     if side == "lower":
@@ -517,8 +517,8 @@ def test_bounded_estimate_satisfies_optimality_conditions(side: str) -> None:
 def test_bounded_unknown_at_active_bound_has_zero_variance() -> None:
     # Approximation stated in BoundedLeastSquares: an unknown at a bound is held fixed.
     _, fitted, j, _ = _bounded_case("lower")
-    assert fitted.posterior_std[j] == 0.0
-    assert np.all(fitted.covariance[j] == 0.0) and np.all(fitted.covariance[:, j] == 0.0)
+    assert fitted.posterior_std_[j] == 0.0
+    assert np.all(fitted.covariance_[j] == 0.0) and np.all(fitted.covariance_[:, j] == 0.0)
 
 
 def test_bounded_free_unknowns_covariance_is_restricted_information_inverse() -> None:
@@ -527,9 +527,9 @@ def test_bounded_free_unknowns_covariance_is_restricted_information_inverse() ->
     # Ocean Circulation Inverse Problem, ch. 3, from memory, applied to the reduced problem).
     s, fitted, j, _ = _bounded_case("upper")
     information = s.E.T @ np.linalg.inv(s.N) @ s.E + np.linalg.inv(s.R)
-    free = np.flatnonzero(fitted.active == 0)
+    free = np.flatnonzero(fitted.active_ == 0)
     expected = np.linalg.inv(information[np.ix_(free, free)])
-    np.testing.assert_allclose(fitted.covariance[np.ix_(free, free)], expected, rtol=1e-9)
+    np.testing.assert_allclose(fitted.covariance_[np.ix_(free, free)], expected, rtol=1e-9)
 
 
 # --------------------------------------------------------------------------
@@ -542,18 +542,18 @@ def test_solvers_built_by_name_share_the_result_interface(name: str) -> None:
     s = make_system(6, 10, full=False, seed=17)
     fitted = make_solver(name, prior_variance=s.prior, noise_variance=s.noise).fit(s.E, s.y)
     assert isinstance(fitted, SOLVERS[name])
-    assert fitted.estimate.shape == fitted.posterior_std.shape == (s.k,)
-    assert fitted.covariance.shape == fitted.resolution.shape == (s.k, s.k)
-    assert fitted.residuals.shape == fitted.normalized_residuals.shape == (s.m,)
-    assert fitted.data_resolution.shape == fitted.residual_covariance.shape == (s.m, s.m)
-    np.testing.assert_allclose(fitted.residuals, s.y - s.E @ fitted.estimate)
-    np.testing.assert_allclose(fitted.normalized_residuals, fitted.residuals / np.sqrt(s.noise))
+    assert fitted.estimate_.shape == fitted.posterior_std_.shape == (s.k,)
+    assert fitted.covariance_.shape == fitted.resolution_.shape == (s.k, s.k)
+    assert fitted.residuals_.shape == fitted.normalized_residuals_.shape == (s.m,)
+    assert fitted.data_resolution_.shape == fitted.residual_covariance_.shape == (s.m, s.m)
+    np.testing.assert_allclose(fitted.residuals_, s.y - s.E @ fitted.estimate_)
+    np.testing.assert_allclose(fitted.normalized_residuals_, fitted.residuals_ / np.sqrt(s.noise))
 
 
 def test_make_solver_passes_settings_to_the_solver() -> None:
     s = make_system(6, 10, full=False, seed=18)
     fitted = make_solver("SVD", prior_variance=s.prior, noise_variance=s.noise, rank=2)
-    assert fitted.fit(s.E, s.y).rank == 2
+    assert fitted.fit(s.E, s.y).rank_ == 2
 
 
 @pytest.mark.parametrize("bad", [0.0, -0.5, np.nan, np.inf])
@@ -630,14 +630,14 @@ def test_unknown_solver_setting_is_config_error_naming_the_closest() -> None:
 
 def test_results_before_fit_are_computation_error() -> None:
     with pytest.raises(ComputationError, match=r"call fit\(E, y\) first"):
-        _ = GaussMarkov(1.0, 1.0).estimate
+        _ = GaussMarkov(1.0, 1.0).estimate_
 
 
 def test_missing_results_give_getattr_defaults() -> None:
     # callers (figures, captions) ask every solver for optional results this way
-    assert getattr(GaussMarkov(1.0, 1.0), "estimate", None) is None
+    assert getattr(GaussMarkov(1.0, 1.0), "estimate_", None) is None
     fitted = GaussMarkov(1.0, 1.0).fit(np.eye(2), np.ones(2))
-    assert getattr(fitted, "singular_values", None) is None
+    assert getattr(fitted, "singular_values_", None) is None
 
 
 # --------------------------------------------------------------------------

@@ -12,15 +12,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import xarray as xr
+from _synthetic import synthetic_model_output, synthetic_section
 
 from sectionkit.config import Config, parse_config
 from sectionkit.geometry import pair_geometry
-from sectionkit.modelsection import (
-    model_section,
-    section_time_series,
-    synthetic_model_output,
-    synthetic_section,
-)
+from sectionkit.modelsection import model_section, section_time_series
 from sectionkit.operator import RHO0
 from sectionkit.outputs import udunits
 from sectionkit.study import Study

@@ -149,7 +149,7 @@ def read_csv(
     Parameters
     ----------
     path : str or path-like
-        The file.
+        The long-form CSV file (one row per sample).
     columns : mapping, optional
         Canonical column to header name, e.g. ``{"pressure": "PRES", "lat": "Latitude"}``.
     temperature_kind : {"in-situ", "potential", "conservative"}

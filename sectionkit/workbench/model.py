@@ -6,9 +6,10 @@ current one, validates it exactly as a saved file would be validated, and
 recomputes only what depends on the change:
 
 * a new reference (global level, mode or a pair's override) is a linear
-  update: the reference offsets are resolved again (cheap), the class
+  update: the reference offsets are resolved again (cheap), the budget state
+  is derived with them (:meth:`sectionkit.state.BudgetState.derive`), the class
   transports are ``relative + area * offset`` and, with an inverse, the new
-  estimate is the solver's gain applied to the shifted constraint data. The
+  estimate comes from the fitted linear solver's gain (no new fit). The
   full budget (overturning, heat, freshwater) is recomputed only when asked
   for (:attr:`WorkbenchState.results`), so a slider never waits for it;
 * a new Ekman stress or inverse setting runs :meth:`Study.solve` on the
@@ -51,7 +52,9 @@ from sectionkit.config import (
     parse_reference,
 )
 from sectionkit.errors import Cautions, ConfigError, SectionkitError
+from sectionkit.geometry import along_line_distance
 from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
+from sectionkit.labels import parse_pair_label
 from sectionkit.layers import Interface, check_interfaces
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.workbench.session import (
@@ -62,9 +65,6 @@ from sectionkit.workbench.session import (
     AutosaveWriter,
     keep_backup,
     portable,
-)
-from sectionkit.workbench.snapshot import (
-    LINEAR_SOLVERS as LINEAR_SOLVERS,
 )
 from sectionkit.workbench.snapshot import (
     BoxBudget,
@@ -366,8 +366,7 @@ class WorkbenchState:
         base = self.engine.base
         if base is None or base.inverse is None:
             return None
-        rank = getattr(base.inverse.solver, "rank", None)
-        return None if rank is None else int(rank)
+        return base.inverse.rank
 
     @property
     def flagged_classes(self) -> list[str]:
@@ -388,7 +387,7 @@ class WorkbenchState:
         if snap.estimate is not None:
             adjustment = snap.estimate[snap.layout.pair_slices[section]]
         velocity = op.absolute_velocity(snap.offsets[section], adjustment)
-        distance = np.concatenate([[0.0], np.cumsum(op.pairs["distance"].values)]) / 1e3
+        distance = along_line_distance(op.pairs["distance"].values) / 1e3
         faces = tuple(
             (face.display(), op.sigma_pair[face.p_ref], float(face.sigma))  # "σ₁ 32.15"
             for face in self._config.interfaces
@@ -470,15 +469,7 @@ class WorkbenchState:
         return self.set_reference(ReferenceChoice("bottom"))
 
     def set_reference_isopycnal(self, sigma: float, p_ref: float = 0.0) -> Change:
-        """Level of no motion on an isopycnal.
-
-        Parameters
-        ----------
-        sigma : float
-            Potential density anomaly, kg m^-3.
-        p_ref : float
-            Its reference pressure, dbar.
-        """
+        """Level of no motion on the isopycnal ``sigma`` (kg m^-3) referred to ``p_ref`` (dbar)."""
         return self.set_reference(
             ReferenceChoice("isopycnal", sigma=float(sigma), sigma_p_ref=float(p_ref)))
 
@@ -852,13 +843,8 @@ class WorkbenchState:
 
     # ------------------------------------------------------------ files
     def save(self, path: str | Path) -> Path:
-        """Write the configuration as TOML (atomically); relative file names follow the file.
-
-        Parameters
-        ----------
-        path : str or Path
-            Destination .toml file.
-        """
+        """Write the configuration to the .toml file ``path`` (atomically, as
+        :meth:`Config.save`); relative file names are rewritten to follow the file."""
         path = Path(path)
         path.parent.mkdir(parents=True, exist_ok=True)
         return portable(self._config, path.parent).save(path)
@@ -953,11 +939,8 @@ class WorkbenchState:
 
     # ------------------------------------------------------------ machinery
     def _check_label(self, label: str) -> None:
-        section, _, k = label.partition(":")
-        if section not in self.study.operators or not k.isdigit() \
-                or int(k) >= self.study.operators[section].n_pair:
-            raise ConfigError(f"pair {label!r} does not exist; pairs are '<section>:<k>' with "
-                              f"sections {', '.join(self.section_names)}")
+        parse_pair_label(label, {name: op.n_pair for name, op in self.study.operators.items()},
+                         "pair override")
 
     def _validated(self, config: Config) -> Config:
         """A fresh copy of ``config`` validated exactly as a saved file would be."""

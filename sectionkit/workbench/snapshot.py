@@ -30,14 +30,13 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from sectionkit.budget import SV, UnknownLayout
+from sectionkit.budget import SV, Q, UnknownLayout
 from sectionkit.config import Config, InverseSpec
 from sectionkit.errors import Cautions, ConfigError
-from sectionkit.geometry import compass_name
+from sectionkit.geometry import compass_name, pair_along_line_distance
+from sectionkit.labels import constraint_label
 from sectionkit.layers import Interface
 from sectionkit.study import Results, Study
-
-LINEAR_SOLVERS = ("gauss-markov", "svd")  # estimate = gain @ data, gain independent of data
 
 #: Noise of a new class's mass constraint, Sv (the configuration's default).
 DEFAULT_CLASS_NOISE = 1.0
@@ -284,12 +283,7 @@ class Engine:
         current snapshot.
         """
         base = self.base
-        linear_ok = (
-            base is not None
-            and key == self.base_key
-            and (base.inverse is None or self.study.config.inverse is None
-                 or self.study.config.inverse.solver in LINEAR_SOLVERS)
-        )
+        linear_ok = base is not None and key == self.base_key and base.state.is_linear
         if not linear_ok:
             self.solve_full(key)
             return False
@@ -307,17 +301,9 @@ class Engine:
     def _snapshot_from(self, results: Results) -> Snapshot:
         sections = tuple(self.study.operators)
         layers = tuple(next(iter(self.study.operators.values())).layer_names)
-        x = results.estimate
-        initial = np.zeros((len(sections), len(layers)))
-        adjusted = np.zeros_like(initial)
-        for s, name in enumerate(sections):
-            out = results.outputs[name]
-            v0 = out.value(None)
-            v1 = out.value(x)
-            for i, layer in enumerate(layers):
-                k = out.index(f"volume:{layer}")
-                initial[s, i] = v0[k]
-                adjusted[s, i] = v1[k]
+        volume = [results.select("class_volume_transport", name) for name in sections]
+        initial = np.array([v.initial for v in volume])
+        adjusted = np.array([v.adjusted for v in volume])
         error = self._errors(results, sections, layers)
         classes = ClassTransports(sections, layers, initial, adjusted, error,
                                   results.inverse is not None)
@@ -327,9 +313,7 @@ class Engine:
                             sys_.noise.copy(), tuple(sys_.units),
                             results.inverse.posterior_residual_std)
         else:
-            mass = {n: results.outputs[n].value(None)[
-                [results.outputs[n].index(f"mass:{layer}") for layer in layers]]
-                for n in sections}
+            mass = {n: results.select("class_mass_transport", n).initial for n in sections}
             box = self._mass_box(mass, layers)
         cautions = Cautions()
         cautions.extend(self.study.load_cautions)
@@ -353,8 +337,7 @@ class Engine:
         err = np.full((len(sections), len(layers)), np.nan)
         if results.inverse is not None:
             for s, name in enumerate(sections):
-                for i, layer in enumerate(layers):
-                    err[s, i] = results.error(name, f"volume:{layer}")
+                err[s] = results.select("class_volume_transport", name).error
         self._error_cache = (results, err)
         return err
 
@@ -364,8 +347,7 @@ class Engine:
         if cache is None or cache[0] is not base:
             cache = self._gradient_cache = (base, {})
         if name not in cache[1]:
-            out = base.outputs[name]
-            cache[1][name] = out.gradient[[out.index(f"volume:{layer}") for layer in layers]]
+            cache[1][name] = base.select("class_volume_transport", name).gradient
         return cache[1][name]
 
     def _mass_box(self, mass: dict[str, np.ndarray], layers: tuple[str, ...]) -> BoxBudget:
@@ -378,18 +360,15 @@ class Engine:
         rows, values = [], []
         known = self.known_transports()
         for box in self.study.config.effective_boxes():
-            inflow = np.zeros(len(layers))
-            for name in box.enters:
-                inflow = inflow + mass[name]
-            for name in box.leaves:
-                inflow = inflow - mass[name]
+            inflow = sum((box.sign(name) * mass[name] for name in box.sections),
+                         np.zeros(len(layers)))
             for kt in known:  # counted as the inverse counts them (inverse.assemble)
                 if (kt.box or box.name) == box.name and kt.layer in layers:
                     inflow[layers.index(kt.layer)] += kt.transport
             for i, layer in enumerate(layers):
-                rows.append((box.name, f"mass:{layer}"))
+                rows.append((box.name, constraint_label("mass", layer)))
                 values.append(inflow[i])
-            rows.append((box.name, "mass:total"))
+            rows.append((box.name, constraint_label("mass")))
             values.append(inflow.sum())
         v = np.asarray(values, dtype=float)
         return BoxBudget(tuple(rows), v, v.copy(), np.full(v.size, np.nan), ("Sv",) * v.size)
@@ -397,13 +376,13 @@ class Engine:
     def linear_update(self, global_only: bool = False) -> None:
         """New references on unchanged operators, Ekman and inverse settings.
 
-        Class transports are ``relative + area * offset`` (DESIGN.md §2);
-        the constraint data shift by ``E_pairs @ (offset - offset_base)``
-        (the constraints are linear in the reference velocity, and a change
-        of offset moves them exactly as an adjustment would); the new
-        estimate is the fitted solver's gain applied to the new data. The
-        posterior covariance does not depend on the data, so the errors are
-        those of the last full solve.
+        The base solve's budget state is derived with the new references
+        (:meth:`sectionkit.state.BudgetState.derive`: the constraint data move
+        by ``E_pairs (offset - offset_base)``, prior means from direct
+        velocities follow the offsets) and solved reusing the fitted linear
+        solver, whose gain gives the new estimate. The posterior covariance
+        does not depend on the data, so the errors are those of the last
+        full solve.
         """
         base = self.base
         assert base is not None
@@ -414,41 +393,26 @@ class Engine:
             cautions = Cautions()
             cautions.extend(self.study.load_cautions)
             refs = self.study.references(cautions)
-        offsets = {n: r.offset for n, r in refs.items()}
-        pressures = {n: r.pressure for n, r in refs.items()}
-        layout = base.layout
+        state = base.state.derive(refs)  # constraint data and prior means follow the offsets
         sections = tuple(self.study.operators)
         layers = self.snap.classes.layers
         x = None
         box = None
         if base.inverse is not None:
-            system = base.inverse.system
-            n_pairs = sum(op.n_pair for op in self.study.operators.values())
-            shift = np.zeros(n_pairs)
-            for name in sections:
-                shift[layout.pair_slices[name]] = offsets[name] - base.references[name].offset
-            initial_rows = system.initial + system.matrix[:, :n_pairs] @ shift
-            active = system.prior > 0
-            x = np.zeros(layout.size)
-            # prior means (direct velocities) follow the references: x0 = direct - offset
-            x0 = np.zeros(layout.size)
-            mean = self.study.velocity_prior_mean(refs)
-            if mean is not None:
-                x0[:n_pairs] = mean
-            x[active] = x0[active] + base.inverse.solver.gain @ (
-                -initial_rows - system.matrix[:, active] @ x0[active])
+            inverse = state.solve(reuse=base.inverse)  # the fitted solver's gain, no new fit
+            x = inverse.estimate
+            system = inverse.system
             # the posterior covariance does not depend on the data: same residual std
-            box = BoxBudget(tuple(system.rows), initial_rows, initial_rows + system.matrix @ x,
+            box = BoxBudget(tuple(system.rows), system.initial, inverse.adjusted,
                             system.noise.copy(), tuple(system.units),
                             base.inverse.posterior_residual_std)
         initial = np.zeros((len(sections), len(layers)))
         adjusted = np.zeros_like(initial)
         mass = {}
         for s, name in enumerate(sections):
-            op = self.study.operators[name]
-            t0 = op.transports(offsets[name], 0.0, base.ekman[name], 1.0)
-            vol = t0[0].sum(axis=0) / SV
-            mass[name] = t0[1].sum(axis=0) / SV
+            t = state.class_transports(name)
+            vol = t["volume"] / SV
+            mass[name] = t["mass"] / SV
             initial[s] = vol
             if x is None:
                 adjusted[s] = vol
@@ -459,9 +423,9 @@ class Engine:
         classes = ClassTransports(sections, layers, initial, adjusted,
                                   self._errors(base, sections, layers), x is not None)
         self.snap = Snapshot(
-            offsets=offsets,
-            ref_pressure=pressures,
-            layout=layout,
+            offsets=state.offsets,
+            ref_pressure={n: r.pressure for n, r in refs.items()},
+            layout=state.layout,
             estimate=x,
             classes=classes,
             box=box,
@@ -600,7 +564,7 @@ def reference_sensitivity(study: Study, ekman: dict[str, np.ndarray],
         offsets = -np.take_along_axis(op.v_eff.T, k, axis=0)  # v_eff (pair, level) -> (level, pair)
         offsets = np.where(own[None, :], own_offsets[name][None, :], offsets)
         t = op.transports(offsets, 0.0, ekman[name], 1.0)  # (level, quantity, pair, class)
-        out[s] = t[:, 0].sum(axis=-2) / SV
+        out[s] = t[:, Q["volume"]].sum(axis=-2) / SV
     ref = cfg.reference
     current = float(ref.pressure) if ref.kind == "pressure" and ref.pressure is not None else None
     return ReferenceSensitivity(pressure.astype(float), out, tuple(ops),
@@ -654,31 +618,27 @@ def inverse_view(study: Study, results: Results) -> InverseView | None:
     inv = results.inverse
     if inv is None:
         return None
-    from sectionkit.figures import resolution_diagonal, scaled_singular_values
-
     std = np.sqrt(np.clip(np.diag(inv.covariance), 0.0, None))
-    res = resolution_diagonal(results)
+    res = np.where(inv.solved_for, inv.resolution_diagonal, np.nan)
     layout = results.layout
     names = study.config.layer_names
     dist, b, b_std, b_res = {}, {}, {}, {}
     for name, sl in layout.pair_slices.items():
         op = study.operators[name]
-        d = np.concatenate([[0.0], np.cumsum(op.pairs["distance"].values)]) / 1e3
-        dist[name] = 0.5 * (d[:-1] + d[1:])
+        dist[name] = pair_along_line_distance(op.pairs["distance"].values) / 1e3
         b[name], b_std[name], b_res[name] = inv.estimate[sl], std[sl], res[sl]
     transfers = tuple(
         (f"{box}: {names[n]}→{names[n + 1]}", float(inv.estimate[idx]), float(std[idx]),
          float(res[idx]))
         for (box, n), idx in sorted(layout.diapycnal.items()))
-    values, _ = scaled_singular_values(results)
+    values = inv.scaled_singular_values
     system = inv.system
     with np.errstate(invalid="ignore", divide="ignore"):
         before = system.initial / system.noise
     after = inv.posterior_normalized_residuals
-    rank = getattr(inv.solver, "rank", None)
     return InverseView(
         solver=study.config.inverse.solver,
-        rank=None if rank is None else int(rank),
+        rank=inv.rank,
         pair_distance=dist, adjustment=b, adjustment_std=b_std, adjustment_resolution=b_res,
         transfers=transfers, singular_values=np.asarray(values, dtype=float),
         rows=tuple(f"{box} {c}" for box, c in system.rows), before=before, after=after,

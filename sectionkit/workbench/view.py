@@ -32,7 +32,7 @@ from typing import Any
 import ipywidgets as widgets
 from ipyevents import Event
 
-from sectionkit.config import Config, InverseSpec
+from sectionkit.config import SOLVER_DISPLAY, SOLVER_NAMES, Config, InverseSpec
 from sectionkit.errors import SectionkitError
 from sectionkit.layers import class_display_name
 from sectionkit.workbench import render
@@ -214,6 +214,12 @@ def _button(description: str, **kwargs: Any) -> widgets.Button:
     return widgets.Button(description=description, layout=widgets.Layout(width="auto"), **kwargs)
 
 
+def _number_box(description: str, step: float, css_class: str) -> widgets.FloatText:
+    """A labelled number box of the control column, with its CSS class for the browser tests."""
+    return _css(widgets.FloatText(description=description, step=step, style=STYLE,
+                                  layout=_wide()), css_class)
+
+
 def _wide(**kwargs: Any) -> widgets.Layout:
     """Full width of the parent, less the 2 px margin ipywidgets puts on each side."""
     return widgets.Layout(width="calc(100% - 4px)", **kwargs)
@@ -289,11 +295,8 @@ class WorkbenchView(widgets.VBox):
             min=0.0, max=float(deepest), step=SLIDER_STEP, description="level (dbar)",
             continuous_update=True, readout_format=".0f", layout=_wide(), style=STYLE),
             "reference_slider")
-        self.iso_sigma = _css(widgets.FloatText(description="σ (kg m⁻³)", step=0.01,
-                                                style=STYLE, layout=_wide()), "isopycnal_sigma")
-        self.iso_pref = _css(widgets.FloatText(description="σ reference pressure (dbar)",
-                                               step=1000.0, style=STYLE, layout=_wide()),
-                             "isopycnal_pref")
+        self.iso_sigma = _number_box("σ (kg m⁻³)", 0.01, "isopycnal_sigma")
+        self.iso_pref = _number_box("σ reference pressure (dbar)", 1000.0, "isopycnal_pref")
         self.iso_apply = _css(_button("use this isopycnal"),
                               "isopycnal_apply")
         self.line = _css(widgets.Dropdown(description="line", style=STYLE, layout=_wide()),
@@ -372,9 +375,7 @@ class WorkbenchView(widgets.VBox):
         # ---------------------------------------------------------- Inverse panel
         self.inverse_on = _css(widgets.Checkbox(description="adjust references by the box inverse",
                                                 indent=False, layout=_wide()), "inverse_on")
-        self.solver = _css(widgets.Dropdown(options=[("Gauss–Markov", "gauss-markov"),
-                                                     ("truncated SVD", "svd"),
-                                                     ("bounded least squares", "bounded")],
+        self.solver = _css(widgets.Dropdown(options=[(SOLVER_DISPLAY[k], k) for k in SOLVER_NAMES],
                                             description="solver", style=STYLE, layout=_wide()),
                            "solver")
         self.rank = _css(widgets.BoundedIntText(description="SVD rank (0 = automatic)", min=0,
@@ -384,17 +385,10 @@ class WorkbenchView(widgets.VBox):
                                                      layout=widgets.Layout(width="70px")),
                                     "conserve")
                          for kind in ("mass", "salt", "heat")}
-        self.prior_velocity = _css(widgets.FloatText(description="prior b (m s⁻¹)", step=0.005,
-                                                     style=STYLE, layout=_wide()),
-                                   "prior_velocity")
-        self.prior_diapycnal = _css(widgets.FloatText(description="prior W (Sv)", step=0.5,
-                                                      style=STYLE, layout=_wide()),
-                                    "prior_diapycnal")
-        self.prior_ekman = _css(widgets.FloatText(description="prior Ekman (fraction)", step=0.1,
-                                                  style=STYLE, layout=_wide()), "prior_ekman")
-        self.noise_total = _css(widgets.FloatText(description="noise of total mass (Sv)",
-                                                  step=0.1, style=STYLE, layout=_wide()),
-                                "noise_total")
+        self.prior_velocity = _number_box("prior b (m s⁻¹)", 0.005, "prior_velocity")
+        self.prior_diapycnal = _number_box("prior W (Sv)", 0.5, "prior_diapycnal")
+        self.prior_ekman = _number_box("prior Ekman (fraction)", 0.1, "prior_ekman")
+        self.noise_total = _number_box("noise of total mass (Sv)", 0.1, "noise_total")
         self.class_noise = _css(widgets.GridBox(layout=widgets.Layout(
             width="100%", grid_template_columns="minmax(0, 1.4fr) repeat(3, minmax(0, 1fr))",
             grid_gap="2px 4px")), "class_noise")

@@ -18,11 +18,13 @@ ocean, cruise or instrument.
 
 from __future__ import annotations
 
+import copy
 from collections.abc import Mapping
 from pathlib import Path
 
 import numpy as np
 
+from sectionkit.config import AdcpSpec, Config
 from sectionkit.io.exchange_write import write_bottle, write_ctd_zip
 
 #: Bottle pressures of the invented rosette, dbar (a deepest bottle 10 dbar above each
@@ -191,43 +193,35 @@ def write_exchange_line(
     return files
 
 
-def exchange_config(text: str, name: str, files: Mapping[str, str], netcdf_file: str) -> str:
-    """demo.toml text with line ``name`` read from its exchange files, tracers and LADCP.
+def exchange_config(config: Config, name: str, files: Mapping[str, str]) -> Config:
+    """The demo configuration with line ``name`` read from its exchange files, tracers and LADCP.
 
     Parameters
     ----------
-    text : str
-        The demo configuration as the generator writes it.
+    config : Config
+        The demo configuration (not changed).
     name : str
         The exchange line.
     files : mapping
         As returned by :func:`write_exchange_line`.
-    netcdf_file : str
-        The line's CF-NetCDF file name in ``text`` (replaced).
+
+    Returns
+    -------
+    Config
+        A copy whose line ``name`` reads the CTD zip, the bottle file and the LADCP
+        profiles, with ``[tracers]`` oxygen and silicate and ``[adcp]`` settings.
     """
-    old = f'file = "{netcdf_file}"'
-    if old not in text:
-        raise ValueError(f"demo configuration has no line {old!r}")
-    new = (f'file = "{files["ctd"]}"          # WHP-Exchange CTD casts (the same line as '
-           f'{netcdf_file})\nbottle = "{files["bottle"]}"\nadcp = "{files["adcp"]}"')
-    text = text.replace(old, new)
-    extra = [
-        "[tracers]",
-        'transport = ["oxygen", "silicate"]   # umol/kg bottle tracers -> kmol s^-1',
-        "",
-        "[adcp]",
-        f"pressure_range = [{ADCP_RANGE[0]:.1f}, {ADCP_RANGE[1]:.1f}]   # dbar",
-        'use = "prior"                    # LADCP velocities as prior means of the inverse',
-        f"error = {ADCP_ERROR}                     # m s^-1",
-        "",
-    ]
-    marker = "[inverse]"
-    head, sep, tail = text.partition(marker)
-    return head + "\n".join(extra) + "\n" + sep + tail if sep else text + "\n".join(extra)
+    out = copy.deepcopy(config)
+    spec = next(s for s in out.sections if s.name == name)
+    spec.file, spec.bottle, spec.adcp = files["ctd"], files["bottle"], files["adcp"]
+    out.tracers = ["oxygen", "silicate"]  # umol/kg bottle tracers -> kmol s^-1
+    out.adcp = AdcpSpec(pressure_range=(float(ADCP_RANGE[0]), float(ADCP_RANGE[1])),
+                        use="prior", error=float(ADCP_ERROR))
+    return out
 
 
-def add_exchange_line(folder: str | Path, name: str, obs, truth, config: str,
-                      netcdf_file: str, seed: int) -> tuple[str, dict[str, str]]:
+def add_exchange_line(folder: str | Path, name: str, obs, truth, config: Config,
+                      seed: int) -> tuple[Config, dict[str, str]]:
     """Write the exchange files of demo line ``name`` and point demo.toml at them.
 
     Parameters
@@ -240,17 +234,15 @@ def add_exchange_line(folder: str | Path, name: str, obs, truth, config: str,
         The line as stored in its CF-NetCDF file.
     truth : sectionkit.demo.DemoTruth
         The demo truth (operators, reference offsets, true reference velocities).
-    config : str
-        demo.toml text.
-    netcdf_file : str
-        The line's CF-NetCDF file name in ``config``.
+    config : Config
+        The demo configuration.
     seed : int
         The scenario's seed.
 
     Returns
     -------
-    config : str
-        demo.toml text using the exchange files, ``[tracers]`` and ``[adcp]``.
+    config : Config
+        The configuration using the exchange files, ``[tracers]`` and ``[adcp]``.
     files : dict of str -> str
         ``ctd``, ``bottle`` and ``adcp`` file names written into ``folder``.
     """
@@ -263,4 +255,4 @@ def add_exchange_line(folder: str | Path, name: str, obs, truth, config: str,
     v_abs = op.absolute_velocity(truth.offset[name], truth.b_true[name])
     files = write_exchange_line(folder, name, observed, v_abs, op.pairs["along_east"].values,
                                 op.pairs["along_north"].values, seed)
-    return exchange_config(config, name, files, netcdf_file), files
+    return exchange_config(config, name, files), files
