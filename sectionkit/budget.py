@@ -134,39 +134,155 @@ def make_layout(
     return UnknownLayout(slices, dia, ek, start, labels)
 
 
-@dataclass
+class DepthStreamfunctionRows:
+    """Gradient rows of the depth streamfunction of one section, built on demand.
+
+    Row ``k`` is d(psi_depth:k)/dx: the level transports summed from the
+    surface through level ``k`` (Sv per unknown), less the share ``frac[k]``
+    of the whole column's sum (the net removed as a uniform velocity). Only
+    the pair columns and the section's Ekman column are nonzero, so a few rows
+    come from prefix sums of the compact (pair, level) areas without forming
+    the (level, unknown) matrix, which :meth:`all_rows` builds when every row
+    is asked for (a written dataset, every output's error).
+
+    Parameters
+    ----------
+    level_area : ndarray (pair, level)
+        Area of each pair's cells at each level, m^2 (transport per m s^-1).
+    ekman_level : ndarray (level,)
+        Ekman volume transport at each level for the section's Ekman
+        transport, m^3 s^-1 (the derivative by its fractional adjustment).
+    frac : ndarray (level,)
+        Share of the section area above each level end (dimensionless).
+    columns : slice
+        The section's pairs in ``x``.
+    ekman_column : int or None
+        Position of the section's Ekman factor in ``x``; None without one.
+    size : int
+        Length of ``x``.
+    """
+
+    def __init__(self, level_area: np.ndarray, ekman_level: np.ndarray, frac: np.ndarray,
+                 columns: slice, ekman_column: int | None, size: int) -> None:
+        self.level_area = level_area
+        self.frac = frac
+        self.columns = columns
+        self.ekman_column = ekman_column
+        self.size = size
+        self.n_level = frac.size
+        self._ekman_cum = np.cumsum(ekman_level) / SV  # (level,)
+        self._total: np.ndarray | None = None  # column sum of every pair, Sv per m s^-1
+
+    def rows(self, levels: np.ndarray) -> np.ndarray:
+        """Gradient rows of the given levels, (len(levels), unknown), Sv per unknown."""
+        levels = np.asarray(levels, dtype=int)
+        if self._total is None:
+            self._total = self.level_area.sum(axis=-1) / SV
+        out = np.zeros((levels.size, self.size))
+        for n, k in enumerate(levels):
+            above = self.level_area[:, : k + 1].sum(axis=-1) / SV
+            out[n, self.columns] = above - self.frac[k] * self._total
+        if self.ekman_column is not None:
+            out[:, self.ekman_column] = (self._ekman_cum[levels]
+                                         - self.frac[levels] * self._ekman_cum[-1])
+        return out
+
+    def all_rows(self) -> np.ndarray:
+        """Every row, (level, unknown), Sv per unknown."""
+        glevel = np.zeros((self.n_level, self.size))
+        glevel[:, self.columns] = self.level_area.T
+        gpsi = np.cumsum(glevel, axis=0) / SV
+        if self.ekman_column is not None:
+            gpsi[:, self.ekman_column] = self._ekman_cum
+        return gpsi - np.outer(self.frac, gpsi[-1])
+
+    def apply(self, x: np.ndarray) -> np.ndarray:
+        """Rows times a state vector, ``G_psi x`` (level,), Sv."""
+        x = np.asarray(x, dtype=float)
+        level = x[self.columns] @ self.level_area  # (level,) m^3 s^-1
+        psi = np.cumsum(level) / SV
+        if self.ekman_column is not None:
+            psi = psi + x[self.ekman_column] * self._ekman_cum
+        return psi - self.frac * psi[-1]
+
+
 class LinearOutputs:
     """Named outputs ``initial + gradient @ x`` in reporting units.
 
-    Attributes
+    Parameters
     ----------
     names : list of str
         One per output.
     initial : ndarray (output,)
         Value for x = 0.
     gradient : ndarray (output, unknown)
-        Derivative with respect to every unknown.
+        Derivative with respect to every unknown; without ``lazy_rows`` all
+        of them, with it the first ``output - lazy_rows.n_level`` rows.
     units : list of str
         Unit of each output.
+    lazy_rows : DepthStreamfunctionRows, optional
+        The last outputs' rows, formed only when asked for (:meth:`rows`
+        forms just the requested ones; :attr:`gradient` all of them).
+
+    Attributes
+    ----------
+    names, initial, units
+        As given.
+    gradient : ndarray (output, unknown)
+        Derivative of every output with respect to every unknown.
     """
 
-    names: list[str]
-    initial: np.ndarray
-    gradient: np.ndarray
-    units: list[str]
+    def __init__(self, names: list[str], initial: np.ndarray, gradient: np.ndarray,
+                 units: list[str], lazy_rows: DepthStreamfunctionRows | None = None) -> None:
+        self.names = names
+        self.initial = initial
+        self.units = units
+        self._head = gradient
+        self._lazy = lazy_rows
+        self._full: np.ndarray | None = gradient if lazy_rows is None else None
+        self._position = {name: k for k, name in enumerate(self.names)}
+
+    @property
+    def gradient(self) -> np.ndarray:
+        """Every output's derivative, (output, unknown); formed on first use."""
+        if self._full is None:
+            assert self._lazy is not None
+            self._full = np.vstack([self._head, self._lazy.all_rows()])
+        return self._full
+
+    def rows(self, index: np.ndarray | list[int]) -> np.ndarray:
+        """Gradient rows of the outputs at positions ``index``, (len(index), unknown)."""
+        idx = np.atleast_1d(np.asarray(index, dtype=int))
+        if self._full is not None:
+            return self._full[idx]
+        assert self._lazy is not None
+        n_head = self._head.shape[0]
+        idx = np.where(idx < 0, idx + len(self.names), idx)
+        out = np.empty((idx.size, self._head.shape[1]))
+        head = idx < n_head
+        out[head] = self._head[idx[head]]
+        if not head.all():
+            out[~head] = self._lazy.rows(idx[~head] - n_head)
+        return out
+
+    def row(self, k: int) -> np.ndarray:
+        """Gradient row of the output at position ``k``, (unknown,)."""
+        return self.rows([k])[0]
 
     def value(self, x: np.ndarray | None = None) -> np.ndarray:
         """Outputs for unknowns ``x`` (x = 0 when None)."""
-        return self.initial if x is None else self.initial + self.gradient @ x
+        if x is None:
+            return self.initial
+        if self._full is not None:
+            return self.initial + self._full @ x
+        assert self._lazy is not None
+        return self.initial + np.concatenate([self._head @ x, self._lazy.apply(x)])
 
     def std(self, covariance: np.ndarray | None) -> np.ndarray:
         """Standard deviation of each output, sqrt(diag(G P G^T)); NaN without P."""
         if covariance is None:
             return np.full(len(self.names), np.nan)
         return output_std(self.gradient, covariance)
-
-    def __post_init__(self) -> None:
-        self._position = {name: k for k, name in enumerate(self.names)}
 
     def index(self, name: str) -> int:
         """Position of a named output."""
@@ -420,17 +536,18 @@ def section_outputs(
     psi_rho = values["psi_density"]
     gvol = per_q["volume"]
     gpsi_rho = np.cumsum(gvol, axis=0)[:-1] - np.outer(frac_rho, gvol.sum(axis=0))
-    # overturning in depth: cumulative transport from the surface down
-    glevel = np.zeros((op.pressure.size, layout.size))
-    glevel[:, layout.pair_slices[op.name]] = op.level_area.T
-    if op.name in layout.ekman:
-        glevel[:, layout.ekman[op.name]] = ekman @ op.level_ekman
+    # overturning in depth: cumulative transport from the surface down; the
+    # rows of every level are formed only when asked for
+    depth_rows = DepthStreamfunctionRows(
+        op.level_area, ekman @ op.level_ekman, frac_z, layout.pair_slices[op.name],
+        layout.ekman.get(op.name), layout.size)
     psi_z = values["psi_depth"]
-    gpsi_z = np.cumsum(glevel, axis=0) / SV
-    gpsi_z = gpsi_z - np.outer(frac_z, gpsi_z[-1])
+    if x_for_maximum is None:
+        kz = int(np.argmax(np.abs(psi_z)))
+    else:
+        kz = int(np.argmax(np.abs(psi_z + depth_rows.apply(x_for_maximum))))
     x_at = np.zeros(layout.size) if x_for_maximum is None else x_for_maximum
-    kz = int(np.argmax(np.abs(psi_z + gpsi_z @ x_at)))
-    add("overturning", psi_z[kz], gpsi_z[kz], "Sv")
+    add("overturning", psi_z[kz], depth_rows.rows([kz])[0], "Sv")
     if psi_rho.size:
         kr = int(np.argmax(np.abs(psi_rho + gpsi_rho @ x_at)))
         add("overturning_density", psi_rho[kr], gpsi_rho[kr], "Sv")
@@ -442,6 +559,6 @@ def section_outputs(
     units += ["Sv"] * psi_rho.size
     names += [f"psi_depth:{k}" for k in range(op.pressure.size)]
     initial.append(psi_z)
-    grads.append(gpsi_z)
     units += ["Sv"] * psi_z.size
-    return LinearOutputs(names, np.concatenate(initial), np.vstack(grads), units)
+    return LinearOutputs(names, np.concatenate(initial), np.vstack(grads), units,
+                         depth_rows)

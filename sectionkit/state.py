@@ -352,20 +352,20 @@ class Results:
         k = out.index(name)
         if not adjusted or self.inverse is None:
             return float(out.initial[k])
-        return float(out.initial[k] + out.gradient[k] @ self.estimate)
+        return float(out.initial[k] + out.row(k) @ self.estimate)
 
     def error(self, section: str, name: str) -> float:
         """Posterior standard deviation of one output, sqrt(G P G^T) (NaN without an inverse)."""
         if self.covariance is None:
             return float("nan")
         out = self.outputs[section]
-        return float(output_std(out.gradient[out.index(name)], self.covariance))
+        return float(output_std(out.row(out.index(name)), self.covariance))
 
     def block(self, section: str, keys: list[str]) -> Selection:
         """Initial, adjusted and error of the outputs ``keys`` of one section."""
         out = self.outputs[section]
         idx = np.array([out.index(k) for k in keys], dtype=int)
-        gradient = out.gradient[idx]
+        gradient = out.rows(idx)
         initial = out.initial[idx]
         adjusted = initial if self.inverse is None else initial + gradient @ self.estimate
         if self.covariance is None:

@@ -219,3 +219,37 @@ def test_changing_classes_rebuilds_without_new_dynamic_height(monkeypatch):
     monkeypatch.setattr(operator_module, "specific_volume_pass", refuse)
     with pytest.raises(AssertionError, match="dynamic height recomputed"):
         study.rebuild_operators()
+
+
+def test_depth_streamfunction_rows_equal_the_response_of_its_definition():
+    # psi_depth is linear in the adjustments and in the Ekman factor: each
+    # gradient column must equal section_values' response to a unit change of
+    # that unknown (numpy differences of the definition, not the row code);
+    # rows formed one at a time, all at once, and G x must agree with it
+    section = thermocline_section(n=6, dp=10.0)
+    op = build_operator(section, FACES, NAMES)
+    layout = make_layout({op.name: op}, ekman_sections=[op.name])
+    rng = np.random.default_rng(5)
+    offset = rng.normal(0, 0.02, op.n_pair)
+    ekman = rng.normal(0, 1e5, op.n_pair)  # m^3 s^-1 per pair
+    out = section_outputs(op, offset, ekman, layout)
+    base = section_values(op, offset, 0.0, ekman)["psi_depth"]
+    expected = np.empty((op.pressure.size, layout.size))
+    for j in range(op.n_pair):
+        unit = np.zeros(op.n_pair)
+        unit[j] = 1.0  # m s^-1
+        expected[:, j] = section_values(op, offset, unit, ekman)["psi_depth"] - base
+    expected[:, -1] = section_values(op, offset, 0.0, 2.0 * ekman)["psi_depth"] - base
+    first = out.index("psi_depth:0")
+    levels = np.array([0, 7, op.pressure.size // 2, op.pressure.size - 1])
+    scale = np.abs(expected).max()
+    np.testing.assert_allclose(out.rows(first + levels), expected[levels], rtol=0,
+                               atol=1e-12 * scale)
+    np.testing.assert_allclose(out.gradient[first:], expected, rtol=0, atol=1e-12 * scale)
+    x = rng.normal(0, 0.01, layout.size)
+    np.testing.assert_allclose(out.value(x)[first:], base + expected @ x, rtol=0,
+                               atol=1e-12 * np.abs(base + expected @ x).max())
+    # the overturning row is the row of its level
+    kz = int(np.argmax(np.abs(base)))
+    np.testing.assert_allclose(out.row(out.index("overturning")), expected[kz], rtol=0,
+                               atol=1e-12 * scale)
