@@ -14,6 +14,7 @@ freshwater; PW (10^15 W) for heat; Sv g/kg for salt.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -134,6 +135,13 @@ def make_layout(
     return UnknownLayout(slices, dia, ek, start, labels)
 
 
+@lru_cache(maxsize=8)
+def depth_streamfunction_names(n_level: int) -> tuple[tuple[str, ...], dict[str, int]]:
+    """Output names ``psi_depth:<k>`` of ``n_level`` levels and their positions (kept)."""
+    names = tuple(f"psi_depth:{k}" for k in range(n_level))
+    return names, {name: k for k, name in enumerate(names)}
+
+
 class DepthStreamfunctionRows:
     """Gradient rows of the depth streamfunction of one section, built on demand.
 
@@ -240,7 +248,14 @@ class LinearOutputs:
         self._head = gradient
         self._lazy = lazy_rows
         self._full: np.ndarray | None = gradient if lazy_rows is None else None
-        self._position = {name: k for k, name in enumerate(self.names)}
+        n_head = len(names) if lazy_rows is None else len(names) - lazy_rows.n_level
+        self._position = {name: k for k, name in enumerate(self.names[:n_head])}
+        self._tail: dict[str, int] = {}
+        if lazy_rows is not None:
+            tail_names, self._tail = depth_streamfunction_names(lazy_rows.n_level)
+            if tuple(names[n_head:]) != tail_names:
+                raise ValueError("the last output names must be the depth streamfunction's")
+        self._n_head = n_head
 
     @property
     def gradient(self) -> np.ndarray:
@@ -286,10 +301,13 @@ class LinearOutputs:
 
     def index(self, name: str) -> int:
         """Position of a named output."""
-        try:
-            return self._position[name]
-        except KeyError:
-            raise KeyError(f"no output named {name!r}") from None
+        k = self._position.get(name)
+        if k is None:
+            k = self._tail.get(name)
+            if k is None:
+                raise KeyError(f"no output named {name!r}") from None
+            k += self._n_head
+        return k
 
 
 def class_transport_gradient(
@@ -557,7 +575,7 @@ def section_outputs(
     initial.append(psi_rho)
     grads.append(gpsi_rho.reshape(psi_rho.size, layout.size))
     units += ["Sv"] * psi_rho.size
-    names += [f"psi_depth:{k}" for k in range(op.pressure.size)]
+    names += depth_streamfunction_names(op.pressure.size)[0]
     initial.append(psi_z)
     units += ["Sv"] * psi_z.size
     return LinearOutputs(names, np.concatenate(initial), np.vstack(grads), units,
