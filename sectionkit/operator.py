@@ -577,7 +577,7 @@ def _sstar_factor(p: np.ndarray, lon: np.ndarray, lat: np.ndarray) -> np.ndarray
     with _FIXED_LOCK:
         factor = _SSTAR.get(key)
     if factor is None:
-        factor = gsw.Sstar_from_SA(np.ones(lon.shape + p.shape), p, lon[..., None],
+        factor = gsw.Sstar_from_SA(1.0, p, lon[..., None],  # broadcast: a scalar SA is faster
                                    lat[..., None])
         factor.setflags(write=False)
         with _FIXED_LOCK:
