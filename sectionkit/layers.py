@@ -23,7 +23,7 @@ from dataclasses import dataclass
 import gsw
 import numpy as np
 
-from sectionkit.errors import ConfigError
+from sectionkit.errors import ConfigError, check_trailing_shape
 from sectionkit.labels import split_constraint_label
 
 
@@ -241,6 +241,7 @@ def deciding_densities(
     sa = np.asarray(sa, dtype=float)
     ct = np.asarray(ct, dtype=float)
     shape = sa.shape
+    check_trailing_shape("deciding_densities", "ct", ct, shape, "station, level (as sa)")
     n_st, n_lev = shape[-2], shape[-1]
     a_sa = sa.reshape(-1, n_st, n_lev)
     a_ct = ct.reshape(-1, n_st, n_lev)
@@ -371,6 +372,8 @@ def bottom_width_fraction(
         Width fraction in [0, 1], dimensionless.
     """
     p = np.asarray(p, dtype=float)
+    check_trailing_shape("bottom_width_fraction", "bottom_b", np.asarray(bottom_b),
+                         np.shape(bottom_a), "pair (as bottom_a)")
     mid = 0.5 * (p[:-1] + p[1:])
     shallow = np.minimum(bottom_a, bottom_b)[:, None]
     deep = np.maximum(bottom_a, bottom_b)[:, None]
@@ -470,6 +473,11 @@ def class_levels(
     n_if = len(faces)
     n_class = n_if + 1
     n_level = faces[0].shape[-1]
+    cells = (faces[0].shape[-2], n_level - 1) if faces[0].ndim >= 2 else (-1,)
+    check_trailing_shape("class_levels", "thickness", thickness, cells, "pair, level - 1")
+    check_trailing_shape("class_levels", "width", width, cells, "pair, level - 1")
+    if tail is not None:
+        check_trailing_shape("class_levels", "tail", tail, cells[:1], "pair")
     finite = np.isfinite(faces[0])
     valid = finite[..., :-1] & finite[..., 1:]  # (..., pair, seg)
     level_class = np.zeros(faces[0].shape, dtype=np.int8)

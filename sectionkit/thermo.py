@@ -21,7 +21,7 @@ import gsw
 import numpy as np
 import xarray as xr
 
-from sectionkit.errors import SectionDataError
+from sectionkit.errors import SectionDataError, check_trailing_shape
 
 #: Offset between the kelvin and Celsius scales, K.
 KELVIN_OFFSET = 273.15
@@ -451,6 +451,8 @@ def specific_volume_pass(
     ct = np.asarray(ct, dtype=float)
     p = np.asarray(p, dtype=float)
     shape = sa.shape
+    check_trailing_shape("specific_volume_pass", "ct", ct, shape, "station, level (as sa)")
+    check_trailing_shape("specific_volume_pass", "p", p, shape[-1:], "level (as sa)")
     sa2 = sa.reshape(-1, shape[-1])
     ct2 = ct.reshape(-1, shape[-1])
     gap = np.isnan(sa2 + ct2)
@@ -509,6 +511,8 @@ def density_jumps(SA: np.ndarray, CT: np.ndarray, p: np.ndarray, lag: int) -> np
         level is missing.
     """
     p = np.asarray(p, dtype=float)
+    check_trailing_shape("density_jumps", "CT", CT, np.shape(SA), "level (as SA)")
+    check_trailing_shape("density_jumps", "p", p, np.shape(SA)[-1:], "level (as SA)")
     p_mid = 0.5 * (p[:-lag] + p[lag:])
     upper = gsw.rho(SA[..., :-lag], CT[..., :-lag], p_mid)
     lower = gsw.rho(SA[..., lag:], CT[..., lag:], p_mid)
