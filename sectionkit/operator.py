@@ -499,7 +499,7 @@ def build_operator(
     level_area = length * column * _masked(response)
     level_section_area = np.einsum("j,...jk->...k", distance, column)  # (..., level) m^2
 
-    ekman_share, level_ekman = _ekman_share(
+    ekman_share, level_ekman = ekman_class_share(
         sigma_if, values, p, geometry["lat"].values, ekman_depth,
         _quantities(rho_pair, salt_pair, ct_pair, slice(0, _ekman_levels(p, geometry["lat"].values,
                                                                        ekman_depth))),
@@ -793,7 +793,7 @@ def _class_integrals(levels: ClassLevels, v: np.ndarray, response: np.ndarray, r
     return np.moveaxis(out, 0, -1).reshape(shape[:-1] + (n_class, 13))
 
 
-def _ekman_share(
+def ekman_class_share(
     sigma_if: list[np.ndarray],
     values: np.ndarray,
     p: np.ndarray,
@@ -801,11 +801,40 @@ def _ekman_share(
     depth: float,
     props: dict[str, np.ndarray],
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Per unit Ekman volume transport, the quantity carried in each class.
+    """Per unit Ekman volume transport, the amount of each property carried in each class.
 
     The Ekman transport is spread uniformly over the top ``depth`` metres of
-    each pair and split among the classes found there. Also returns the
-    fraction carried at each grid level, (..., pair, level).
+    each pair (common practice) and split among the density classes found
+    there with the same fractional-cell weights as the geostrophic part
+    (:func:`sectionkit.layers.class_weights`). The salt, heat and tracer
+    parts of a section's Ekman transport all come from here.
+
+    Parameters
+    ----------
+    sigma_if : list of ndarray (..., pair, level)
+        Pair-mean potential density anomaly at each interface's reference
+        pressure, kg m^-3 (one array per interface; one array and
+        ``values = [1e9]`` when there are no interfaces).
+    values : ndarray (interface,)
+        Interface values, kg m^-3.
+    p : ndarray (level,)
+        Pressure grid, dbar.
+    lat : ndarray (pair,)
+        Pair mid-point latitude, degrees_north.
+    depth : float
+        Ekman layer depth, m.
+    props : dict of str -> ndarray (..., pair, level)
+        Pair-mean property per unit volume transport (1 for volume, rho/rho0
+        for mass, kg m^-3 times a concentration for a tracer), any unit.
+
+    Returns
+    -------
+    share : ndarray (..., property, pair, class)
+        Property carried in each class per m^3 s^-1 of Ekman transport of the
+        pair, in the unit of ``props``; 0 where the pair has no water in the
+        Ekman layer.
+    level : ndarray (..., pair, level)
+        Fraction of the pair's Ekman transport at each grid level, 1.
     """
     n_lev = _ekman_levels(p, lat, depth)
     z = -gsw.z_from_p(p[None, :n_lev], lat[:, None])  # depth, m (pair, level)
