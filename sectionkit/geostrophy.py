@@ -19,6 +19,7 @@ import gsw
 import numpy as np
 
 from sectionkit.errors import Cautions, ComputationError, check_trailing_shape
+from sectionkit.thermo import station_profiles
 
 TRIANGLE_RULES = ("constant", "zero", "shear")
 SHEAR_FIT_SPAN = 100.0  # dbar above the deepest common level used to fit the extrapolated shear
@@ -46,14 +47,10 @@ def dynamic_height(
         Dynamic height anomaly Psi (gsw.geo_strf_dyn_height, p_ref = 0),
         m^2 s^-2; NaN below the bottom.
     """
-    sa = np.asarray(sa, dtype=float)
-    ct = np.asarray(ct, dtype=float)
-    p = np.asarray(p, dtype=float)
+    sa, ct, p = station_profiles("dynamic_height", sa, ct, p)
     shape = sa.shape
-    check_trailing_shape("dynamic_height", "ct", ct, shape, "station, level (as sa)")
-    check_trailing_shape("dynamic_height", "p", p, shape[-1:], "level (as sa)")
     psi = gsw.geo_strf_dyn_height(
-        sa.reshape(-1, shape[-1]), ct.reshape(-1, shape[-1]), np.asarray(p, float),
+        sa.reshape(-1, shape[-1]), ct.reshape(-1, shape[-1]), p,
         p_ref=0.0, axis=1, max_dp=max_dp,
     )
     return np.asarray(psi, dtype=float).reshape(shape)
