@@ -217,7 +217,7 @@ def deciding_densities(
     block lies on the same side of every interface, and the block gets the
     (exact) pair-mean value of its top level; everywhere else (a possible
     crossing, the sea floor, water outside ``DECIDING_RANGE``) the density
-    is evaluated exactly. :func:`class_weights` of the result is therefore
+    is evaluated exactly. :func:`class_levels` of the result is therefore
     identical to that of the full evaluation (``pair_mean`` of
     :func:`potential_density_anomaly`), at a fraction of its cost; the values
     themselves are exact only where they can decide a class.
@@ -423,7 +423,14 @@ class ClassLevels:
     column: np.ndarray
 
     def dense(self) -> np.ndarray:
-        """Weights (..., pair, class, level), m (see :func:`class_weights`)."""
+        """Depth-integration weights of every class, with fractional cells.
+
+        Returns
+        -------
+        ndarray (..., pair, class, level)
+            Weights, m: the depth integral over class ``i`` of a field ``q``
+            is ``sum_k w[..., i, k] * q[k]``.
+        """
         lc = self.level_class
         out = np.empty(lc.shape[:-1] + (self.n_class, lc.shape[-1]))
         for i in range(self.n_class):
@@ -448,7 +455,7 @@ def class_levels(
     width: np.ndarray,
     tail: np.ndarray | None = None,
 ) -> ClassLevels:
-    """Class weights of every level, in compact form (see :func:`class_weights`).
+    """Class weights of every level, in compact form (dense weights: :meth:`ClassLevels.dense`).
 
     Parameters
     ----------
@@ -462,7 +469,8 @@ def class_levels(
     width : ndarray (pair, level - 1)
         Fraction of the pair's width that is water in each segment.
     tail : ndarray (pair,), optional
-        Thickness below the last level down to the bottom, m.
+        Thickness below the last level down to the bottom, m (a sliver
+        smaller than one grid step, integrated with the last level's value).
 
     Returns
     -------
@@ -543,29 +551,3 @@ def class_levels(
         split_index = tuple(np.zeros(0, dtype=np.intp) for _ in range(finite.ndim + 1))
         split_weight = np.zeros(0)
     return ClassLevels(level_class, level_weight, split_index, split_weight, n_class, column)
-
-
-def class_weights(
-    sigma: np.ndarray | Sequence[np.ndarray],
-    interfaces: np.ndarray,
-    thickness: np.ndarray,
-    width: np.ndarray,
-    tail: np.ndarray | None = None,
-) -> np.ndarray:
-    """Depth-integration weights of every class, with fractional cells.
-
-    Parameters
-    ----------
-    sigma, interfaces, thickness, width, tail
-        As for :func:`class_levels` (kg m^-3, kg m^-3, m, 1, m). ``sigma`` may
-        also be a sequence of one (..., pair, level) array per interface, which
-        avoids stacking large arrays; ``tail`` (a sliver smaller than one grid
-        step) is integrated with the last level's value.
-
-    Returns
-    -------
-    ndarray (..., pair, class, level)
-        Weights, m: the depth integral over class ``i`` of a field ``q`` is
-        ``sum_k w[..., i, k] * q[k]``.
-    """
-    return class_levels(sigma, interfaces, thickness, width, tail).dense()

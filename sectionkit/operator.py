@@ -41,7 +41,6 @@ from sectionkit.layers import (
     cell_thickness,
     check_interfaces,
     class_levels,
-    class_weights,
     deciding_densities,
     potential_density_anomaly,
 )
@@ -806,7 +805,7 @@ def ekman_class_share(
     The Ekman transport is spread uniformly over the top ``depth`` metres of
     each pair (common practice) and split among the density classes found
     there with the same fractional-cell weights as the geostrophic part
-    (:func:`sectionkit.layers.class_weights`). The salt, heat and tracer
+    (:func:`sectionkit.layers.class_levels`). The salt, heat and tracer
     parts of a section's Ekman transport all come from here.
 
     Parameters
@@ -842,7 +841,8 @@ def ekman_class_share(
     seg_bot = z[:, 1:]
     inside = np.clip((depth - seg_top) / (seg_bot - seg_top), 0.0, 1.0)
     thickness = seg_bot - seg_top
-    w = class_weights([face[..., :n_lev] for face in sigma_if], values, thickness, inside)
+    w = class_levels([face[..., :n_lev] for face in sigma_if], values, thickness,
+                     inside).dense()
     if values.size == 1 and values[0] >= 1e9:  # no interfaces: a single class
         w = w[..., :1, :]
     total = w.sum(axis=(-2, -1))  # (..., pair)
