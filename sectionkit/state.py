@@ -346,20 +346,17 @@ class Results:
         """Posterior covariance (None without an inverse)."""
         return self.inverse.covariance if self.inverse else None
 
-    def value(self, section: str, name: str, adjusted: bool = True) -> float:
-        """One output of one section, initial or adjusted (reporting units)."""
-        out = self.outputs[section]
-        k = out.index(name)
-        if not adjusted or self.inverse is None:
-            return float(out.initial[k])
-        return float(out.initial[k] + out.gradient[k] @ self.estimate)
+    def value(self, section: str, key: str, adjusted: bool = True) -> float:
+        """One value of one section by its key in the linear outputs (``"net"``,
+        ``"volume:<class>"``), initial or adjusted, reporting units; reports select by
+        registry name (:meth:`select`)."""
+        sel = self.block(section, [key])
+        return float(sel.adjusted[0] if adjusted else sel.initial[0])
 
-    def error(self, section: str, name: str) -> float:
-        """Posterior standard deviation of one output, sqrt(G P G^T) (NaN without an inverse)."""
-        if self.covariance is None:
-            return float("nan")
-        out = self.outputs[section]
-        return float(output_std(out.gradient[out.index(name)], self.covariance))
+    def error(self, section: str, key: str) -> float:
+        """Posterior standard deviation of one value by its key (as :meth:`value`),
+        sqrt(G P G^T), reporting units; NaN without an inverse."""
+        return float(self.block(section, [key]).error[0])
 
     def block(self, section: str, keys: list[str]) -> Selection:
         """Initial, adjusted and error of the outputs ``keys`` of one section."""

@@ -274,7 +274,8 @@ class Study:
                     "triangle's velocity rule",
                 )
         for name in outputs:
-            net, err = results.value(name, "net"), results.error(name, "net")
+            selected = results.select("net_volume_transport", name)
+            net, err = float(selected.adjusted[0]), float(selected.error[0])
             limit = err if np.isfinite(err) else NET_MASS_HEAT_TOLERANCE
             if abs(net) > limit:
                 cautions.add(
