@@ -143,11 +143,13 @@ class LinearOutputs:
     names : list of str
         One per output.
     initial : ndarray (output,)
-        Value for x = 0.
+        Value for x = 0, in each output's unit (``units``: Sv, PW, Sv g/kg, dbar,
+        kmol/s).
     gradient : ndarray (output, unknown)
-        Derivative with respect to every unknown.
+        Derivative with respect to every unknown, output unit per unknown unit
+        (per m s^-1, Sv or 1; see :class:`UnknownLayout`).
     units : list of str
-        Unit of each output.
+        Display unit of each output (CF spelling: :func:`sectionkit.outputs.udunits`).
     """
 
     names: list[str]

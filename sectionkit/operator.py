@@ -99,7 +99,8 @@ class SectionOperator:
     v_eff : ndarray (..., pair, level)
         Velocity relative to the surface, extended into bottom triangles, m s^-1.
     response : ndarray (..., pair, level)
-        1 where a reference velocity reaches, 0 where not, NaN below bottom.
+        1 where a reference velocity reaches, 0 where not, NaN below bottom
+        (dimensionless).
     common : ndarray (..., pair) of int
         Index of the deepest common level.
     weights : ndarray (..., pair, class, level)
@@ -112,14 +113,15 @@ class SectionOperator:
         Transport per m s^-1 of reference velocity (area for volume, m^2).
     ekman_share : ndarray (..., quantity, pair, class)
         Quantity carried per m^3 s^-1 of Ekman volume transport in each
-        class of the top ``ekman_depth`` metres.
+        class of the top ``ekman_depth`` metres (``QUANTITY_UNITS`` per
+        m^3 s^-1; see :func:`ekman_class_share`).
     level_relative : ndarray (..., level)
         Volume transport per grid level summed over pairs, m^3 s^-1, for zero
         offset (depth overturning).
     level_area : ndarray (..., pair, level)
         Volume transport per level per m s^-1 of pair reference velocity, m^2.
     level_ekman : ndarray (pair, level)
-        Fraction of each pair's Ekman volume transport carried at each level.
+        Fraction of each pair's Ekman volume transport carried at each level (1).
     sigma_pair : dict of float -> ndarray (..., pair, level)
         Pair-mean potential density anomaly by reference pressure, kg m^-3
         (a :class:`PairDensities`: each reference pressure is computed when

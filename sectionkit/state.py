@@ -306,7 +306,12 @@ class Results:
     state : BudgetState
         What was solved.
     outputs : dict of str -> LinearOutputs
-        Every section's reported numbers (Sv, PW, Sv g/kg) as ``initial + G x``.
+        Every section's reported numbers (Sv, PW, Sv g/kg, dbar) as
+        ``initial + G x``; select them by registry name (:meth:`select`).
+    references, ekman, layout, estimate, covariance
+        Properties: the state's references (dbar, m s^-1), Ekman transports
+        (m^3 s^-1), unknowns, and the inverse's estimate and covariance
+        (unknown units: m s^-1, Sv or 1).
     inverse : InverseResult or None
         The solved inverse; None without one.
     cautions : Cautions
@@ -338,12 +343,12 @@ class Results:
 
     @property
     def estimate(self) -> np.ndarray:
-        """Adjusted unknowns (zeros without an inverse)."""
+        """Adjusted unknowns (zeros without an inverse), unknown units (m s^-1, Sv or 1)."""
         return self.inverse.estimate if self.inverse else np.zeros(self.layout.size)
 
     @property
     def covariance(self) -> np.ndarray | None:
-        """Posterior covariance (None without an inverse)."""
+        """Posterior covariance, unknown units squared (None without an inverse)."""
         return self.inverse.covariance if self.inverse else None
 
     def value(self, section: str, key: str, adjusted: bool = True) -> float:
