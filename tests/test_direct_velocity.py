@@ -216,3 +216,14 @@ def test_no_caution_when_no_override_meets_a_direct_velocity(tmp_path):
     study = Study.from_config(_config(tmp_path, "known", inverse=False),
                               sections={"line": _still_section()})
     assert not study.solve().cautions.of_kind("direct-velocity-overridden")
+
+
+def test_a_kept_override_uses_its_own_error_as_the_prior_not_the_direct_velocitys(tmp_path):
+    _ladcp_csv(tmp_path / "ladcp.csv", 0.0, 0.1)
+    cfg = _config(tmp_path, "known")
+    cfg.overrides["line:1"] = ReferenceChoice("velocity", pressure=800.0, velocity=-0.02,
+                                              velocity_error=0.003)
+    study = Study.from_config(cfg, sections={"line": _still_section()})
+    prior = study.velocity_prior()["line"]
+    assert prior[0] == pytest.approx(study.direct["line"].error[0])
+    assert prior[1] == pytest.approx(0.003)
