@@ -222,12 +222,14 @@ class LinearOutputs:
     names : list of str
         One per output.
     initial : ndarray (output,)
-        Value for x = 0.
+        Value for x = 0, in each output's unit (``units``: Sv, PW, Sv g/kg, dbar,
+        kmol/s).
     gradient : ndarray (output, unknown)
-        Derivative with respect to every unknown; without ``lazy_rows`` all
-        of them, with it the first ``output - lazy_rows.n_level`` rows.
+        Derivative with respect to every unknown, output unit per unknown unit
+        (per m s^-1, Sv or 1; see :class:`UnknownLayout`); without ``lazy_rows``
+        all of them, with it the first ``output - lazy_rows.n_level`` rows.
     units : list of str
-        Unit of each output.
+        Display unit of each output (CF spelling: :func:`sectionkit.outputs.udunits`).
     lazy_rows : DepthStreamfunctionRows, optional
         The last outputs' rows, formed only when asked for (:meth:`rows`
         forms just the requested ones; :attr:`gradient` all of them).

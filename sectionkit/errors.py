@@ -45,6 +45,43 @@ class ComputationError(SectionkitError):
     """A computation cannot go on with the data and choices given."""
 
 
+def check_trailing_shape(
+    kernel: str, name: str, array: object, trailing: tuple[int, ...], dims: str
+) -> None:
+    """Refuse an array whose last axes are not ``trailing`` (leading axes are free).
+
+    The kernels of sectionkit take the vertical axis last and broadcast any
+    leading dimensions; this is their one shape check, stating what was
+    found and what was expected (as gsw does).
+
+    Parameters
+    ----------
+    kernel : str
+        Name of the refusing function, for the message.
+    name : str
+        Name of the argument checked.
+    array : array_like
+        The argument (anything with a ``shape``; scalars have shape ``()``).
+    trailing : tuple of int
+        Required sizes of the last axes.
+    dims : str
+        Names of those axes, e.g. ``"pair, level"``.
+
+    Raises
+    ------
+    ComputationError
+        When the last axes differ from ``trailing``.
+    """
+    shape = tuple(getattr(array, "shape", ()))
+    n = len(trailing)
+    if shape[len(shape) - n:] != tuple(trailing) or len(shape) < n:
+        want = ", ".join(str(int(t)) for t in trailing)
+        raise ComputationError(
+            f"{kernel}: {name} has shape {shape}; expected (..., {dims}) = (..., {want}) "
+            f"— give arrays whose last axes match (vertical axis last, leading axes broadcast)"
+        )
+
+
 def where(
     file: str | None = None,
     station: str | int | None = None,

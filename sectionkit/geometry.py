@@ -12,6 +12,8 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
+from sectionkit.errors import check_trailing_shape
+
 EARTH_RADIUS = 6371e3  # m, the sphere used by gsw.distance
 OMEGA = 7.292115e-5  # s^-1, Earth's rotation rate as in gsw.f (TEOS-10)
 
@@ -70,6 +72,7 @@ def great_circle_distance(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
     """
     lon = np.asarray(lon, dtype=float)
     lat = np.asarray(lat, dtype=float)
+    check_trailing_shape("great_circle_distance", "lat", lat, lon.shape, "station (as lon)")
     return haversine(lon[..., :-1], lat[..., :-1], lon[..., 1:], lat[..., 1:])
 
 
@@ -87,6 +90,7 @@ def pair_midpoints(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.nda
     """
     lon = np.asarray(lon, dtype=float)
     lat = np.asarray(lat, dtype=float)
+    check_trailing_shape("pair_midpoints", "lat", lat, lon.shape, "station (as lon)")
     dlon = wrap_longitude_difference(np.diff(lon, axis=-1))
     mid_lon = lon[..., :-1] + 0.5 * dlon
     mid_lon = np.where(mid_lon > 360.0, mid_lon - 360.0, mid_lon)

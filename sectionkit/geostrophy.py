@@ -18,7 +18,8 @@ from dataclasses import dataclass
 import gsw
 import numpy as np
 
-from sectionkit.errors import Cautions, ComputationError
+from sectionkit.errors import Cautions, ComputationError, check_trailing_shape
+from sectionkit.thermo import station_profiles
 
 TRIANGLE_RULES = ("constant", "zero", "shear")
 SHEAR_FIT_SPAN = 100.0  # dbar above the deepest common level used to fit the extrapolated shear
@@ -46,11 +47,10 @@ def dynamic_height(
         Dynamic height anomaly Psi (gsw.geo_strf_dyn_height, p_ref = 0),
         m^2 s^-2; NaN below the bottom.
     """
-    sa = np.asarray(sa, dtype=float)
-    ct = np.asarray(ct, dtype=float)
+    sa, ct, p = station_profiles("dynamic_height", sa, ct, p)
     shape = sa.shape
     psi = gsw.geo_strf_dyn_height(
-        sa.reshape(-1, shape[-1]), ct.reshape(-1, shape[-1]), np.asarray(p, float),
+        sa.reshape(-1, shape[-1]), ct.reshape(-1, shape[-1]), p,
         p_ref=0.0, axis=1, max_dp=max_dp,
     )
     return np.asarray(psi, dtype=float).reshape(shape)
@@ -63,9 +63,9 @@ def relative_velocity(psi: np.ndarray, distance: np.ndarray, f: np.ndarray) -> n
     ----------
     psi : ndarray (..., station, level)
         Dynamic height anomaly, m^2 s^-2.
-    distance : ndarray (pair,)
+    distance : ndarray (..., pair)
         Great-circle distance between neighbours, m.
-    f : ndarray (pair,)
+    f : ndarray (..., pair)
         Coriolis parameter at the pair mid-point, s^-1.
 
     Returns
@@ -74,7 +74,11 @@ def relative_velocity(psi: np.ndarray, distance: np.ndarray, f: np.ndarray) -> n
         Velocity relative to the surface, m s^-1, positive to the left of
         increasing station order; NaN below the deepest common level.
     """
-    return np.diff(psi, axis=-2) / (np.asarray(distance) * np.asarray(f))[:, None]
+    psi = np.asarray(psi)
+    scale = np.asarray(distance) * np.asarray(f)
+    check_trailing_shape("relative_velocity", "distance * f", scale,
+                         (psi.shape[-2] - 1,) if psi.ndim >= 2 else (-1,), "pair")
+    return np.diff(psi, axis=-2) / scale[..., None]
 
 
 def last_valid_level(values: np.ndarray) -> np.ndarray:
@@ -157,6 +161,9 @@ def extend_into_bottom_triangle(
             f"bottom_triangle = {rule!r} is not known; use one of {', '.join(TRIANGLE_RULES)}"
         )
     p = np.asarray(p, dtype=float)
+    check_trailing_shape("extend_into_bottom_triangle", "p", p, v_rel.shape[-1:], "level")
+    check_trailing_shape("extend_into_bottom_triangle", "common", common, v_rel.shape[-2:-1],
+                         "pair")
     k = np.arange(p.size)
     above = k <= common[..., None]
     triangle = (k > common[..., None]) & (k <= deepest[..., None])
@@ -226,6 +233,7 @@ def value_at_pressure(profile: np.ndarray, p: np.ndarray, p_at: np.ndarray) -> n
     """
     p = np.asarray(p, dtype=float)
     p_at = np.asarray(p_at, dtype=float)
+    check_trailing_shape("value_at_pressure", "p", p, np.shape(profile)[-1:], "level")
     hi = np.clip(np.searchsorted(p, p_at, side="right"), 1, p.size - 1)
     lo = hi - 1
     w = np.clip((p_at - p[lo]) / (p[hi] - p[lo]), 0.0, 1.0)
@@ -262,6 +270,8 @@ def isopycnal_pressure(
         2 outcropped (the surface is already denser; 0 dbar used).
     """
     p = np.asarray(p, dtype=float)
+    check_trailing_shape("isopycnal_pressure", "p", p, np.shape(sigma)[-1:], "level")
+    check_trailing_shape("isopycnal_pressure", "common", common, np.shape(sigma)[-2:-1], "pair")
     k = np.arange(p.size)
     usable = k <= common[..., None]
     denser = np.where(usable, sigma >= value, False)

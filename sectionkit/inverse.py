@@ -73,9 +73,10 @@ class ConstraintSystem:
     noise : ndarray (row,)
         One standard deviation of each row's noise, row units.
     prior : ndarray (unknown,)
-        One standard deviation of each unknown's prior.
+        One standard deviation of each unknown's prior, unknown units (m s^-1,
+        Sv or 1, as for :attr:`InverseResult.estimate`).
     units : list of str
-        Unit of each row.
+        Unit of each row (display units: Sv, Sv g/kg, PW, kmol/s).
     prior_covariance : ndarray (unknown, unknown) or None
         Full prior covariance when unknowns are correlated (its diagonal is
         ``prior**2``); None for independent unknowns.
@@ -409,11 +410,14 @@ class InverseResult:
     system : ConstraintSystem
         What was solved.
     estimate : ndarray (unknown,)
-        Adjusted unknowns.
+        Adjusted unknowns, unknown units: m s^-1 for a pair's reference-velocity
+        adjustment, Sv for a diapycnal transfer, 1 for a fractional Ekman
+        adjustment (see :class:`sectionkit.budget.UnknownLayout`).
     covariance : ndarray (unknown, unknown)
-        Posterior covariance P.
+        Posterior covariance P, products of the unknowns' units.
     solver : object
-        The fitted solver (singular values, resolution, ...).
+        The fitted solver (singular values, resolution, ...; see
+        :mod:`sectionkit.solvers` for the fitted attributes and their units).
     """
 
     system: ConstraintSystem

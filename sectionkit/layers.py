@@ -23,7 +23,7 @@ from dataclasses import dataclass
 import gsw
 import numpy as np
 
-from sectionkit.errors import ConfigError
+from sectionkit.errors import ConfigError, check_trailing_shape
 from sectionkit.labels import split_constraint_label
 
 
@@ -217,7 +217,7 @@ def deciding_densities(
     block lies on the same side of every interface, and the block gets the
     (exact) pair-mean value of its top level; everywhere else (a possible
     crossing, the sea floor, water outside ``DECIDING_RANGE``) the density
-    is evaluated exactly. :func:`class_weights` of the result is therefore
+    is evaluated exactly. :func:`class_levels` of the result is therefore
     identical to that of the full evaluation (``pair_mean`` of
     :func:`potential_density_anomaly`), at a fraction of its cost; the values
     themselves are exact only where they can decide a class.
@@ -241,6 +241,7 @@ def deciding_densities(
     sa = np.asarray(sa, dtype=float)
     ct = np.asarray(ct, dtype=float)
     shape = sa.shape
+    check_trailing_shape("deciding_densities", "ct", ct, shape, "station, level (as sa)")
     n_st, n_lev = shape[-2], shape[-1]
     a_sa = sa.reshape(-1, n_st, n_lev)
     a_ct = ct.reshape(-1, n_st, n_lev)
@@ -371,6 +372,8 @@ def bottom_width_fraction(
         Width fraction in [0, 1], dimensionless.
     """
     p = np.asarray(p, dtype=float)
+    check_trailing_shape("bottom_width_fraction", "bottom_b", np.asarray(bottom_b),
+                         np.shape(bottom_a), "pair (as bottom_a)")
     mid = 0.5 * (p[:-1] + p[1:])
     shallow = np.minimum(bottom_a, bottom_b)[:, None]
     deep = np.maximum(bottom_a, bottom_b)[:, None]
@@ -420,7 +423,14 @@ class ClassLevels:
     column: np.ndarray
 
     def dense(self) -> np.ndarray:
-        """Weights (..., pair, class, level), m (see :func:`class_weights`)."""
+        """Depth-integration weights of every class, with fractional cells.
+
+        Returns
+        -------
+        ndarray (..., pair, class, level)
+            Weights, m: the depth integral over class ``i`` of a field ``q``
+            is ``sum_k w[..., i, k] * q[k]``.
+        """
         lc = self.level_class
         out = np.empty(lc.shape[:-1] + (self.n_class, lc.shape[-1]))
         for i in range(self.n_class):
@@ -445,7 +455,7 @@ def class_levels(
     width: np.ndarray,
     tail: np.ndarray | None = None,
 ) -> ClassLevels:
-    """Class weights of every level, in compact form (see :func:`class_weights`).
+    """Class weights of every level, in compact form (dense weights: :meth:`ClassLevels.dense`).
 
     Parameters
     ----------
@@ -459,7 +469,8 @@ def class_levels(
     width : ndarray (pair, level - 1)
         Fraction of the pair's width that is water in each segment.
     tail : ndarray (pair,), optional
-        Thickness below the last level down to the bottom, m.
+        Thickness below the last level down to the bottom, m (a sliver
+        smaller than one grid step, integrated with the last level's value).
 
     Returns
     -------
@@ -470,6 +481,11 @@ def class_levels(
     n_if = len(faces)
     n_class = n_if + 1
     n_level = faces[0].shape[-1]
+    cells = (faces[0].shape[-2], n_level - 1) if faces[0].ndim >= 2 else (-1,)
+    check_trailing_shape("class_levels", "thickness", thickness, cells, "pair, level - 1")
+    check_trailing_shape("class_levels", "width", width, cells, "pair, level - 1")
+    if tail is not None:
+        check_trailing_shape("class_levels", "tail", tail, cells[:1], "pair")
     finite = np.isfinite(faces[0])
     valid = finite[..., :-1] & finite[..., 1:]  # (..., pair, seg)
     level_class = np.zeros(faces[0].shape, dtype=np.int8)
@@ -535,29 +551,3 @@ def class_levels(
         split_index = tuple(np.zeros(0, dtype=np.intp) for _ in range(finite.ndim + 1))
         split_weight = np.zeros(0)
     return ClassLevels(level_class, level_weight, split_index, split_weight, n_class, column)
-
-
-def class_weights(
-    sigma: np.ndarray | Sequence[np.ndarray],
-    interfaces: np.ndarray,
-    thickness: np.ndarray,
-    width: np.ndarray,
-    tail: np.ndarray | None = None,
-) -> np.ndarray:
-    """Depth-integration weights of every class, with fractional cells.
-
-    Parameters
-    ----------
-    sigma, interfaces, thickness, width, tail
-        As for :func:`class_levels` (kg m^-3, kg m^-3, m, 1, m). ``sigma`` may
-        also be a sequence of one (..., pair, level) array per interface, which
-        avoids stacking large arrays; ``tail`` (a sliver smaller than one grid
-        step) is integrated with the last level's value.
-
-    Returns
-    -------
-    ndarray (..., pair, class, level)
-        Weights, m: the depth integral over class ``i`` of a field ``q`` is
-        ``sum_k w[..., i, k] * q[k]``.
-    """
-    return class_levels(sigma, interfaces, thickness, width, tail).dense()

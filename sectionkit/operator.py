@@ -41,7 +41,6 @@ from sectionkit.layers import (
     cell_thickness,
     check_interfaces,
     class_levels,
-    class_weights,
     deciding_densities,
     potential_density_anomaly,
 )
@@ -100,7 +99,8 @@ class SectionOperator:
     v_eff : ndarray (..., pair, level)
         Velocity relative to the surface, extended into bottom triangles, m s^-1.
     response : ndarray (..., pair, level)
-        1 where a reference velocity reaches, 0 where not, NaN below bottom.
+        1 where a reference velocity reaches, 0 where not, NaN below bottom
+        (dimensionless).
     common : ndarray (..., pair) of int
         Index of the deepest common level.
     weights : ndarray (..., pair, class, level)
@@ -113,14 +113,15 @@ class SectionOperator:
         Transport per m s^-1 of reference velocity (area for volume, m^2).
     ekman_share : ndarray (..., quantity, pair, class)
         Quantity carried per m^3 s^-1 of Ekman volume transport in each
-        class of the top ``ekman_depth`` metres.
+        class of the top ``ekman_depth`` metres (``QUANTITY_UNITS`` per
+        m^3 s^-1; see :func:`ekman_class_share`).
     level_relative : ndarray (..., level)
         Volume transport per grid level summed over pairs, m^3 s^-1, for zero
         offset (depth overturning).
     level_area : ndarray (..., pair, level)
         Volume transport per level per m s^-1 of pair reference velocity, m^2.
     level_ekman : ndarray (pair, level)
-        Fraction of each pair's Ekman volume transport carried at each level.
+        Fraction of each pair's Ekman volume transport carried at each level (1).
     sigma_pair : dict of float -> ndarray (..., pair, level)
         Pair-mean potential density anomaly by reference pressure, kg m^-3
         (a :class:`PairDensities`: each reference pressure is computed when
@@ -499,7 +500,7 @@ def build_operator(
     level_area = length * column * _masked(response)
     level_section_area = np.einsum("j,...jk->...k", distance, column)  # (..., level) m^2
 
-    ekman_share, level_ekman = _ekman_share(
+    ekman_share, level_ekman = ekman_class_share(
         sigma_if, values, p, geometry["lat"].values, ekman_depth,
         _quantities(rho_pair, salt_pair, ct_pair, slice(0, _ekman_levels(p, geometry["lat"].values,
                                                                        ekman_depth))),
@@ -793,7 +794,7 @@ def _class_integrals(levels: ClassLevels, v: np.ndarray, response: np.ndarray, r
     return np.moveaxis(out, 0, -1).reshape(shape[:-1] + (n_class, 13))
 
 
-def _ekman_share(
+def ekman_class_share(
     sigma_if: list[np.ndarray],
     values: np.ndarray,
     p: np.ndarray,
@@ -801,11 +802,40 @@ def _ekman_share(
     depth: float,
     props: dict[str, np.ndarray],
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Per unit Ekman volume transport, the quantity carried in each class.
+    """Per unit Ekman volume transport, the amount of each property carried in each class.
 
     The Ekman transport is spread uniformly over the top ``depth`` metres of
-    each pair and split among the classes found there. Also returns the
-    fraction carried at each grid level, (..., pair, level).
+    each pair (common practice) and split among the density classes found
+    there with the same fractional-cell weights as the geostrophic part
+    (:func:`sectionkit.layers.class_levels`). The salt, heat and tracer
+    parts of a section's Ekman transport all come from here.
+
+    Parameters
+    ----------
+    sigma_if : list of ndarray (..., pair, level)
+        Pair-mean potential density anomaly at each interface's reference
+        pressure, kg m^-3 (one array per interface; one array and
+        ``values = [1e9]`` when there are no interfaces).
+    values : ndarray (interface,)
+        Interface values, kg m^-3.
+    p : ndarray (level,)
+        Pressure grid, dbar.
+    lat : ndarray (pair,)
+        Pair mid-point latitude, degrees_north.
+    depth : float
+        Ekman layer depth, m.
+    props : dict of str -> ndarray (..., pair, level)
+        Pair-mean property per unit volume transport (1 for volume, rho/rho0
+        for mass, kg m^-3 times a concentration for a tracer), any unit.
+
+    Returns
+    -------
+    share : ndarray (..., property, pair, class)
+        Property carried in each class per m^3 s^-1 of Ekman transport of the
+        pair, in the unit of ``props``; 0 where the pair has no water in the
+        Ekman layer.
+    level : ndarray (..., pair, level)
+        Fraction of the pair's Ekman transport at each grid level, 1.
     """
     n_lev = _ekman_levels(p, lat, depth)
     z = -gsw.z_from_p(p[None, :n_lev], lat[:, None])  # depth, m (pair, level)
@@ -813,7 +843,8 @@ def _ekman_share(
     seg_bot = z[:, 1:]
     inside = np.clip((depth - seg_top) / (seg_bot - seg_top), 0.0, 1.0)
     thickness = seg_bot - seg_top
-    w = class_weights([face[..., :n_lev] for face in sigma_if], values, thickness, inside)
+    w = class_levels([face[..., :n_lev] for face in sigma_if], values, thickness,
+                     inside).dense()
     if values.size == 1 and values[0] >= 1e9:  # no interfaces: a single class
         w = w[..., :1, :]
     total = w.sum(axis=(-2, -1))  # (..., pair)

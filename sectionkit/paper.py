@@ -26,10 +26,11 @@ solved; their docstrings list only the other parameters.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from decimal import ROUND_HALF_UP, Decimal
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -332,6 +333,11 @@ class Column:
     markdown: str
     numeric: bool = True
 
+    @classmethod
+    def plain(cls, text: str, numeric: bool = True) -> Column:
+        """A column whose header reads the same in both markups."""
+        return cls(text, text, numeric)
+
 
 @dataclass
 class PaperTable:
@@ -523,9 +529,17 @@ def study_setup(study: Study, results: Results, tex: bool = False) -> str:
     return _tex_text(text) if tex else text
 
 
-def _caption(first: str, body: str, study: Study, results: Results, tex: bool) -> str:
+def _caption(first: str, body: str, tex: bool) -> str:
+    """A table caption: its title, what it shows and the pointer to the setup note."""
     text = " ".join([first, body, "Setup: see the note under the tables."]).strip()
     return _tex_text(text) if tex else text
+
+
+def _table(key: str, title: str, describe: Callable[[bool], str], columns: list[Column],
+           rows: list[list[Cell]], **kwargs: Any) -> PaperTable:
+    """A table captioned, in both markups, by ``title``, ``describe(tex)`` and the setup note."""
+    return PaperTable(key, title, _caption(title, describe(True), True),
+                      _caption(title, describe(False), False), columns, rows, **kwargs)
 
 
 def _both(fn, *args) -> tuple[str, str]:
@@ -541,10 +555,10 @@ def _class_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable
     title = "Volume transport by density class across each section."
     inverse = results.inverse is not None
 
-    def caption(tex: bool) -> str:
+    def describe(tex: bool) -> str:
         sigma = r"$\sigma_n$" if tex else "σₙ"
         rho0 = r"$\rho_0$" if tex else "ρ₀"
-        body = ("These are volume transports; the inverse balances mass transports "
+        return ("These are volume transports; the inverse balances mass transports "
                 f"(divided by {rho0} = 1025 {_unit('kg/m3', tex)}), which differ from them "
                 "by the density variations within each class. "
                 + ("Initial values use the chosen references; adjusted values include the "
@@ -554,11 +568,10 @@ def _class_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable
                 "increasing station order). Class bounds are potential density anomalies "
                 f"({_unit('kg/m3', tex)}), {sigma} referenced to n × 1000 dbar; the lighter "
                 "bound is the top of the class. Area is the cross-sectional area of the class.")
-        return _caption(title, body, study, results, tex)
 
     cols = [
-        Column("Section", "Section", False),
-        Column("Class", "Class", False),
+        Column.plain("Section", False),
+        Column.plain("Class", False),
         Column(f"Lighter bound ({_unit('kg/m3', True)})",
                f"Lighter bound ({_unit('kg/m3', False)})", False),
         Column(f"Denser bound ({_unit('kg/m3', True)})",
@@ -568,7 +581,7 @@ def _class_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable
                "Initial volume (Sv)" if inverse else "Volume (Sv)"),
     ]
     if inverse:
-        cols.append(Column("Adjusted volume (Sv)", "Adjusted volume (Sv)"))
+        cols.append(Column.plain("Adjusted volume (Sv)"))
     rows = []
     for r in df.rename(columns={"class": "class_name"}).itertuples(index=False):
         row = [
@@ -582,7 +595,7 @@ def _class_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable
         if inverse:
             row.append(Cell.number(r.adjusted_sv, _err(r.adjusted_err_sv), "Sv"))
         rows.append(row)
-    return PaperTable("class_transports", title, caption(True), caption(False), cols, rows)
+    return _table("class_transports", title, describe, cols, rows)
 
 
 def _pair_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
@@ -590,24 +603,24 @@ def _pair_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
     title = ("Reference level and reference-velocity adjustment of each station pair."
              if inverse else "Reference level of each station pair.")
 
-    def caption(tex: bool) -> str:
+    def describe(tex: bool) -> str:
         body = ("Pair k lies between the two stations named; position is the pair mid-point; "
                 "the reference pressure is the level of the reference actually used (the "
                 "deepest common level where the chosen one lies deeper).")
         if inverse:
             body += (" The adjustment is added to the velocity at every level, positive to the "
                      "left of increasing station order.")
-        return _caption(title, body, study, results, tex)
+        return body
 
     cols = [
-        Column("Section", "Section", False),
-        Column("Pair", "Pair"),
-        Column("Stations", "Stations", False),
+        Column.plain("Section", False),
+        Column.plain("Pair"),
+        Column.plain("Stations", False),
         Column(f"Longitude ({_unit('degE', True)})", f"Longitude ({_unit('degE', False)})"),
         Column(f"Latitude ({_unit('degN', True)})", f"Latitude ({_unit('degN', False)})"),
-        Column("Spacing (km)", "Spacing (km)"),
-        Column("Reference", "Reference", False),
-        Column("Reference pressure (dbar)", "Reference pressure (dbar)"),
+        Column.plain("Spacing (km)"),
+        Column.plain("Reference", False),
+        Column.plain("Reference pressure (dbar)"),
     ]
     if inverse:
         cols.append(Column(f"Adjustment ({_unit('cm/s', True)})",
@@ -631,7 +644,7 @@ def _pair_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
             row.append(Cell.number(100.0 * r.adjustment_m_s,
                                    None if err is None else 100.0 * err, "cm/s"))
         rows.append(row)
-    return PaperTable("pair_adjustments", title, caption(True), caption(False), cols, rows)
+    return _table("pair_adjustments", title, describe, cols, rows)
 
 
 _ROW_UNITS = {"Sv": "Sv", "Sv g/kg": "Sv g/kg", "PW": "PW"}
@@ -642,8 +655,8 @@ _REFERENCE_KIND_TEXT = {"pressure": "pressure", "bottom": "deepest common",
 def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
     title = "Box constraints before and after the inverse."
 
-    def caption(tex: bool) -> str:
-        body = ("Net inflow into each box (positive in), initial and adjusted, with the "
+    def describe(tex: bool) -> str:
+        return ("Net inflow into each box (positive in), initial and adjusted, with the "
                 "constraint's a priori noise; the normalized residual is adjusted / noise, and "
                 "the last column judges the adjusted inflow against the residual std the "
                 "estimate can achieve (the square root of the diagonal of N - E P E-transpose, "
@@ -651,17 +664,16 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
                 "Values are rounded to the precision of the noise. Salt rows are salt-anomaly "
                 f"transports of {SALINITY_NAMES[study.config.salt_salinity]} relative to each "
                 "class's mean; a diapycnal transfer carries the mean of its two classes.")
-        return _caption(title, body, study, results, tex)
 
     cols = [
-        Column("Box", "Box", False),
-        Column("Constraint", "Constraint", False),
-        Column("Unit", "Unit", False),
-        Column("Initial", "Initial"),
-        Column("Adjusted", "Adjusted"),
-        Column("Noise", "Noise"),
-        Column("Normalized residual", "Normalized residual"),
-        Column("Adjusted / posterior std", "Adjusted / posterior std"),
+        Column.plain("Box", False),
+        Column.plain("Constraint", False),
+        Column.plain("Unit", False),
+        Column.plain("Initial"),
+        Column.plain("Adjusted"),
+        Column.plain("Noise"),
+        Column.plain("Normalized residual"),
+        Column.plain("Adjusted / posterior std"),
     ]
     rows = []
     for r in df.itertuples(index=False):
@@ -681,7 +693,7 @@ def _box_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
             Cell(value=format_fixed(posterior, FIXED_DECIMALS["1"])
                  if np.isfinite(posterior) else "–"),
         ])
-    return PaperTable("box_budget", title, caption(True), caption(False), cols, rows,
+    return _table("box_budget", title, describe, cols, rows,
                       empty_note="No inverse: there are no box constraints.")
 
 
@@ -690,7 +702,7 @@ def _summary_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTab
     flagged = [str(r.section) for r in df.itertuples(index=False)
                if np.isfinite(r.net_mass_sv) and abs(r.net_mass_sv) > NET_MASS_HEAT_TOLERANCE]
 
-    def caption(tex: bool) -> str:
+    def describe(tex: bool) -> str:
         esc = latex_escape if tex else markdown_escape
         body = ("Net volume transport and net mass transport divided by ρ₀ = 1025 kg m⁻³; "
                 "heat is the "
@@ -708,16 +720,16 @@ def _summary_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTab
             body += (f" For {', '.join(esc(s) for s in flagged)} the net mass transport exceeds "
                      f"{_num(NET_MASS_HEAT_TOLERANCE)} Sv, so the heat column there is a "
                      "temperature transport relative to 0 °C, not a heat transport.")
-        return _caption(title, body, study, results, tex)
+        return body
 
     cols = [
-        Column("Section", "Section", False),
-        Column("Net volume (Sv)", "Net volume (Sv)"),
+        Column.plain("Section", False),
+        Column.plain("Net volume (Sv)"),
         Column(r"Net mass$/\rho_0$ (Sv)", "Net mass/ρ₀ (Sv)"),
-        Column("Heat (PW)", "Heat (PW)"),
-        Column("Freshwater (Sv)", "Freshwater (Sv)"),
-        Column("Overturning, depth (Sv)", "Overturning, depth (Sv)"),
-        Column("Overturning, density (Sv)", "Overturning, density (Sv)"),
+        Column.plain("Heat (PW)"),
+        Column.plain("Freshwater (Sv)"),
+        Column.plain("Overturning, depth (Sv)"),
+        Column.plain("Overturning, density (Sv)"),
     ]
     rows = []
     for r in df.itertuples(index=False):
@@ -730,7 +742,7 @@ def _summary_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTab
             Cell.number(r.overturning_sv, _err(r.overturning_err_sv), "Sv"),
             Cell.number(r.overturning_density_sv, _err(r.overturning_density_err_sv), "Sv"),
         ])
-    return PaperTable("section_summary", title, caption(True), caption(False), cols, rows)
+    return _table("section_summary", title, describe, cols, rows)
 
 
 def _transfer_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTable:
@@ -739,20 +751,19 @@ def _transfer_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTa
     faces = study.config.interfaces
     names = study.config.layer_names
 
-    def caption(tex: bool) -> str:
-        body = ("Transfer across each interface inside each box, positive from the lighter "
+    def describe(tex: bool) -> str:
+        return ("Transfer across each interface inside each box, positive from the lighter "
                 "to the denser class (Sv), and the fractional adjustment of each section's "
                 "Ekman transport, with prior and posterior standard deviations and the "
                 "diagonal of the resolution matrix (1: fully determined by the constraints; "
                 "0: the prior alone).")
-        return _caption(title, body, study, results, tex)
 
     cols = [
-        Column("Unknown", "Unknown", False),
-        Column("Between", "Between", False),
-        Column("Prior std", "Prior std"),
-        Column("Estimate", "Estimate"),
-        Column("Resolution", "Resolution"),
+        Column.plain("Unknown", False),
+        Column.plain("Between", False),
+        Column.plain("Prior std"),
+        Column.plain("Estimate"),
+        Column.plain("Resolution"),
     ]
     rows = []
     for r in df.itertuples(index=False):
@@ -785,7 +796,7 @@ def _transfer_table(df: pd.DataFrame, study: Study, results: Results) -> PaperTa
                 Cell.number(r.estimate, _err(r.posterior_std), "1"),
                 Cell(value=format_fixed(r.resolution, FIXED_DECIMALS["1"])),
             ])
-    return PaperTable("inverse_unknowns", title, caption(True), caption(False), cols, rows,
+    return _table("inverse_unknowns", title, describe, cols, rows,
                       empty_note="No diapycnal or Ekman unknowns in this inverse.")
 
 
@@ -793,21 +804,20 @@ def _property_table(study: Study, results: Results) -> PaperTable:
     """Bottle-tracer transports by class, with each section's total."""
     title = "Tracer transports by density class across each section."
 
-    def caption(tex: bool) -> str:
+    def describe(tex: bool) -> str:
         unit = _unit("kmol/s", tex)
-        body = (f"Transport of each bottle tracer ({unit}): in-situ density times "
+        return (f"Transport of each bottle tracer ({unit}): in-situ density times "
                 "concentration (µmol kg⁻¹) times the absolute velocity, integrated over the "
                 "class, through the same operator as volume and salt; bottle profiles are "
                 "PCHIP interpolations between good bottles (WOCE flags 2 and 6; 3, 7 and 8 "
                 "with a caution), extended unchanged above the shallowest and below the "
                 "deepest bottle. Section frame: positive to the left of increasing station "
                 "order.")
-        return _caption(title, body, study, results, tex)
 
     cols = [
-        Column("Section", "Section", False),
-        Column("Tracer", "Tracer", False),
-        Column("Class", "Class", False),
+        Column.plain("Section", False),
+        Column.plain("Tracer", False),
+        Column.plain("Class", False),
         Column(f"Initial ({_unit('kmol/s', True)})", f"Initial ({_unit('kmol/s', False)})"),
     ]
     inverse = results.inverse is not None
@@ -828,7 +838,7 @@ def _property_table(study: Study, results: Results) -> PaperTable:
             if inverse:
                 row.append(Cell.number(sel.adjusted[k], _err(sel.error[k]), "kmol/s"))
             rows.append(row)
-    return PaperTable("property_transports", title, caption(True), caption(False), cols, rows)
+    return _table("property_transports", title, describe, cols, rows)
 
 
 def paper_tables(study: Study, results: Results) -> list[PaperTable]:

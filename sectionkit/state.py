@@ -306,7 +306,12 @@ class Results:
     state : BudgetState
         What was solved.
     outputs : dict of str -> LinearOutputs
-        Every section's reported numbers (Sv, PW, Sv g/kg) as ``initial + G x``.
+        Every section's reported numbers (Sv, PW, Sv g/kg, dbar) as
+        ``initial + G x``; select them by registry name (:meth:`select`).
+    references, ekman, layout, estimate, covariance
+        Properties: the state's references (dbar, m s^-1), Ekman transports
+        (m^3 s^-1), unknowns, and the inverse's estimate and covariance
+        (unknown units: m s^-1, Sv or 1).
     inverse : InverseResult or None
         The solved inverse; None without one.
     cautions : Cautions
@@ -338,28 +343,25 @@ class Results:
 
     @property
     def estimate(self) -> np.ndarray:
-        """Adjusted unknowns (zeros without an inverse)."""
+        """Adjusted unknowns (zeros without an inverse), unknown units (m s^-1, Sv or 1)."""
         return self.inverse.estimate if self.inverse else np.zeros(self.layout.size)
 
     @property
     def covariance(self) -> np.ndarray | None:
-        """Posterior covariance (None without an inverse)."""
+        """Posterior covariance, unknown units squared (None without an inverse)."""
         return self.inverse.covariance if self.inverse else None
 
-    def value(self, section: str, name: str, adjusted: bool = True) -> float:
-        """One output of one section, initial or adjusted (reporting units)."""
-        out = self.outputs[section]
-        k = out.index(name)
-        if not adjusted or self.inverse is None:
-            return float(out.initial[k])
-        return float(out.initial[k] + out.row(k) @ self.estimate)
+    def value(self, section: str, key: str, adjusted: bool = True) -> float:
+        """One value of one section by its key in the linear outputs (``"net"``,
+        ``"volume:<class>"``), initial or adjusted, reporting units; reports select by
+        registry name (:meth:`select`)."""
+        sel = self.block(section, [key])
+        return float(sel.adjusted[0] if adjusted else sel.initial[0])
 
-    def error(self, section: str, name: str) -> float:
-        """Posterior standard deviation of one output, sqrt(G P G^T) (NaN without an inverse)."""
-        if self.covariance is None:
-            return float("nan")
-        out = self.outputs[section]
-        return float(output_std(out.row(out.index(name)), self.covariance))
+    def error(self, section: str, key: str) -> float:
+        """Posterior standard deviation of one value by its key (as :meth:`value`),
+        sqrt(G P G^T), reporting units; NaN without an inverse."""
+        return float(self.block(section, [key]).error[0])
 
     def block(self, section: str, keys: list[str]) -> Selection:
         """Initial, adjusted and error of the outputs ``keys`` of one section."""

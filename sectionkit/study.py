@@ -155,15 +155,40 @@ class Study:
             choices = [self.config.reference_for(label) for label in op.pair_labels]
             p_used, offset = op.resolve_references(choices, cautions)
             kinds = [c.kind for c in choices]
-            direct = self.direct.get(name)
-            if direct is not None and self.config.adcp.use == "known":
+            have = self._known_direct(name, cautions)
+            if have is not None:
                 # the pair's reference is the direct velocity averaged over the range
-                have = np.isfinite(direct.velocity)
+                direct = self.direct[name]
                 offset = np.where(have, direct.velocity, offset)
                 p_used = np.where(have, direct.pressure, p_used)
                 kinds = ["velocity" if h else k for h, k in zip(have, kinds, strict=True)]
             out[name] = ReferenceState(kinds, p_used, offset)
         return out
+
+    def _known_direct(self, name: str, cautions: Cautions | None) -> np.ndarray | None:
+        """Pairs of section ``name`` whose reference is their direct velocity (``use = "known"``).
+
+        A direct velocity is the reference of every pair that has one, except
+        pairs with an explicit ``[reference] overrides`` entry: what the user
+        wrote for one pair wins, and a caution names those pairs. None when
+        the section has no direct velocities used as known references.
+        """
+        direct = self.direct.get(name)
+        if direct is None or self.config.adcp is None or self.config.adcp.use != "known":
+            return None
+        labels = self.operators[name].pair_labels
+        measured = np.isfinite(direct.velocity)
+        explicit = np.array([label in self.config.overrides for label in labels], dtype=bool)
+        kept = [label for label, m, e in zip(labels, measured, explicit, strict=True) if m and e]
+        if kept and cautions is not None:
+            cautions.add(
+                "direct-velocity-overridden",
+                f"section {name}: pair{'s' if len(kept) > 1 else ''} {', '.join(kept)} "
+                "keep their explicit [reference] overrides although a direct velocity is "
+                "available ([adcp] use = \"known\"); remove the override to reference "
+                f"{'them' if len(kept) > 1 else 'it'} to the direct velocity",
+            )
+        return measured & ~explicit
 
     def ekman(self) -> dict[str, np.ndarray]:
         """Ekman volume transport per pair of every section, m^3 s^-1."""
@@ -192,16 +217,19 @@ class Study:
         """Prior standard deviation of each pair's adjustment by section, m s^-1.
 
         Pairs referenced to a known velocity use its stated error (when > 0);
-        pairs with a direct velocity use the error of its range mean.
+        pairs with a direct velocity use the error of its range mean, except,
+        under ``[adcp] use = "known"``, pairs whose explicit override was kept.
         """
         inv = self.config.inverse
         out = {}
         for name, op in self.operators.items():
             direct = self.direct.get(name)
+            known = self._known_direct(name, None)
             prior = []
             for k, label in enumerate(op.pair_labels):
                 ref = self.config.reference_for(label)
-                if direct is not None and np.isfinite(direct.error[k]):
+                overridden = known is not None and label in self.config.overrides
+                if direct is not None and np.isfinite(direct.error[k]) and not overridden:
                     prior.append(direct.error[k])
                 elif ref.kind == "velocity" and ref.velocity_error > 0:
                     prior.append(ref.velocity_error)
@@ -246,7 +274,8 @@ class Study:
                     "triangle's velocity rule",
                 )
         for name in outputs:
-            net, err = results.value(name, "net"), results.error(name, "net")
+            selected = results.select("net_volume_transport", name)
+            net, err = float(selected.adjusted[0]), float(selected.error[0])
             limit = err if np.isfinite(err) else NET_MASS_HEAT_TOLERANCE
             if abs(net) > limit:
                 cautions.add(

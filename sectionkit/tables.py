@@ -148,19 +148,18 @@ def summary_table(study: Study, results: Results) -> pd.DataFrame:
         row = {"section": name}
         for col, output in (("net_sv", "net_volume_transport"), ("heat_pw", "heat_transport"),
                             ("freshwater_sv", "freshwater_transport"),
-                            ("overturning_sv", "overturning_depth")):
-            key = REGISTRY[output].key
-            row[col] = results.value(name, key)
-            row[col.replace("_sv", "_err_sv").replace("_pw", "_err_pw")] = results.error(name, key)
-        row["net_mass_sv"] = results.value(name, "net_mass")
-        row["net_mass_err_sv"] = results.error(name, "net_mass")
+                            ("overturning_sv", "overturning_depth"),
+                            ("net_mass_sv", "net_mass_transport"),
+                            ("overturning_density_sv", "overturning_density")):
+            selected = results.select(output, name)
+            row[col] = float(selected.adjusted[0])
+            row[col.replace("_sv", "_err_sv").replace("_pw", "_err_pw")] = float(
+                selected.error[0])
         op = study.operators[name]
         row["freshwater_ref_salinity"] = (float(op.mean_salinity)
                                           if study.config.reference_salinity is None
                                           else study.config.reference_salinity)
         row["freshwater_ref_kind"] = SALINITY_NAMES[study.config.salt_salinity]
-        row["overturning_density_sv"] = results.value(name, "overturning_density")
-        row["overturning_density_err_sv"] = results.error(name, "overturning_density")
         rows.append(row)
     order = ["section", "net_sv", "net_err_sv", "heat_pw", "heat_err_pw", "freshwater_sv",
              "freshwater_err_sv", "overturning_sv", "overturning_err_sv", "net_mass_sv",

@@ -21,7 +21,7 @@ import gsw
 import numpy as np
 import xarray as xr
 
-from sectionkit.errors import SectionDataError
+from sectionkit.errors import SectionDataError, check_trailing_shape
 
 #: Offset between the kelvin and Celsius scales, K.
 KELVIN_OFFSET = 273.15
@@ -416,6 +416,38 @@ def _fast_block(sa: np.ndarray, ct: np.ndarray, p: np.ndarray, n: int, max_dp: f
     return b, psi
 
 
+def station_profiles(
+    kernel: str, sa: np.ndarray, ct: np.ndarray, p: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """SA and CT profiles and their pressure grid as float arrays, their shapes checked.
+
+    Parameters
+    ----------
+    kernel : str
+        Name of the calling kernel, for the message.
+    sa, ct : array_like (..., station, level)
+        Absolute Salinity (g/kg) and Conservative Temperature (degC), the same shape.
+    p : array_like (level,)
+        Sea pressure, dbar.
+
+    Returns
+    -------
+    sa, ct, p : ndarray
+        The inputs as float arrays.
+
+    Raises
+    ------
+    ComputationError
+        When ``ct`` differs in shape from ``sa`` or ``p`` from its last axis.
+    """
+    sa = np.asarray(sa, dtype=float)
+    ct = np.asarray(ct, dtype=float)
+    p = np.asarray(p, dtype=float)
+    check_trailing_shape(kernel, "ct", ct, sa.shape, "station, level (as sa)")
+    check_trailing_shape(kernel, "p", p, sa.shape[-1:], "level (as sa)")
+    return sa, ct, p
+
+
 def specific_volume_pass(
     sa: np.ndarray, ct: np.ndarray, p: np.ndarray, max_dp: float = 1.0
 ) -> SpecificVolumePass:
@@ -447,9 +479,7 @@ def specific_volume_pass(
     -------
     SpecificVolumePass
     """
-    sa = np.asarray(sa, dtype=float)
-    ct = np.asarray(ct, dtype=float)
-    p = np.asarray(p, dtype=float)
+    sa, ct, p = station_profiles("specific_volume_pass", sa, ct, p)
     shape = sa.shape
     sa2 = sa.reshape(-1, shape[-1])
     ct2 = ct.reshape(-1, shape[-1])
@@ -509,6 +539,8 @@ def density_jumps(SA: np.ndarray, CT: np.ndarray, p: np.ndarray, lag: int) -> np
         level is missing.
     """
     p = np.asarray(p, dtype=float)
+    check_trailing_shape("density_jumps", "CT", CT, np.shape(SA), "level (as SA)")
+    check_trailing_shape("density_jumps", "p", p, np.shape(SA)[-1:], "level (as SA)")
     p_mid = 0.5 * (p[:-lag] + p[lag:])
     upper = gsw.rho(SA[..., :-lag], CT[..., :-lag], p_mid)
     lower = gsw.rho(SA[..., lag:], CT[..., lag:], p_mid)

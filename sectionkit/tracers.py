@@ -27,7 +27,7 @@ import xarray as xr
 from sectionkit.budget import SV, LinearOutputs, UnknownLayout
 from sectionkit.errors import SectionDataError
 from sectionkit.geostrophy import pair_mean
-from sectionkit.operator import RHO0, SectionOperator, _ekman_share
+from sectionkit.operator import RHO0, SectionOperator, ekman_class_share
 
 KMOL = 1e9  # umol per kmol
 UNIT = "kmol s-1"
@@ -142,8 +142,8 @@ def build_tracer_operator(
     sigma_if = [op.sigma_pair[face.p_ref] for face in faces] or [op.sigma_pair[0.0]]
     values = np.array([face.sigma for face in faces]) if faces else np.array([1e9])
     props = {name: prop[t] for t, name in enumerate(names)}
-    share, _ = _ekman_share(sigma_if, values, op.pressure, op.pairs["lat"].values,
-                            op.ekman_depth, props)
+    share, _ = ekman_class_share(sigma_if, values, op.pressure, op.pairs["lat"].values,
+                                 op.ekman_depth, props)
     return TracerOperator(op.name, list(names), relative, area, share, moments)
 
 

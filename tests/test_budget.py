@@ -10,7 +10,7 @@ from sectionkit.budget import SV, make_layout, section_outputs, section_values
 from sectionkit.config import parse_config
 from sectionkit.errors import ConfigError
 from sectionkit.geostrophy import ReferenceChoice, resolve_references
-from sectionkit.layers import Interface, check_interfaces, class_weights
+from sectionkit.layers import Interface, check_interfaces, class_levels
 from sectionkit.operator import RHO0, build_operator
 from sectionkit.study import Study
 
@@ -38,7 +38,7 @@ def test_class_integral_of_linear_fields_is_exact_with_fractional_cells():
     sigma = (s0 + g * p)[None, None, :]
     face = 25.0 + g * 43.0  # crosses between 40 and 50
     thickness = np.full((1, p.size - 1), 10.0)  # metres per segment
-    w = class_weights(sigma, np.array([face]), thickness, np.ones((1, p.size - 1)))
+    w = class_levels(sigma, np.array([face]), thickness, np.ones((1, p.size - 1))).dense()
     v = v0 + c * p
     upper = (w[0, 0] * v).sum()
     lower = (w[0, 1] * v).sum()

@@ -10,7 +10,7 @@ from sectionkit.layers import (
     DECIDING_RANGE,
     DRHO_DCT_BOUND,
     DRHO_DSA_BOUND,
-    class_weights,
+    class_levels,
     deciding_densities,
 )
 from sectionkit.operator import PairDensities
@@ -49,7 +49,8 @@ def _weights(faces_density, p, n_pair):
     values = np.array([v for v, _ in FACES])
     thickness = np.broadcast_to(np.diff(p), (n_pair, p.size - 1)) * 1.01
     width = np.ones((n_pair, p.size - 1))
-    return class_weights(faces_density, values, thickness, width, np.full(n_pair, 3.0))
+    return class_levels(faces_density, values, thickness, width,
+                        np.full(n_pair, 3.0)).dense()
 
 
 def test_class_weights_equal_the_full_evaluation_bit_for_bit():

@@ -12,6 +12,7 @@ from sectionkit.config import parse_config
 from sectionkit.direct import normal_velocity, range_mean
 from sectionkit.errors import SectionDataError
 from sectionkit.geometry import along_line_direction
+from sectionkit.geostrophy import ReferenceChoice
 from sectionkit.io.adcp import read_velocity_profiles
 from sectionkit.study import Study
 
@@ -190,3 +191,39 @@ def test_an_unperturbed_ensemble_member_keeps_the_direct_velocity_prior_means(tm
     member = run_member(study, np.random.SeedSequence(1),
                         Perturbation(temperature=0.0, salinity=0.0, pressure=0.0))
     np.testing.assert_allclose(member["estimate"], study.solve().estimate, atol=1e-12)
+
+
+def test_explicit_pair_override_wins_over_a_known_direct_velocity(tmp_path):
+    # east-west line: the northward 0.1 m/s is the normal velocity (hand calculation)
+    _ladcp_csv(tmp_path / "ladcp.csv", 0.0, 0.1)
+    cfg = _config(tmp_path, "known", inverse=False)
+    cfg.overrides["line:1"] = ReferenceChoice("velocity", pressure=800.0, velocity=-0.02)
+    study = Study.from_config(cfg, sections={"line": _still_section()})
+    results = study.solve()
+    ref = results.references["line"]
+    # pair 0 has no override: its direct velocity is its reference; pair 1 keeps what the
+    # user wrote for it (-0.02 m/s at 800 dbar; no shear, so the offset is that velocity)
+    assert ref.kinds == ["velocity", "velocity"]
+    assert ref.offset[0] == pytest.approx(0.1, abs=2e-4)
+    assert ref.offset[1] == pytest.approx(-0.02, abs=1e-12)
+    assert ref.pressure[1] == pytest.approx(800.0)
+    kept = results.cautions.of_kind("direct-velocity-overridden")
+    assert len(kept) == 1 and "line:1" in kept[0].message and "line:0" not in kept[0].message
+
+
+def test_no_caution_when_no_override_meets_a_direct_velocity(tmp_path):
+    _ladcp_csv(tmp_path / "ladcp.csv", 0.0, 0.1)
+    study = Study.from_config(_config(tmp_path, "known", inverse=False),
+                              sections={"line": _still_section()})
+    assert not study.solve().cautions.of_kind("direct-velocity-overridden")
+
+
+def test_a_kept_override_uses_its_own_error_as_the_prior_not_the_direct_velocitys(tmp_path):
+    _ladcp_csv(tmp_path / "ladcp.csv", 0.0, 0.1)
+    cfg = _config(tmp_path, "known")
+    cfg.overrides["line:1"] = ReferenceChoice("velocity", pressure=800.0, velocity=-0.02,
+                                              velocity_error=0.003)
+    study = Study.from_config(cfg, sections={"line": _still_section()})
+    prior = study.velocity_prior()["line"]
+    assert prior[0] == pytest.approx(study.direct["line"].error[0])
+    assert prior[1] == pytest.approx(0.003)

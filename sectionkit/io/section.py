@@ -5,6 +5,7 @@ from __future__ import annotations
 import dataclasses
 import os
 from collections.abc import Mapping, Sequence
+from typing import Any
 
 import numpy as np
 import xarray as xr
@@ -333,18 +334,11 @@ def grid_raw_section(raw: RawSection, rules: GriddingRules, cautions: Cautions) 
 def load_section(
     source: Source,
     *,
-    name: str | None = None,
     dp: float = 2.0,
     allow_equator: bool = False,
-    columns: Mapping[str, str] | None = None,
-    temperature_kind: str = "in-situ",
-    salinity_kind: str = "practical",
-    pressure_units: str = "dbar",
-    temperature_units: str = "degC",
-    variables: Mapping[str, str] | None = None,
-    order: Sequence[str] | None = None,
     rules: GriddingRules | None = None,
     bottle: str | os.PathLike | None = None,
+    **read_options: Any,
 ) -> tuple[xr.Dataset, Cautions]:
     """Read, check and grid a section: the canonical Dataset and its cautions.
 
@@ -352,24 +346,22 @@ def load_section(
     ----------
     source : path, folder or sequence of paths
         As for :func:`read_section`.
-    name : str, optional
-        Section name (default: file or folder name without extension).
     dp : float
         Grid step, dbar.
     allow_equator : bool
         Keep pairs whose mid-point lies within 2 degrees of the equator
         (with a caution) instead of raising EquatorError.
-    columns, temperature_kind, salinity_kind, pressure_units, temperature_units
-        CSV layout, as for :func:`read_section`.
-    variables : mapping, optional
-        NetCDF: quantity to variable name where standard names are ambiguous.
-    order : sequence of str, optional
-        Station ids in the wanted order.
     rules : GriddingRules, optional
         Gap limits (dbar) and bottom tolerance (m); its dp is replaced by ``dp``.
     bottle : path, optional
         A WHP-Exchange bottle file of the same stations: its tracers are
         gridded by the rule of :mod:`sectionkit.io.bottle`.
+    **read_options
+        How to read the files, passed to :func:`read_section` (one list of
+        them): ``name`` (default: file or folder name without extension),
+        the CSV layout ``columns``, ``temperature_kind``, ``salinity_kind``,
+        ``pressure_units``, ``temperature_units``, the NetCDF ``variables``
+        and the station ``order``.
 
     Returns
     -------
@@ -397,17 +389,7 @@ def load_section(
     except (TypeError, ValueError) as exc:
         raise SectionDataError(f"grid step dp = {dp!r} must be a number of dbar, e.g. 2.0") from exc
     rules = dataclasses.replace(base, dp=dp)
-    raw = read_section(
-        source,
-        name=name,
-        columns=columns,
-        temperature_kind=temperature_kind,
-        salinity_kind=salinity_kind,
-        pressure_units=pressure_units,
-        temperature_units=temperature_units,
-        variables=variables,
-        order=order,
-    )
+    raw = read_section(source, **read_options)
     cautions = validate_section(raw, allow_equator=allow_equator)
     dataset = grid_raw_section(raw, rules, cautions)
     if bottle is not None:
