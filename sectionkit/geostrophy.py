@@ -205,12 +205,13 @@ def pair_mean(station_values: np.ndarray) -> np.ndarray:
     ndarray (..., pair, level)
         Pair-mean property, same unit.
     """
+    station_values = np.asarray(station_values, dtype=float)
     a = station_values[..., :-1, :]
     b = station_values[..., 1:, :]
-    mean = 0.5 * (a + b)
-    gap = np.isnan(mean)
-    if gap.any():
-        mean[gap] = np.where(np.isnan(a[gap]), b[gap], a[gap])
+    mean = np.add(a, b)
+    mean *= 0.5
+    np.copyto(mean, a, where=np.isnan(b))  # the deeper station alone ...
+    np.copyto(mean, b, where=np.isnan(a))  # ... whichever it is (NaN where both are)
     return mean
 
 

@@ -24,6 +24,7 @@ import gsw
 import numpy as np
 
 from sectionkit.errors import ConfigError, check_trailing_shape
+from sectionkit.geostrophy import pair_mean
 from sectionkit.labels import split_constraint_label
 
 
@@ -184,14 +185,6 @@ DECIDING_RANGE = {"SA": (0.0, 42.0), "CT": (-2.5, 40.0), "p_ref": (0.0, 11000.0)
 _ROUNDING = 1e-9
 
 
-def _pair_of(a: np.ndarray) -> np.ndarray:
-    """Pair mean along axis 1 of station values, as :func:`geostrophy.pair_mean` forms it."""
-    x = a[:, :-1]
-    y = a[:, 1:]
-    mean = 0.5 * (x + y)
-    return np.where(np.isnan(mean), np.where(np.isnan(x), y, x), mean)
-
-
 def _block_reduce(blocks: np.ndarray, op: np.ufunc) -> np.ndarray:
     """``op`` (np.maximum, np.minimum, np.fmax) over the last axis, a power of two long,
     as a tree of element-wise operations (much faster than a reduction along a short axis)."""
@@ -253,7 +246,7 @@ def deciding_densities(
     if n_blk < 2 or n_st < 2:
         for pr in interfaces:
             sig = potential_density_anomaly(a_sa, a_ct, pr)
-            result[pr] = _pair_of(sig).reshape(out_shape)
+            result[pr] = pair_mean(sig).reshape(out_shape)
         return result
     body = n_blk * stride
     # station blocks [b s, (b+1) s], both ends included
@@ -279,11 +272,11 @@ def deciding_densities(
     for pr, values in interfaces.items():
         out = np.empty((n_lead, n_st - 1, n_lev))
         # the levels after the last whole block, exactly
-        out[..., body:] = _pair_of(potential_density_anomaly(a_sa[..., body:], a_ct[..., body:],
+        out[..., body:] = pair_mean(potential_density_anomaly(a_sa[..., body:], a_ct[..., body:],
                                                              pr))
         sig_top = potential_density_anomaly(top_sa, top_ct, pr)
         out_blocks = out[..., :body].reshape(n_lead, n_st - 1, n_blk, stride)
-        out_blocks[...] = _pair_of(sig_top)[..., None]
+        out_blocks[...] = pair_mean(sig_top)[..., None]
         if not lo_p <= pr <= hi_p:
             undecided = np.ones(no_data.shape, dtype=bool)
         else:
@@ -309,7 +302,7 @@ def deciding_densities(
             station_sigma[at] = potential_density_anomaly(blocks_sa[at], blocks_ct[at], pr)
             sig = np.stack([station_sigma[lead, pair, blk], station_sigma[lead, pair + 1, blk]],
                            axis=1)  # (block, 2, level in block)
-            out_blocks[lead, pair, blk] = _pair_of(sig)[:, 0]
+            out_blocks[lead, pair, blk] = pair_mean(sig)[:, 0]
         result[pr] = out.reshape(out_shape)
     return result
 

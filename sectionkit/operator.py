@@ -334,17 +334,6 @@ class SectionOperator:
         return self.class_moments[..., 0, :]
 
 
-def _pair_mean(station_values: np.ndarray) -> np.ndarray:
-    """:func:`sectionkit.geostrophy.pair_mean` (the same numbers) without fancy indexing."""
-    a = station_values[..., :-1, :]
-    b = station_values[..., 1:, :]
-    mean = np.add(a, b)
-    mean *= 0.5
-    np.copyto(mean, a, where=np.isnan(b))  # the deeper station alone ...
-    np.copyto(mean, b, where=np.isnan(a))  # ... whichever it is (NaN where both are)
-    return mean
-
-
 def _masked(a: np.ndarray) -> np.ndarray:
     """The array with NaN (below the bottom) set to zero."""
     return np.where(np.isnan(a), 0.0, a)
@@ -442,11 +431,11 @@ def build_operator(
         rho_station = gsw.rho(sa, ct, p)
     v_eff, response = extend_into_bottom_triangle(v_rel, p, common, deepest, bottom_triangle)
 
-    sa_pair = _pair_mean(sa)
-    ct_pair = _pair_mean(ct)
-    salt_pair = _pair_mean(budget_salinity(sa, p, section["lon"].values, section["lat"].values,
+    sa_pair = pair_mean(sa)
+    ct_pair = pair_mean(ct)
+    salt_pair = pair_mean(budget_salinity(sa, p, section["lon"].values, section["lat"].values,
                                           salinity))
-    rho_pair = _pair_mean(rho_station)
+    rho_pair = pair_mean(rho_station)
     del rho_station
     # potential density only where it can decide a class (class weights identical to the
     # full evaluation); the full pair-mean fields are computed when first asked for

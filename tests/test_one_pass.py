@@ -122,10 +122,10 @@ def test_pair_means_take_the_deeper_station_alone_below_the_shallower():
     # numpy's nanmean of the two stations: their mean, or the one with data
     import warnings
 
-    from sectionkit.operator import _pair_mean
+    from sectionkit.geostrophy import pair_mean
 
     sa, ct, p = _profiles(2, 120, 5.0, seed=6)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # both stations empty: NaN
         expected = np.nanmean(np.stack([sa[..., :-1, :], sa[..., 1:, :]]), axis=0)
-    np.testing.assert_array_equal(_pair_mean(sa), expected)
+    np.testing.assert_array_equal(pair_mean(sa), expected)
