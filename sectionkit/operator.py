@@ -172,7 +172,7 @@ class SectionOperator:
     level_relative: np.ndarray
     level_area: np.ndarray
     level_ekman: np.ndarray
-    sigma_pair: dict[float, np.ndarray]
+    sigma_pair: PairDensities
     class_salinity: np.ndarray
     class_temperature: np.ndarray
     mean_salinity: np.ndarray
@@ -268,9 +268,8 @@ class SectionOperator:
     def sigma_for(self, choices) -> dict[float, np.ndarray]:
         """Pair-mean potential density at every reference pressure the choices need.
 
-        Densities for the class interfaces are computed when the operator is
-        built; an isopycnal reference at another reference pressure is
-        computed here once, from the stations' SA and CT, and kept.
+        ``sigma_pair`` (a :class:`PairDensities`) computes each reference
+        pressure from the stations' SA and CT when first asked for and keeps it.
 
         Parameters
         ----------
@@ -282,12 +281,8 @@ class SectionOperator:
         dict of float -> ndarray (..., pair, level)
             ``sigma_pair``, completed; kg m^-3.
         """
-        for pr in {c.sigma_p_ref for c in choices if c.kind == "isopycnal"} - set(self.sigma_pair):
-            if isinstance(self.sigma_pair, PairDensities):
-                self.sigma_pair[pr]  # computed on first access
-            else:
-                self.sigma_pair[pr] = pair_mean(potential_density_anomaly(
-                    self.station_sa, self.station_ct, pr))
+        for pr in {c.sigma_p_ref for c in choices if c.kind == "isopycnal"}:
+            self.sigma_pair[pr]  # computed on first access, then kept
         return self.sigma_pair
 
     def absolute_velocity(self, offset: np.ndarray, adjustment: np.ndarray | float = 0.0):
