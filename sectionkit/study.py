@@ -55,6 +55,8 @@ class Study:
     load_cautions: Cautions = field(default_factory=Cautions)
     tracer_operators: dict[str, TracerOperator] = field(default_factory=dict)
     direct: dict[str, DirectReference] = field(default_factory=dict)
+    #: Direct velocity profiles read once per file (a rebuild reuses them).
+    _velocity_profiles: dict = field(default_factory=dict, init=False, repr=False)
 
     @classmethod
     def from_config(
@@ -141,7 +143,10 @@ class Study:
             else:
                 self.tracer_operators.pop(spec.name, None)
             if spec.adcp and cfg.adcp is not None:
-                profiles = read_velocity_profiles(cfg.base_dir / spec.adcp)
+                path = cfg.base_dir / spec.adcp
+                if path not in self._velocity_profiles:  # read once, not at every rebuild
+                    self._velocity_profiles[path] = read_velocity_profiles(path)
+                profiles = self._velocity_profiles[path]
                 self.direct[spec.name] = direct_reference(
                     self.operators[spec.name], profiles, cfg.adcp.pressure_range,
                     cfg.adcp.error, self.load_cautions,

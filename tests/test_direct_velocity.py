@@ -227,3 +227,21 @@ def test_a_kept_override_uses_its_own_error_as_the_prior_not_the_direct_velocity
     prior = study.velocity_prior()["line"]
     assert prior[0] == pytest.approx(study.direct["line"].error[0])
     assert prior[1] == pytest.approx(0.003)
+
+
+def test_a_rebuild_reads_the_direct_velocity_file_once_and_gives_the_same_references(
+        tmp_path, monkeypatch):
+    # a change of classes rebuilds the operators; the velocity file is read at load only
+    import sectionkit.study as study_module
+
+    _ladcp_csv(tmp_path / "ladcp.csv", 0.0, 0.04)  # east-west line: northward is normal
+    reads = []
+    real = study_module.read_velocity_profiles
+    monkeypatch.setattr(study_module, "read_velocity_profiles",
+                        lambda path: reads.append(path) or real(path))
+    study = Study.from_config(_config(tmp_path, "known", inverse=False),
+                              sections={"line": _still_section()})
+    before = study.direct["line"].velocity.copy()
+    study.rebuild_operators()
+    assert len(reads) == 1
+    np.testing.assert_array_equal(study.direct["line"].velocity, before)
