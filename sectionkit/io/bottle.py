@@ -40,6 +40,7 @@ from sectionkit.io.exchange import (
     apply_flags,
     exchange_texts,
     parse_exchange,
+    station_key,
 )
 
 #: Exchange parameter name -> (plain name, long name) of the tracers read.
@@ -99,16 +100,6 @@ def tracer_name(name: str) -> str:
             return plain
     known = ", ".join(f"{plain} ({column})" for column, (plain, _) in TRACERS.items())
     raise ConfigError(f"tracer {name!r} is not known; tracers sectionkit reads: {known}")
-
-
-def station_key(station: str) -> str:
-    """STNNBR as a comparable key: ``"007"``, ``"7"`` and ``"7.0"`` are one station."""
-    text = str(station).strip()
-    try:
-        value = float(text)
-    except ValueError:
-        return text
-    return f"{value:g}"
 
 
 @dataclass

@@ -526,6 +526,16 @@ def read_exchange_ctd(path: str | os.PathLike, cautions: Cautions) -> list[Profi
     return profiles
 
 
+def station_key(station: str) -> str:
+    """STNNBR as a comparable key: ``"007"``, ``"7"`` and ``"7.0"`` are one station."""
+    text = str(station).strip()
+    try:
+        value = float(text)
+    except ValueError:
+        return text
+    return f"{value:g}"
+
+
 def station_sort_key(station: str) -> tuple:
     """Order of STNNBR values: numbers by value, then text."""
     text = str(station).strip()
