@@ -104,8 +104,11 @@ def _read_csv(file: str) -> list[VelocityProfile]:
                                  f"({exc})") from None
         label = str(key).strip()
         if kind == "pair":
-            value = float(label)
-            if value != int(value) or value < 0:
+            try:
+                value = float(label)
+            except ValueError:
+                value = np.nan
+            if not np.isfinite(value) or value != int(value) or value < 0:
                 raise InputFileError(f"file {file}: pair {label!r} is not a 0-based pair index")
             label = str(int(value))
         out.append(VelocityProfile(kind, label, file, p, u, v, section))
