@@ -144,6 +144,13 @@ def test_pair_column_that_is_not_a_pair_index_is_refused_naming_file_and_value(t
         read_velocity_profiles(path)
 
 
+def test_row_without_a_station_is_refused_not_dropped(tmp_path):
+    path = tmp_path / "ladcp.csv"
+    path.write_text("station,pressure,u,v\n7,100,0.0,0.1\n,200,0.0,0.1\n", encoding="utf-8")
+    with pytest.raises(InputFileError, match=r"ladcp\.csv: data row 2 has no station"):
+        read_velocity_profiles(path)
+
+
 def test_workbench_slider_with_direct_velocity_priors_equals_a_batch_run(tmp_path):
     # the prior mean of each adjustment is (direct velocity - offset): it moves with the
     # reference, and the workbench's linear update must follow it exactly

@@ -92,6 +92,10 @@ def _read_csv(file: str) -> list[VelocityProfile]:
             f"u, v (m s^-1); columns present: {', '.join(table.columns)}"
         )
     kind = keys[0]
+    blank = np.flatnonzero(table[kind].isna().to_numpy())
+    if blank.size:  # groupby would drop these rows without a word
+        raise InputFileError(f"file {file}: data row {int(blank[0]) + 1} has no {kind}; give "
+                             f"the {kind} of every row")
     by = [kind] + (["section"] if "section" in table.columns else [])
     out = []
     for group, rows in table.groupby(by, sort=False):
