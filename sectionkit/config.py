@@ -542,7 +542,7 @@ class Config:
         """
         path = Path(path)
         tmp = path.with_name(f".{path.name}.tmp")
-        tmp.write_text(self.to_toml())
+        tmp.write_text(self.to_toml(), encoding="utf-8")  # TOML is UTF-8 by definition
         tmp.replace(path)
         return path
 

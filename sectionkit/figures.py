@@ -211,20 +211,6 @@ def interface_pressure(field: np.ndarray, pressure: np.ndarray, value: float) ->
     return out
 
 
-def _spaced(x: np.ndarray, gap: float) -> list[int]:
-    """Indices of increasing positions ``x`` kept at least ``gap`` apart (first and last kept)."""
-    keep = [0]
-    for k in range(1, x.size):
-        if x[k] - x[keep[-1]] >= gap:
-            keep.append(k)
-    if x.size > 1 and keep[-1] != x.size - 1:
-        if x[-1] - x[keep[-1]] < gap and len(keep) > 1:
-            keep[-1] = x.size - 1
-        else:
-            keep.append(x.size - 1)
-    return keep
-
-
 def _file_stem(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", name).strip("_") or "section"
 

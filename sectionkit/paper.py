@@ -38,7 +38,12 @@ import pandas as pd
 from sectionkit.config import SOLVER_DISPLAY
 from sectionkit.geostrophy import ReferenceChoice
 from sectionkit.labels import split_pair_label
-from sectionkit.layers import class_display_name, constraint_display_name, sigma_symbol
+from sectionkit.layers import (
+    class_display_name,
+    constraint_display_name,
+    sigma_label,
+    sigma_symbol,
+)
 from sectionkit.operator import SALINITY_NAMES
 from sectionkit.study import NET_MASS_HEAT_TOLERANCE, Results, Study
 from sectionkit.tables import tables
@@ -274,7 +279,7 @@ def _num(x: float) -> str:
 def _interface_text(sigma: float, p_ref: float, tex: bool) -> str:
     if not np.isfinite(sigma):
         return "---" if tex else "—"
-    return f"{sigma_symbol(p_ref, tex)} {_num(sigma)}"
+    return sigma_label(sigma, p_ref, tex)
 
 
 @dataclass

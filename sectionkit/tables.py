@@ -71,7 +71,9 @@ def pair_table(study: Study, results: Results) -> pd.DataFrame:
                 "ref_kind": ref.kinds[k],
                 "ref_pressure": float(ref.pressure[k]),
                 "adjustment_m_s": float(x[idx]),
-                "adjustment_err_m_s": float(np.sqrt(cov[idx, idx])) if cov is not None
+                # clamped at 0 like results.nc and inverse_unknowns.csv: rounding can
+                # leave a fully resolved adjustment's variance a hair below zero
+                "adjustment_err_m_s": float(np.sqrt(max(cov[idx, idx], 0.0))) if cov is not None
                 else np.nan,
                 "resolution": float(resolution[idx]) if resolution is not None else np.nan,
                 "first_station": stations[k],

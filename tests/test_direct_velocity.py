@@ -10,7 +10,7 @@ from _synthetic import canonical_section
 
 from sectionkit.config import parse_config
 from sectionkit.direct import normal_velocity, range_mean
-from sectionkit.errors import SectionDataError
+from sectionkit.errors import InputFileError, SectionDataError
 from sectionkit.geometry import along_line_direction
 from sectionkit.geostrophy import ReferenceChoice
 from sectionkit.io.adcp import read_velocity_profiles
@@ -134,6 +134,21 @@ def test_velocity_in_cm_per_second_labelled_as_metres_is_refused(tmp_path):
     _ladcp_csv(tmp_path / "ladcp.csv", 0.0, 12.0)
     with pytest.raises(SectionDataError, match="exceeds any ocean current"):
         read_velocity_profiles(tmp_path / "ladcp.csv")
+
+
+@pytest.mark.parametrize("pair", ["east", "1.5", "-1"])
+def test_pair_column_that_is_not_a_pair_index_is_refused_naming_file_and_value(tmp_path, pair):
+    path = tmp_path / "ladcp.csv"
+    path.write_text(f"pair,pressure,u,v\n{pair},100,0.0,0.1\n", encoding="utf-8")
+    with pytest.raises(InputFileError, match=rf"ladcp\.csv: pair '{pair}' is not a 0-based"):
+        read_velocity_profiles(path)
+
+
+def test_row_without_a_station_is_refused_not_dropped(tmp_path):
+    path = tmp_path / "ladcp.csv"
+    path.write_text("station,pressure,u,v\n7,100,0.0,0.1\n,200,0.0,0.1\n", encoding="utf-8")
+    with pytest.raises(InputFileError, match=r"ladcp\.csv: data row 2 has no station"):
+        read_velocity_profiles(path)
 
 
 def test_workbench_slider_with_direct_velocity_priors_equals_a_batch_run(tmp_path):

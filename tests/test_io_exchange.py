@@ -320,3 +320,10 @@ def test_bottle_units_other_than_umol_per_kg_are_refused(sec, tmp_path):
     path = write_bottle(tmp_path / "btl.csv", rows, units={"OXYGEN": "ML/L"})
     with pytest.raises(SectionDataError, match="OXYGEN: units 'ML/L'"):
         read_bottle(path)
+
+
+def test_bottle_pressure_in_other_units_than_dbar_is_refused_naming_file_and_units(sec, tmp_path):
+    rows = bottle_rows(sec)
+    path = write_bottle(tmp_path / "btl.csv", rows, units={"CTDPRS": "PSI"})
+    with pytest.raises(SectionDataError, match=r"btl\.csv, variable CTDPRS: units 'PSI'"):
+        read_bottle(path)

@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from sectionkit.config import AdcpSpec, Config
-from sectionkit.io.exchange_write import write_bottle, write_ctd_zip
+from sectionkit.io.exchange_write import write_bottle, write_ctd_zip, write_text_atomic
 
 #: Bottle pressures of the invented rosette, dbar (a deepest bottle 10 dbar above each
 #: cast's end is added).
@@ -187,9 +187,7 @@ def write_exchange_line(
     write_bottle(folder / files["bottle"], rows, flags=flags, expocode=EXPOCODE,
                  sect_id=name.upper())
     lines = _ladcp(numbers, p, absolute_velocity, along_east, along_north, rng)
-    tmp = folder / f".{files['adcp']}.part"
-    tmp.write_text("\n".join(lines) + "\n", encoding="utf-8")
-    tmp.replace(folder / files["adcp"])
+    write_text_atomic(folder / files["adcp"], "\n".join(lines) + "\n")
     return files
 
 

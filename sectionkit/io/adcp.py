@@ -92,6 +92,10 @@ def _read_csv(file: str) -> list[VelocityProfile]:
             f"u, v (m s^-1); columns present: {', '.join(table.columns)}"
         )
     kind = keys[0]
+    blank = np.flatnonzero(table[kind].isna().to_numpy())
+    if blank.size:  # groupby would drop these rows without a word
+        raise InputFileError(f"file {file}: data row {int(blank[0]) + 1} has no {kind}; give "
+                             f"the {kind} of every row")
     by = [kind] + (["section"] if "section" in table.columns else [])
     out = []
     for group, rows in table.groupby(by, sort=False):
@@ -104,8 +108,11 @@ def _read_csv(file: str) -> list[VelocityProfile]:
                                  f"({exc})") from None
         label = str(key).strip()
         if kind == "pair":
-            value = float(label)
-            if value != int(value) or value < 0:
+            try:
+                value = float(label)
+            except ValueError:
+                value = np.nan
+            if not np.isfinite(value) or value != int(value) or value < 0:
                 raise InputFileError(f"file {file}: pair {label!r} is not a 0-based pair index")
             label = str(int(value))
         out.append(VelocityProfile(kind, label, file, p, u, v, section))

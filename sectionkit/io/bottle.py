@@ -37,9 +37,12 @@ from scipy.interpolate import PchipInterpolator
 from sectionkit.errors import Cautions, ConfigError, InputFileError, SectionDataError
 from sectionkit.io.exchange import (
     CONCENTRATION_UNITS,
+    PRESSURE_UNITS,
     apply_flags,
+    check_units,
     exchange_texts,
     parse_exchange,
+    station_key,
 )
 
 #: Exchange parameter name -> (plain name, long name) of the tracers read.
@@ -99,16 +102,6 @@ def tracer_name(name: str) -> str:
             return plain
     known = ", ".join(f"{plain} ({column})" for column, (plain, _) in TRACERS.items())
     raise ConfigError(f"tracer {name!r} is not known; tracers sectionkit reads: {known}")
-
-
-def station_key(station: str) -> str:
-    """STNNBR as a comparable key: ``"007"``, ``"7"`` and ``"7.0"`` are one station."""
-    text = str(station).strip()
-    try:
-        value = float(text)
-    except ValueError:
-        return text
-    return f"{value:g}"
 
 
 @dataclass
@@ -203,11 +196,8 @@ def read_bottle(path: str | os.PathLike, cautions: Cautions | None = None) -> Bo
         if column not in table.text and column not in table.numbers:
             raise InputFileError(f"file {table.file}: no column {column}; a bottle file needs "
                                  "STNNBR, CASTNO and CTDPRS")
-    if "CTDPRS" in table.numbers and "".join(table.units["CTDPRS"].upper().split()) not in (
-        "DBAR", "DBARS", "DECIBAR", "DB"
-    ):
-        raise SectionDataError(f"file {table.file}, variable CTDPRS: units "
-                               f"{table.units['CTDPRS']!r} are not understood; expected DBAR")
+    if "CTDPRS" in table.numbers:
+        check_units(table, "CTDPRS", PRESSURE_UNITS)
     columns = {plain: c for c, (plain, _) in TRACERS.items() if c in table.numbers}
     if not columns:
         raise InputFileError(

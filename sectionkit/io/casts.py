@@ -11,7 +11,7 @@ import numpy as np
 
 from sectionkit.errors import Cautions, InputFileError, SectionDataError
 from sectionkit.io.csvfile import read_csv
-from sectionkit.io.exchange import file_kind, read_exchange_ctd, station_sort_key
+from sectionkit.io.exchange import file_kind, read_exchange_ctd, station_key, station_sort_key
 from sectionkit.io.formats import CSV_SUFFIXES, NETCDF_SUFFIXES, file_format
 from sectionkit.io.netcdf import read_netcdf
 from sectionkit.io.raw import Profile
@@ -154,13 +154,6 @@ def deepest_casts(profiles: list[Profile], cautions: Cautions) -> list[Profile]:
     return out
 
 
-def _numeric_id(station: str) -> str:
-    try:
-        return f"{float(station):g}"
-    except ValueError:
-        return station.strip()
-
-
 def reorder(profiles: list[Profile], order: Sequence[str]) -> list[Profile]:
     """Select and order stations by id.
 
@@ -179,8 +172,8 @@ def reorder(profiles: list[Profile], order: Sequence[str]) -> list[Profile]:
     by_id = {str(p.station): p for p in profiles}
     # "7" also finds a station written "007" or "7.0" (STNNBR of exchange files)
     for p in profiles:
-        by_id.setdefault(_numeric_id(str(p.station)), p)
-    order = [s if str(s) in by_id else _numeric_id(str(s)) for s in order]
+        by_id.setdefault(station_key(str(p.station)), p)
+    order = [s if str(s) in by_id else station_key(str(s)) for s in order]
     missing = [str(s) for s in order if str(s) not in by_id]
     if missing:
         raise SectionDataError(

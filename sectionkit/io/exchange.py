@@ -388,7 +388,8 @@ def _require_column(table: ExchangeTable, column: str) -> None:
         )
 
 
-def _check_units(table: ExchangeTable, column: str, accepted: tuple[str, ...] | dict) -> str:
+def check_units(table: ExchangeTable, column: str, accepted: tuple[str, ...] | dict) -> str:
+    """The column's units key, refused (naming file, column and units) when not ``accepted``."""
     key = table.unit_key(column)
     if key not in accepted:
         raise SectionDataError(
@@ -427,9 +428,9 @@ def ctd_profile(table: ExchangeTable, cautions: Cautions) -> Profile:
                              "names its station")
     for column in ("CTDPRS", "CTDTMP", "CTDSAL"):
         _require_column(table, column)
-    _check_units(table, "CTDPRS", PRESSURE_UNITS)
-    t_units = _check_units(table, "CTDTMP", TEMPERATURE_UNITS)
-    _check_units(table, "CTDSAL", SALINITY_UNITS)
+    check_units(table, "CTDPRS", PRESSURE_UNITS)
+    t_units = check_units(table, "CTDTMP", TEMPERATURE_UNITS)
+    check_units(table, "CTDSAL", SALINITY_UNITS)
     counts: dict[str, dict[int, int]] = {}
     data = {}
     for column in ("CTDPRS", "CTDTMP", "CTDSAL"):
@@ -524,6 +525,16 @@ def read_exchange_ctd(path: str | os.PathLike, cautions: Cautions) -> list[Profi
     if not profiles:
         raise InputFileError(f"file {os.fspath(path)}: holds no CTD exchange files")
     return profiles
+
+
+def station_key(station: str) -> str:
+    """STNNBR as a comparable key: ``"007"``, ``"7"`` and ``"7.0"`` are one station."""
+    text = str(station).strip()
+    try:
+        value = float(text)
+    except ValueError:
+        return text
+    return f"{value:g}"
 
 
 def station_sort_key(station: str) -> tuple:

@@ -38,9 +38,10 @@ def _format(values: np.ndarray, decimals: int) -> list[str]:
     return [f"{v:.{decimals}f}" if np.isfinite(v) else "-999" for v in values]
 
 
-def _atomic(path: Path, text: str) -> Path:
+def write_text_atomic(path: Path, text: str) -> Path:
+    """Write ``text`` (UTF-8) to ``path`` through a temporary file renamed into place."""
     tmp = path.with_name(f".{path.name}.part")
-    tmp.write_text(text)
+    tmp.write_text(text, encoding="utf-8")
     os.replace(tmp, path)
     return path
 
@@ -150,7 +151,8 @@ def write_ctd_folder(folder: str | os.PathLike, casts: Sequence[Mapping[str, obj
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     for cast in casts:
-        _atomic(folder / f"st{int(str(cast['station'])):04d}_ct1.csv", ctd_text(**cast))
+        write_text_atomic(folder / f"st{int(str(cast['station'])):04d}_ct1.csv",
+                          ctd_text(**cast))
     return folder
 
 
@@ -218,4 +220,4 @@ def bottle_text(
 def write_bottle(path: str | os.PathLike, rows: Mapping[str, Sequence[object]],
                  **options: object) -> Path:
     """Write a bottle exchange file (arguments of :func:`bottle_text`)."""
-    return _atomic(Path(path), bottle_text(rows, **options))
+    return write_text_atomic(Path(path), bottle_text(rows, **options))
