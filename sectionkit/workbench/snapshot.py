@@ -478,11 +478,6 @@ class LineDirection:
         return f"{text}, {self.box_text}" if self.boxes else text
 
 
-def compass_of(east: float, north: float) -> str:
-    """Eight-point compass name of a direction (``sectionkit.geometry.compass_name``)."""
-    return compass_name(east, north)
-
-
 def line_direction(study: Study, config: Config, section: str) -> LineDirection:
     """Direction of positive transport across a line, and its role in each box.
 
@@ -498,7 +493,7 @@ def line_direction(study: Study, config: Config, section: str) -> LineDirection:
     stations = [str(s) for s in study.sections[section]["station"].values]
     boxes = tuple((box.name, section in box.enters) for box in config.effective_boxes()
                   if section in box.enters or section in box.leaves)
-    return LineDirection(section, compass_of(-north, east), stations[0], stations[-1], boxes)
+    return LineDirection(section, compass_name(-north, east), stations[0], stations[-1], boxes)
 
 
 # ---------------------------------------------------------------- sensitivity
