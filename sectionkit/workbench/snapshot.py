@@ -560,10 +560,14 @@ def reference_sensitivity(study: Study, ekman: dict[str, np.ndarray],
         offsets = np.where(own[None, :], own_offsets[name][None, :], offsets)
         t = op.transports(offsets, 0.0, ekman[name], 1.0)  # (level, quantity, pair, class)
         out[s] = t[:, Q["volume"]].sum(axis=-2) / SV
-    ref = cfg.reference
-    current = float(ref.pressure) if ref.kind == "pressure" and ref.pressure is not None else None
     return ReferenceSensitivity(pressure.astype(float), out, tuple(ops),
-                                tuple(first.layer_names), current, n_own)
+                                tuple(first.layer_names), level_of_no_motion(cfg), n_own)
+
+
+def level_of_no_motion(cfg: Config) -> float | None:
+    """The global reference pressure, dbar (None when the global reference is not a pressure)."""
+    ref = cfg.reference
+    return float(ref.pressure) if ref.kind == "pressure" and ref.pressure is not None else None
 
 
 # ---------------------------------------------------------------- inverse
