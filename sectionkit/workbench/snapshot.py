@@ -341,7 +341,7 @@ class Engine:
         self._error_cache = (results, err)
         return err
 
-    def _volume_gradient(self, base: Results, name: str, layers: tuple[str, ...]) -> np.ndarray:
+    def _volume_gradient(self, base: Results, name: str) -> np.ndarray:
         """d(class volume transport)/dx of one section, Sv per unknown (cached per solve)."""
         cache = self._gradient_cache
         if cache is None or cache[0] is not base:
@@ -417,7 +417,7 @@ class Engine:
             if x is None:
                 adjusted[s] = vol
             else:
-                adjusted[s] = vol + self._volume_gradient(base, name, layers) @ x
+                adjusted[s] = vol + self._volume_gradient(base, name) @ x
         if box is None:
             box = self._mass_box(mass, layers)
         classes = ClassTransports(sections, layers, initial, adjusted,
