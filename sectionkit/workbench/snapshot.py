@@ -34,6 +34,7 @@ from sectionkit.budget import SV, Q, UnknownLayout
 from sectionkit.config import Config, InverseSpec
 from sectionkit.errors import Cautions, ConfigError
 from sectionkit.geometry import compass_name, pair_along_line_distance
+from sectionkit.inverse import InverseResult
 from sectionkit.labels import constraint_label
 from sectionkit.layers import Interface
 from sectionkit.study import Results, Study
@@ -119,6 +120,21 @@ class BoxBudget:
     noise: np.ndarray
     units: tuple[str, ...]
     posterior_std: np.ndarray | None = None
+
+    @classmethod
+    def of_inverse(cls, inverse: InverseResult, posterior_std: np.ndarray) -> BoxBudget:
+        """The constraint rows of an inverse: its initial and adjusted inflow and noise.
+
+        Parameters
+        ----------
+        inverse : InverseResult
+            A solved inverse (its ``system`` holds rows, units and noise).
+        posterior_std : ndarray (row,)
+            Posterior residual std of each row, in its units.
+        """
+        system = inverse.system
+        return cls(tuple(system.rows), system.initial.copy(), inverse.adjusted,
+                   system.noise.copy(), tuple(system.units), posterior_std)
 
     @property
     def normalized_residual(self) -> np.ndarray:
@@ -308,10 +324,7 @@ class Engine:
         classes = ClassTransports(sections, layers, initial, adjusted, error,
                                   results.inverse is not None)
         if results.inverse is not None:
-            sys_ = results.inverse.system
-            box = BoxBudget(tuple(sys_.rows), sys_.initial.copy(), results.inverse.adjusted,
-                            sys_.noise.copy(), tuple(sys_.units),
-                            results.inverse.posterior_residual_std)
+            box = BoxBudget.of_inverse(results.inverse, results.inverse.posterior_residual_std)
         else:
             mass = {n: results.select("class_mass_transport", n).initial for n in sections}
             box = self._mass_box(mass, layers)
@@ -401,11 +414,8 @@ class Engine:
         if base.inverse is not None:
             inverse = state.solve(reuse=base.inverse)  # the fitted solver's gain, no new fit
             x = inverse.estimate
-            system = inverse.system
             # the posterior covariance does not depend on the data: same residual std
-            box = BoxBudget(tuple(system.rows), system.initial, inverse.adjusted,
-                            system.noise.copy(), tuple(system.units),
-                            base.inverse.posterior_residual_std)
+            box = BoxBudget.of_inverse(inverse, base.inverse.posterior_residual_std)
         initial = np.zeros((len(sections), len(layers)))
         adjusted = np.zeros_like(initial)
         mass = {}
