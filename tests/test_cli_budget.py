@@ -7,7 +7,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from _sections import invented_section, write_netcdf
+from _box import TWO_LINES, write_two_lines
 
 from sectionkit.cli import main
 
@@ -22,22 +22,10 @@ BOX_COLUMNS = ["box", "constraint", "initial", "adjusted", "noise", "normalized_
 
 
 def _write_study(tmp_path: Path, inverse: bool, old_names: bool = False) -> Path:
-    south = invented_section(6, dp=10.0, lat0=24.0, bottoms=[900, 1500, 2000, 2000, 1600, 900])
-    north = invented_section(5, dp=10.0, lat0=36.0, bottoms=[800, 1400, 1900, 1500, 800])
-    write_netcdf(tmp_path / "south.nc", south)
-    write_netcdf(tmp_path / "north.nc", north)
+    write_two_lines(tmp_path)
     text = """
 title = "file test"
-[grid]
-dp = 10.0
-[[sections]]
-name = "south"
-file = "south.nc"
-[[sections]]
-name = "north"
-file = "north.nc"
-into_box = false
-[reference]
+""" + TWO_LINES + """[reference]
 pressure = 800.0
 overrides = { "south:2" = "deepest_common", "north:1" = { sigma = 27.3, p_ref = 0.0 } }
 [ekman]

@@ -25,26 +25,26 @@ def _with_comments(path: Path) -> list[str]:
     return lines
 
 
-def test_csv_value_error_gives_the_files_own_line_number(tmp_path):
+
+def _csv_with_field(tmp_path: Path, k: int, value: str) -> Path:
+    """Invented 3-station CSV (with comment lines) whose 0-based line k has field 4 set to value."""
     path = write_csv(tmp_path / "c.csv", invented_section(3))
     lines = _with_comments(path)
-    k = 10  # 0-based index into the file's lines: line 11
     fields = lines[k].split(",")
-    fields[4] = "warm"
+    fields[4] = value
     lines[k] = ",".join(fields)
     path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def test_csv_value_error_gives_the_files_own_line_number(tmp_path):
+    path = _csv_with_field(tmp_path, 10, "warm")  # 0-based index into the file's lines: line 11
     with pytest.raises(InputFileError, match=r"'warm' on line 11 is not a number"):
         load_section(path)
 
 
 def test_csv_out_of_range_sample_gives_the_files_own_line_number(tmp_path):
-    path = write_csv(tmp_path / "c.csv", invented_section(3))
-    lines = _with_comments(path)
-    k = 12  # line 13
-    fields = lines[k].split(",")
-    fields[4] = "-99.0"
-    lines[k] = ",".join(fields)
-    path.write_text("\n".join(lines) + "\n")
+    path = _csv_with_field(tmp_path, 12, "-99.0")  # line 13
     with pytest.raises(SectionDataError, match=r"-99 degC at line 13 "):
         load_section(path)
 

@@ -9,6 +9,7 @@ import gsw
 import numpy as np
 import pandas as pd
 import pytest
+from _box import TWO_LINES
 from _sections import write_netcdf
 from _synthetic import canonical_section, thermocline_section
 
@@ -262,17 +263,7 @@ def test_one_class_two_section_box_gives_the_closed_form_gauss_markov_solution(t
     write_netcdf(tmp_path / "north.nc", north, salinity_kind="absolute",
                  temperature_kind="conservative")
     r, n1, nt, known = 0.01, 0.5, 0.3, 1.5
-    (tmp_path / "box.toml").write_text(f"""
-[grid]
-dp = 10.0
-[[sections]]
-name = "south"
-file = "south.nc"
-[[sections]]
-name = "north"
-file = "north.nc"
-into_box = false
-[reference]
+    (tmp_path / "box.toml").write_text(TWO_LINES + f"""[reference]
 pressure = 500.0
 [inverse]
 conserve = ["mass"]

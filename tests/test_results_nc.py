@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
-from _sections import invented_section, write_netcdf
+from _box import TWO_LINES, write_two_lines
 
 from sectionkit.cli import main
 from sectionkit.outputs import REGISTRY, SECTION_OUTPUTS, UDUNITS
@@ -17,16 +17,7 @@ cf_units = pytest.importorskip("cf_units")
 
 STUDY = """
 title = "results.nc test"
-[grid]
-dp = 10.0
-[[sections]]
-name = "south"
-file = "south.nc"
-[[sections]]
-name = "north"
-file = "north.nc"
-into_box = false
-[reference]
+""" + TWO_LINES + """[reference]
 pressure = 800.0
 [classes]
 interfaces = [ { sigma = 26.0, p_ref = 0.0 }, { sigma = 27.2, p_ref = 0.0 } ]
@@ -39,10 +30,7 @@ noise_class = [1.0, 1.0, 0.5]
 
 
 def _run(tmp_path: Path, inverse: bool) -> Path:
-    write_netcdf(tmp_path / "south.nc", invented_section(
-        6, dp=10.0, lat0=24.0, bottoms=[900, 1500, 2000, 2000, 1600, 900]))
-    write_netcdf(tmp_path / "north.nc", invented_section(
-        5, dp=10.0, lat0=36.0, bottoms=[800, 1400, 1900, 1500, 800]))
+    write_two_lines(tmp_path)
     config = tmp_path / "study.toml"
     config.write_text(STUDY + (INVERSE if inverse else ""))
     out = tmp_path / "out"

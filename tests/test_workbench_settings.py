@@ -221,12 +221,12 @@ def test_a_west_to_east_line_counts_northward_flow_positive(state):
 
 
 def test_compass_names_the_eight_directions():
-    from sectionkit.workbench.snapshot import compass_of
+    from sectionkit.geometry import compass_name
 
-    assert compass_of(0.0, 1.0) == "northward"
-    assert compass_of(1.0, 1.0) == "north-eastward"
-    assert compass_of(-1.0, 0.0) == "westward"
-    assert compass_of(-0.1, -1.0) == "southward"
+    assert compass_name(0.0, 1.0) == "northward"
+    assert compass_name(1.0, 1.0) == "north-eastward"
+    assert compass_name(-1.0, 0.0) == "westward"
+    assert compass_name(-0.1, -1.0) == "southward"
 
 
 def test_heat_is_called_temperature_transport_when_net_mass_is_not_zero(state):

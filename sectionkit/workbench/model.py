@@ -77,6 +77,7 @@ from sectionkit.workbench.snapshot import (
     class_names_by_bounds,
     data_key,
     inverse_view,
+    level_of_no_motion,
     line_direction,
     map_class_settings,
     operator_key,
@@ -351,11 +352,7 @@ class WorkbenchState:
             ekman = self.engine.base.ekman if self.engine.base is not None else self.study.ekman()
             cache = (key, reference_sensitivity(self.study, ekman, self.engine.snap.offsets))
             self._sensitivity_cache = cache
-        return dataclasses.replace(cache[1], current=self._current_pressure())
-
-    def _current_pressure(self) -> float | None:
-        ref = self._config.reference
-        return float(ref.pressure) if ref.kind == "pressure" and ref.pressure is not None else None
+        return dataclasses.replace(cache[1], current=level_of_no_motion(self._config))
 
     def inverse_view(self) -> InverseView | None:
         """The inverse's adjustments, transfers, singular values and residuals (None if off)."""

@@ -34,6 +34,7 @@ from sectionkit.budget import SV, Q, UnknownLayout
 from sectionkit.config import Config, InverseSpec
 from sectionkit.errors import Cautions, ConfigError
 from sectionkit.geometry import compass_name, pair_along_line_distance
+from sectionkit.inverse import InverseResult
 from sectionkit.labels import constraint_label
 from sectionkit.layers import Interface
 from sectionkit.study import Results, Study
@@ -119,6 +120,21 @@ class BoxBudget:
     noise: np.ndarray
     units: tuple[str, ...]
     posterior_std: np.ndarray | None = None
+
+    @classmethod
+    def of_inverse(cls, inverse: InverseResult, posterior_std: np.ndarray) -> BoxBudget:
+        """The constraint rows of an inverse: its initial and adjusted inflow and noise.
+
+        Parameters
+        ----------
+        inverse : InverseResult
+            A solved inverse (its ``system`` holds rows, units and noise).
+        posterior_std : ndarray (row,)
+            Posterior residual std of each row, in its units.
+        """
+        system = inverse.system
+        return cls(tuple(system.rows), system.initial.copy(), inverse.adjusted,
+                   system.noise.copy(), tuple(system.units), posterior_std)
 
     @property
     def normalized_residual(self) -> np.ndarray:
@@ -308,10 +324,7 @@ class Engine:
         classes = ClassTransports(sections, layers, initial, adjusted, error,
                                   results.inverse is not None)
         if results.inverse is not None:
-            sys_ = results.inverse.system
-            box = BoxBudget(tuple(sys_.rows), sys_.initial.copy(), results.inverse.adjusted,
-                            sys_.noise.copy(), tuple(sys_.units),
-                            results.inverse.posterior_residual_std)
+            box = BoxBudget.of_inverse(results.inverse, results.inverse.posterior_residual_std)
         else:
             mass = {n: results.select("class_mass_transport", n).initial for n in sections}
             box = self._mass_box(mass, layers)
@@ -341,7 +354,7 @@ class Engine:
         self._error_cache = (results, err)
         return err
 
-    def _volume_gradient(self, base: Results, name: str, layers: tuple[str, ...]) -> np.ndarray:
+    def _volume_gradient(self, base: Results, name: str) -> np.ndarray:
         """d(class volume transport)/dx of one section, Sv per unknown (cached per solve)."""
         cache = self._gradient_cache
         if cache is None or cache[0] is not base:
@@ -401,11 +414,8 @@ class Engine:
         if base.inverse is not None:
             inverse = state.solve(reuse=base.inverse)  # the fitted solver's gain, no new fit
             x = inverse.estimate
-            system = inverse.system
             # the posterior covariance does not depend on the data: same residual std
-            box = BoxBudget(tuple(system.rows), system.initial, inverse.adjusted,
-                            system.noise.copy(), tuple(system.units),
-                            base.inverse.posterior_residual_std)
+            box = BoxBudget.of_inverse(inverse, base.inverse.posterior_residual_std)
         initial = np.zeros((len(sections), len(layers)))
         adjusted = np.zeros_like(initial)
         mass = {}
@@ -417,7 +427,7 @@ class Engine:
             if x is None:
                 adjusted[s] = vol
             else:
-                adjusted[s] = vol + self._volume_gradient(base, name, layers) @ x
+                adjusted[s] = vol + self._volume_gradient(base, name) @ x
         if box is None:
             box = self._mass_box(mass, layers)
         classes = ClassTransports(sections, layers, initial, adjusted,
@@ -478,11 +488,6 @@ class LineDirection:
         return f"{text}, {self.box_text}" if self.boxes else text
 
 
-def compass_of(east: float, north: float) -> str:
-    """Eight-point compass name of a direction (``sectionkit.geometry.compass_name``)."""
-    return compass_name(east, north)
-
-
 def line_direction(study: Study, config: Config, section: str) -> LineDirection:
     """Direction of positive transport across a line, and its role in each box.
 
@@ -498,7 +503,7 @@ def line_direction(study: Study, config: Config, section: str) -> LineDirection:
     stations = [str(s) for s in study.sections[section]["station"].values]
     boxes = tuple((box.name, section in box.enters) for box in config.effective_boxes()
                   if section in box.enters or section in box.leaves)
-    return LineDirection(section, compass_of(-north, east), stations[0], stations[-1], boxes)
+    return LineDirection(section, compass_name(-north, east), stations[0], stations[-1], boxes)
 
 
 # ---------------------------------------------------------------- sensitivity
@@ -565,10 +570,14 @@ def reference_sensitivity(study: Study, ekman: dict[str, np.ndarray],
         offsets = np.where(own[None, :], own_offsets[name][None, :], offsets)
         t = op.transports(offsets, 0.0, ekman[name], 1.0)  # (level, quantity, pair, class)
         out[s] = t[:, Q["volume"]].sum(axis=-2) / SV
-    ref = cfg.reference
-    current = float(ref.pressure) if ref.kind == "pressure" and ref.pressure is not None else None
     return ReferenceSensitivity(pressure.astype(float), out, tuple(ops),
-                                tuple(first.layer_names), current, n_own)
+                                tuple(first.layer_names), level_of_no_motion(cfg), n_own)
+
+
+def level_of_no_motion(cfg: Config) -> float | None:
+    """The global reference pressure, dbar (None when the global reference is not a pressure)."""
+    ref = cfg.reference
+    return float(ref.pressure) if ref.kind == "pressure" and ref.pressure is not None else None
 
 
 # ---------------------------------------------------------------- inverse
