@@ -457,10 +457,6 @@ class WorkbenchState:
         return self.set_reference(ReferenceChoice("pressure", pressure=float(pressure)),
                                   gesture=gesture)
 
-    def end_gesture(self) -> None:
-        """End a drag: the next change is a new undo step even if it comes at once."""
-        self._gesture = None
-
     def set_reference_bottom(self) -> Change:
         """Level of no motion at each pair's deepest common level."""
         return self.set_reference(ReferenceChoice("bottom"))
