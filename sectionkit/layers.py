@@ -23,6 +23,7 @@ from dataclasses import dataclass
 import gsw
 import numpy as np
 
+from sectionkit import layer_kernels as lk
 from sectionkit.errors import ConfigError, check_trailing_shape
 from sectionkit.geostrophy import pair_mean
 from sectionkit.labels import split_constraint_label
@@ -185,15 +186,6 @@ DECIDING_RANGE = {"SA": (0.0, 42.0), "CT": (-2.5, 40.0), "p_ref": (0.0, 11000.0)
 _ROUNDING = 1e-9
 
 
-def _block_reduce(blocks: np.ndarray, op: np.ufunc) -> np.ndarray:
-    """``op`` (np.maximum, np.minimum, np.fmax) over the last axis, a power of two long,
-    as a tree of element-wise operations (much faster than a reduction along a short axis)."""
-    x = op(blocks[..., 0::2], blocks[..., 1::2])
-    while x.shape[-1] > 1:
-        x = op(x[..., 0::2], x[..., 1::2])
-    return x[..., 0]
-
-
 def deciding_densities(
     sa: np.ndarray,
     ct: np.ndarray,
@@ -214,6 +206,10 @@ def deciding_densities(
     identical to that of the full evaluation (``pair_mean`` of
     :func:`potential_density_anomaly`), at a fraction of its cost; the values
     themselves are exact only where they can decide a class.
+
+    The bookkeeping (block bounds, decisions, gathering the blocks to
+    evaluate, pair means) runs as compiled kernels
+    (:mod:`sectionkit.layer_kernels`); the densities themselves are gsw's.
 
     Parameters
     ----------
@@ -236,8 +232,8 @@ def deciding_densities(
     shape = sa.shape
     check_trailing_shape("deciding_densities", "ct", ct, shape, "station, level (as sa)")
     n_st, n_lev = shape[-2], shape[-1]
-    a_sa = sa.reshape(-1, n_st, n_lev)
-    a_ct = ct.reshape(-1, n_st, n_lev)
+    a_sa = np.ascontiguousarray(sa.reshape(-1, n_st, n_lev))
+    a_ct = np.ascontiguousarray(ct.reshape(-1, n_st, n_lev))
     n_lead = a_sa.shape[0]
     out_shape = shape[:-2] + (n_st - 1, n_lev)
     n_blk = (n_lev - 1) // stride if stride > 1 and stride & (stride - 1) == 0 else 0
@@ -249,60 +245,30 @@ def deciding_densities(
             result[pr] = pair_mean(sig).reshape(out_shape)
         return result
     body = n_blk * stride
-    # station blocks [b s, (b+1) s], both ends included
-    e_sa = a_sa[..., 0 : body + 1 : stride]
-    e_ct = a_ct[..., 0 : body + 1 : stride]
-    blocks_sa = a_sa[..., :body].reshape(a_sa.shape[:2] + (n_blk, stride))
-    blocks_ct = a_ct[..., :body].reshape(a_ct.shape[:2] + (n_blk, stride))
-    # fmax skips NaN: NaN only for a block without any data (below the station's bottom);
-    # minimum keeps NaN, so a block with any missing value gets no bound
-    sa_max = np.fmax(_block_reduce(blocks_sa, np.fmax), e_sa[..., 1:])
-    empty = np.isnan(sa_max)
-    sa_min = np.minimum(_block_reduce(blocks_sa, np.minimum), e_sa[..., 1:])
-    ct_max = np.maximum(_block_reduce(blocks_ct, np.maximum), e_ct[..., 1:])
-    ct_min = np.minimum(_block_reduce(blocks_ct, np.minimum), e_ct[..., 1:])
-    top_sa, top_ct = e_sa[..., :-1], e_ct[..., :-1]
-    reach = (DRHO_DSA_BOUND * np.maximum(sa_max - top_sa, top_sa - sa_min)
-             + DRHO_DCT_BOUND * np.maximum(ct_max - top_ct, top_ct - ct_min) + _ROUNDING)
-    inside = ((sa_min >= DECIDING_RANGE["SA"][0]) & (sa_max <= DECIDING_RANGE["SA"][1])
-              & (ct_min >= DECIDING_RANGE["CT"][0]) & (ct_max <= DECIDING_RANGE["CT"][1]))
-    full = inside & np.isfinite(reach)  # data on every level of the block, bounds valid
-    emp_a, emp_b = empty[:, :-1], empty[:, 1:]
-    no_data = emp_a & emp_b
+    # block b spans levels b s to (b + 1) s, both included: a block with any missing value
+    # gets no bound (not "full"), a block without any SA is "empty" (below the bottom)
+    reach, full, empty = (x.reshape(n_lead, n_st, n_blk) for x in lk.block_bounds(
+        a_sa.reshape(-1, n_lev), a_ct.reshape(-1, n_lev), stride, n_blk,
+        *DECIDING_RANGE["SA"], *DECIDING_RANGE["CT"], DRHO_DSA_BOUND, DRHO_DCT_BOUND,
+        _ROUNDING))
+    top_sa = a_sa[..., 0:body:stride]
+    top_ct = a_ct[..., 0:body:stride]
     for pr, values in interfaces.items():
         out = np.empty((n_lead, n_st - 1, n_lev))
         # the levels after the last whole block, exactly
         out[..., body:] = pair_mean(potential_density_anomaly(a_sa[..., body:], a_ct[..., body:],
                                                              pr))
         sig_top = potential_density_anomaly(top_sa, top_ct, pr)
-        out_blocks = out[..., :body].reshape(n_lead, n_st - 1, n_blk, stride)
-        out_blocks[...] = pair_mean(sig_top)[..., None]
-        if not lo_p <= pr <= hi_p:
-            undecided = np.ones(no_data.shape, dtype=bool)
-        else:
-            lo = np.where(full, sig_top - reach, np.nan)
-            hi = np.where(full, sig_top + reach, np.nan)
-            # pair blocks: both stations, or the one with data where the other has none
-            lo_a, lo_b, hi_a, hi_b = lo[:, :-1], lo[:, 1:], hi[:, :-1], hi[:, 1:]
-            pair_lo = np.where(emp_a, lo_b, np.where(emp_b, lo_a, 0.5 * (lo_a + lo_b)))
-            pair_hi = np.where(emp_a, hi_b, np.where(emp_b, hi_a, 0.5 * (hi_a + hi_b)))
-            with np.errstate(invalid="ignore"):
-                sides = np.ones(pair_lo.shape, dtype=bool)
-                for v in values:
-                    sides &= (pair_lo > v) | (pair_hi <= v)
-            undecided = ~(no_data | sides)
-        lead, pair, blk = np.nonzero(undecided)
-        if lead.size:
+        # pair blocks whose bounded range (the pair mean of the two stations' ranges, or
+        # that of the one with data) holds no interface value take the pair mean of the top
+        undecided, need = lk.decide_blocks(sig_top, reach, full, empty,
+                                           np.asarray(values, dtype=float),
+                                           lo_p <= pr <= hi_p, stride, out)
+        if undecided.any():
             # each station block once, though both its pairs may need it
-            need = np.zeros(empty.shape, dtype=bool)
-            need[:, :-1] |= undecided
-            need[:, 1:] |= undecided
-            station_sigma = np.empty(blocks_sa.shape)  # pages touched only where written
-            at = np.nonzero(need)
-            station_sigma[at] = potential_density_anomaly(blocks_sa[at], blocks_ct[at], pr)
-            sig = np.stack([station_sigma[lead, pair, blk], station_sigma[lead, pair + 1, blk]],
-                           axis=1)  # (block, 2, level in block)
-            out_blocks[lead, pair, blk] = pair_mean(sig)[:, 0]
+            slot, block_sa, block_ct = lk.gather_blocks(a_sa, a_ct, need, stride)
+            lk.scatter_blocks(potential_density_anomaly(block_sa, block_ct, pr), slot,
+                              undecided, stride, out)
         result[pr] = out.reshape(out_shape)
     return result
 
@@ -432,13 +398,13 @@ class ClassLevels:
         return out
 
 
-def _trapezoid_levels(half: np.ndarray) -> np.ndarray:
-    """Per level, the half-cell weights of the segments above and below it (..., level)."""
-    out = np.empty(half.shape[:-1] + (half.shape[-1] + 1,))
-    out[..., 0] = half[..., 0]
-    out[..., -1] = half[..., -1]
-    np.add(half[..., 1:], half[..., :-1], out=out[..., 1:-1])
-    return out
+def _rows(a: np.ndarray, lead: tuple[int, ...], n: int) -> np.ndarray:
+    """A (..., pair, n) table as (row, n) rows for the kernels: a (pair, n) table stays one
+    table of pairs (shared by every leading index), other leading shapes are broadcast."""
+    a = np.asarray(a, dtype=float)
+    if a.ndim > 2:
+        a = np.broadcast_to(a, lead + (n,))
+    return np.ascontiguousarray(a.reshape(-1, n))
 
 
 def class_levels(
@@ -449,6 +415,15 @@ def class_levels(
     tail: np.ndarray | None = None,
 ) -> ClassLevels:
     """Class weights of every level, in compact form (dense weights: :meth:`ClassLevels.dense`).
+
+    One compiled pass per row (:func:`sectionkit.layer_kernels.class_level_pass`):
+    a level's class is the number of interfaces it is denser than; a segment
+    with data at both ends gives each of its levels half its thickness times
+    width (trapezoid rule) in the column, and in the class when no interface
+    crosses it. A crossed segment is cut at the crossings (densities linear
+    in pressure) and the linear field integrated exactly over each part
+    (:func:`sectionkit.layer_kernels.split_cells`): its weights are the split
+    cells. The tail is added to the last level with data.
 
     Parameters
     ----------
@@ -472,6 +447,9 @@ def class_levels(
     faces = [sigma[..., n, :] for n in range(sigma.shape[-2])] if isinstance(
         sigma, np.ndarray) else list(sigma)
     n_if = len(faces)
+    if not 1 <= n_if <= lk.MAX_INTERFACES:
+        raise ConfigError(f"[layers] {n_if} interfaces: class weights take 1 to "
+                          f"{lk.MAX_INTERFACES}; merge or drop interfaces")
     n_class = n_if + 1
     n_level = faces[0].shape[-1]
     cells = (faces[0].shape[-2], n_level - 1) if faces[0].ndim >= 2 else (-1,)
@@ -479,68 +457,40 @@ def class_levels(
     check_trailing_shape("class_levels", "width", width, cells, "pair, level - 1")
     if tail is not None:
         check_trailing_shape("class_levels", "tail", tail, cells[:1], "pair")
-    finite = np.isfinite(faces[0])
-    valid = finite[..., :-1] & finite[..., 1:]  # (..., pair, seg)
-    level_class = np.zeros(faces[0].shape, dtype=np.int8)
-    crossed = np.zeros(valid.shape, dtype=bool)
-    for n in range(n_if):  # one interface at a time keeps memory at (pair, level)
-        above = faces[n] > interfaces[n]
-        level_class += above
-        crossed |= above[..., :-1] != above[..., 1:]
-    crossed &= valid
-    scale = np.multiply(thickness, width)
-    scale = np.where(valid, scale, 0.0)  # (..., pair, seg)
-    half = 0.5 * scale
-    column = _trapezoid_levels(half)
-    # segments no interface crosses lie in one class: trapezoid weights
-    np.copyto(half, 0.0, where=crossed)
-    level_weight = _trapezoid_levels(half)
-    # crossed segments (a few per pair): split at the sorted crossings and integrate
-    # the linear field exactly over each sub-interval
-    where_crossed = np.nonzero(crossed)
+    lead = faces[0].shape[:-1]  # (..., pair)
+    rows = tuple(np.ascontiguousarray(np.asarray(face, dtype=float).reshape(-1, n_level))
+                 for face in faces)
+    tail_rows = (np.zeros(1) if tail is None
+                 else np.ascontiguousarray(np.broadcast_to(np.asarray(tail, dtype=float),
+                                                           lead).reshape(-1)))
+    th = _rows(thickness, lead, n_level - 1)
+    wd = _rows(width, lead, n_level - 1)
+    values = np.asarray(interfaces, dtype=float)
+    n_row = rows[0].shape[0]
+    level_class = np.empty((n_row, n_level), dtype=np.int8)
+    level_weight = np.empty((n_row, n_level))
+    column = np.empty((n_row, n_level))
+    crossed = np.empty((n_row, n_level - 1), dtype=bool)
+    lk.class_level_pass(rows, values, th, wd, tail_rows, tail is not None, n_class, level_class,
+                        level_weight, column, crossed)
+    c_row, c_seg = np.divmod(np.flatnonzero(crossed), n_level - 1)  # row-major, as np.nonzero
+    upper, lower = lk.split_cells(rows, values, th, wd, c_row, c_seg, n_class)
+    # split cells by class, each class's upper levels then its lower levels
+    at = np.unravel_index(c_row, lead) if lead else ()
     idx: list[tuple[np.ndarray, ...]] = []
     vals: list[np.ndarray] = []
-    if where_crossed[0].size:
-        lead = where_crossed[:-1]
-        seg = where_crossed[-1]
-        c0 = np.stack([faces[n][..., :-1][where_crossed] - interfaces[n] for n in range(n_if)],
-                      axis=-1)  # (n_crossed, interface)
-        c1 = np.stack([faces[n][..., 1:][where_crossed] - interfaces[n] for n in range(n_if)],
-                      axis=-1)
-        w = scale[where_crossed]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            t_cross = np.where((c0 > 0) != (c1 > 0), c0 / (c0 - c1), 0.0)
-        n_c = c0.shape[0]
-        bp = np.sort(np.concatenate([np.zeros((n_c, 1)), np.clip(t_cross, 0.0, 1.0),
-                                     np.ones((n_c, 1))], axis=-1), axis=-1)
-        a = bp[:, :-1]
-        b = bp[:, 1:]
-        tm = 0.5 * (a + b)  # (n_crossed, sub)
-        cls = ((c0[:, None, :] + tm[:, :, None] * (c1 - c0)[:, None, :]) > 0).sum(axis=-1)
-        alpha = np.zeros((n_c, n_class))
-        beta = np.zeros((n_c, n_class))
-        rows = np.broadcast_to(np.arange(n_c)[:, None], cls.shape)
-        np.add.at(alpha, (rows, cls), b - a)
-        np.add.at(beta, (rows, cls), 0.5 * (b * b - a * a))
-        for i in range(n_class):
-            klass = np.full(n_c, i)
-            idx.append(lead + (klass, seg))
-            vals.append((alpha[:, i] - beta[:, i]) * w)
-            idx.append(lead + (klass, seg + 1))
-            vals.append(beta[:, i] * w)
-    if tail is not None:
-        last = n_level - 1 - np.argmax(finite[..., ::-1], axis=-1)  # (..., pair)
-        has_data = finite.any(axis=-1)
-        tail_w = np.where(has_data, np.broadcast_to(tail, last.shape), 0.0)
-        tail_w = tail_w[..., None]
-        for target in (level_weight, column):
-            cur = np.take_along_axis(target, last[..., None], axis=-1)
-            np.put_along_axis(target, last[..., None], cur + tail_w, axis=-1)
-    np.copyto(level_class, np.int8(n_class), where=~finite)
-    if idx:
+    for i in range(n_class):
+        klass = np.full(c_row.size, i)
+        idx.append(at + (klass, c_seg))
+        vals.append(upper[:, i])
+        idx.append(at + (klass, c_seg + 1))
+        vals.append(lower[:, i])
+    if c_row.size:
         split_index = tuple(np.concatenate(parts) for parts in zip(*idx, strict=True))
         split_weight = np.concatenate(vals)
     else:
-        split_index = tuple(np.zeros(0, dtype=np.intp) for _ in range(finite.ndim + 1))
+        split_index = tuple(np.zeros(0, dtype=np.intp) for _ in range(len(lead) + 2))
         split_weight = np.zeros(0)
-    return ClassLevels(level_class, level_weight, split_index, split_weight, n_class, column)
+    shape = lead + (n_level,)
+    return ClassLevels(level_class.reshape(shape), level_weight.reshape(shape), split_index,
+                       split_weight, n_class, column.reshape(shape))

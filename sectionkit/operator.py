@@ -23,6 +23,7 @@ import gsw
 import numpy as np
 import xarray as xr
 
+from sectionkit import layer_kernels
 from sectionkit.errors import Cautions, EquatorError, SectionDataError
 from sectionkit.geometry import EQUATOR_HARD_BAND, pair_geometry
 from sectionkit.geostrophy import (
@@ -643,9 +644,6 @@ def _quantities(rho: np.ndarray, sa: np.ndarray, ct: np.ndarray, levels: slice
             "heat": rho0 * CP0 * ct0}
 
 
-_SCRATCH = threading.local()
-#: Grid points per block of the class integrals (13 fields of them stay in cache).
-_CACHE_POINTS = 40_000
 _FIXED: dict[tuple, tuple[xr.Dataset, np.ndarray, np.ndarray]] = {}
 _FIXED_LOCK = threading.Lock()
 _FIXED_SIZE = 4
@@ -692,25 +690,16 @@ def _fixed_parts(section: xr.Dataset, p: np.ndarray, bottom: np.ndarray, bathyme
     return geometry.copy(deep=True), thickness, width
 
 
-def _scratch(shape: tuple[int, ...]) -> np.ndarray:
-    """A work array of this thread, reused from build to build (no fresh pages each time)."""
-    n = int(np.prod(shape))
-    buf = getattr(_SCRATCH, "buffer", None)
-    if buf is None or buf.size < n:
-        buf = np.empty(n)
-        _SCRATCH.buffer = buf
-    return buf[:n].reshape(shape)
-
-
 def _class_integrals(levels: ClassLevels, v: np.ndarray, response: np.ndarray, rho: np.ndarray,
                      sa: np.ndarray, ct: np.ndarray) -> np.ndarray:
     """Depth integrals over every class of the 13 fields of the operator, per pair.
 
     Fields: v, v rho/RHO0, v rho S/RHO0, v rho c_p0 CT (relative transports), the
-    same with the response instead of v (areas), then 1, S, S^2, CT, CT^2. Runs
-    of levels of one class are summed at once (``np.add.reduceat``), a few
-    pairs at a time so that the products stay in the processor's cache; the
-    split cells are added from ``levels``' split weights.
+    same with the response instead of v (areas), then 1, S, S^2, CT, CT^2. One
+    compiled pass over the levels (:func:`sectionkit.layer_kernels.class_integral_pass`):
+    each level adds its weight times the fields to its class, a level where v,
+    the response or rho is NaN to none; the split cells are added from
+    ``levels``' split weights.
 
     Returns
     -------
@@ -719,63 +708,18 @@ def _class_integrals(levels: ClassLevels, v: np.ndarray, response: np.ndarray, r
     """
     shape = v.shape
     n_lev = shape[-1]
-    n_row = int(np.prod(shape[:-1]))
-    n_class = levels.n_class
-    lc_all = levels.level_class.reshape(n_row, n_lev)
-    tw_all = levels.level_weight.reshape(n_row, n_lev)
-    v2, r2, rho2, sa2, ct2 = (a.reshape(n_row, n_lev) for a in (v, response, rho, sa, ct))
-    out = np.zeros((13, n_row, n_class + 1))
-    chunk = max(1, _CACHE_POINTS // n_lev)
-    y_all = _scratch((13, min(chunk, n_row) * n_lev))
-    for a in range(0, n_row, chunk):
-        rows = slice(a, min(a + chunk, n_row))
-        n = rows.stop - rows.start
-        vv, rr, rh, ss, cc, tw = (x[rows] for x in (v2, r2, rho2, sa2, ct2, tw_all))
-        # a level without any of the fields belongs to no class (index n_class, dropped);
-        # rho is NaN wherever S or CT is
-        bad = np.isnan(vv) | np.isnan(rr) | np.isnan(rh)
-        lc = np.where(bad, np.int8(n_class), lc_all[rows])
-        mass = rh / RHO0
-        salt = mass * ss
-        heat = rh * CP0
-        heat *= cc
-        y = y_all[:, : n * n_lev].reshape(13, n, n_lev)
-        for base, carrier in ((0, vv), (4, rr)):
-            np.multiply(tw, carrier, out=y[base])
-            for k, q in enumerate((mass, salt, heat), start=1):
-                np.multiply(y[base], q, out=y[base + k])
-        y[8] = tw
-        np.multiply(tw, ss, out=y[9])
-        np.multiply(y[9], ss, out=y[10])
-        np.multiply(tw, cc, out=y[11])
-        np.multiply(y[11], cc, out=y[12])
-        change = np.empty((n, n_lev), dtype=bool)
-        change[:, 0] = True
-        np.not_equal(lc[:, 1:], lc[:, :-1], out=change[:, 1:])
-        starts = np.flatnonzero(change)
-        sums = np.add.reduceat(y.reshape(13, n * n_lev), starts, axis=1)  # (13, run)
-        target = (starts // n_lev) * (n_class + 1) + lc.reshape(-1)[starts]
-        part = out[:, rows].reshape(13, n * (n_class + 1))
-        for f in range(13):
-            part[f] += np.bincount(target, weights=sums[f], minlength=n * (n_class + 1))
-        out[:, rows] = part.reshape(13, n, n_class + 1)
-    out = out[..., :n_class]
-    if levels.split_weight.size:
-        idx = levels.split_index
-        row = np.ravel_multi_index(idx[:-2], shape[:-1])
-        klass, lev = idx[-2], idx[-1]
-        w = levels.split_weight
-        at = (row, lev)
-        mm = rho2[at] / RHO0
-        ss = mm * sa2[at]
-        hh = rho2[at] * CP0 * ct2[at]
-        vv, rr = v2[at] * w, r2[at] * w
-        sa_w, ct_w = sa2[at] * w, ct2[at] * w
-        parts = [vv, vv * mm, vv * ss, vv * hh, rr, rr * mm, rr * ss, rr * hh,
-                 w, sa_w, sa_w * sa2[at], ct_w, ct_w * ct2[at]]
-        for f, part in enumerate(parts):
-            np.add.at(out[f], (row, klass), part)
-    return np.moveaxis(out, 0, -1).reshape(shape[:-1] + (n_class, 13))
+
+    def rows(a: np.ndarray) -> np.ndarray:
+        return np.ascontiguousarray(np.asarray(a, dtype=float).reshape(-1, n_lev))
+
+    idx = levels.split_index
+    split_row = (np.ravel_multi_index(idx[:-2], shape[:-1]) if len(idx) > 2
+                 else np.zeros(idx[-1].size, dtype=np.intp))
+    out = layer_kernels.class_integral_pass(
+        np.ascontiguousarray(levels.level_class.reshape(-1, n_lev)), rows(levels.level_weight),
+        rows(v), rows(response), rows(rho), rows(sa), rows(ct),
+        split_row, idx[-2], idx[-1], levels.split_weight, levels.n_class, RHO0, CP0)
+    return out.reshape(shape[:-1] + (levels.n_class, 13))
 
 
 def ekman_class_share(
