@@ -107,3 +107,34 @@ def test_pair_densities_are_computed_on_first_access():
     assert 2000.0 not in densities
     np.testing.assert_array_equal(densities[2000.0], _full(sa, ct, 2000.0))
     assert 2000.0 in densities
+
+
+def test_class_weights_are_identical_for_every_block_size():
+    # smaller and larger blocks decide different blocks, never different classes
+    sa, ct, p = _casts(seed=4)
+    by_p_ref = {}
+    for v, pr in FACES:
+        by_p_ref.setdefault(pr, []).append(v)
+    n_pair = sa.shape[-2] - 1
+    full = _weights([_full(sa, ct, pr) for _, pr in FACES], p, n_pair)
+    for stride in (4, 32, 64):
+        deciding = deciding_densities(sa, ct, by_p_ref, stride=stride)
+        assert np.array_equal(_weights([deciding[pr] for _, pr in FACES], p, n_pair), full)
+
+
+def test_reference_pressure_outside_the_bounded_range_is_evaluated_everywhere():
+    # above 11000 dbar the derivative bounds were not checked: every level exactly
+    sa, ct, p = _casts(n_lead=1, seed=5)
+    deciding = deciding_densities(sa, ct, {12000.0: [50.0]})[12000.0]
+    np.testing.assert_array_equal(deciding, _full(sa, ct, 12000.0))
+
+
+def test_without_interface_values_every_block_keeps_its_top():
+    # nothing to decide: each pair block holds the pair mean of its top level
+    sa, ct, p = _casts(n_lead=1, n_station=5, seed=6)
+    deciding = deciding_densities(sa, ct, {0.0: []}, stride=16)[0.0]
+    full = _full(sa, ct, 0.0)
+    body = (p.size - 1) // 16 * 16
+    tops = np.repeat(full[..., 0:body:16], 16, axis=-1)
+    np.testing.assert_array_equal(deciding[..., :body], tops)
+    np.testing.assert_array_equal(deciding[..., body:], full[..., body:])
