@@ -23,6 +23,7 @@ import gsw
 import numpy as np
 import xarray as xr
 
+from sectionkit.compiled import kernel
 from sectionkit.errors import Cautions, EquatorError, SectionDataError
 from sectionkit.geometry import EQUATOR_HARD_BAND, pair_geometry
 from sectionkit.geostrophy import (
@@ -334,6 +335,63 @@ def _masked(a: np.ndarray) -> np.ndarray:
     return np.where(np.isnan(a), 0.0, a)
 
 
+def _level_parts(distance: np.ndarray, column: np.ndarray, v_eff: np.ndarray,
+                 response: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The per-level operator of a section: transports and areas summed over its pairs.
+
+    Parameters
+    ----------
+    distance : ndarray (pair,)
+        Pair width, m.
+    column : ndarray (..., pair, level)
+        Depth-integration weight of each level (all classes), m.
+    v_eff, response : ndarray (..., pair, level)
+        Velocity relative to the surface (m s^-1) and the reach of a
+        reference velocity (1); NaN below the bottom (counted as zero).
+
+    Returns
+    -------
+    level_relative : ndarray (..., level)
+        Relative volume transport of each level, m^3 s^-1.
+    level_area : ndarray (..., pair, level)
+        Area a reference velocity moves at each level of each pair, m^2.
+    level_section_area : ndarray (..., level)
+        Cross-sectional area of each level, m^2.
+    """
+    shape = column.shape
+    rows = (-1,) + shape[-2:]
+    level_relative = np.empty(shape[:-2] + shape[-1:])
+    level_area = np.empty(shape)
+    level_section_area = np.empty(shape[:-2] + shape[-1:])
+    _level_parts_kernel(
+        np.ascontiguousarray(distance, dtype=float),
+        *(np.ascontiguousarray(np.broadcast_to(a, shape), dtype=float).reshape(rows)
+          for a in (column, v_eff, response)),
+        level_relative.reshape(-1, shape[-1]), level_area.reshape(rows),
+        level_section_area.reshape(-1, shape[-1]))
+    return level_relative, level_area, level_section_area
+
+
+@kernel
+def _level_parts_kernel(distance, column, v_eff, response, level_relative, level_area,
+                        level_section_area):
+    """Sums over pairs (in pair order) of distance x column x v and distance x column."""
+    n_lead, n_pair, n_lev = column.shape
+    for r in range(n_lead):
+        for k in range(n_lev):
+            level_relative[r, k] = 0.0
+            level_section_area[r, k] = 0.0
+        for j in range(n_pair):
+            d = distance[j]
+            for k in range(n_lev):
+                c = column[r, j, k]
+                v = v_eff[r, j, k]
+                a = response[r, j, k]
+                level_relative[r, k] += d * (c * (0.0 if np.isnan(v) else v))
+                level_area[r, j, k] = (d * c) * (0.0 if np.isnan(a) else a)
+                level_section_area[r, k] += d * c
+
+
 def build_operator(
     section: xr.Dataset,
     interfaces: list[Interface],
@@ -479,10 +537,8 @@ def build_operator(
     # area moments of SA and CT per class: [area, SA, SA^2, CT, CT^2] integrals (m^2 units)
     class_moments = np.moveaxis(integrals[..., 2 * n_q :].sum(axis=-3), -1, -2)  # (..., 5, class)
 
-    column = levels.column  # (..., pair, level), all classes
-    level_relative = np.einsum("j,...jk->...k", distance, column * _masked(v_eff))
-    level_area = length * column * _masked(response)
-    level_section_area = np.einsum("j,...jk->...k", distance, column)  # (..., level) m^2
+    level_relative, level_area, level_section_area = _level_parts(distance, levels.column,
+                                                                  v_eff, response)
 
     ekman_share, level_ekman = ekman_class_share(
         sigma_if, values, p, geometry["lat"].values, ekman_depth,
