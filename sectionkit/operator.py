@@ -23,6 +23,7 @@ import gsw
 import numpy as np
 import xarray as xr
 
+from sectionkit.arrays import core_last
 from sectionkit.compiled import kernel
 from sectionkit.errors import Cautions, EquatorError, SectionDataError
 from sectionkit.geometry import EQUATOR_HARD_BAND, pair_geometry
@@ -440,8 +441,8 @@ def build_operator(
     names = check_interfaces(interfaces, layer_names)
     name = str(section.attrs.get("section", "section"))
     p = section["pressure"].values.astype(float)
-    sa = section["SA"].transpose(..., "station", "pressure").values
-    ct = section["CT"].transpose(..., "station", "pressure").values
+    sa = core_last(section["SA"], "station", "pressure")
+    ct = core_last(section["CT"], "station", "pressure")
     bottom = section["bottom_pressure"].values.astype(float)
     geometry, thickness, width = _fixed_parts(section, p, bottom, bathymetry)
     distance = geometry["distance"].values
@@ -739,13 +740,16 @@ def _fixed_parts(section: xr.Dataset, p: np.ndarray, bottom: np.ndarray, bathyme
         width = bottom_width_fraction(p, bottom[:-1], bottom[1:], bathymetry)
         thickness.setflags(write=False)
         width.setflags(write=False)
+        for variable in geometry.variables.values():
+            if not isinstance(variable, xr.IndexVariable):
+                variable.values.setflags(write=False)  # shared by the builds that read it
         hit = (geometry, thickness, width)
         with _FIXED_LOCK:
             _FIXED[key] = hit
             while len(_FIXED) > _FIXED_SIZE:
                 _FIXED.pop(next(iter(_FIXED)))
     geometry, thickness, width = hit
-    return geometry.copy(deep=True), thickness, width
+    return geometry.copy(deep=False), thickness, width
 
 
 def _scratch(shape: tuple[int, ...]) -> np.ndarray:
