@@ -10,12 +10,12 @@ import numpy as np
 import xarray as xr
 
 
-def core_last(variable: xr.DataArray, *core: str) -> np.ndarray:
+def core_last(variable: xr.DataArray | xr.Variable, *core: str) -> np.ndarray:
     """The values of ``variable`` with the dimensions ``core`` last, in that order.
 
     Parameters
     ----------
-    variable : xr.DataArray
+    variable : xr.DataArray or xr.Variable
         Any variable holding every dimension of ``core``; any unit.
     *core : str
         The core dimension names, e.g. ``"station", "pressure"``.

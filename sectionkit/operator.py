@@ -226,7 +226,7 @@ class SectionOperator:
             -(tau . t) L / (RHO0 f), m^3 s^-1, positive to the left of
             increasing station order.
         """
-        g = self.pairs
+        g = self.pairs.variables
         along = (np.asarray(stress_east, dtype=float)[..., None] * g["along_east"].values
                  + np.asarray(stress_north, dtype=float)[..., None] * g["along_north"].values)
         return -along * g["distance"].values / (RHO0 * g["f"].values)
@@ -440,14 +440,16 @@ def build_operator(
     """
     names = check_interfaces(interfaces, layer_names)
     name = str(section.attrs.get("section", "section"))
-    p = section["pressure"].values.astype(float)
-    sa = core_last(section["SA"], "station", "pressure")
-    ct = core_last(section["CT"], "station", "pressure")
-    bottom = section["bottom_pressure"].values.astype(float)
+    var = section.variables  # plain variables: no DataArray built per lookup
+    p = var["pressure"].values.astype(float)
+    sa = core_last(var["SA"], "station", "pressure")
+    ct = core_last(var["CT"], "station", "pressure")
+    bottom = var["bottom_pressure"].values.astype(float)
     geometry, thickness, width = _fixed_parts(section, p, bottom, bathymetry)
-    distance = geometry["distance"].values
-    f = geometry["f"].values
-    on_equator = np.flatnonzero(np.abs(geometry["lat"].values) < EQUATOR_HARD_BAND)
+    distance = geometry.variables["distance"].values
+    f = geometry.variables["f"].values
+    lat_pair = geometry.variables["lat"].values
+    on_equator = np.flatnonzero(np.abs(lat_pair) < EQUATOR_HARD_BAND)
     if on_equator.size:  # a backstop for sections that were not validated (1/f below)
         raise EquatorError(
             f"section {name}: pair(s) {', '.join(f'{name}:{k}' for k in on_equator)} lie "
@@ -487,7 +489,7 @@ def build_operator(
 
     sa_pair = pair_mean(sa)
     ct_pair = pair_mean(ct)
-    salt_pair = pair_mean(budget_salinity(sa, p, section["lon"].values, section["lat"].values,
+    salt_pair = pair_mean(budget_salinity(sa, p, var["lon"].values, var["lat"].values,
                                           salinity))
     rho_pair = pair_mean(rho_station)
     del rho_station
@@ -513,10 +515,9 @@ def build_operator(
     # without interfaces one class holds everything: compare with an unreachable density
     values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([1e9])
 
-    tail = _tail_thickness(p, deepest, bottom, geometry["lat"].values)
+    tail = _tail_thickness(p, deepest, bottom, lat_pair)
     if below:
         tail = np.array(tail, copy=True)
-        lat_pair = geometry["lat"].values
         for j, p_track in below.items():
             p_last = p[int(np.max(deepest[..., j]))]
             samples = np.asarray(bathymetry[j], dtype=float)
@@ -542,8 +543,8 @@ def build_operator(
                                                                   v_eff, response)
 
     ekman_share, level_ekman = ekman_class_share(
-        sigma_if, values, p, geometry["lat"].values, ekman_depth,
-        _quantities(rho_pair, salt_pair, ct_pair, slice(0, _ekman_levels(p, geometry["lat"].values,
+        sigma_if, values, p, lat_pair, ekman_depth,
+        _quantities(rho_pair, salt_pair, ct_pair, slice(0, _ekman_levels(p, lat_pair,
                                                                        ekman_depth))),
     )
 
@@ -724,10 +725,12 @@ def _fixed_parts(section: xr.Dataset, p: np.ndarray, bottom: np.ndarray, bathyme
 
     They depend on positions, bottoms and the grid only, which ensemble members
     and repeated builds share: the last few are kept, keyed by the values
-    themselves (never by identity), and the arrays are returned read-only.
+    themselves (never by identity). The same geometry Dataset then serves every
+    operator of those positions: its arrays and the cell arrays are read-only.
     """
-    key = (section["lon"].values.tobytes(), section["lat"].values.tobytes(),
-           section["station"].values.tobytes(), bottom.tobytes(), p.tobytes(),
+    var = section.variables
+    key = (var["lon"].values.tobytes(), var["lat"].values.tobytes(),
+           var["station"].values.tobytes(), bottom.tobytes(), p.tobytes(),
            None if bathymetry is None else tuple(
                None if t is None else np.asarray(t, float).tobytes() for t in bathymetry))
     with _FIXED_LOCK:
@@ -736,7 +739,7 @@ def _fixed_parts(section: xr.Dataset, p: np.ndarray, bottom: np.ndarray, bathyme
             _FIXED[key] = hit  # most recently used last
     if hit is None:
         geometry = pair_geometry(section)
-        thickness = cell_thickness(p, geometry["lat"].values)
+        thickness = cell_thickness(p, geometry.variables["lat"].values)
         width = bottom_width_fraction(p, bottom[:-1], bottom[1:], bathymetry)
         thickness.setflags(write=False)
         width.setflags(write=False)
@@ -749,7 +752,7 @@ def _fixed_parts(section: xr.Dataset, p: np.ndarray, bottom: np.ndarray, bathyme
             while len(_FIXED) > _FIXED_SIZE:
                 _FIXED.pop(next(iter(_FIXED)))
     geometry, thickness, width = hit
-    return geometry.copy(deep=False), thickness, width
+    return geometry, thickness, width
 
 
 def _scratch(shape: tuple[int, ...]) -> np.ndarray:
