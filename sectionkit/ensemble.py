@@ -344,8 +344,10 @@ def _record(study: Study, results: Results, truth: np.ndarray | None) -> dict[st
     sections = list(study.operators)
     out: dict[str, np.ndarray] = {}
     x = results.estimate
-    for name, output in (CLASS_OUTPUTS | SCALAR_OUTPUTS).items():
-        chosen = [results.select(output, s) for s in sections]
+    wanted = CLASS_OUTPUTS | SCALAR_OUTPUTS
+    by_section = [results.select_many(list(wanted.values()), s) for s in sections]
+    for name, output in wanted.items():
+        chosen = [selected[output] for selected in by_section]
         scalar = name in SCALAR_OUTPUTS  # one value per section, not per class
         for suffix, values in (("", [c.adjusted for c in chosen]),
                                ("_initial", [c.initial for c in chosen]),
