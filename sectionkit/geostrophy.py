@@ -18,6 +18,7 @@ from dataclasses import dataclass
 import gsw
 import numpy as np
 
+from sectionkit.compiled import kernel
 from sectionkit.errors import Cautions, ComputationError, check_trailing_shape
 from sectionkit.thermo import station_profiles
 
@@ -74,30 +75,66 @@ def relative_velocity(psi: np.ndarray, distance: np.ndarray, f: np.ndarray) -> n
         Velocity relative to the surface, m s^-1, positive to the left of
         increasing station order; NaN below the deepest common level.
     """
-    psi = np.asarray(psi)
+    psi = np.asarray(psi, dtype=float)
     scale = np.asarray(distance) * np.asarray(f)
     check_trailing_shape("relative_velocity", "distance * f", scale,
                          (psi.shape[-2] - 1,) if psi.ndim >= 2 else (-1,), "pair")
-    return np.diff(psi, axis=-2) / scale[..., None]
+    shape = np.broadcast_shapes(psi.shape[:-2] + (psi.shape[-2] - 1, psi.shape[-1]),
+                                scale.shape + psi.shape[-1:])
+    psi = np.ascontiguousarray(np.broadcast_to(psi, shape[:-2] + psi.shape[-2:]))
+    scale = np.ascontiguousarray(np.broadcast_to(scale, shape[:-1]), dtype=float)
+    v = np.empty(shape)
+    _pair_velocity(psi.reshape((-1,) + psi.shape[-2:]), scale.reshape(-1, shape[-2]),
+                   v.reshape((-1,) + shape[-2:]))
+    return v
 
 
-def last_valid_level(values: np.ndarray) -> np.ndarray:
+@kernel
+def _pair_velocity(psi, scale, v):
+    """(psi[j + 1] - psi[j]) / scale[j] for every pair j and level."""
+    n_row, n_pair, n_lev = v.shape
+    for r in range(n_row):
+        for j in range(n_pair):
+            s = scale[r, j]
+            for k in range(n_lev):
+                v[r, j, k] = (psi[r, j + 1, k] - psi[r, j, k]) / s
+
+
+def last_valid_level(values: np.ndarray, other: np.ndarray | None = None) -> np.ndarray:
     """Index of the deepest finite value of each profile.
 
     Parameters
     ----------
     values : ndarray (..., level)
         Profiles, any unit; NaN below the bottom.
+    other : ndarray (..., level), optional
+        A second variable of the same profiles (e.g. CT beside SA): then the
+        deepest level where both are finite.
 
     Returns
     -------
     ndarray (...,) of int
         Index of the last finite level, -1 for an all-NaN profile.
     """
-    finite = np.isfinite(values)
-    n = values.shape[-1]
-    idx = n - 1 - np.argmax(finite[..., ::-1], axis=-1)
-    return np.where(finite.any(axis=-1), idx, -1)
+    values = np.ascontiguousarray(values, dtype=float)
+    other = values if other is None else np.ascontiguousarray(other, dtype=float)
+    check_trailing_shape("last_valid_level", "other", other, values.shape[-1:], "level")
+    other = np.ascontiguousarray(np.broadcast_to(other, values.shape))
+    last = np.empty(values.shape[:-1], dtype=np.intp)
+    _last_finite(values.reshape(-1, values.shape[-1]), other.reshape(-1, values.shape[-1]),
+                 last.reshape(-1))
+    return last
+
+
+@kernel
+def _last_finite(values, other, last):
+    """Index of the last level where both rows are finite (searched from the end), -1 if none."""
+    n_row, n_lev = values.shape
+    for r in range(n_row):
+        k = n_lev - 1
+        while k >= 0 and not (np.isfinite(values[r, k]) and np.isfinite(other[r, k])):
+            k -= 1
+        last[r] = k
 
 
 def pair_level_limits(station_last: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -164,32 +201,56 @@ def extend_into_bottom_triangle(
     check_trailing_shape("extend_into_bottom_triangle", "p", p, v_rel.shape[-1:], "level")
     check_trailing_shape("extend_into_bottom_triangle", "common", common, v_rel.shape[-2:-1],
                          "pair")
-    k = np.arange(p.size)
-    above = k <= common[..., None]
-    triangle = (k > common[..., None]) & (k <= deepest[..., None])
+    shape = v_rel.shape
+    common = np.broadcast_to(common, shape[:-1])
+    deepest = np.broadcast_to(deepest, shape[:-1])
     safe_common = np.clip(common, 0, None)[..., None]
-    v_common = np.take_along_axis(v_rel, safe_common, axis=-1)
-    if rule == "constant":
-        fill = np.broadcast_to(v_common, v_rel.shape)
-    elif rule == "zero":
-        fill = np.zeros_like(v_rel)
-    else:
+    slope = np.zeros(shape[:-1])
+    if rule == "shear":  # least-squares shear over the deepest SHEAR_FIT_SPAN dbar per pair
         p_common = p[safe_common]
-        window = above & (p >= p_common - SHEAR_FIT_SPAN)
+        window = (np.arange(p.size) <= common[..., None]) & (p >= p_common - SHEAR_FIT_SPAN)
         pw = np.where(window, p, np.nan)
         vw = np.where(window, v_rel, np.nan)
         with np.errstate(invalid="ignore", divide="ignore"):
             pm = np.nanmean(pw, axis=-1, keepdims=True)
             vm = np.nanmean(vw, axis=-1, keepdims=True)
-            slope = np.nansum((pw - pm) * (vw - vm), axis=-1, keepdims=True) / np.nansum(
-                (pw - pm) ** 2, axis=-1, keepdims=True
-            )
-        slope = np.where(np.isfinite(slope), slope, 0.0)
-        fill = v_common + slope * (p - p_common)
-    v_eff = np.where(above, v_rel, np.where(triangle, fill, np.nan))
-    reach = 0.0 if rule == "zero" else 1.0
-    response = np.where(above, 1.0, np.where(triangle, reach, np.nan))
+            fit = np.nansum((pw - pm) * (vw - vm), axis=-1) / np.nansum((pw - pm) ** 2, axis=-1)
+        slope = np.where(np.isfinite(fit), fit, 0.0)
+    n_lev = shape[-1]
+    v_eff = np.empty(shape)
+    response = np.empty(shape)
+    _triangle_kernel(np.ascontiguousarray(v_rel, dtype=float).reshape(-1, n_lev), p,
+                     np.ascontiguousarray(common, dtype=np.int64).reshape(-1),
+                     np.ascontiguousarray(deepest, dtype=np.int64).reshape(-1),
+                     slope.reshape(-1), rule == "zero",
+                     v_eff.reshape(-1, n_lev), response.reshape(-1, n_lev))
     return v_eff, response
+
+
+@kernel
+def _triangle_kernel(v_rel, p, common, deepest, slope, zero, v_eff, response):
+    """Rows of ``extend_into_bottom_triangle``: the profile down to the deepest common
+    level, the fill below it (the value there plus ``slope`` times the pressure below it, or
+    zero), NaN below the deepest level; response 1 where a reference reaches."""
+    n_row, n_lev = v_rel.shape
+    reach = 0.0 if zero else 1.0
+    for r in range(n_row):
+        kc = common[r]
+        kd = deepest[r]
+        kc_safe = max(kc, 0)
+        v_c = v_rel[r, kc_safe]
+        p_c = p[kc_safe]
+        s = slope[r]
+        for k in range(n_lev):
+            if k <= kc:
+                v_eff[r, k] = v_rel[r, k]
+                response[r, k] = 1.0
+            elif k <= kd:
+                v_eff[r, k] = 0.0 if zero else v_c + s * (p[k] - p_c)
+                response[r, k] = reach
+            else:
+                v_eff[r, k] = np.nan
+                response[r, k] = np.nan
 
 
 def pair_mean(station_values: np.ndarray) -> np.ndarray:
@@ -205,14 +266,28 @@ def pair_mean(station_values: np.ndarray) -> np.ndarray:
     ndarray (..., pair, level)
         Pair-mean property, same unit.
     """
-    station_values = np.asarray(station_values, dtype=float)
-    a = station_values[..., :-1, :]
-    b = station_values[..., 1:, :]
-    mean = np.add(a, b)
-    mean *= 0.5
-    np.copyto(mean, a, where=np.isnan(b))  # the deeper station alone ...
-    np.copyto(mean, b, where=np.isnan(a))  # ... whichever it is (NaN where both are)
+    values = np.ascontiguousarray(station_values, dtype=float)
+    shape = values.shape
+    mean = np.empty(shape[:-2] + (shape[-2] - 1, shape[-1]))
+    _pair_mean_kernel(values.reshape((-1,) + shape[-2:]), mean.reshape((-1,) + mean.shape[-2:]))
     return mean
+
+
+@kernel
+def _pair_mean_kernel(values, mean):
+    """(a + b) / 2 of neighbouring stations; a or b alone where the other is NaN."""
+    n_row, n_st, n_lev = values.shape
+    for r in range(n_row):
+        for j in range(n_st - 1):
+            for k in range(n_lev):
+                a = values[r, j, k]
+                b = values[r, j + 1, k]
+                if np.isnan(b):
+                    mean[r, j, k] = a  # the deeper station alone (NaN where both are)
+                elif np.isnan(a):
+                    mean[r, j, k] = b
+                else:
+                    mean[r, j, k] = (a + b) * 0.5
 
 
 def value_at_pressure(profile: np.ndarray, p: np.ndarray, p_at: np.ndarray) -> np.ndarray:
