@@ -488,7 +488,8 @@ def class_levels(
     if tail is not None:
         check_trailing_shape("class_levels", "tail", tail, cells[:1], "pair")
     lead = faces[0].shape[:-1]  # (..., pair)
-    rows = tuple(np.ascontiguousarray(np.asarray(face, dtype=float).reshape(-1, n_level))
+    rows = tuple(np.ascontiguousarray(np.broadcast_to(np.asarray(face, dtype=float),
+                                                      faces[0].shape).reshape(-1, n_level))
                  for face in faces)
     tail_rows = (np.zeros(1) if tail is None
                  else np.ascontiguousarray(np.broadcast_to(np.asarray(tail, dtype=float),

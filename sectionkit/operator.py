@@ -26,7 +26,7 @@ import xarray as xr
 from sectionkit import layer_kernels
 from sectionkit.arrays import core_last
 from sectionkit.compiled import kernel
-from sectionkit.errors import Cautions, EquatorError, SectionDataError
+from sectionkit.errors import Cautions, ComputationError, EquatorError, SectionDataError
 from sectionkit.geometry import EQUATOR_HARD_BAND, pair_geometry
 from sectionkit.geostrophy import (
     extend_into_bottom_triangle,
@@ -762,7 +762,23 @@ def _class_integrals(levels: ClassLevels, v: np.ndarray, response: np.ndarray, r
     compiled pass over the levels (:func:`sectionkit.layer_kernels.class_integral_pass`):
     each level adds its weight times the fields to its class, a level where v,
     the response or rho is NaN to none; the split cells are added from
-    ``levels``' split weights.
+    ``levels``' split weights. Equal to numpy's sums over the dense weights to
+    round-off (the sums run level by level).
+
+    Parameters
+    ----------
+    levels : ClassLevels
+        Class weights of the (..., pair, level) grid.
+    v : ndarray (..., pair, level)
+        Velocity relative to the surface, extended into bottom triangles, m s^-1.
+    response : ndarray (..., pair, level)
+        Velocity per m s^-1 of reference velocity (1 or 0), dimensionless.
+    rho : ndarray (..., pair, level)
+        Pair-mean in-situ density, kg m^-3.
+    sa : ndarray (..., pair, level)
+        Pair-mean salinity of the salt budgets (S* or SA), g/kg.
+    ct : ndarray (..., pair, level)
+        Pair-mean Conservative Temperature, degC.
 
     Returns
     -------
@@ -772,15 +788,20 @@ def _class_integrals(levels: ClassLevels, v: np.ndarray, response: np.ndarray, r
     shape = v.shape
     n_lev = shape[-1]
 
-    def rows(a: np.ndarray) -> np.ndarray:
-        return np.ascontiguousarray(np.asarray(a, dtype=float).reshape(-1, n_lev))
+    def rows(a: np.ndarray, name: str, dtype: type = float) -> np.ndarray:
+        a = np.asarray(a, dtype=dtype)
+        if a.shape != shape:  # the kernel reads every row of every field
+            raise ComputationError(f"_class_integrals: {name} has shape {a.shape}; expected "
+                                   f"{shape} (as v)")
+        return np.ascontiguousarray(a.reshape(-1, n_lev))
 
     idx = levels.split_index
     split_row = (np.ravel_multi_index(idx[:-2], shape[:-1]) if len(idx) > 2
                  else np.zeros(idx[-1].size, dtype=np.intp))
     out = layer_kernels.class_integral_pass(
-        np.ascontiguousarray(levels.level_class.reshape(-1, n_lev)), rows(levels.level_weight),
-        rows(v), rows(response), rows(rho), rows(sa), rows(ct),
+        rows(levels.level_class, "level_class", np.int8),
+        rows(levels.level_weight, "level_weight"), rows(v, "v"), rows(response, "response"),
+        rows(rho, "rho"), rows(sa, "sa"), rows(ct, "ct"),
         split_row, idx[-2], idx[-1], levels.split_weight, levels.n_class, RHO0, CP0)
     return out.reshape(shape[:-1] + (levels.n_class, 13))
 

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from sectionkit.errors import ConfigError
+from sectionkit.errors import ComputationError, ConfigError
 from sectionkit.layers import class_levels
 from sectionkit.operator import CP0, RHO0, _class_integrals
 
@@ -173,3 +173,12 @@ def test_class_integrals_of_one_row_do_not_depend_on_the_others():
     both = _class_integrals(levels, *fields)
     alone = class_levels([face[1] for face in faces], values, thickness, width, tail)
     np.testing.assert_array_equal(_class_integrals(alone, *(a[1] for a in fields)), both[1])
+
+
+def test_class_integrals_refuse_fields_of_another_shape():
+    faces, values, thickness, width, tail = _profiles(seed=6)
+    levels = class_levels(faces, values, thickness, width, tail)
+    v, response, rho, sa, ct = _fields(faces, seed=7)
+    with pytest.raises(ComputationError, match=r"_class_integrals: rho has shape \(4, 40\); "
+                       r"expected \(2, 4, 40\) \(as v\)"):
+        _class_integrals(levels, v, response, rho[0], sa, ct)
