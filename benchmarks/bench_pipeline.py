@@ -18,6 +18,9 @@ project runner ``benchmarks/run.py`` prints them one line per goal.
   records, each in a fresh subprocess. Goal: growth <= 1.25x (bounded).
 - :func:`profile_pipeline` — cProfile of the long-line pipeline, the top
   functions by own time.
+- :func:`class_chain_parts` — processor time of each step of the
+  density-class chain (deciding densities, class levels, class integrals,
+  Ekman class shares) on the long line's own inputs, against the floor.
 
 Everything runs on invented data (the test helpers in ``tests/_synthetic.py``).
 """
@@ -780,6 +783,64 @@ def model_output_memory(quick: bool = False) -> Measurement:
         f"({long['peak_rss_mb']:.0f} MB vs {short['peak_rss_mb']:.0f} MB, chunks of 20)",
         long["peak_rss_mb"] / short["peak_rss_mb"], 1.25, details=details,
     )
+
+
+# ---------------------------------------------------------------- density-class chain
+def class_chain_parts(rounds: int = 9) -> dict[str, float]:
+    """Processor time (ms) of each step of the density-class chain of the long line.
+
+    One build of :func:`long_line_study` records the arguments of
+    ``layers.deciding_densities``, ``layers.class_levels`` (the main call and the
+    Ekman layer's), ``operator._class_integrals`` and ``operator.ekman_class_share``;
+    each is then called again on them, in turn with gsw's dynamic height of the
+    same line (the floor), ``rounds`` times; the fastest time of each counts.
+
+    Returns
+    -------
+    dict of str -> float
+        Milliseconds per call by step, and ``"floor"``; ``"load"`` is the
+        1-minute load average at the end.
+    """
+    import gsw
+
+    import sectionkit.operator as operator
+    from sectionkit.study import Study
+
+    config, sections = long_line_study()
+    sec = sections["line"]
+    recorded: dict[str, list] = {}
+    names = ("deciding_densities", "class_levels", "_class_integrals", "ekman_class_share")
+    originals = {name: getattr(operator, name) for name in names}
+
+    def recorder(name: str) -> Callable[..., Any]:
+        def call(*args: Any, **kwargs: Any) -> Any:
+            recorded.setdefault(name, []).append((args, kwargs))
+            return originals[name](*args, **kwargs)
+        return call
+
+    for name in names:
+        setattr(operator, name, recorder(name))
+    try:
+        Study.from_config(config, sections=sections)
+    finally:
+        for name, func in originals.items():
+            setattr(operator, name, func)
+    sa, ct, p = sec["SA"].values, sec["CT"].values, sec["pressure"].values
+    steps: dict[str, Callable[[], Any]] = {
+        "floor": lambda: gsw.geo_strf_dyn_height(sa, ct, p, p_ref=0.0, axis=1, max_dp=1.0)}
+    for name in names:
+        for n, (args, kwargs) in enumerate(recorded[name]):
+            label = name if n == 0 else f"{name} ({n + 1})"
+            steps[label] = (lambda f=originals[name], a=args, k=kwargs: f(*a, **k))
+    best = dict.fromkeys(steps, float("inf"))
+    for _ in range(rounds):
+        for label, step in steps.items():
+            start = time.process_time()
+            step()
+            best[label] = min(best[label], time.process_time() - start)
+    out = {label: 1e3 * t for label, t in best.items()}
+    out["load"] = os.getloadavg()[0]
+    return out
 
 
 # ---------------------------------------------------------------- profile

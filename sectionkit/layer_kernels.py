@@ -54,9 +54,14 @@ def block_bounds(sa, ct, stride, n_blk, sa_lo, sa_hi, ct_lo, ct_hi, dsa, dct, ro
         Data on every level of the block, all of it inside the range.
     empty : ndarray (row, block) of bool
         No SA on any level of the block (below the station's bottom).
+    top_sa, top_ct : ndarray (row, block)
+        SA (g/kg) and CT (degC) at the top level of each block (contiguous: gsw
+        evaluates them faster than a strided view).
     """
     n_row = sa.shape[0]
     reach = np.empty((n_row, n_blk))
+    tops_sa = np.empty((n_row, n_blk))
+    tops_ct = np.empty((n_row, n_blk))
     full = np.zeros((n_row, n_blk), dtype=np.bool_)
     empty = np.zeros((n_row, n_blk), dtype=np.bool_)
     for r in range(n_row):
@@ -64,6 +69,8 @@ def block_bounds(sa, ct, stride, n_blk, sa_lo, sa_hi, ct_lo, ct_hi, dsa, dct, ro
             k0 = b * stride
             top_sa = sa[r, k0]
             top_ct = ct[r, k0]
+            tops_sa[r, b] = top_sa
+            tops_ct[r, b] = top_ct
             sa_min = np.inf
             sa_max = -np.inf
             ct_min = np.inf
@@ -94,7 +101,7 @@ def block_bounds(sa, ct, stride, n_blk, sa_lo, sa_hi, ct_lo, ct_hi, dsa, dct, ro
             if math.isfinite(value):
                 reach[r, b] = value
                 full[r, b] = True
-    return reach, full, empty
+    return reach, full, empty, tops_sa, tops_ct
 
 
 @kernel

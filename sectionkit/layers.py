@@ -248,12 +248,10 @@ def deciding_densities(
     body = n_blk * stride
     # block b spans levels b s to (b + 1) s, both included: a block with any missing value
     # gets no bound (not "full"), a block without any SA is "empty" (below the bottom)
-    reach, full, empty = (x.reshape(n_lead, n_st, n_blk) for x in lk.block_bounds(
+    reach, full, empty, top_sa, top_ct = (x.reshape(n_lead, n_st, n_blk) for x in lk.block_bounds(
         a_sa.reshape(-1, n_lev), a_ct.reshape(-1, n_lev), stride, n_blk,
         *DECIDING_RANGE["SA"], *DECIDING_RANGE["CT"], DRHO_DSA_BOUND, DRHO_DCT_BOUND,
         _ROUNDING))
-    top_sa = a_sa[..., 0:body:stride]
-    top_ct = a_ct[..., 0:body:stride]
     for pr, values in interfaces.items():
         out = np.empty((n_lead, n_st - 1, n_lev))
         # the levels after the last whole block, exactly
