@@ -16,6 +16,7 @@ recomputation of dynamic height.
 
 from __future__ import annotations
 
+import math
 import threading
 from dataclasses import dataclass, field
 
@@ -23,7 +24,6 @@ import gsw
 import numpy as np
 import xarray as xr
 
-from sectionkit import layer_kernels
 from sectionkit.arrays import core_last
 from sectionkit.compiled import kernel
 from sectionkit.errors import Cautions, ComputationError, EquatorError, SectionDataError
@@ -759,7 +759,7 @@ def _class_integrals(levels: ClassLevels, v: np.ndarray, response: np.ndarray, r
 
     Fields: v, v rho/RHO0, v rho S/RHO0, v rho c_p0 CT (relative transports), the
     same with the response instead of v (areas), then 1, S, S^2, CT, CT^2. One
-    compiled pass over the levels (:func:`sectionkit.layer_kernels.class_integral_pass`):
+    compiled pass over the levels (:func:`_class_integral_pass`):
     each level adds its weight times the fields to its class, a level where v,
     the response or rho is NaN to none; the split cells are added from
     ``levels``' split weights. Equal to numpy's sums over the dense weights to
@@ -798,12 +798,148 @@ def _class_integrals(levels: ClassLevels, v: np.ndarray, response: np.ndarray, r
     idx = levels.split_index
     split_row = (np.ravel_multi_index(idx[:-2], shape[:-1]) if len(idx) > 2
                  else np.zeros(idx[-1].size, dtype=np.intp))
-    out = layer_kernels.class_integral_pass(
+    out = _class_integral_pass(
         rows(levels.level_class, "level_class", np.int8),
         rows(levels.level_weight, "level_weight"), rows(v, "v"), rows(response, "response"),
         rows(rho, "rho"), rows(sa, "sa"), rows(ct, "ct"),
         split_row, idx[-2], idx[-1], levels.split_weight, levels.n_class, RHO0, CP0)
     return out.reshape(shape[:-1] + (levels.n_class, 13))
+
+
+#: Fields of :func:`_class_integral_pass`, in order.
+INTEGRAL_FIELDS = ("v", "v m", "v m S", "v h", "r", "r m", "r m S", "r h",
+                   "1", "S", "S^2", "CT", "CT^2")
+
+
+@kernel
+def _class_integral_pass(level_class, level_weight, v, response, rho, salinity, ct,
+                         split_row, split_class, split_level, split_weight, n_class, rho0, cp0):
+    """Depth integrals over every class of the 13 fields of the operator, per row.
+
+    Fields (``INTEGRAL_FIELDS``): with ``m = rho / rho0`` and
+    ``h = rho cp0 CT``, ``v``, ``v m``, ``v m S``, ``v h``, the same four with
+    the response ``r`` instead of ``v``, then ``1``, ``S``, ``S^2``, ``CT``,
+    ``CT^2``. Each level adds ``level_weight`` times the fields to its class
+    (a level where ``v``, ``r`` or ``rho`` is NaN, or of class ``n_class``,
+    to none); a run of levels of one class is summed level by level, then
+    added to its class; the split cells are added last, in their order.
+
+    Parameters
+    ----------
+    level_class : ndarray (row, level) of int8
+        Class of each level (``n_class``: none).
+    level_weight : ndarray (row, level)
+        Weight of each level in its class, m.
+    v, response, rho, salinity, ct : ndarray (row, level)
+        Velocity (m s^-1), response (1), in-situ density (kg m^-3), salinity
+        (g/kg) and CT (degC).
+    split_row, split_class, split_level : ndarray (split,) of int
+        Row, class and level of each split-cell weight.
+    split_weight : ndarray (split,)
+        The weights, m.
+    n_class : int
+        Number of classes.
+    rho0 : float
+        Reference density, kg m^-3.
+    cp0 : float
+        Heat capacity, J kg^-1 K^-1.
+
+    Returns
+    -------
+    ndarray (row, class, 13)
+        Integrals, field unit times m.
+    """
+    n_row, n_lev = v.shape
+    out = np.zeros((n_row, n_class, 13))
+    acc = np.empty(13)
+    for r in range(n_row):
+        run = -1  # class of the run being summed (-1: none yet)
+        first = True
+        for k in range(n_lev + 1):
+            c = n_class
+            if k < n_lev:
+                vv = v[r, k]
+                rr = response[r, k]
+                rh = rho[r, k]
+                if not (math.isnan(vv) or math.isnan(rr) or math.isnan(rh)):
+                    c = level_class[r, k]
+            if c != run or k == n_lev:
+                if 0 <= run < n_class:
+                    for f in range(13):
+                        out[r, run, f] += acc[f]
+                run = c
+                first = True
+            if c >= n_class:
+                continue
+            tw = level_weight[r, k]
+            ss = salinity[r, k]
+            cc = ct[r, k]
+            mass = rh / rho0
+            salt = mass * ss
+            heat = rh * cp0
+            heat = heat * cc
+            y0 = tw * vv
+            y4 = tw * rr
+            y9 = tw * ss
+            y11 = tw * cc
+            if first:
+                acc[0] = y0
+                acc[1] = y0 * mass
+                acc[2] = y0 * salt
+                acc[3] = y0 * heat
+                acc[4] = y4
+                acc[5] = y4 * mass
+                acc[6] = y4 * salt
+                acc[7] = y4 * heat
+                acc[8] = tw
+                acc[9] = y9
+                acc[10] = y9 * ss
+                acc[11] = y11
+                acc[12] = y11 * cc
+                first = False
+            else:
+                acc[0] += y0
+                acc[1] += y0 * mass
+                acc[2] += y0 * salt
+                acc[3] += y0 * heat
+                acc[4] += y4
+                acc[5] += y4 * mass
+                acc[6] += y4 * salt
+                acc[7] += y4 * heat
+                acc[8] += tw
+                acc[9] += y9
+                acc[10] += y9 * ss
+                acc[11] += y11
+                acc[12] += y11 * cc
+    for i in range(split_weight.size):
+        r = split_row[i]
+        k = split_level[i]
+        c = split_class[i]
+        w = split_weight[i]
+        rh = rho[r, k]
+        sa = salinity[r, k]
+        cc = ct[r, k]
+        mm = rh / rho0
+        ss = mm * sa
+        hh = rh * cp0 * cc
+        vv = v[r, k] * w
+        rr = response[r, k] * w
+        sa_w = sa * w
+        ct_w = cc * w
+        out[r, c, 0] += vv
+        out[r, c, 1] += vv * mm
+        out[r, c, 2] += vv * ss
+        out[r, c, 3] += vv * hh
+        out[r, c, 4] += rr
+        out[r, c, 5] += rr * mm
+        out[r, c, 6] += rr * ss
+        out[r, c, 7] += rr * hh
+        out[r, c, 8] += w
+        out[r, c, 9] += sa_w
+        out[r, c, 10] += sa_w * sa
+        out[r, c, 11] += ct_w
+        out[r, c, 12] += ct_w * cc
+    return out
 
 
 def ekman_class_share(
