@@ -21,7 +21,8 @@ import gsw
 import numpy as np
 import xarray as xr
 
-from sectionkit.errors import SectionDataError, check_trailing_shape
+from sectionkit.compiled import kernel
+from sectionkit.errors import ComputationError, SectionDataError, check_trailing_shape
 
 #: Offset between the kelvin and Celsius scales, K.
 KELVIN_OFFSET = 273.15
@@ -135,6 +136,109 @@ def absolute_salinity(
     lon = np.asarray(lon, dtype=float)[..., None]
     lat = np.asarray(lat, dtype=float)[..., None]
     return gsw.SA_from_SP(SP, p, lon, lat)
+
+
+#: Pressures, dbar, at which the TEOS-10 Absolute Salinity Anomaly Ratio atlas has its
+#: levels, as gsw.SAAR interpolates it. Found empirically (gsw 3.6.23): the second
+#: differences of gsw.SAAR along pressure at 1 dbar steps, 0 to 9000 dbar, at 4000
+#: random positions, are non-zero (beyond 1e-9 of the profile's SAAR) only at these
+#: pressures; a linear interpolation between gsw.SAAR at them reproduces gsw.SAAR at
+#: 0.1 dbar steps from 0 to 7000 dbar at 3000 random positions bit for bit. Below the
+#: deepest atlas level of a position's surrounding cells gsw holds SAAR constant (the
+#: values at the deeper knots are then equal), and below the last knot everywhere.
+#: tests/test_preformed_salinity.py checks the whole claim against gsw.Sstar_from_SA.
+SAAR_ATLAS_PRESSURES = np.array([
+    0.0, 10.0, 20.0, 30.0, 40.0, 50.0, 76.0, 101.0, 126.0, 151.0, 176.0, 202.0, 252.0,
+    303.0, 353.0, 404.0, 505.0, 606.0, 707.0, 808.0, 909.0, 1010.0, 1111.0, 1213.0, 1314.0,
+    1416.0, 1517.0, 1771.0, 2025.0, 2279.0, 2534.0, 2789.0, 3045.0, 3300.0, 3556.0, 3812.0,
+    4069.0, 4325.0, 4583.0, 4840.0, 5098.0, 5355.0, 5614.0, 5872.0, 6131.0,
+])
+#: TEOS-10 r_1 of Preformed Salinity, S* = SA (1 - r_1 SAAR) / (1 + SAAR)
+#: (McDougall et al. 2012, Ocean Science 8, 1123-1134; gsw.Sstar_from_SA).
+SSTAR_R1 = 0.35
+
+
+@kernel
+def _sstar_ratio_kernel(knot_saar: np.ndarray, rows: np.ndarray, k: np.ndarray,
+                        t: np.ndarray, out: np.ndarray) -> None:
+    """S*/SA at every level of the stations ``rows`` from their SAAR at the atlas pressures.
+
+    SAAR between knots ``k`` and ``k + 1`` is ``a + t (b - a)``, gsw's own
+    interpolation formula in pressure, then S*/SA is gsw's
+    ``(1 - r_1 SAAR) / (1 + SAAR)``: the same operations in the same order.
+    """
+    for i in range(rows.size):
+        s = rows[i]
+        for j in range(k.size):
+            a = knot_saar[i, k[j]]
+            saar = a + t[j] * (knot_saar[i, k[j] + 1] - a)
+            out[s, j] = (1.0 - SSTAR_R1 * saar) / (1.0 + saar)
+
+
+def preformed_salinity_ratio(p: np.ndarray, lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
+    """Preformed over Absolute Salinity, S*/SA, at each station position and pressure.
+
+    gsw.Sstar_from_SA is linear in SA with a ratio that depends on position
+    and pressure only, through SAAR from the TEOS-10 atlas; at a fixed
+    position SAAR is linear in pressure between the atlas levels
+    (:data:`SAAR_ATLAS_PRESSURES`) and constant below the deepest one. So
+    gsw.SAAR is evaluated at those levels only (tens per station instead of
+    one per grid level) and interpolated as gsw does; the result equals
+    gsw.Sstar_from_SA(1, p, lon, lat) to round-off (bit for bit on the
+    machines it was checked on).
+
+    Where that cannot be guaranteed, gsw.Sstar_from_SA itself evaluates
+    every level: a pressure grid that is not finite and non-negative,
+    positions outside gsw's documented range (longitude -360 to 360,
+    latitude -86 to 90 degrees, where the atlas is defined) and positions whose
+    atlas SAAR is missing at some level. A position that is not finite
+    (NaN or infinite) gives NaN without calling gsw.
+
+    Parameters
+    ----------
+    p : ndarray (level,)
+        Sea pressure, dbar.
+    lon : ndarray (..., station)
+        Station longitude, degrees_east.
+    lat : ndarray (..., station)
+        Station latitude, degrees_north.
+
+    Returns
+    -------
+    ndarray (..., station, level)
+        S*/SA (unitless); NaN where gsw has no SAAR (outside the atlas).
+    """
+    p = np.asarray(p, dtype=float)
+    if p.ndim != 1:
+        raise ComputationError(f"preformed_salinity_ratio: p must be one profile of pressures "
+                               f"(level,), got shape {p.shape}")
+    lon, lat = np.broadcast_arrays(np.asarray(lon, dtype=float), np.asarray(lat, dtype=float))
+    shape = lon.shape
+    lon, lat = lon.ravel(), lat.ravel()
+    out = np.empty((lon.size, p.size))
+    finite = np.isfinite(lon) & np.isfinite(lat)
+    out[~finite] = np.nan
+    if p.size == 0:
+        return out.reshape(*shape, p.size)
+    knots = SAAR_ATLAS_PRESSURES
+    fast = finite & (np.abs(lon) <= 360.0) & (lat >= -86.0) & (lat <= 90.0)
+    if not (np.all(np.isfinite(p)) and np.min(p) >= 0.0):
+        fast[:] = False
+    if np.any(fast):
+        # gsw's interval and fraction of each level (the same for every position)
+        pc = np.minimum(p, knots[-1])
+        k = np.clip(np.searchsorted(knots, pc, side="right") - 1, 0, knots.size - 2)
+        t = (pc - knots[k]) / (knots[k + 1] - knots[k])
+        used = knots[: int(k.max()) + 2]
+        rows = np.flatnonzero(fast)
+        knot_saar = gsw.SAAR(used[None, :], lon[rows, None], lat[rows, None])
+        whole = np.all(np.isfinite(knot_saar), axis=-1)  # SAAR missing at a level: gsw
+        _sstar_ratio_kernel(np.ascontiguousarray(knot_saar[whole]), rows[whole], k, t, out)
+        fast[rows[~whole]] = False
+    slow = finite & ~fast
+    if np.any(slow):
+        out[slow] = gsw.Sstar_from_SA(1.0, p, lon[slow, None], lat[slow, None])
+    return out.reshape(*shape, p.size)
 
 
 def conservative_temperature(
