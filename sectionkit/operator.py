@@ -419,7 +419,7 @@ def build_operator(
         eos = specific_volume_pass(sa, ct, p, max_dp=max_dp)
         v_rel = relative_velocity(eos.dynamic_height, distance, f)
         v_rel = np.where(np.arange(p.size) <= common[..., None], v_rel, np.nan)
-        rho_station = eos.in_situ_density(out=eos.anomaly)
+        rho_station = eos.in_situ_density(out=eos.specific_volume)
         del eos
     else:
         v_rel = relative_velocity_of_pairs
