@@ -56,6 +56,8 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from sectionkit.arrays import core_last
+from sectionkit.compiled import kernel
 from sectionkit.config import Config, load_config
 from sectionkit.errors import ConfigError
 from sectionkit.outputs import REGISTRY, udunits
@@ -195,13 +197,16 @@ def shift_profiles(values: np.ndarray, pressure: np.ndarray, shift: np.ndarray) 
         Shifted profiles, same unit; the end values are held beyond the data,
         and the NaN mask (the sea floor) is unchanged.
     """
-    out = np.array(values, dtype=float, copy=True)
+    values = np.asarray(values, dtype=float)
     pressure = np.asarray(pressure, dtype=float)
     shift = np.asarray(shift, dtype=float)
+    fast = _even_profiles(values, pressure)
+    if fast is not None:
+        out = np.empty(values.shape)
+        _shift_kernel(values, fast[1], shift / fast[0], np.zeros((values.shape[0], 1)), out)
+        return out
+    out = np.array(values, copy=True)
     ok = np.isfinite(out)
-    plan = _shift_plan(ok, pressure, shift)
-    if plan is not None:
-        return _apply_shift(out, plan)
     count = ok.sum(axis=-1)
     for s in range(values.shape[0]):
         ok_s = ok[s]
@@ -211,34 +216,56 @@ def shift_profiles(values: np.ndarray, pressure: np.ndarray, shift: np.ndarray) 
     return out
 
 
-def _shift_plan(ok: np.ndarray, pressure: np.ndarray, shift: np.ndarray) -> tuple | None:
-    """Interpolation indices and weights of :func:`shift_profiles` for casts valid from the
-    surface down on an even grid (None otherwise)."""
+def _even_profiles(values: np.ndarray, pressure: np.ndarray) -> tuple[float, np.ndarray] | None:
+    """Grid step (dbar) and valid-level count of each cast when the grid is even and every
+    cast is valid from the surface down (NaN only below its bottom); None otherwise."""
     step = np.diff(pressure)
-    if not (ok.ndim == 2 and step.size and np.all(step > 0)
-            and np.all(np.abs(step - step[0]) <= 1e-12 * step[0])):
+    if not (values.ndim == 2 and values.shape[-1] == pressure.size and step.size
+            and np.all(step > 0) and np.all(np.abs(step - step[0]) <= 1e-12 * step[0])):
         return None
-    count = np.count_nonzero(ok, axis=-1)
-    if not np.array_equal(ok, np.arange(ok.shape[-1]) < count[:, None]):
+    values = np.ascontiguousarray(values)
+    count = np.empty(values.shape[0], dtype=np.int64)
+    if not _finite_prefix(values, count):
         return None
-    top = np.maximum(count - 1, 0)[:, None]
-    u = np.clip(np.arange(ok.shape[-1]) - (shift / step[0])[:, None], 0.0, top)
-    j = np.minimum(np.floor(u).astype(np.intp), np.maximum(top - 1, 0))
-    w = u - j
-    moved = ok & (count >= 2)[:, None] & (shift != 0.0)[:, None]
-    row = (np.arange(ok.shape[0]) * ok.shape[-1])[:, None]  # flat indices of the levels
-    return j + row, np.minimum(j + 1, top) + row, w, moved
+    return float(step[0]), count
 
 
-def _apply_shift(values: np.ndarray, plan: tuple) -> np.ndarray:
-    j0, j1, w, moved = plan
-    flat = values.reshape(-1)
-    v0 = np.take(flat, j0)
-    v1 = np.take(flat, j1)
-    v1 -= v0
-    v1 *= w
-    v1 += v0
-    return np.where(moved, v1, values)
+@kernel
+def _finite_prefix(values, count):
+    """Number of leading finite values of each row; False if a row has data after a NaN."""
+    n_row, n_lev = values.shape
+    for r in range(n_row):
+        n = 0
+        while n < n_lev and np.isfinite(values[r, n]):
+            n += 1
+        for k in range(n, n_lev):
+            if np.isfinite(values[r, k]):
+                return False
+        count[r] = n
+    return True
+
+
+@kernel
+def _shift_kernel(values, count, steps, noise, out):
+    """Linear interpolation of each cast at k - steps (grid steps), held at its ends, plus
+    ``noise`` (one value per cast, or one per level); NaN below the cast's bottom kept."""
+    n_row, n_lev = values.shape
+    per_level = noise.shape[1] > 1
+    for r in range(n_row):
+        n = count[r]
+        moved = n >= 2 and steps[r] != 0.0
+        for k in range(n_lev):
+            if k >= n:
+                out[r, k] = values[r, k]
+                continue
+            v = values[r, k]
+            if moved:
+                u = min(max(k - steps[r], 0.0), n - 1.0)
+                j = min(int(np.floor(u)), n - 2)
+                w = u - j
+                v0 = values[r, j]
+                v = (values[r, j + 1] - v0) * w + v0
+            out[r, k] = v + noise[r, k if per_level else 0]
 
 
 def perturb_section(
@@ -261,24 +288,29 @@ def perturb_section(
     xr.Dataset
         A copy with perturbed ``SA`` and ``CT``.
     """
-    sa = section["SA"].transpose("station", "pressure").values
-    ct = section["CT"].transpose("station", "pressure").values
+    sa = core_last(section["SA"], "station", "pressure")
+    ct = core_last(section["CT"], "station", "pressure")
     p = section["pressure"].values.astype(float)
     n_station = sa.shape[0]
     shape = (n_station, 1) if perturb.mode == "station" else sa.shape
     dp = rng.normal(0.0, 1.0, n_station) * perturb.pressure
     dt = rng.normal(0.0, 1.0, shape) * perturb.temperature
     ds = rng.normal(0.0, 1.0, shape) * perturb.salinity
-    if perturb.pressure > 0:
-        ok = np.isfinite(sa)
-        plan = _shift_plan(ok, p, dp) if np.array_equal(ok, np.isfinite(ct)) else None
-        if plan is not None:  # one set of indices and weights for both
-            sa, ct = _apply_shift(sa, plan), _apply_shift(ct, plan)
-        else:
+    fast = _even_profiles(sa, p)
+    fast_ct = _even_profiles(ct, p) if fast is not None else None
+    if fast is not None and fast_ct is not None and np.array_equal(fast[1], fast_ct[1]):
+        # one pass per variable: the shifted cast plus its noise
+        steps = dp / fast[0]
+        sa_new, ct_new = np.empty(sa.shape), np.empty(ct.shape)
+        _shift_kernel(np.ascontiguousarray(sa), fast[1], steps, np.atleast_2d(ds), sa_new)
+        _shift_kernel(np.ascontiguousarray(ct), fast[1], steps, np.atleast_2d(dt), ct_new)
+    else:
+        if perturb.pressure > 0:
             sa = shift_profiles(sa, p, dp)
             ct = shift_profiles(ct, p, dp)
+        sa_new, ct_new = sa + ds, ct + dt
     out = section.copy()
-    for name, value in (("SA", sa + ds), ("CT", ct + dt)):
+    for name, value in (("SA", sa_new), ("CT", ct_new)):
         if section[name].dims == ("station", "pressure"):
             out[name].variable.values = value  # the copy's own variable: no re-alignment
         else:
@@ -312,8 +344,10 @@ def _record(study: Study, results: Results, truth: np.ndarray | None) -> dict[st
     sections = list(study.operators)
     out: dict[str, np.ndarray] = {}
     x = results.estimate
-    for name, output in (CLASS_OUTPUTS | SCALAR_OUTPUTS).items():
-        chosen = [results.select(output, s) for s in sections]
+    wanted = CLASS_OUTPUTS | SCALAR_OUTPUTS
+    by_section = [results.select_many(list(wanted.values()), s) for s in sections]
+    for name, output in wanted.items():
+        chosen = [selected[output] for selected in by_section]
         scalar = name in SCALAR_OUTPUTS  # one value per section, not per class
         for suffix, values in (("", [c.adjusted for c in chosen]),
                                ("_initial", [c.initial for c in chosen]),

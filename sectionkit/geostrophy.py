@@ -18,6 +18,7 @@ from dataclasses import dataclass
 import gsw
 import numpy as np
 
+from sectionkit.compiled import kernel
 from sectionkit.errors import Cautions, ComputationError, check_trailing_shape
 from sectionkit.thermo import station_profiles
 
@@ -164,32 +165,56 @@ def extend_into_bottom_triangle(
     check_trailing_shape("extend_into_bottom_triangle", "p", p, v_rel.shape[-1:], "level")
     check_trailing_shape("extend_into_bottom_triangle", "common", common, v_rel.shape[-2:-1],
                          "pair")
-    k = np.arange(p.size)
-    above = k <= common[..., None]
-    triangle = (k > common[..., None]) & (k <= deepest[..., None])
+    shape = v_rel.shape
+    common = np.broadcast_to(common, shape[:-1])
+    deepest = np.broadcast_to(deepest, shape[:-1])
     safe_common = np.clip(common, 0, None)[..., None]
-    v_common = np.take_along_axis(v_rel, safe_common, axis=-1)
-    if rule == "constant":
-        fill = np.broadcast_to(v_common, v_rel.shape)
-    elif rule == "zero":
-        fill = np.zeros_like(v_rel)
-    else:
+    slope = np.zeros(shape[:-1])
+    if rule == "shear":  # least-squares shear over the deepest SHEAR_FIT_SPAN dbar per pair
         p_common = p[safe_common]
-        window = above & (p >= p_common - SHEAR_FIT_SPAN)
+        window = (np.arange(p.size) <= common[..., None]) & (p >= p_common - SHEAR_FIT_SPAN)
         pw = np.where(window, p, np.nan)
         vw = np.where(window, v_rel, np.nan)
         with np.errstate(invalid="ignore", divide="ignore"):
             pm = np.nanmean(pw, axis=-1, keepdims=True)
             vm = np.nanmean(vw, axis=-1, keepdims=True)
-            slope = np.nansum((pw - pm) * (vw - vm), axis=-1, keepdims=True) / np.nansum(
-                (pw - pm) ** 2, axis=-1, keepdims=True
-            )
-        slope = np.where(np.isfinite(slope), slope, 0.0)
-        fill = v_common + slope * (p - p_common)
-    v_eff = np.where(above, v_rel, np.where(triangle, fill, np.nan))
-    reach = 0.0 if rule == "zero" else 1.0
-    response = np.where(above, 1.0, np.where(triangle, reach, np.nan))
+            fit = np.nansum((pw - pm) * (vw - vm), axis=-1) / np.nansum((pw - pm) ** 2, axis=-1)
+        slope = np.where(np.isfinite(fit), fit, 0.0)
+    n_lev = shape[-1]
+    v_eff = np.empty(shape)
+    response = np.empty(shape)
+    _triangle_kernel(np.ascontiguousarray(v_rel, dtype=float).reshape(-1, n_lev), p,
+                     np.ascontiguousarray(common, dtype=np.int64).reshape(-1),
+                     np.ascontiguousarray(deepest, dtype=np.int64).reshape(-1),
+                     slope.reshape(-1), rule == "zero",
+                     v_eff.reshape(-1, n_lev), response.reshape(-1, n_lev))
     return v_eff, response
+
+
+@kernel
+def _triangle_kernel(v_rel, p, common, deepest, slope, zero, v_eff, response):
+    """Rows of ``extend_into_bottom_triangle``: the profile down to the deepest common
+    level, the fill below it (the value there plus ``slope`` times the pressure below it, or
+    zero), NaN below the deepest level; response 1 where a reference reaches."""
+    n_row, n_lev = v_rel.shape
+    reach = 0.0 if zero else 1.0
+    for r in range(n_row):
+        kc = common[r]
+        kd = deepest[r]
+        kc_safe = max(kc, 0)
+        v_c = v_rel[r, kc_safe]
+        p_c = p[kc_safe]
+        s = slope[r]
+        for k in range(n_lev):
+            if k <= kc:
+                v_eff[r, k] = v_rel[r, k]
+                response[r, k] = 1.0
+            elif k <= kd:
+                v_eff[r, k] = 0.0 if zero else v_c + s * (p[k] - p_c)
+                response[r, k] = reach
+            else:
+                v_eff[r, k] = np.nan
+                response[r, k] = np.nan
 
 
 def pair_mean(station_values: np.ndarray) -> np.ndarray:
@@ -205,14 +230,28 @@ def pair_mean(station_values: np.ndarray) -> np.ndarray:
     ndarray (..., pair, level)
         Pair-mean property, same unit.
     """
-    station_values = np.asarray(station_values, dtype=float)
-    a = station_values[..., :-1, :]
-    b = station_values[..., 1:, :]
-    mean = np.add(a, b)
-    mean *= 0.5
-    np.copyto(mean, a, where=np.isnan(b))  # the deeper station alone ...
-    np.copyto(mean, b, where=np.isnan(a))  # ... whichever it is (NaN where both are)
+    values = np.ascontiguousarray(station_values, dtype=float)
+    shape = values.shape
+    mean = np.empty(shape[:-2] + (shape[-2] - 1, shape[-1]))
+    _pair_mean_kernel(values.reshape((-1,) + shape[-2:]), mean.reshape((-1,) + mean.shape[-2:]))
     return mean
+
+
+@kernel
+def _pair_mean_kernel(values, mean):
+    """(a + b) / 2 of neighbouring stations; a or b alone where the other is NaN."""
+    n_row, n_st, n_lev = values.shape
+    for r in range(n_row):
+        for j in range(n_st - 1):
+            for k in range(n_lev):
+                a = values[r, j, k]
+                b = values[r, j + 1, k]
+                if np.isnan(b):
+                    mean[r, j, k] = a  # the deeper station alone (NaN where both are)
+                elif np.isnan(a):
+                    mean[r, j, k] = b
+                else:
+                    mean[r, j, k] = (a + b) * 0.5
 
 
 def value_at_pressure(profile: np.ndarray, p: np.ndarray, p_at: np.ndarray) -> np.ndarray:

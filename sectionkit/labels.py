@@ -10,6 +10,7 @@ configuration refuses them).
 from __future__ import annotations
 
 from collections.abc import Mapping
+from functools import lru_cache
 
 from sectionkit.errors import ConfigError
 
@@ -36,7 +37,13 @@ def pair_label(section: str, k: int) -> str:
 
 def pair_labels(section: str, n_pair: int) -> list[str]:
     """Names of every pair of a section with ``n_pair`` pairs, in station order."""
-    return [pair_label(section, k) for k in range(n_pair)]
+    return list(_pair_labels(str(section), int(n_pair)))
+
+
+@lru_cache(maxsize=256)
+def _pair_labels(section: str, n_pair: int) -> tuple[str, ...]:
+    """The labels of :func:`pair_labels`, formed once per section name and size."""
+    return tuple(pair_label(section, k) for k in range(n_pair))
 
 
 def split_pair_label(label: str) -> tuple[str, int | None]:

@@ -23,6 +23,7 @@ from dataclasses import dataclass
 import gsw
 import numpy as np
 
+from sectionkit.compiled import kernel
 from sectionkit.errors import ConfigError, check_trailing_shape
 from sectionkit.geostrophy import pair_mean
 from sectionkit.labels import split_constraint_label
@@ -334,13 +335,25 @@ def cell_thickness(p: np.ndarray, lat: np.ndarray) -> np.ndarray:
     sin2 = np.sin(np.deg2rad(lat)) ** 2
     b = 9.780327 * (1.0 + (5.2792e-3 + (2.32e-5 * sin2)) * sin2)
     a = -0.5 * _GAMMA * b
-    c = gsw.enthalpy_SSO_0(p)
-    den = np.multiply.outer(4.0 * a, c)
-    np.subtract((b * b)[:, None], den, out=den)
-    np.sqrt(den, out=den)
-    den += b[:, None]
-    z = np.divide(-2.0 * c, den, out=den)
-    return -np.diff(z, axis=-1)
+    c = np.ascontiguousarray(gsw.enthalpy_SSO_0(p), dtype=float)
+    out = np.empty(lat.shape + (max(p.size - 1, 0),))
+    _cell_thickness_kernel(np.ascontiguousarray(4.0 * a).reshape(-1),
+                           np.ascontiguousarray(b).reshape(-1), c,
+                           out.reshape(-1, out.shape[-1]))
+    return out
+
+
+@kernel
+def _cell_thickness_kernel(four_a, b, c, out):
+    """z_k - z_{k+1} per row, z = -2 c / (b + sqrt(b^2 - 4 a c)) (gsw.z_from_p's form)."""
+    n_row, n_seg = out.shape
+    for r in range(n_row):
+        bb = b[r] * b[r]
+        z_prev = (-2.0 * c[0]) / (np.sqrt(bb - four_a[r] * c[0]) + b[r])
+        for k in range(n_seg):
+            z = (-2.0 * c[k + 1]) / (np.sqrt(bb - four_a[r] * c[k + 1]) + b[r])
+            out[r, k] = -(z - z_prev)
+            z_prev = z
 
 
 def bottom_width_fraction(
@@ -368,11 +381,10 @@ def bottom_width_fraction(
     check_trailing_shape("bottom_width_fraction", "bottom_b", np.asarray(bottom_b),
                          np.shape(bottom_a), "pair (as bottom_a)")
     mid = 0.5 * (p[:-1] + p[1:])
-    shallow = np.minimum(bottom_a, bottom_b)[:, None]
-    deep = np.maximum(bottom_a, bottom_b)[:, None]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        frac = np.where(deep > shallow, (deep - mid) / (deep - shallow), 1.0)
-    frac = np.where(mid <= shallow, 1.0, np.clip(frac, 0.0, 1.0))
+    shallow = np.minimum(bottom_a, bottom_b).astype(float)
+    deep = np.maximum(bottom_a, bottom_b).astype(float)
+    frac = np.empty(shallow.shape + mid.shape)
+    _width_kernel(mid, shallow.reshape(-1), deep.reshape(-1), frac.reshape(-1, mid.size))
     if track is not None:
         for j, samples in enumerate(track):
             if samples is None:
@@ -380,6 +392,24 @@ def bottom_width_fraction(
             samples = np.asarray(samples, dtype=float)
             frac[j] = (samples[None, :] > mid[:, None]).mean(axis=1)
     return frac
+
+
+@kernel
+def _width_kernel(mid, shallow, deep, frac):
+    """Straight-bottom width fraction: 1 above the shallower bottom, (deep - p) / (deep -
+    shallow) clipped to [0, 1] between the two, 1 for a flat bottom or an unknown one."""
+    n_row, n_seg = frac.shape
+    for r in range(n_row):
+        lo = shallow[r]
+        hi = deep[r]
+        for k in range(n_seg):
+            m = mid[k]
+            if m <= lo:
+                frac[r, k] = 1.0
+            elif hi > lo:
+                frac[r, k] = min(max((hi - m) / (hi - lo), 0.0), 1.0)
+            else:  # a flat bottom (or none known)
+                frac[r, k] = 1.0
 
 
 @dataclass

@@ -23,6 +23,8 @@ import gsw
 import numpy as np
 import xarray as xr
 
+from sectionkit.arrays import core_last
+from sectionkit.compiled import kernel
 from sectionkit.errors import Cautions, EquatorError, SectionDataError
 from sectionkit.geometry import EQUATOR_HARD_BAND, pair_geometry
 from sectionkit.geostrophy import (
@@ -224,7 +226,7 @@ class SectionOperator:
             -(tau . t) L / (RHO0 f), m^3 s^-1, positive to the left of
             increasing station order.
         """
-        g = self.pairs
+        g = self.pairs.variables
         along = (np.asarray(stress_east, dtype=float)[..., None] * g["along_east"].values
                  + np.asarray(stress_north, dtype=float)[..., None] * g["along_north"].values)
         return -along * g["distance"].values / (RHO0 * g["f"].values)
@@ -334,6 +336,63 @@ def _masked(a: np.ndarray) -> np.ndarray:
     return np.where(np.isnan(a), 0.0, a)
 
 
+def _level_parts(distance: np.ndarray, column: np.ndarray, v_eff: np.ndarray,
+                 response: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The per-level operator of a section: transports and areas summed over its pairs.
+
+    Parameters
+    ----------
+    distance : ndarray (pair,)
+        Pair width, m.
+    column : ndarray (..., pair, level)
+        Depth-integration weight of each level (all classes), m.
+    v_eff, response : ndarray (..., pair, level)
+        Velocity relative to the surface (m s^-1) and the reach of a
+        reference velocity (1); NaN below the bottom (counted as zero).
+
+    Returns
+    -------
+    level_relative : ndarray (..., level)
+        Relative volume transport of each level, m^3 s^-1.
+    level_area : ndarray (..., pair, level)
+        Area a reference velocity moves at each level of each pair, m^2.
+    level_section_area : ndarray (..., level)
+        Cross-sectional area of each level, m^2.
+    """
+    shape = column.shape
+    rows = (-1,) + shape[-2:]
+    level_relative = np.empty(shape[:-2] + shape[-1:])
+    level_area = np.empty(shape)
+    level_section_area = np.empty(shape[:-2] + shape[-1:])
+    _level_parts_kernel(
+        np.ascontiguousarray(distance, dtype=float),
+        *(np.ascontiguousarray(np.broadcast_to(a, shape), dtype=float).reshape(rows)
+          for a in (column, v_eff, response)),
+        level_relative.reshape(-1, shape[-1]), level_area.reshape(rows),
+        level_section_area.reshape(-1, shape[-1]))
+    return level_relative, level_area, level_section_area
+
+
+@kernel
+def _level_parts_kernel(distance, column, v_eff, response, level_relative, level_area,
+                        level_section_area):
+    """Sums over pairs (in pair order) of distance x column x v and distance x column."""
+    n_lead, n_pair, n_lev = column.shape
+    for r in range(n_lead):
+        for k in range(n_lev):
+            level_relative[r, k] = 0.0
+            level_section_area[r, k] = 0.0
+        for j in range(n_pair):
+            d = distance[j]
+            for k in range(n_lev):
+                c = column[r, j, k]
+                v = v_eff[r, j, k]
+                a = response[r, j, k]
+                level_relative[r, k] += d * (c * (0.0 if np.isnan(v) else v))
+                level_area[r, j, k] = (d * c) * (0.0 if np.isnan(a) else a)
+                level_section_area[r, k] += d * c
+
+
 def build_operator(
     section: xr.Dataset,
     interfaces: list[Interface],
@@ -381,14 +440,16 @@ def build_operator(
     """
     names = check_interfaces(interfaces, layer_names)
     name = str(section.attrs.get("section", "section"))
-    p = section["pressure"].values.astype(float)
-    sa = section["SA"].transpose(..., "station", "pressure").values
-    ct = section["CT"].transpose(..., "station", "pressure").values
-    bottom = section["bottom_pressure"].values.astype(float)
+    var = section.variables  # plain variables: no DataArray built per lookup
+    p = var["pressure"].values.astype(float)
+    sa = core_last(var["SA"], "station", "pressure")
+    ct = core_last(var["CT"], "station", "pressure")
+    bottom = var["bottom_pressure"].values.astype(float)
     geometry, thickness, width = _fixed_parts(section, p, bottom, bathymetry)
-    distance = geometry["distance"].values
-    f = geometry["f"].values
-    on_equator = np.flatnonzero(np.abs(geometry["lat"].values) < EQUATOR_HARD_BAND)
+    distance = geometry.variables["distance"].values
+    f = geometry.variables["f"].values
+    lat_pair = geometry.variables["lat"].values
+    on_equator = np.flatnonzero(np.abs(lat_pair) < EQUATOR_HARD_BAND)
     if on_equator.size:  # a backstop for sections that were not validated (1/f below)
         raise EquatorError(
             f"section {name}: pair(s) {', '.join(f'{name}:{k}' for k in on_equator)} lie "
@@ -428,7 +489,7 @@ def build_operator(
 
     sa_pair = pair_mean(sa)
     ct_pair = pair_mean(ct)
-    salt_pair = pair_mean(budget_salinity(sa, p, section["lon"].values, section["lat"].values,
+    salt_pair = pair_mean(budget_salinity(sa, p, var["lon"].values, var["lat"].values,
                                           salinity))
     rho_pair = pair_mean(rho_station)
     del rho_station
@@ -454,10 +515,9 @@ def build_operator(
     # without interfaces one class holds everything: compare with an unreachable density
     values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([1e9])
 
-    tail = _tail_thickness(p, deepest, bottom, geometry["lat"].values)
+    tail = _tail_thickness(p, deepest, bottom, lat_pair)
     if below:
         tail = np.array(tail, copy=True)
-        lat_pair = geometry["lat"].values
         for j, p_track in below.items():
             p_last = p[int(np.max(deepest[..., j]))]
             samples = np.asarray(bathymetry[j], dtype=float)
@@ -479,14 +539,12 @@ def build_operator(
     # area moments of SA and CT per class: [area, SA, SA^2, CT, CT^2] integrals (m^2 units)
     class_moments = np.moveaxis(integrals[..., 2 * n_q :].sum(axis=-3), -1, -2)  # (..., 5, class)
 
-    column = levels.column  # (..., pair, level), all classes
-    level_relative = np.einsum("j,...jk->...k", distance, column * _masked(v_eff))
-    level_area = length * column * _masked(response)
-    level_section_area = np.einsum("j,...jk->...k", distance, column)  # (..., level) m^2
+    level_relative, level_area, level_section_area = _level_parts(distance, levels.column,
+                                                                  v_eff, response)
 
     ekman_share, level_ekman = ekman_class_share(
-        sigma_if, values, p, geometry["lat"].values, ekman_depth,
-        _quantities(rho_pair, salt_pair, ct_pair, slice(0, _ekman_levels(p, geometry["lat"].values,
+        sigma_if, values, p, lat_pair, ekman_depth,
+        _quantities(rho_pair, salt_pair, ct_pair, slice(0, _ekman_levels(p, lat_pair,
                                                                        ekman_depth))),
     )
 
@@ -667,10 +725,12 @@ def _fixed_parts(section: xr.Dataset, p: np.ndarray, bottom: np.ndarray, bathyme
 
     They depend on positions, bottoms and the grid only, which ensemble members
     and repeated builds share: the last few are kept, keyed by the values
-    themselves (never by identity), and the arrays are returned read-only.
+    themselves (never by identity). The same geometry Dataset then serves every
+    operator of those positions: its arrays and the cell arrays are read-only.
     """
-    key = (section["lon"].values.tobytes(), section["lat"].values.tobytes(),
-           section["station"].values.tobytes(), bottom.tobytes(), p.tobytes(),
+    var = section.variables
+    key = (var["lon"].values.tobytes(), var["lat"].values.tobytes(),
+           var["station"].values.tobytes(), bottom.tobytes(), p.tobytes(),
            None if bathymetry is None else tuple(
                None if t is None else np.asarray(t, float).tobytes() for t in bathymetry))
     with _FIXED_LOCK:
@@ -679,17 +739,20 @@ def _fixed_parts(section: xr.Dataset, p: np.ndarray, bottom: np.ndarray, bathyme
             _FIXED[key] = hit  # most recently used last
     if hit is None:
         geometry = pair_geometry(section)
-        thickness = cell_thickness(p, geometry["lat"].values)
+        thickness = cell_thickness(p, geometry.variables["lat"].values)
         width = bottom_width_fraction(p, bottom[:-1], bottom[1:], bathymetry)
         thickness.setflags(write=False)
         width.setflags(write=False)
+        for variable in geometry.variables.values():
+            if not isinstance(variable, xr.IndexVariable):
+                variable.values.setflags(write=False)  # shared by the builds that read it
         hit = (geometry, thickness, width)
         with _FIXED_LOCK:
             _FIXED[key] = hit
             while len(_FIXED) > _FIXED_SIZE:
                 _FIXED.pop(next(iter(_FIXED)))
     geometry, thickness, width = hit
-    return geometry.copy(deep=True), thickness, width
+    return geometry, thickness, width
 
 
 def _scratch(shape: tuple[int, ...]) -> np.ndarray:

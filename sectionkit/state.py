@@ -410,6 +410,35 @@ class Results:
         return self.block(section, spec.keys(list(op.layer_names), len(op.interfaces),
                                              op.pressure.size))
 
+    def select_many(self, outputs: list[str], section: str) -> dict[str, Selection]:
+        """Several registered outputs of one section (as :meth:`select`), formed together.
+
+        Parameters
+        ----------
+        outputs : list of str
+            Registry names.
+        section : str
+            Section name.
+
+        Returns
+        -------
+        dict of str -> Selection
+            By registry name; the values equal :meth:`select`'s (one block of
+            rows and one error propagation for all of them).
+        """
+        op = self.state.operators[section]
+        keys = {name: REGISTRY[name].keys(list(op.layer_names), len(op.interfaces),
+                                          op.pressure.size) for name in outputs}
+        whole = self.block(section, [k for ks in keys.values() for k in ks])
+        out: dict[str, Selection] = {}
+        start = 0
+        for name, ks in keys.items():
+            part = slice(start, start + len(ks))
+            out[name] = Selection(list(ks), whole.initial[part], whole.adjusted[part],
+                                  whole.error[part], whole.gradient[part])
+            start = part.stop
+        return out
+
     def with_data(self, target: np.ndarray) -> Results:
         """The same state solved with other constraint data ``y`` (an ensemble member's).
 

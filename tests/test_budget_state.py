@@ -141,3 +141,16 @@ def test_select_by_registry_name_gives_the_class_transports_and_their_errors(sec
     np.testing.assert_allclose(sel.error, np.sqrt(np.diag(g @ results.covariance @ g.T)),
                                rtol=1e-10)
     assert results.select("overturning_depth", "north").adjusted.shape == (1,)
+
+
+def test_several_outputs_selected_together_equal_each_selected_alone(sections):
+    results = _study(sections).solve()
+    names = ["class_volume_transport", "class_heat_transport", "overturning_depth",
+             "net_volume_transport"]
+    together = results.select_many(names, "north")
+    for name in names:
+        alone = results.select(name, "north")
+        assert together[name].keys == alone.keys
+        for field in ("initial", "adjusted", "error"):
+            np.testing.assert_allclose(getattr(together[name], field), getattr(alone, field),
+                                       rtol=1e-12, atol=1e-15)

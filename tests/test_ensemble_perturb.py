@@ -41,6 +41,27 @@ def test_shift_on_an_uneven_grid_equals_numpy_interp():
                                   _interp_loop(values, p, shift))
 
 
+def test_a_perturbed_section_is_the_shifted_cast_plus_its_offsets():
+    # the definition, rebuilt with numpy alone: the draws in their documented order
+    # (pressure, temperature, salinity), each cast moved by numpy.interp, then the offsets
+    section = synthetic_section(7, 10.0, 2000.0, lat=30.0, seed=4, name="x", noise=5.0)
+    sa = section["SA"].transpose("station", "pressure").values
+    ct = section["CT"].transpose("station", "pressure").values
+    p = section["pressure"].values
+    for mode in ("station", "level"):
+        perturb = Perturbation(pressure=3.0, temperature=0.01, salinity=0.02, mode=mode)
+        rng = np.random.default_rng(11)
+        shape = (7, 1) if mode == "station" else sa.shape
+        dp = rng.normal(0.0, 1.0, 7) * 3.0
+        dt = rng.normal(0.0, 1.0, shape) * 0.01
+        ds = rng.normal(0.0, 1.0, shape) * 0.02
+        out = perturb_section(section, np.random.default_rng(11), perturb)
+        np.testing.assert_allclose(out["SA"].transpose("station", "pressure").values,
+                                   _interp_loop(sa, p, dp) + ds, rtol=0, atol=1e-12)
+        np.testing.assert_allclose(out["CT"].transpose("station", "pressure").values,
+                                   _interp_loop(ct, p, dp) + dt, rtol=0, atol=1e-12)
+
+
 def test_perturbing_a_section_leaves_the_original_unchanged():
     section = synthetic_section(6, 10.0, 2000.0, lat=30.0, seed=3, name="x", noise=5.0)
     before = section.copy(deep=True)

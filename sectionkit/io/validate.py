@@ -30,6 +30,8 @@ from collections import Counter
 
 import numpy as np
 
+from sectionkit.arrays import core_last
+from sectionkit.compiled import kernel
 from sectionkit.errors import Cautions, EquatorError, SectionDataError
 from sectionkit.geometry import (
     EQUATOR_BAND,
@@ -535,11 +537,19 @@ def check_gridded_levels(ds, file: str | None = None) -> None:
     file : str, optional
         Its source, for messages.
     """
-    finite = np.isfinite(ds["SA"].values) & np.isfinite(ds["CT"].values)
-    stations = [str(s) for s in ds["station"].values]
+    sa = np.ascontiguousarray(core_last(ds.variables["SA"], "station", "pressure"), dtype=float)
+    ct = np.ascontiguousarray(core_last(ds.variables["CT"], "station", "pressure"), dtype=float)
+    sa = sa.reshape(-1, *sa.shape[-2:])
+    ct = ct.reshape(sa.shape)
+    levels = np.empty(sa.shape[:-1], dtype=np.int64)
+    common = np.empty((sa.shape[0], sa.shape[1] - 1), dtype=np.int64)
+    _finite_level_counts(sa, ct, levels, common)
+    levels = levels.min(axis=0)  # the fewest over any leading dimensions
+    common = common.min(axis=0)
     name = ds.attrs.get("section", "section")
     source = f" ({file})" if file else ""
-    levels = finite.sum(axis=-1)
+    if np.any(levels < 2) or np.any(common < 2):
+        stations = [str(s) for s in ds["station"].values]
     if np.any(levels < 2):
         k = int(np.flatnonzero(levels < 2)[0])
         raise SectionDataError(
@@ -547,7 +557,6 @@ def check_gridded_levels(ds, file: str | None = None) -> None:
             f"{int(levels[k])} grid level(s) only; geostrophic shear needs a profile — drop "
             "the station or use a smaller grid step dp"
         )
-    common = (finite[:-1] & finite[1:]).sum(axis=-1)
     if np.any(common < 2):
         k = int(np.flatnonzero(common < 2)[0])
         raise SectionDataError(
@@ -555,6 +564,26 @@ def check_gridded_levels(ds, file: str | None = None) -> None:
             "common level is the surface, so there is no shear to reference; drop one of the "
             "stations or check their profiles"
         )
+
+
+@kernel
+def _finite_level_counts(sa, ct, levels, common):
+    """Levels where both SA and CT are finite: per station, and common to each pair."""
+    n_lead, n_st, n_lev = sa.shape
+    for r in range(n_lead):
+        for j in range(n_st):
+            n = 0
+            for k in range(n_lev):
+                if np.isfinite(sa[r, j, k]) and np.isfinite(ct[r, j, k]):
+                    n += 1
+            levels[r, j] = n
+        for j in range(n_st - 1):
+            n = 0
+            for k in range(n_lev):
+                if (np.isfinite(sa[r, j, k]) and np.isfinite(ct[r, j, k])
+                        and np.isfinite(sa[r, j + 1, k]) and np.isfinite(ct[r, j + 1, k])):
+                    n += 1
+            common[r, j] = n
 
 
 def inversion_cautions(
