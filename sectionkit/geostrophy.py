@@ -75,30 +75,66 @@ def relative_velocity(psi: np.ndarray, distance: np.ndarray, f: np.ndarray) -> n
         Velocity relative to the surface, m s^-1, positive to the left of
         increasing station order; NaN below the deepest common level.
     """
-    psi = np.asarray(psi)
+    psi = np.asarray(psi, dtype=float)
     scale = np.asarray(distance) * np.asarray(f)
     check_trailing_shape("relative_velocity", "distance * f", scale,
                          (psi.shape[-2] - 1,) if psi.ndim >= 2 else (-1,), "pair")
-    return np.diff(psi, axis=-2) / scale[..., None]
+    shape = np.broadcast_shapes(psi.shape[:-2] + (psi.shape[-2] - 1, psi.shape[-1]),
+                                scale.shape + psi.shape[-1:])
+    psi = np.ascontiguousarray(np.broadcast_to(psi, shape[:-2] + psi.shape[-2:]))
+    scale = np.ascontiguousarray(np.broadcast_to(scale, shape[:-1]), dtype=float)
+    v = np.empty(shape)
+    _pair_velocity(psi.reshape((-1,) + psi.shape[-2:]), scale.reshape(-1, shape[-2]),
+                   v.reshape((-1,) + shape[-2:]))
+    return v
 
 
-def last_valid_level(values: np.ndarray) -> np.ndarray:
+@kernel
+def _pair_velocity(psi, scale, v):
+    """(psi[j + 1] - psi[j]) / scale[j] for every pair j and level."""
+    n_row, n_pair, n_lev = v.shape
+    for r in range(n_row):
+        for j in range(n_pair):
+            s = scale[r, j]
+            for k in range(n_lev):
+                v[r, j, k] = (psi[r, j + 1, k] - psi[r, j, k]) / s
+
+
+def last_valid_level(values: np.ndarray, other: np.ndarray | None = None) -> np.ndarray:
     """Index of the deepest finite value of each profile.
 
     Parameters
     ----------
     values : ndarray (..., level)
         Profiles, any unit; NaN below the bottom.
+    other : ndarray (..., level), optional
+        A second variable of the same profiles (e.g. CT beside SA): then the
+        deepest level where both are finite.
 
     Returns
     -------
     ndarray (...,) of int
         Index of the last finite level, -1 for an all-NaN profile.
     """
-    finite = np.isfinite(values)
-    n = values.shape[-1]
-    idx = n - 1 - np.argmax(finite[..., ::-1], axis=-1)
-    return np.where(finite.any(axis=-1), idx, -1)
+    values = np.ascontiguousarray(values, dtype=float)
+    other = values if other is None else np.ascontiguousarray(other, dtype=float)
+    check_trailing_shape("last_valid_level", "other", other, values.shape[-1:], "level")
+    other = np.ascontiguousarray(np.broadcast_to(other, values.shape))
+    last = np.empty(values.shape[:-1], dtype=np.intp)
+    _last_finite(values.reshape(-1, values.shape[-1]), other.reshape(-1, values.shape[-1]),
+                 last.reshape(-1))
+    return last
+
+
+@kernel
+def _last_finite(values, other, last):
+    """Index of the last level where both rows are finite (searched from the end), -1 if none."""
+    n_row, n_lev = values.shape
+    for r in range(n_row):
+        k = n_lev - 1
+        while k >= 0 and not (np.isfinite(values[r, k]) and np.isfinite(other[r, k])):
+            k -= 1
+        last[r] = k
 
 
 def pair_level_limits(station_last: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -463,7 +463,7 @@ def build_operator(
             "merge or drop one of them"
         )
 
-    last = last_valid_level(sa + ct)
+    last = last_valid_level(sa, ct)
     common, deepest = pair_level_limits(last)
     # water where a bathymetry track lies below both stations: the deeper station's
     # properties continue down to it and the triangle rule gives its velocity
@@ -479,7 +479,7 @@ def build_operator(
         # volume anomaly, in-situ density as the reciprocal of the same specific volume
         eos = specific_volume_pass(sa, ct, p, max_dp=max_dp)
         v_rel = relative_velocity(eos.dynamic_height, distance, f)
-        v_rel = np.where(np.arange(p.size) <= common[..., None], v_rel, np.nan)
+        np.copyto(v_rel, np.nan, where=np.arange(p.size) > common[..., None])
         rho_station = eos.in_situ_density(out=eos.specific_volume)
         del eos
     else:

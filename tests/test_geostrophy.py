@@ -21,6 +21,7 @@ from sectionkit.geostrophy import (
     dynamic_height,
     extend_into_bottom_triangle,
     isopycnal_pressure,
+    last_valid_level,
     relative_velocity,
     resolve_references,
 )
@@ -200,3 +201,18 @@ def test_known_velocity_reference_sets_velocity_at_its_level():
     v = op.absolute_velocity(offset)
     k = int(np.searchsorted(op.pressure, 1000.0))
     np.testing.assert_allclose(v[:, k], 0.03, atol=1e-12)
+
+
+def test_the_last_valid_level_needs_both_variables_finite():
+    # hand-built profiles: a gap inside one variable, NaN below the bottom, an empty cast
+    sa = np.array([[1.0, 1.0, 1.0, 1.0, 1.0],
+                   [1.0, 1.0, np.nan, np.nan, np.nan],
+                   [np.nan] * 5,
+                   [1.0, 1.0, 1.0, 1.0, np.nan]])
+    ct = np.array([[1.0, 1.0, 1.0, np.nan, 1.0],
+                   [1.0, 1.0, 1.0, 1.0, np.nan],
+                   [1.0] * 5,
+                   [1.0, 1.0, 1.0, np.nan, np.nan]])
+    np.testing.assert_array_equal(last_valid_level(sa, ct), [4, 1, -1, 2])
+    np.testing.assert_array_equal(last_valid_level(sa), [4, 1, -1, 3])
+    np.testing.assert_array_equal(last_valid_level(sa[None], ct[None]), [[4, 1, -1, 2]])
