@@ -173,3 +173,14 @@ def test_pair_means_take_the_deeper_station_alone_below_the_shallower():
         warnings.simplefilter("ignore", RuntimeWarning)  # both stations empty: NaN
         expected = np.nanmean(np.stack([sa[..., :-1, :], sa[..., 1:, :]]), axis=0)
     np.testing.assert_array_equal(pair_mean(sa), expected)
+
+
+def test_casts_stored_level_first_give_the_same_pass():
+    # a (station, level) view of (level, station) storage, as a transposed Dataset gives:
+    # gsw.geo_strf_dyn_height of the same numbers
+    sa, ct, p = _profiles(1, 200, 2.0, seed=10)
+    sa_t, ct_t = (np.asfortranarray(x[0]) for x in (sa, ct))
+    eos = specific_volume_pass(sa_t, ct_t, p)
+    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa[0], ct[0], p), REFINED_RTOL)
+    np.testing.assert_array_equal(eos.dynamic_height, specific_volume_pass(sa[0], ct[0], p)
+                                  .dynamic_height)
