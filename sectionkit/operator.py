@@ -47,7 +47,7 @@ from sectionkit.layers import (
     deciding_densities,
     potential_density_anomaly,
 )
-from sectionkit.thermo import specific_volume_pass
+from sectionkit.thermo import preformed_salinity_ratio, specific_volume_pass
 
 RHO0 = 1025.0  # kg m^-3, Boussinesq reference density of DESIGN.md §4 (common practice)
 CP0 = 3991.86795711963  # J kg^-1 K^-1, TEOS-10 c_p0 (IOC, SCOR and IAPSO 2010; gsw.cp0 in C)
@@ -481,7 +481,7 @@ def build_operator(
         eos = specific_volume_pass(sa, ct, p, max_dp=max_dp)
         v_rel = relative_velocity(eos.dynamic_height, distance, f)
         np.copyto(v_rel, np.nan, where=np.arange(p.size) > common[..., None])
-        rho_station = eos.in_situ_density(out=eos.anomaly)
+        rho_station = eos.in_situ_density(out=eos.specific_volume)
         del eos
     else:
         v_rel = relative_velocity_of_pairs
@@ -613,16 +613,16 @@ _SSTAR: dict[bytes, np.ndarray] = {}
 def _sstar_factor(p: np.ndarray, lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
     """S*/SA at every station and level (it depends on position and pressure only).
 
-    gsw.Sstar_from_SA is SA (1 - (1 + r1) SAAR) / (1 + SAAR) with SAAR from the
+    gsw.Sstar_from_SA is SA (1 - r_1 SAAR) / (1 + SAAR) with SAAR from the
     TEOS-10 atlas at (p, lon, lat): linear in SA, so the ratio is evaluated once
-    per set of positions and grid and kept (the last few), read-only.
+    per set of positions and grid (:func:`sectionkit.thermo.preformed_salinity_ratio`,
+    SAAR at the atlas levels only) and kept (the last few), read-only.
     """
     key = p.tobytes() + b"|" + lon.tobytes() + b"|" + lat.tobytes()
     with _FIXED_LOCK:
         factor = _SSTAR.get(key)
     if factor is None:
-        factor = gsw.Sstar_from_SA(1.0, p, lon[..., None],  # broadcast: a scalar SA is faster
-                                   lat[..., None])
+        factor = preformed_salinity_ratio(p, lon, lat)
         factor.setflags(write=False)
         with _FIXED_LOCK:
             _SSTAR[key] = factor

@@ -21,7 +21,8 @@ import gsw
 import numpy as np
 import xarray as xr
 
-from sectionkit.errors import SectionDataError, check_trailing_shape
+from sectionkit.compiled import kernel
+from sectionkit.errors import ComputationError, SectionDataError, check_trailing_shape
 
 #: Offset between the kelvin and Celsius scales, K.
 KELVIN_OFFSET = 273.15
@@ -137,6 +138,109 @@ def absolute_salinity(
     return gsw.SA_from_SP(SP, p, lon, lat)
 
 
+#: Pressures, dbar, at which the TEOS-10 Absolute Salinity Anomaly Ratio atlas has its
+#: levels, as gsw.SAAR interpolates it. Found empirically (gsw 3.6.23): the second
+#: differences of gsw.SAAR along pressure at 1 dbar steps, 0 to 9000 dbar, at 4000
+#: random positions, are non-zero (beyond 1e-9 of the profile's SAAR) only at these
+#: pressures; a linear interpolation between gsw.SAAR at them reproduces gsw.SAAR at
+#: 0.1 dbar steps from 0 to 7000 dbar at 3000 random positions bit for bit. Below the
+#: deepest atlas level of a position's surrounding cells gsw holds SAAR constant (the
+#: values at the deeper knots are then equal), and below the last knot everywhere.
+#: tests/test_preformed_salinity.py checks the whole claim against gsw.Sstar_from_SA.
+SAAR_ATLAS_PRESSURES = np.array([
+    0.0, 10.0, 20.0, 30.0, 40.0, 50.0, 76.0, 101.0, 126.0, 151.0, 176.0, 202.0, 252.0,
+    303.0, 353.0, 404.0, 505.0, 606.0, 707.0, 808.0, 909.0, 1010.0, 1111.0, 1213.0, 1314.0,
+    1416.0, 1517.0, 1771.0, 2025.0, 2279.0, 2534.0, 2789.0, 3045.0, 3300.0, 3556.0, 3812.0,
+    4069.0, 4325.0, 4583.0, 4840.0, 5098.0, 5355.0, 5614.0, 5872.0, 6131.0,
+])
+#: TEOS-10 r_1 of Preformed Salinity, S* = SA (1 - r_1 SAAR) / (1 + SAAR)
+#: (McDougall et al. 2012, Ocean Science 8, 1123-1134; gsw.Sstar_from_SA).
+SSTAR_R1 = 0.35
+
+
+@kernel
+def _sstar_ratio_kernel(knot_saar: np.ndarray, rows: np.ndarray, k: np.ndarray,
+                        t: np.ndarray, out: np.ndarray) -> None:
+    """S*/SA at every level of the stations ``rows`` from their SAAR at the atlas pressures.
+
+    SAAR between knots ``k`` and ``k + 1`` is ``a + t (b - a)``, gsw's own
+    interpolation formula in pressure, then S*/SA is gsw's
+    ``(1 - r_1 SAAR) / (1 + SAAR)``: the same operations in the same order.
+    """
+    for i in range(rows.size):
+        s = rows[i]
+        for j in range(k.size):
+            a = knot_saar[i, k[j]]
+            saar = a + t[j] * (knot_saar[i, k[j] + 1] - a)
+            out[s, j] = (1.0 - SSTAR_R1 * saar) / (1.0 + saar)
+
+
+def preformed_salinity_ratio(p: np.ndarray, lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
+    """Preformed over Absolute Salinity, S*/SA, at each station position and pressure.
+
+    gsw.Sstar_from_SA is linear in SA with a ratio that depends on position
+    and pressure only, through SAAR from the TEOS-10 atlas; at a fixed
+    position SAAR is linear in pressure between the atlas levels
+    (:data:`SAAR_ATLAS_PRESSURES`) and constant below the deepest one. So
+    gsw.SAAR is evaluated at those levels only (tens per station instead of
+    one per grid level) and interpolated as gsw does; the result equals
+    gsw.Sstar_from_SA(1, p, lon, lat) to round-off (bit for bit on the
+    machines it was checked on).
+
+    Where that cannot be guaranteed, gsw.Sstar_from_SA itself evaluates
+    every level: a pressure grid that is not finite and non-negative,
+    positions outside gsw's documented range (longitude -360 to 360,
+    latitude -86 to 90 degrees, where the atlas is defined) and positions whose
+    atlas SAAR is missing at some level. A position that is not finite
+    (NaN or infinite) gives NaN without calling gsw.
+
+    Parameters
+    ----------
+    p : ndarray (level,)
+        Sea pressure, dbar.
+    lon : ndarray (..., station)
+        Station longitude, degrees_east.
+    lat : ndarray (..., station)
+        Station latitude, degrees_north.
+
+    Returns
+    -------
+    ndarray (..., station, level)
+        S*/SA (unitless); NaN where gsw has no SAAR (outside the atlas).
+    """
+    p = np.asarray(p, dtype=float)
+    if p.ndim != 1:
+        raise ComputationError(f"preformed_salinity_ratio: p must be one profile of pressures "
+                               f"(level,), got shape {p.shape}")
+    lon, lat = np.broadcast_arrays(np.asarray(lon, dtype=float), np.asarray(lat, dtype=float))
+    shape = lon.shape
+    lon, lat = lon.ravel(), lat.ravel()
+    out = np.empty((lon.size, p.size))
+    finite = np.isfinite(lon) & np.isfinite(lat)
+    out[~finite] = np.nan
+    if p.size == 0:
+        return out.reshape(*shape, p.size)
+    knots = SAAR_ATLAS_PRESSURES
+    fast = finite & (np.abs(lon) <= 360.0) & (lat >= -86.0) & (lat <= 90.0)
+    if not (np.all(np.isfinite(p)) and np.min(p) >= 0.0):
+        fast[:] = False
+    if np.any(fast):
+        # gsw's interval and fraction of each level (the same for every position)
+        pc = np.minimum(p, knots[-1])
+        k = np.clip(np.searchsorted(knots, pc, side="right") - 1, 0, knots.size - 2)
+        t = (pc - knots[k]) / (knots[k + 1] - knots[k])
+        used = knots[: int(k.max()) + 2]
+        rows = np.flatnonzero(fast)
+        knot_saar = gsw.SAAR(used[None, :], lon[rows, None], lat[rows, None])
+        whole = np.all(np.isfinite(knot_saar), axis=-1)  # SAAR missing at a level: gsw
+        _sstar_ratio_kernel(np.ascontiguousarray(knot_saar[whole]), rows[whole], k, t, out)
+        fast[rows[~whole]] = False
+    slow = finite & ~fast
+    if np.any(slow):
+        out[slow] = gsw.Sstar_from_SA(1.0, p, lon[slow, None], lat[slow, None])
+    return out.reshape(*shape, p.size)
+
+
 def conservative_temperature(
     temperature: np.ndarray, SA: np.ndarray, p: np.ndarray, kind: str
 ) -> np.ndarray:
@@ -250,20 +354,28 @@ class SpecificVolumePass:
 
     Attributes
     ----------
-    anomaly : ndarray (..., station, level)
-        Specific volume anomaly relative to the standard ocean (SSO, 0 degC),
-        m^3 kg^-1 (gsw.specvol_anom_standard); NaN below the bottom.
+    specific_volume : ndarray (..., station, level)
+        Specific volume, m^3 kg^-1 (gsw.specvol); NaN below the bottom.
     standard : ndarray (level,)
-        Specific volume of the standard ocean at each level, m^3 kg^-1
-        (gsw.specvol_SSO_0).
+        Specific volume of the standard ocean (SSO, 0 degC) at each level,
+        m^3 kg^-1 (gsw.specvol_SSO_0).
     dynamic_height : ndarray (..., station, level)
         Dynamic height anomaly relative to the sea surface, m^2 s^-2, as
         gsw.geo_strf_dyn_height (p_ref = 0) computes it; NaN below the bottom.
     """
 
-    anomaly: np.ndarray
+    specific_volume: np.ndarray
     standard: np.ndarray
     dynamic_height: np.ndarray
+
+    @property
+    def anomaly(self) -> np.ndarray:
+        """Specific volume anomaly relative to the standard ocean, m^3 kg^-1.
+
+        ``specific_volume - standard``: gsw.specvol_anom_standard is this
+        difference (equal bit for bit in gsw 3.6); a new array at each call.
+        """
+        return self.specific_volume - self.standard
 
     def in_situ_density(self, out: np.ndarray | None = None) -> np.ndarray:
         """In-situ density as the reciprocal of the specific volume, kg m^-3.
@@ -271,15 +383,15 @@ class SpecificVolumePass:
         Parameters
         ----------
         out : ndarray (..., station, level), optional
-            Buffer to write into.
+            Buffer to write into (``specific_volume`` itself when it is no
+            longer needed).
 
         Returns
         -------
         ndarray (..., station, level)
-            1 / (anomaly + standard), kg m^-3 (equals gsw.rho to round-off).
+            1 / specific_volume, kg m^-3 (gsw.rho is this reciprocal).
         """
-        out = np.add(self.anomaly, self.standard, out=out)
-        return np.reciprocal(out, out=out)
+        return np.reciprocal(self.specific_volume, out=out)
 
 
 def _uniform_refinement(p: np.ndarray, max_dp: float) -> int | None:
@@ -302,118 +414,202 @@ def _uniform_refinement(p: np.ndarray, max_dp: float) -> int | None:
     return n
 
 
-def _pchip_edge(d0: np.ndarray, d1: np.ndarray) -> np.ndarray:
+@kernel
+def _valid_from_surface(sa: np.ndarray, ct: np.ndarray, count: np.ndarray) -> bool:
+    """Number of valid levels above each profile's first NaN (into ``count``), and whether
+    every profile is NaN throughout below it (no interior gap)."""
+    n_lev = sa.shape[1]
+    whole = True
+    for i in range(sa.shape[0]):
+        c = 0
+        while c < n_lev and not np.isnan(sa[i, c] + ct[i, c]):
+            c += 1
+        count[i] = c
+        for k in range(c + 1, n_lev):
+            if not np.isnan(sa[i, k] + ct[i, k]):
+                whole = False
+                break
+    return whole
+
+
+@kernel
+def _integrate_on_grid(v: np.ndarray, standard: np.ndarray, count: np.ndarray,
+                       dp: np.ndarray, scale: float, psi: np.ndarray) -> None:
+    """Dynamic height by the trapezoid rule on the grid itself, one pass per profile.
+
+    The anomaly ``v - standard`` of each level is formed as it is needed; each
+    step is ``(b[k] + b[k-1]) * scale`` when ``scale`` is finite (``-dp/2
+    db2pa`` with dp/2 a power of two: exactly gsw's ``0.5 (b + b) dp db2pa``
+    rounded once), otherwise gsw's product term by term; the sum runs from the
+    surface; NaN from the first level below the bottom and for profiles of
+    fewer than two levels.
+    """
+    n_lev = v.shape[1]
+    exact = np.isfinite(scale)
+    for i in range(v.shape[0]):
+        c = count[i]
+        if c < 2:
+            psi[i, :] = np.nan
+            continue
+        psi[i, 0] = 0.0
+        b0 = v[i, 0] - standard[0]
+        for k in range(1, c):
+            b1 = v[i, k] - standard[k]
+            if exact:
+                step = (b1 + b0) * scale
+            else:
+                step = -((((b1 + b0) * 0.5) * dp[k - 1]) * _DB2PA)
+            psi[i, k] = psi[i, k - 1] + step
+            b0 = b1
+        for k in range(c, n_lev):
+            psi[i, k] = np.nan
+
+
+@kernel
+def _sign(x: float) -> float:
+    """numpy's sign of a number that is not NaN."""
+    return 1.0 if x > 0.0 else (-1.0 if x < 0.0 else 0.0)
+
+
+@kernel
+def _pchip_edge(d0: float, d1: float) -> float:
     """End-point derivative (times the grid step) of the shape-preserving cubic on an even
     grid, from the first two level differences (the scipy/gsw edge rule)."""
     d = 0.5 * (3.0 * d0 - d1)
-    d = np.where(np.sign(d) != np.sign(d0), 0.0, d)
-    big = (np.sign(d0) != np.sign(d1)) & (np.abs(d) > 3.0 * np.abs(d0))
-    return np.where(big, 3.0 * d0, d)
-
-
-def _pchip_slopes(y: np.ndarray, count: np.ndarray) -> np.ndarray:
-    """Derivatives times the grid step of the shape-preserving cubic through each profile.
-
-    ``y`` (profile, level) is valid on its first ``count`` levels of an even
-    grid; the derivatives follow gsw's pchip: at interior points the harmonic
-    mean of the neighbouring slopes, zero at an extremum or next to a flat
-    step; the edge rule at both ends; a straight line through two points.
-    """
-    diff = np.subtract(y[:, 1:], y[:, :-1])  # slope times the step, (profile, level - 1)
-    dm, dp = diff[:, :-1], diff[:, 1:]
-    d = np.empty_like(y)
-    inner = d[:, 1:-1]
-    np.multiply(dm, dp, out=inner)
-    flat = inner <= 0.0  # a change of sign or a flat neighbour (NaN only below the bottom)
-    inner *= 2.0
-    with np.errstate(invalid="ignore", divide="ignore"):
-        inner /= dm + dp
-    np.copyto(inner, 0.0, where=flat)
-    rows = np.arange(y.shape[0])
-    three = count >= 3
-    last = np.clip(count - 1, 1, None)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        d_last = diff[rows, last - 1]
-        d_prev = diff[rows, np.clip(last - 2, 0, None)]
-        first = _pchip_edge(diff[:, 0], diff[:, 1] if diff.shape[1] > 1 else diff[:, 0])
-        end = _pchip_edge(d_last, d_prev)
-    d[:, 0] = np.where(three, first, diff[:, 0])
-    d[rows, last] = np.where(three, end, d_last)
+    if _sign(d) != _sign(d0):
+        return 0.0
+    if _sign(d0) != _sign(d1) and abs(d) > 3.0 * abs(d0):
+        return 3.0 * d0
     return d
 
 
-def _hermite(y: np.ndarray, d: np.ndarray, t: np.ndarray, n: int) -> np.ndarray:
-    """The cubic through levels k and k+1 (values ``y``, derivatives times the step ``d``)
-    at fraction ``t`` of each step; the mid-point in closed form when ``n`` is 2."""
-    y0, y1 = y[:, :-1], y[:, 1:]
-    d0, d1 = d[:, :-1], d[:, 1:]
-    if n == 2:  # (y0 + y1) / 2 + (d0 - d1) / 8
-        out = np.add(y0, y1)
-        out *= 0.5
-        tmp = np.subtract(d0, d1)
-        tmp *= 0.125
-        out += tmp
-        return out
+@kernel
+def _pchip_slopes(y: np.ndarray, c: int, d: np.ndarray) -> None:
+    """Derivatives times the grid step of the shape-preserving cubic through ``y[:c]``.
+
+    gsw's pchip: at interior points the harmonic mean of the neighbouring
+    slopes, zero at an extremum or next to a flat step; the edge rule at both
+    ends; a straight line through two points.
+    """
+    if c == 2:
+        d[0] = y[1] - y[0]
+        d[1] = d[0]
+        return
+    for k in range(1, c - 1):
+        dm = y[k] - y[k - 1]
+        dp = y[k + 1] - y[k]
+        prod = dm * dp
+        d[k] = 0.0 if prod <= 0.0 else (prod * 2.0) / (dm + dp)
+    d[0] = _pchip_edge(y[1] - y[0], y[2] - y[1])
+    d[c - 1] = _pchip_edge(y[c - 1] - y[c - 2], y[c - 2] - y[c - 3])
+
+
+@kernel
+def _hermite_points(y: np.ndarray, d: np.ndarray, c: int, basis: np.ndarray,
+                    out: np.ndarray) -> None:
+    """One profile's values at the points between its valid levels ``y[:c]`` (slopes ``d``
+    times the step) into ``out`` (level - 1, point); NaN below the bottom."""
+    n_in = out.shape[1]
+    for k in range(out.shape[0]):
+        if k >= c - 1:
+            for j in range(n_in):
+                out[k, j] = np.nan
+            continue
+        y0, y1, d0, d1 = y[k], y[k + 1], d[k], d[k + 1]
+        if n_in == 1 and basis.shape[2] == 0:  # the mid-point in closed form
+            out[k, 0] = (y0 + y1) * 0.5 + (d0 - d1) * 0.125
+            continue
+        for j in range(n_in):
+            value = y0 * basis[0, k, j]
+            value += d0 * basis[1, k, j]
+            value += y1 * basis[2, k, j]
+            value += d1 * basis[3, k, j]
+            out[k, j] = value
+
+
+@kernel
+def _pchip_points(sa: np.ndarray, ct: np.ndarray, count: np.ndarray, basis: np.ndarray,
+                  sa_out: np.ndarray, ct_out: np.ndarray) -> None:
+    """SA and CT at the points between the grid levels, from the shape-preserving cubic of
+    each profile's valid levels, one pass per profile.
+
+    ``basis`` (4, level - 1, point) holds the cubic Hermite basis at each
+    point's fraction t of its step, as gsw evaluates it; an empty basis
+    (4, level - 1, 0) asks for the one mid-point of each step in closed form,
+    (y0 + y1) / 2 + (d0 - d1) / 8. Points below the bottom are NaN.
+    """
+    d = np.empty(sa.shape[1])
+    for i in range(sa.shape[0]):
+        c = count[i]
+        if c >= 2:
+            _pchip_slopes(sa[i], c, d)
+        _hermite_points(sa[i], d, c, basis, sa_out[i])
+        if c >= 2:
+            _pchip_slopes(ct[i], c, d)
+        _hermite_points(ct[i], d, c, basis, ct_out[i])
+
+
+@kernel
+def _integrate_refined(v: np.ndarray, standard: np.ndarray, v_in: np.ndarray,
+                       standard_in: np.ndarray, count: np.ndarray, weight: np.ndarray,
+                       psi: np.ndarray) -> None:
+    """Dynamic height by the trapezoid rule on the grid refined by the points in between.
+
+    ``v_in`` (profile, level - 1, point) is the specific volume at the points
+    between levels k and k + 1, ``weight`` (level - 1, point + 1) gsw's
+    ``0.5 dp db2pa`` of each sub-interval; each step sums its sub-intervals
+    from the top (as the whole-array passes did), the steps are summed from the
+    surface; NaN as in :func:`_integrate_on_grid`.
+    """
+    n_lev = v.shape[1]
+    n_in = v_in.shape[2]
+    for i in range(v.shape[0]):
+        c = count[i]
+        if c < 2:
+            psi[i, :] = np.nan
+            continue
+        psi[i, 0] = 0.0
+        previous = v[i, 0] - standard[0]
+        for k in range(c - 1):
+            step = 0.0
+            for j in range(n_in):
+                current = v_in[i, k, j] - standard_in[k, j]
+                step += (current + previous) * weight[k, j]
+                previous = current
+            current = v[i, k + 1] - standard[k + 1]
+            step += (current + previous) * weight[k, n_in]
+            previous = current
+            psi[i, k + 1] = psi[i, k] + (-step)
+        for k in range(c, n_lev):
+            psi[i, k] = np.nan
+
+
+def _refined_points(p: np.ndarray, n: int, max_dp: float
+                    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Where gsw integrates between the levels of a uniform grid, and with what weights.
+
+    Returns
+    -------
+    p_in : ndarray (level - 1, n - 1)
+        Pressures p[0] + max_dp (k n + j), j = 1 .. n - 1, dbar.
+    basis : ndarray (4, level - 1, n - 1)
+        Cubic Hermite basis at each point's fraction t of its step (gsw's formula);
+        empty (4, level - 1, 0) when n is 2 (the mid-point in closed form).
+    weight : ndarray (level - 1, n)
+        0.5 dp db2pa of each sub-interval, from the top of the step down.
+    """
+    h = float(p[1] - p[0])
+    k = np.arange(p.size - 1)[:, None]
+    p_in = p[0] + max_dp * (k * n + np.arange(1, n)[None, :])
+    t = (p_in - p[:-1, None]) / h
     tt = t * t
     ttt = tt * t
-    # the cubic Hermite basis, as gsw evaluates it
-    out = np.multiply(y0, 2 * ttt - 3 * tt + 1)
-    tmp = np.multiply(d0, ttt - 2 * tt + t)
-    out += tmp
-    out += np.multiply(y1, -2 * ttt + 3 * tt, out=tmp)
-    out += np.multiply(d1, ttt - tt, out=tmp)
-    return out
-
-
-def _fast_block(sa: np.ndarray, ct: np.ndarray, p: np.ndarray, n: int, max_dp: float,
-                count: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Anomaly and dynamic height of a block of (profile, level) on a uniform grid.
-
-    With ``n`` > 1 integration points per grid step, SA and CT at the points
-    p[k] + i max_dp in between come from gsw's shape-preserving cubic; each
-    step's trapezoid sum over its sub-intervals is then accumulated from the
-    surface (gsw accumulates the sub-intervals one by one: the same to
-    round-off).
-    """
-    b = gsw.specvol_anom_standard(sa, ct, p)
-    if n == 1:
-        step = np.add(b[:, 1:], b[:, :-1])
-        dp = np.diff(p)
-        half_dp = 0.5 * float(dp[0])
-        if np.all(dp == dp[0]) and half_dp == 2.0 ** np.round(np.log2(half_dp)):
-            step *= -half_dp * _DB2PA  # exactly gsw's rounding: 0.5 dp is a power of two
-        else:
-            step *= 0.5
-            step *= dp
-            step *= _DB2PA
-            np.negative(step, out=step)
-    else:
-        # gsw inserts p[0] + max_dp * i between the grid levels and interpolates SA and CT
-        # there with the shape-preserving cubic of each profile's valid levels
-        h = float(p[1] - p[0])
-        inner_p = [p[0] + max_dp * (np.arange(p.size - 1) * n + j) for j in range(1, n)]
-        slopes = [_pchip_slopes(y, count) for y in (sa, ct)]  # derivative times the step
-        step = np.zeros((sa.shape[0], p.size - 1))
-        previous, p_prev = b[:, :-1], p[:-1]
-        # one interpolated point of every step at a time (memory of the grid, not of n)
-        for pj in [*inner_p, None]:
-            if pj is None:
-                current, p_cur = b[:, 1:], p[1:]
-            else:
-                sa_j, ct_j = (_hermite(y, d, (pj - p[:-1]) / h, n)
-                              for y, d in zip((sa, ct), slopes, strict=True))
-                current, p_cur = gsw.specvol_anom_standard(sa_j, ct_j, pj), pj
-            part = np.add(current, previous)
-            part *= 0.5 * (p_cur - p_prev) * _DB2PA
-            step += part
-            previous, p_prev = current, p_cur
-        np.negative(step, out=step)
-    psi = np.empty(b.shape)
-    psi[:, 0] = 0.0
-    np.cumsum(step, axis=-1, out=psi[:, 1:])  # NaN from the first level below the bottom
-    del step
-    psi[count < 2] = np.nan
-    return b, psi
+    basis = np.stack([2 * ttt - 3 * tt + 1, ttt - 2 * tt + t, -2 * ttt + 3 * tt, ttt - tt])
+    if n == 2:
+        basis = basis[..., :0]
+    edges = np.concatenate([p[:-1, None], p_in, p[1:, None]], axis=1)
+    weight = 0.5 * (edges[:, 1:] - edges[:, :-1]) * _DB2PA
+    return p_in, basis, weight
 
 
 def station_profiles(
@@ -451,15 +647,17 @@ def station_profiles(
 def specific_volume_pass(
     sa: np.ndarray, ct: np.ndarray, p: np.ndarray, max_dp: float = 1.0
 ) -> SpecificVolumePass:
-    """Specific volume anomaly, and dynamic height integrated from it, in one pass.
+    """Specific volume, and dynamic height integrated from its anomaly, in one pass.
 
-    The specific volume anomaly of every grid point is evaluated once
-    (gsw.specvol_anom_standard); dynamic height is its pressure integral
-    from the sea surface, exactly as gsw.geo_strf_dyn_height does it (the
-    trapezoid rule on the grid when the grid step is at most ``max_dp``;
-    otherwise on a finer grid of step ``max_dp`` with SA and CT interpolated
-    by the shape-preserving cubic); in-situ density follows as the
-    reciprocal of the specific volume. Profiles must be valid from the
+    The specific volume of every grid point is evaluated once (gsw.specvol;
+    its anomaly relative to the standard ocean, gsw.specvol_anom_standard, is
+    the difference from gsw.specvol_SSO_0 of the level); dynamic height is
+    the pressure integral of the anomaly from the sea surface, exactly as
+    gsw.geo_strf_dyn_height does it (the trapezoid rule on the grid when the
+    grid step is at most ``max_dp``; otherwise on a finer grid of step
+    ``max_dp`` with SA and CT interpolated by the shape-preserving cubic),
+    compiled kernels making one pass per profile; in-situ density follows as
+    the reciprocal of the specific volume. Profiles must be valid from the
     surface down (NaN only below the bottom) on a uniform grid starting at
     0 dbar with a step that is a multiple of ``max_dp``; other input is
     passed to gsw.geo_strf_dyn_height unchanged (two evaluations).
@@ -481,30 +679,40 @@ def specific_volume_pass(
     """
     sa, ct, p = station_profiles("specific_volume_pass", sa, ct, p)
     shape = sa.shape
-    sa2 = sa.reshape(-1, shape[-1])
-    ct2 = ct.reshape(-1, shape[-1])
-    gap = np.isnan(sa2 + ct2)
     n_lev = shape[-1]
-    count = n_lev - np.count_nonzero(gap, axis=-1)
-    # the fast path needs each profile valid from the surface down without gaps
-    first_gap = np.where(gap[:, -1], np.argmax(gap, axis=-1), n_lev)
-    n = _uniform_refinement(p, max_dp)
+    sa2 = sa.reshape(-1, n_lev)
+    ct2 = ct.reshape(-1, n_lev)
     standard = gsw.specvol_SSO_0(p)
-    if n is None or np.any(first_gap != count):
-        anomaly = gsw.specvol_anom_standard(sa, ct, p)
+    v = gsw.specvol(sa2, ct2, p)
+    count = np.empty(sa2.shape[0], dtype=np.int64)
+    # the fast path needs each profile valid from the surface down without gaps
+    whole = _valid_from_surface(sa2, ct2, count) if n_lev else False
+    n = _uniform_refinement(p, max_dp)
+    if n is None or not whole:
         psi = gsw.geo_strf_dyn_height(sa2, ct2, p, p_ref=0.0, axis=1, max_dp=max_dp)
-        return SpecificVolumePass(anomaly, standard, np.asarray(psi, float).reshape(shape))
-    per_block = max(1, _BLOCK_POINTS // ((n_lev - 1) * n + 1))
-    if per_block >= sa2.shape[0]:
-        anomaly, psi = _fast_block(sa2, ct2, p, n, max_dp, count)
+        return SpecificVolumePass(v.reshape(shape), standard, np.asarray(psi, float).reshape(shape))
+    psi = np.empty(sa2.shape)
+    if n == 1:
+        dp = np.diff(p)
+        half_dp = 0.5 * float(dp[0])
+        exact = np.all(dp == dp[0]) and half_dp == 2.0 ** np.round(np.log2(half_dp))
+        _integrate_on_grid(v, standard, count, dp, -half_dp * _DB2PA if exact else np.nan, psi)
     else:
-        anomaly = np.empty(sa2.shape)
-        psi = np.empty(sa2.shape)
+        # gsw inserts p[0] + max_dp * i between the grid levels and interpolates SA and CT
+        # there with the shape-preserving cubic of each profile's valid levels
+        p_in, basis, weight = _refined_points(p, n, max_dp)
+        standard_in = gsw.specvol_SSO_0(p_in)
+        per_block = max(1, _BLOCK_POINTS // p_in.size)
         for start in range(0, sa2.shape[0], per_block):
             rows = slice(start, start + per_block)
-            anomaly[rows], psi[rows] = _fast_block(sa2[rows], ct2[rows], p, n, max_dp,
-                                                   count[rows])
-    return SpecificVolumePass(anomaly.reshape(shape), standard, psi.reshape(shape))
+            sa_in = np.empty((sa2[rows].shape[0], *p_in.shape))
+            ct_in = np.empty(sa_in.shape)
+            _pchip_points(sa2[rows], ct2[rows], count[rows], basis, sa_in, ct_in)
+            v_in = gsw.specvol(sa_in, ct_in, p_in)
+            del sa_in, ct_in
+            _integrate_refined(v[rows], standard, v_in, standard_in, count[rows], weight,
+                               psi[rows])
+    return SpecificVolumePass(v.reshape(shape), standard, psi.reshape(shape))
 
 
 # ---------------------------------------------------------------------------

@@ -38,26 +38,54 @@ def _assert_same(ours, theirs, rtol):
     assert np.max(np.abs(ours[ok] - theirs[ok])) <= rtol * scale
 
 
+#: Dynamic height against gsw, relative to the profile set's largest value: on the grid the
+#: sum repeats gsw's operations in gsw's order (equal bit for bit where checked; the margin
+#: is for another compiler's rounding inside gsw); with interpolated points gsw's cubic
+#: rounds differently (up to 12 eps seen).
+GRID_RTOL = 1e-14
+REFINED_RTOL = 3e-14
+EPS = np.finfo(float).eps
+
+
 def test_dynamic_height_on_a_1_dbar_grid_equals_gsw():
     # gsw.geo_strf_dyn_height (p_ref = 0, max_dp = 1): trapezoid rule on the data grid
     sa, ct, p = _profiles(3, 400, 1.0)
     eos = specific_volume_pass(sa, ct, p)
-    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p), 1e-13)
+    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p), GRID_RTOL)
 
 
-@pytest.mark.parametrize("dp", [2.0, 5.0])
-def test_dynamic_height_on_a_coarser_grid_equals_gsw_with_its_interpolation(dp):
-    # gsw interpolates SA and CT with its shape-preserving cubic to max_dp = 1 dbar first
+@pytest.mark.parametrize(("dp", "max_dp"), [(2.0, 1.0), (3.0, 1.0), (5.0, 1.0), (10.0, 2.5)])
+def test_dynamic_height_on_a_coarser_grid_equals_gsw_with_its_interpolation(dp, max_dp):
+    # gsw interpolates SA and CT with its shape-preserving cubic to max_dp first (one
+    # mid-point per step, or several)
     sa, ct, p = _profiles(2, 300, dp, seed=1)
+    eos = specific_volume_pass(sa, ct, p, max_dp=max_dp)
+    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p, max_dp=max_dp),
+                 REFINED_RTOL)
+
+
+def test_interpolated_integration_in_blocks_equals_gsw(monkeypatch):
+    # many profiles are interpolated a block at a time (memory bound): the same result
+    import sectionkit.thermo as thermo
+
+    monkeypatch.setattr(thermo, "_BLOCK_POINTS", 700)
+    sa, ct, p = _profiles(3, 200, 5.0, seed=8)
     eos = specific_volume_pass(sa, ct, p)
-    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p), 1e-13)
+    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p), REFINED_RTOL)
 
 
 def test_dynamic_height_with_max_dp_equal_to_the_grid_step_skips_interpolation():
     # gsw.geo_strf_dyn_height with max_dp = dp integrates on the 4 dbar grid itself
     sa, ct, p = _profiles(1, 200, 4.0, seed=2)
     eos = specific_volume_pass(sa, ct, p, max_dp=4.0)
-    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p, max_dp=4.0), 1e-13)
+    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p, max_dp=4.0), GRID_RTOL)
+
+
+def test_dynamic_height_on_a_grid_step_that_is_no_power_of_two_equals_gsw():
+    # a 3 dbar step integrated on the grid itself (max_dp = 3): gsw's product term by term
+    sa, ct, p = _profiles(1, 200, 3.0, seed=9)
+    eos = specific_volume_pass(sa, ct, p, max_dp=3.0)
+    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa, ct, p, max_dp=3.0), GRID_RTOL)
 
 
 def test_irregular_grid_and_interior_gaps_fall_back_to_gsw():
@@ -72,10 +100,26 @@ def test_irregular_grid_and_interior_gaps_fall_back_to_gsw():
 
 
 def test_in_situ_density_is_gsw_rho():
-    # the reciprocal of the specific volume is gsw.rho (TEOS-10 75-term expression)
+    # the reciprocal of gsw.specvol is gsw.rho (TEOS-10 75-term expression): to a few ulp
+    # at every point (equal bit for bit where checked)
     sa, ct, p = _profiles(2, 300, 2.0, seed=4)
     eos = specific_volume_pass(sa, ct, p)
-    _assert_same(eos.in_situ_density(), gsw.rho(sa, ct, p), 1e-14)
+    expected = gsw.rho(sa, ct, p)
+    assert np.array_equal(np.isnan(eos.in_situ_density()), np.isnan(expected))
+    np.testing.assert_allclose(eos.in_situ_density(), expected, rtol=4 * EPS, atol=0.0)
+
+
+def test_anomaly_is_gsw_specvol_anom_standard():
+    # gsw.specvol_anom_standard at every point, to a few ulp of the specific volume itself
+    # (the anomaly is a difference of two specific volumes near 1e-3 m^3/kg)
+    sa, ct, p = _profiles(2, 300, 1.0, seed=4)
+    eos = specific_volume_pass(sa, ct, p)
+    expected = gsw.specvol_anom_standard(sa, ct, p)
+    assert np.array_equal(np.isnan(eos.anomaly), np.isnan(expected))
+    ok = np.isfinite(expected)
+    bound = 4 * EPS * gsw.specvol(sa, ct, p)[ok]
+    assert np.all(np.abs(eos.anomaly[ok] - expected[ok]) <= bound)
+    np.testing.assert_array_equal(eos.standard, gsw.specvol_SSO_0(p))
 
 
 def test_anomaly_and_density_match_teos10_check_values():
@@ -129,3 +173,14 @@ def test_pair_means_take_the_deeper_station_alone_below_the_shallower():
         warnings.simplefilter("ignore", RuntimeWarning)  # both stations empty: NaN
         expected = np.nanmean(np.stack([sa[..., :-1, :], sa[..., 1:, :]]), axis=0)
     np.testing.assert_array_equal(pair_mean(sa), expected)
+
+
+def test_casts_stored_level_first_give_the_same_pass():
+    # a (station, level) view of (level, station) storage, as a transposed Dataset gives:
+    # gsw.geo_strf_dyn_height of the same numbers
+    sa, ct, p = _profiles(1, 200, 2.0, seed=10)
+    sa_t, ct_t = (np.asfortranarray(x[0]) for x in (sa, ct))
+    eos = specific_volume_pass(sa_t, ct_t, p)
+    _assert_same(eos.dynamic_height, _gsw_dynamic_height(sa[0], ct[0], p), REFINED_RTOL)
+    np.testing.assert_array_equal(eos.dynamic_height, specific_volume_pass(sa[0], ct[0], p)
+                                  .dynamic_height)
