@@ -22,6 +22,7 @@ import numpy as np
 import xarray as xr
 
 from sectionkit.compiled import kernel
+from sectionkit.eos import specific_volume
 from sectionkit.errors import ComputationError, SectionDataError, check_trailing_shape
 
 #: Offset between the kelvin and Celsius scales, K.
@@ -355,7 +356,8 @@ class SpecificVolumePass:
     Attributes
     ----------
     specific_volume : ndarray (..., station, level)
-        Specific volume, m^3 kg^-1 (gsw.specvol); NaN below the bottom.
+        Specific volume, m^3 kg^-1 (TEOS-10 75-term polynomial, as gsw.specvol:
+        :func:`sectionkit.eos.specific_volume`); NaN below the bottom.
     standard : ndarray (level,)
         Specific volume of the standard ocean (SSO, 0 degC) at each level,
         m^3 kg^-1 (gsw.specvol_SSO_0).
@@ -649,17 +651,20 @@ def specific_volume_pass(
 ) -> SpecificVolumePass:
     """Specific volume, and dynamic height integrated from its anomaly, in one pass.
 
-    The specific volume of every grid point is evaluated once (gsw.specvol;
-    its anomaly relative to the standard ocean, gsw.specvol_anom_standard, is
-    the difference from gsw.specvol_SSO_0 of the level); dynamic height is
-    the pressure integral of the anomaly from the sea surface, exactly as
-    gsw.geo_strf_dyn_height does it (the trapezoid rule on the grid when the
-    grid step is at most ``max_dp``; otherwise on a finer grid of step
-    ``max_dp`` with SA and CT interpolated by the shape-preserving cubic),
-    compiled kernels making one pass per profile; in-situ density follows as
-    the reciprocal of the specific volume. Profiles must be valid from the
-    surface down (NaN only below the bottom) on a uniform grid starting at
-    0 dbar with a step that is a multiple of ``max_dp``; other input is
+    The specific volume of every grid point is evaluated once (the TEOS-10
+    75-term polynomial of gsw.specvol as a compiled kernel,
+    :func:`sectionkit.eos.specific_volume`, equal to gsw.specvol bit for bit
+    on the machines checked); its anomaly relative to the standard ocean,
+    gsw.specvol_anom_standard, is the difference from gsw.specvol_SSO_0 of
+    the level; dynamic height is the pressure integral of the anomaly from
+    the sea surface, exactly as gsw.geo_strf_dyn_height does it (the
+    trapezoid rule on the grid when the grid step is at most ``max_dp``;
+    otherwise on a finer grid of step ``max_dp`` with SA and CT interpolated
+    by the shape-preserving cubic), compiled kernels making one pass per
+    profile; in-situ density follows as the reciprocal of the specific
+    volume. Profiles must be valid from the surface down (NaN only below the
+    bottom) on a uniform grid starting at 0 dbar with a step that is a
+    multiple of ``max_dp``; other input is
     passed to gsw.geo_strf_dyn_height unchanged (two evaluations).
 
     Parameters
@@ -683,7 +688,7 @@ def specific_volume_pass(
     sa2 = sa.reshape(-1, n_lev)
     ct2 = ct.reshape(-1, n_lev)
     standard = gsw.specvol_SSO_0(p)
-    v = gsw.specvol(sa2, ct2, p)
+    v = specific_volume(sa2, ct2, p)
     count = np.empty(sa2.shape[0], dtype=np.int64)
     # the fast path needs each profile valid from the surface down without gaps
     whole = _valid_from_surface(sa2, ct2, count) if n_lev else False
@@ -708,7 +713,7 @@ def specific_volume_pass(
             sa_in = np.empty((sa2[rows].shape[0], *p_in.shape))
             ct_in = np.empty(sa_in.shape)
             _pchip_points(sa2[rows], ct2[rows], count[rows], basis, sa_in, ct_in)
-            v_in = gsw.specvol(sa_in, ct_in, p_in)
+            v_in = specific_volume(sa_in, ct_in, p_in)
             del sa_in, ct_in
             _integrate_refined(v[rows], standard, v_in, standard_in, count[rows], weight,
                                psi[rows])
