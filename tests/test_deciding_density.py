@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import platform
+
 import gsw
 import numpy as np
 
@@ -40,13 +42,29 @@ def _casts(n_lead: int = 2, n_station: int = 9, n_lev: int = 801, dp: float = 5.
     return sa, ct, p
 
 
+# sectionkit evaluates potential density with its own kernel of the TEOS-10 polynomial
+# (sectionkit.eos), in gsw's order: on x86-64 (gsw built without fused multiply-add) the two
+# agree bit for bit, so every value and weight below must equal the full gsw evaluation
+# exactly; elsewhere gsw's compiler may fuse a*b + c and they agree to a few ulp.
+BIT_FOR_BIT = platform.machine().lower() in ("x86_64", "amd64")
+
+
 def _full(sa, ct, p_ref):
     # the full evaluation: TEOS-10 potential density on every level, then pair means
     return pair_mean(gsw.rho(sa, ct, p_ref) - 1000.0)
 
 
-def _weights(faces_density, p, n_pair):
-    values = np.array([v for v, _ in FACES])
+def _assert_same(ours, theirs, ulps=4.0):
+    """Identical on x86-64; to a few ulp of the value (and the same NaN) elsewhere."""
+    if BIT_FOR_BIT:
+        np.testing.assert_array_equal(ours, theirs)
+    else:
+        np.testing.assert_allclose(ours, theirs, rtol=ulps * np.finfo(float).eps, atol=1e-12)
+
+
+def _weights(faces_density, p, n_pair, values=None):
+    if values is None:
+        values = np.array([v for v, _ in FACES])
     thickness = np.broadcast_to(np.diff(p), (n_pair, p.size - 1)) * 1.01
     width = np.ones((n_pair, p.size - 1))
     return class_levels(faces_density, values, thickness, width,
@@ -63,7 +81,7 @@ def test_class_weights_equal_the_full_evaluation_bit_for_bit():
     n_pair = sa.shape[-2] - 1
     ours = _weights([deciding[pr] for _, pr in FACES], p, n_pair)
     full = _weights([_full(sa, ct, pr) for _, pr in FACES], p, n_pair)
-    assert np.array_equal(ours, full)
+    _assert_same(ours, full, ulps=1e3)
 
 
 def test_values_are_exact_at_every_crossing_and_nan_below_the_bottom():
@@ -76,8 +94,8 @@ def test_values_are_exact_at_every_crossing_and_nan_below_the_bottom():
             full[..., :-1] + full[..., 1:])
         assert crossed.any()
         k = np.nonzero(crossed)
-        assert np.array_equal(deciding[..., :-1][k], full[..., :-1][k])
-        assert np.array_equal(deciding[..., 1:][k], full[..., 1:][k])
+        _assert_same(deciding[..., :-1][k], full[..., :-1][k])
+        _assert_same(deciding[..., 1:][k], full[..., 1:][k])
 
 
 def test_water_outside_the_bounded_range_is_evaluated_exactly():
@@ -86,7 +104,7 @@ def test_water_outside_the_bounded_range_is_evaluated_exactly():
     sa[0, :2, 100:] += 10.0
     deciding = deciding_densities(sa, ct, {0.0: [26.6]})[0.0]
     full = _full(sa, ct, 0.0)
-    assert np.array_equal(deciding[0, 0, 100:-16], full[0, 0, 100:-16])
+    _assert_same(deciding[0, 0, 100:-16], full[0, 0, 100:-16])
 
 
 def test_derivative_bounds_hold_over_the_deciding_range():
@@ -105,7 +123,7 @@ def test_pair_densities_are_computed_on_first_access():
     sa, ct, p = _casts(n_lead=1, seed=3)
     densities = PairDensities(sa, ct)
     assert 2000.0 not in densities
-    np.testing.assert_array_equal(densities[2000.0], _full(sa, ct, 2000.0))
+    _assert_same(densities[2000.0], _full(sa, ct, 2000.0))
     assert 2000.0 in densities
 
 
@@ -119,14 +137,14 @@ def test_class_weights_are_identical_for_every_block_size():
     full = _weights([_full(sa, ct, pr) for _, pr in FACES], p, n_pair)
     for stride in (4, 32, 64):
         deciding = deciding_densities(sa, ct, by_p_ref, stride=stride)
-        assert np.array_equal(_weights([deciding[pr] for _, pr in FACES], p, n_pair), full)
+        _assert_same(_weights([deciding[pr] for _, pr in FACES], p, n_pair), full, ulps=1e3)
 
 
 def test_reference_pressure_outside_the_bounded_range_is_evaluated_everywhere():
     # above 11000 dbar the derivative bounds were not checked: every level exactly
     sa, ct, p = _casts(n_lead=1, seed=5)
     deciding = deciding_densities(sa, ct, {12000.0: [50.0]})[12000.0]
-    np.testing.assert_array_equal(deciding, _full(sa, ct, 12000.0))
+    _assert_same(deciding, _full(sa, ct, 12000.0))
 
 
 def test_without_interface_values_every_block_keeps_its_top():
@@ -136,5 +154,24 @@ def test_without_interface_values_every_block_keeps_its_top():
     full = _full(sa, ct, 0.0)
     body = (p.size - 1) // 16 * 16
     tops = np.repeat(full[..., 0:body:16], 16, axis=-1)
-    np.testing.assert_array_equal(deciding[..., :body], tops)
-    np.testing.assert_array_equal(deciding[..., body:], full[..., body:])
+    _assert_same(deciding[..., :body], tops)
+    _assert_same(deciding[..., body:], full[..., body:])
+
+
+def test_a_density_exactly_at_an_interface_value_falls_in_the_same_class():
+    # interfaces placed exactly on pair-mean potential densities of gsw (TEOS-10, gsw.rho):
+    # a point at an interface value is the one place where a last-bit difference from gsw
+    # could move it to the other side; the class weights must equal gsw's full evaluation
+    sa, ct, p = _casts(n_lead=1, seed=7)
+    full = _full(sa, ct, 0.0)
+    rows, levels = np.nonzero(np.isfinite(full[0]))
+    picks = [(rows[i], levels[i]) for i in (500, 2500, 4000)]
+    values = np.sort([full[0, j, k] for j, k in picks])
+    assert len(set(values)) == 3
+    deciding = deciding_densities(sa, ct, {0.0: list(values)})[0.0]
+    for j, k in picks:
+        assert deciding[0, j, k] in values  # evaluated exactly: these levels can decide
+    n_pair = sa.shape[-2] - 1
+    ours = _weights([deciding] * 3, p, n_pair, values)
+    expected = _weights([full] * 3, p, n_pair, values)
+    _assert_same(ours, expected, ulps=1e3)
