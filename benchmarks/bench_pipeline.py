@@ -21,6 +21,10 @@ project runner ``benchmarks/run.py`` prints them one line per goal.
 - :func:`class_chain_parts` — processor time of each step of the
   density-class chain (deciding densities, class levels, class integrals,
   Ekman class shares) on the long line's own inputs, against the floor.
+- :func:`equation_of_state_parts` — processor time of sectionkit's 75-term
+  specific volume kernel against gsw.specvol and gsw.rho on the long line's
+  grid points, and of the specific-volume pass on the 1 dbar line and on a
+  2 dbar grid refined to 1 dbar, against the floor.
 
 Everything runs on invented data (the test helpers in ``tests/_synthetic.py``).
 """
@@ -832,6 +836,57 @@ def class_chain_parts(rounds: int = 9) -> dict[str, float]:
         for n, (args, kwargs) in enumerate(recorded[name]):
             label = name if n == 0 else f"{name} ({n + 1})"
             steps[label] = (lambda f=originals[name], a=args, k=kwargs: f(*a, **k))
+    best = dict.fromkeys(steps, float("inf"))
+    for _ in range(rounds):
+        for label, step in steps.items():
+            start = time.process_time()
+            step()
+            best[label] = min(best[label], time.process_time() - start)
+    out = {label: 1e3 * t for label, t in best.items()}
+    out["load"] = os.getloadavg()[0]
+    return out
+
+
+def equation_of_state_parts(rounds: int = 9) -> dict[str, float]:
+    """Processor time (ms) of the equation of state on the long line, against gsw and the floor.
+
+    The long line's SA and CT (200 stations x 6001 levels at 1 dbar): specific
+    volume by ``eos.specific_volume`` and by gsw.specvol, potential density at
+    2000 dbar by ``eos.density_anomaly`` and by gsw.rho, the whole
+    ``thermo.specific_volume_pass`` on the 1 dbar grid and on every second
+    level (a 2 dbar grid integrated at ``max_dp`` = 1 dbar, as an ensemble
+    member's builds), and gsw.geo_strf_dyn_height on each grid; interleaved,
+    ``rounds`` times, the fastest time of each counts.
+
+    Returns
+    -------
+    dict of str -> float
+        Milliseconds per call by step; ``"load"`` is the 1-minute load average at the end.
+    """
+    import gsw
+
+    from sectionkit.eos import density_anomaly, specific_volume
+    from sectionkit.thermo import specific_volume_pass
+
+    _, sections = long_line_study()
+    sec = sections["line"]
+    sa, ct, p = sec["SA"].values, sec["CT"].values, sec["pressure"].values
+    sa2, ct2, p2 = np.ascontiguousarray(sa[:, ::2]), np.ascontiguousarray(ct[:, ::2]), p[::2]
+    steps: dict[str, Callable[[], Any]] = {
+        "floor (1 dbar)": lambda: gsw.geo_strf_dyn_height(sa, ct, p, p_ref=0.0, axis=1,
+                                                          max_dp=1.0),
+        "gsw.specvol": lambda: gsw.specvol(sa, ct, p),
+        "eos.specific_volume": lambda: specific_volume(sa, ct, p),
+        "gsw.rho(p_ref=2000) - 1000": lambda: gsw.rho(sa, ct, 2000.0) - 1000.0,
+        "eos.density_anomaly(p_ref=2000)": lambda: density_anomaly(sa, ct, 2000.0),
+        "specific_volume_pass (1 dbar)": lambda: specific_volume_pass(sa, ct, p, 1.0),
+        "floor (2 dbar, max_dp 1)": lambda: gsw.geo_strf_dyn_height(sa2, ct2, p2, p_ref=0.0,
+                                                                    axis=1, max_dp=1.0),
+        "specific_volume_pass (2 dbar, max_dp 1)": lambda: specific_volume_pass(sa2, ct2, p2,
+                                                                                1.0),
+    }
+    for step in steps.values():
+        step()  # compile and warm
     best = dict.fromkeys(steps, float("inf"))
     for _ in range(rounds):
         for label, step in steps.items():
