@@ -517,15 +517,19 @@ def demo_box_config(folder: Path) -> Path:
 
 #: Members per second of the demo-box ensemble on 2 local workers, measured with
 #: :func:`demo_ensemble_throughput` (200 members) on the engine before the one-pass
-#: changes (commit af7f1fd), on this 2-core machine: the figure the goal multiplies.
+#: changes (commit af7f1fd), on the 2-core machine of that day: the figure the goal
+#: multiplied when issue 16 was filed. Machines differ: the goal is measured against
+#: that engine run side by side on this machine (:data:`EARLIER_ENGINE`).
 DEMO_ENSEMBLE_BASELINE_MEMBERS_PER_S = 16.36  # fastest of 2 runs (13.46, 16.36), load 0.1-1.3
-#: Required gain in members per second over that figure.
+#: The engine whose ensemble figure the goal multiplies (git revision).
+EARLIER_ENGINE = "af7f1fd"
+#: Required gain in members per second over that engine.
 DEMO_ENSEMBLE_GOAL_FACTOR = 3.0
 
 
 def demo_ensemble_throughput(quick: bool = False, members: int | None = None,
                              compare: int | None = None, progress: bool = True,
-                             earlier: str | None = None) -> Measurement:
+                             earlier: str | None = None) -> list[Measurement]:
     """Members per second of a demo-box ensemble on 2 worker processes.
 
     The box is :data:`DEMO_BOX_TOML` (the demo box as it was when the earlier
@@ -547,15 +551,20 @@ def demo_ensemble_throughput(quick: bool = False, members: int | None = None,
     progress : bool
         Show the ensemble's text progress bar on stderr.
     earlier : str, optional
-        A source tree of the earlier engine: both engines then also run
-        200 members (50 quick) in turn, in their own interpreters, for a
-        gain measured under the same load (recorded in the details).
+        A source tree of the earlier engine (:data:`EARLIER_ENGINE`): both
+        engines then also run 200 members (50 quick) in turn, each in its
+        own interpreter and cluster, alternating, so that both see the same
+        machine load; the gain of those runs is the goal. Without it, the
+        1000-member rate is compared with the figure recorded on the
+        machine of the day (:data:`DEMO_ENSEMBLE_BASELINE_MEMBERS_PER_S`).
 
     Returns
     -------
-    Measurement
-        Members per second; the goal is ``DEMO_ENSEMBLE_GOAL_FACTOR`` times
-        the recorded figure of the earlier engine.
+    list of Measurement
+        The gain over the earlier engine (goal ``DEMO_ENSEMBLE_GOAL_FACTOR``),
+        or members per second against the recorded figure; then the largest
+        relative difference of the 1000-member cluster run from the serial
+        run (goal 0: bit for bit).
     """
     import tempfile
 
@@ -569,6 +578,19 @@ def demo_ensemble_throughput(quick: bool = False, members: int | None = None,
     perturb = Perturbation(reference_range=(2000.0, 3500.0), prior_factor=(0.5, 2.0))
     n = members or (100 if quick else 1000)
     n_cmp = min(compare or (20 if quick else 100), n)
+    out: list[Measurement] = []
+    if earlier:
+        n_side = 50 if quick else 200
+        both = side_by_side({"this": str(ROOT), "earlier": earlier}, n_side, str(box))
+        gain = both["this"] / both["earlier"]
+        out.append(Measurement(
+            f"demo-box ensemble, 2 workers, members per second: this engine / the engine at "
+            f"{EARLIER_ENGINE} (alternating runs of {n_side} members)", gain,
+            DEMO_ENSEMBLE_GOAL_FACTOR, kind=">=",
+            details={"this_members_per_s": both["this"],
+                     "earlier_members_per_s": both["earlier"],
+                     "earlier_engine_figure_recorded_on_the_machine_of_the_day":
+                         DEMO_ENSEMBLE_BASELINE_MEMBERS_PER_S}))
     load_before = os.getloadavg()[0]
     with local_cluster(2) as cluster, Client(cluster) as client:
         run_ensemble(config, 4, seed=99, client=client, perturb=perturb)  # warm-up
@@ -584,28 +606,23 @@ def demo_ensemble_throughput(quick: bool = False, members: int | None = None,
     first = ens.isel(member=slice(0, n_cmp))
     same = members_equal(first, serial, names)
     rate = n / elapsed
-    baseline = DEMO_ENSEMBLE_BASELINE_MEMBERS_PER_S
-    extra: dict[str, Any] = {}
-    if earlier:
-        both = side_by_side({"this": str(ROOT), "earlier": earlier}, 50 if quick else 200,
-                            str(box))
-        extra = {"side_by_side_this_members_per_s": both["this"],
-                 "side_by_side_earlier_members_per_s": both["earlier"],
-                 "side_by_side_gain_x": both["this"] / both["earlier"]}
-    # members that differ from the serial run do not count: the goal is then missed
-    return Measurement(
-        f"demo-box ensemble, 2 workers ({n} members, bit-for-bit equal to serial: "
-        f"{'yes' if same == 0.0 else 'NO'}): members per second",
-        rate if same == 0.0 else 0.0, DEMO_ENSEMBLE_GOAL_FACTOR * baseline, kind=">=",
-        unit="members/s",
-        details={"seconds": elapsed, "members": n, "members_per_s": rate,
-                 "earlier_engine_members_per_s": baseline,
-                 "gain_over_earlier_engine_x": rate / baseline,
-                 "serial_members_per_s (in this process)": n_cmp / t_serial,
-                 f"max_rel_diff_vs_serial (first {n_cmp} members)": same,
-                 "load_average_1min_before": load_before,
-                 "load_average_1min_after": load_after, **extra},
-    )
+    details = {"seconds": elapsed, "members": n, "members_per_s": rate,
+               "serial_members_per_s (in this process)": n_cmp / t_serial,
+               f"max_rel_diff_vs_serial (first {n_cmp} members)": same,
+               "load_average_1min_before": load_before,
+               "load_average_1min_after": load_after}
+    if not earlier:
+        out.append(Measurement(
+            f"demo-box ensemble, 2 workers ({n} members): members per second against the "
+            f"figure of the engine at {EARLIER_ENGINE} recorded on the machine of the day",
+            rate, DEMO_ENSEMBLE_GOAL_FACTOR * DEMO_ENSEMBLE_BASELINE_MEMBERS_PER_S, kind=">=",
+            unit="members/s", details=dict(details)))
+    out.append(Measurement(
+        f"demo-box ensemble, 2 workers, {n} members with a progress bar "
+        f"({rate:.1f} members/s): largest relative difference from the serial run "
+        f"(first {n_cmp} members)", same, 0.0, kind="<=", unit="(0 = bit for bit)",
+        details=details))
+    return out
 
 
 _SIDE_BY_SIDE = """

@@ -10,9 +10,10 @@ against a hand-written gsw + numpy notebook peer on the same line (peer at
 least 2x slower), timed in interleaved rounds of one run; a reference update
 against a full recompute (<= 1/100); the 600-unknown inverse with
 propagation (< 1 s, from ``bench_solvers`` when present); ensemble
-throughput with 2 workers against 1 (>= 1.7x); members per second of a
-1000-member demo-box ensemble on 2 workers (>= 3x the earlier engine's
-recorded figure, with a progress bar, bit-for-bit equal to the serial run);
+throughput with 2 workers against 1 (>= 1.7x); members per second of the
+demo-box ensemble on 2 workers (>= 3x the engine at ``EARLIER_ENGINE``, run
+alternating with this one), and a 1000-member run with a progress bar,
+bit-for-bit equal to the serial run;
 bounded peak memory of a long chunked model-output section; and the
 workbench's slider goals when ``bench_workbench`` is present.
 
@@ -21,9 +22,10 @@ Usage::
     python benchmarks/run.py [--quick] [--profile] [--json FILE] [--earlier REF]
 
 ``--quick`` runs smaller cases (under a minute); ``--profile`` also prints a
-cProfile listing of the pipeline's hot paths; ``--earlier REF`` also runs the
-demo-box ensemble of the engine at git revision REF, alternating with this
-one, for a gain measured under the same machine load.
+cProfile listing of the pipeline's hot paths; ``--earlier REF`` names the
+engine (git revision, default ``bench_pipeline.EARLIER_ENGINE``) whose
+demo-box ensemble runs alternating with this one, for a gain measured under
+the same machine load (``--earlier none``: against the recorded figure).
 """
 
 from __future__ import annotations
@@ -34,6 +36,7 @@ import json
 import math
 import os
 import platform
+import subprocess
 import sys
 import time
 from pathlib import Path
@@ -127,7 +130,6 @@ def _own_inverse() -> Measurement:
 
 def _earlier_tree(ref: str) -> str:
     """``sectionkit`` and ``demo_sections`` of a git revision, extracted to a temporary folder."""
-    import subprocess
     import tempfile
 
     tree = tempfile.mkdtemp(prefix="sectionkit-earlier-")
@@ -143,11 +145,18 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--quick", action="store_true", help="smaller cases, under a minute")
     parser.add_argument("--profile", action="store_true", help="print the pipeline profile")
     parser.add_argument("--json", default=None, help="also write the measurements as JSON")
-    parser.add_argument("--earlier", default=None, metavar="REF",
-                        help="also run the demo ensemble of the engine at this git revision, "
-                             "alternating with this one (same load)")
+    parser.add_argument("--earlier", default=bench_pipeline.EARLIER_ENGINE, metavar="REF",
+                        help="the engine (git revision) whose demo-ensemble rate the goal "
+                             "multiplies, run alternating with this one (same load); 'none' "
+                             "compares with the figure recorded on the machine of the day")
     args = parser.parse_args(argv)
-    earlier = _earlier_tree(args.earlier) if args.earlier else None
+    earlier = None
+    if args.earlier and args.earlier.lower() != "none":
+        try:
+            earlier = _earlier_tree(args.earlier)
+        except (OSError, subprocess.CalledProcessError) as exc:  # not a git checkout
+            print(f"earlier engine {args.earlier} not available ({exc}); comparing with the "
+                  "recorded figure")
 
     print(f"machine: {_machine()}")
     print(f"load average at start (1, 5, 15 min): {os.getloadavg()}; BLAS threads: "
@@ -160,7 +169,7 @@ def main(argv: list[str] | None = None) -> int:
         lambda: [bench_pipeline.reference_update(args.quick)],
         lambda: _inverse(args.quick),
         lambda: [bench_pipeline.ensemble_scaling(args.quick)],
-        lambda: [bench_pipeline.demo_ensemble_throughput(args.quick, earlier=earlier)],
+        lambda: bench_pipeline.demo_ensemble_throughput(args.quick, earlier=earlier),
         lambda: [bench_pipeline.model_output_memory(args.quick)],
         lambda: _optional("bench_workbench", args.quick),
     ]

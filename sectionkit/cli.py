@@ -107,6 +107,8 @@ def lab_notebook(folder: Path, config: Path | None = None) -> Path:
     import os
     from importlib import resources
 
+    from sectionkit.atomic import write_text_atomic
+
     bundled = resources.files("sectionkit") / "notebooks" / WORKBENCH_NOTEBOOK
     notebook = json.loads(bundled.read_text(encoding="utf-8"))
     target = folder / WORKBENCH_NOTEBOOK
@@ -119,9 +121,7 @@ def lab_notebook(folder: Path, config: Path | None = None) -> Path:
                 cell["source"] = source.replace("open_workbench()",
                                                 f"open_workbench({json.dumps(relative)})")
     if not target.exists():
-        tmp = target.with_name(f".{target.name}.tmp")
-        tmp.write_text(json.dumps(notebook, indent=1) + "\n", encoding="utf-8")
-        tmp.replace(target)
+        write_text_atomic(target, json.dumps(notebook, indent=1) + "\n")
     return target
 
 

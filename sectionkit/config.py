@@ -24,6 +24,7 @@ from typing import Any
 import numpy as np
 import tomli_w
 
+from sectionkit.atomic import write_text_atomic
 from sectionkit.errors import ConfigError, InputFileError, SectionkitError
 from sectionkit.geostrophy import TRIANGLE_RULES, ReferenceChoice
 from sectionkit.io.bottle import tracer_name
@@ -540,11 +541,7 @@ class Config:
         path : str or Path
             Destination .toml file.
         """
-        path = Path(path)
-        tmp = path.with_name(f".{path.name}.tmp")
-        tmp.write_text(self.to_toml(), encoding="utf-8")  # TOML is UTF-8 by definition
-        tmp.replace(path)
-        return path
+        return write_text_atomic(path, self.to_toml())  # TOML is UTF-8 by definition
 
 
 def _reference_to_toml(ref: ReferenceChoice, top: bool = False) -> Any:

@@ -66,16 +66,30 @@ class PairDensities(dict):
     A dict of float -> ndarray (..., pair, level), kg m^-3 (``pair_mean`` of
     :func:`sectionkit.layers.potential_density_anomaly` of the stations' SA
     and CT); a missing reference pressure is computed on first access and kept.
+    Where a bathymetry track lies below both stations of a pair, the water of
+    the deepest level with data continues down to the track (as in the
+    operator's other pair fields).
+
+    Parameters
+    ----------
+    sa, ct : ndarray (..., station, level)
+        Absolute Salinity (g/kg) and Conservative Temperature (degC).
+    continued : dict of int -> (int, int), optional
+        Pair index -> (last level with data, last level down to the track).
     """
 
-    def __init__(self, sa: np.ndarray, ct: np.ndarray) -> None:
+    def __init__(self, sa: np.ndarray, ct: np.ndarray,
+                 continued: dict[int, tuple[int, int]] | None = None) -> None:
         super().__init__()
         self.station_sa = sa
         self.station_ct = ct
+        self.continued = dict(continued or {})
 
     def __missing__(self, p_ref: float) -> np.ndarray:
         value = pair_mean(potential_density_anomaly(self.station_sa, self.station_ct,
                                                     float(p_ref)))
+        for j, (k0, k1) in self.continued.items():
+            value[..., j, k0 + 1 : k1 + 1] = value[..., j, k0 : k0 + 1]
         self[p_ref] = value
         return value
 
@@ -500,11 +514,12 @@ def build_operator(
     for face in interfaces:
         by_p_ref.setdefault(face.p_ref, []).append(face.sigma)
     deciding = deciding_densities(sa, ct, by_p_ref or {0.0: []})
-    for j in below:  # the deeper station's water continues down to the track
-        k0 = int(np.max(data_deepest[..., j]))
-        k1 = int(np.max(deepest[..., j]))
-        if k1 <= k0:
-            continue
+    # the deeper station's water continues down to the track: pair j's level k0 fills
+    # its levels k0 + 1 ... k1
+    continued = {j: (int(np.max(data_deepest[..., j])), int(np.max(deepest[..., j])))
+                 for j in below}
+    continued = {j: (k0, k1) for j, (k0, k1) in continued.items() if k1 > k0}
+    for j, (k0, k1) in continued.items():
         deeper = slice(k0 + 1, k1 + 1)
         for pair_field in (sa_pair, ct_pair, salt_pair, *deciding.values()):
             pair_field[..., j, deeper] = pair_field[..., j, k0 : k0 + 1]
@@ -512,7 +527,7 @@ def build_operator(
                                            ct_pair[..., j, k0 : k0 + 1], p[deeper])
     # one array per interface (no stacked copy of the large fields)
     sigma_if = [deciding[face.p_ref] for face in interfaces] or [deciding[0.0]]
-    sigma_pair = PairDensities(sa, ct)
+    sigma_pair = PairDensities(sa, ct, continued)
     # without interfaces one class holds everything: compare with an unreachable density
     values = np.array([face.sigma for face in interfaces]) if interfaces else np.array([1e9])
 

@@ -99,3 +99,13 @@ def test_water_below_both_stations_is_included_with_a_caution(tmp_path):
     assert pair0 > 1.05 * b * dist[1] * 1e3 * depth[0] / 1e6
     (caution,) = results.cautions.of_kind("bathymetry-below-stations")
     assert "line:0" in str(caution)
+    # the potential density of the water continued down to the track is the deepest
+    # measured one (uniform water here: gsw.rho at 0 dbar of SA 35, CT 4, minus 1000)
+    sigma0 = op.sigma_pair[0.0]
+    k_last = int(np.searchsorted(p, 3000.0))
+    below_stations = sigma0[0, k_last + 1 : int(op.deepest[0]) + 1]
+    assert below_stations.size > 0
+    np.testing.assert_allclose(below_stations, gsw.rho(35.0, 4.0, 0.0) - 1000.0, rtol=0,
+                               atol=1e-12)
+    np.testing.assert_allclose(op.sigma_pair[2000.0][0, k_last + 1 : int(op.deepest[0]) + 1],
+                               gsw.rho(35.0, 4.0, 2000.0) - 1000.0, rtol=0, atol=1e-12)

@@ -12,7 +12,7 @@ import pytest
 from sectionkit.errors import Cautions, InputFileError, SectionDataError
 from sectionkit.io import check_main, load_section
 from sectionkit.io.bottle import read_bottle, tracer_name
-from sectionkit.io.exchange import parse_exchange
+from sectionkit.io.exchange import exchange_texts, parse_exchange
 from sectionkit.io.exchange_write import (
     bottle_text,
     ctd_text,
@@ -327,3 +327,18 @@ def test_bottle_pressure_in_other_units_than_dbar_is_refused_naming_file_and_uni
     path = write_bottle(tmp_path / "btl.csv", rows, units={"CTDPRS": "PSI"})
     with pytest.raises(SectionDataError, match=r"btl\.csv, variable CTDPRS: units 'PSI'"):
         read_bottle(path)
+
+
+def test_a_latin1_comment_is_read_as_written(tmp_path):
+    # older files carry Latin-1 bytes (a degree sign, an accented name) in comments; the
+    # text is kept, not replaced, and the data are read as usual
+    text = HAND_WRITTEN.replace("# invented cast", "# invented cast, J. Müller, 2 °C")
+    path = tmp_path / "latin1_ct1.csv"
+    path.write_bytes(text.encode("latin-1"))
+    ((label, read),) = exchange_texts(path)
+    assert "J. Müller, 2 °C" in read and "\ufffd" not in read
+    table = parse_exchange(read, label)
+    np.testing.assert_array_equal(table.numbers["CTDPRS"], [2.0, 4.0, 6.0])
+    # UTF-8 files are read as UTF-8
+    path.write_bytes(text.encode("utf-8"))
+    assert "Müller, 2 °C" in exchange_texts(path)[0][1]

@@ -24,8 +24,9 @@ from pathlib import Path
 
 import numpy as np
 
+from sectionkit.atomic import write_text_atomic
 from sectionkit.config import AdcpSpec, Config
-from sectionkit.io.exchange_write import write_bottle, write_ctd_zip, write_text_atomic
+from sectionkit.io.exchange_write import write_bottle, write_ctd_zip
 
 #: Bottle pressures of the invented rosette, dbar (a deepest bottle 10 dbar above each
 #: cast's end is added).

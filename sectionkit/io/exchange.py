@@ -156,7 +156,7 @@ def _members(path: str) -> Iterator[tuple[str, str]]:
                 data = archive.read(name)
                 if exchange_kind(data[:64]) is None:
                     continue
-                yield f"{path}:{name}", data.decode("utf-8", "replace")
+                yield f"{path}:{name}", decode_text(data)
     except (zipfile.BadZipFile, OSError) as exc:
         raise InputFileError(
             f"file {path}: cannot be read as a zip archive ({exc}); "
@@ -187,10 +187,32 @@ def exchange_texts(path: str | os.PathLike) -> list[tuple[str, str]]:
             )
         return texts
     try:
-        with open(file, encoding="utf-8", errors="replace") as fh:
-            return [(file, fh.read())]
+        with open(file, "rb") as fh:
+            return [(file, decode_text(fh.read()))]
     except OSError as exc:
         raise InputFileError(f"file {file}: cannot be opened ({exc})") from exc
+
+
+def decode_text(data: bytes) -> str:
+    """The text of a file as delivered: UTF-8, or Latin-1 when it is not valid UTF-8.
+
+    Older exchange files carry Latin-1 characters (degree signs, names) in
+    their comment lines; every byte is a Latin-1 character, so nothing is
+    replaced or lost, and a data line keeps the characters it really has.
+
+    Parameters
+    ----------
+    data : bytes
+        The file's bytes.
+
+    Returns
+    -------
+    str
+    """
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError:
+        return data.decode("latin-1")
 
 
 def parse_exchange(text: str, file: str) -> ExchangeTable:

@@ -16,6 +16,8 @@ from pathlib import Path
 
 import numpy as np
 
+from sectionkit.atomic import replaced_atomically, write_text_atomic
+
 #: Units written for each column.
 UNITS = {
     "CTDPRS": "DBAR",
@@ -36,14 +38,6 @@ DECIMALS = {"CTDPRS": 1, "CTDTMP": 4, "CTDSAL": 4, "SALNTY": 4, "OXYGEN": 1, "SI
 
 def _format(values: np.ndarray, decimals: int) -> list[str]:
     return [f"{v:.{decimals}f}" if np.isfinite(v) else "-999" for v in values]
-
-
-def write_text_atomic(path: Path, text: str) -> Path:
-    """Write ``text`` (UTF-8) to ``path`` through a temporary file renamed into place."""
-    tmp = path.with_name(f".{path.name}.part")
-    tmp.write_text(text, encoding="utf-8")
-    os.replace(tmp, path)
-    return path
 
 
 def ctd_text(
@@ -134,15 +128,14 @@ def write_ctd_zip(path: str | os.PathLike, casts: Sequence[Mapping[str, object]]
         Keyword arguments of :func:`ctd_text`, one per cast.
     """
     path = Path(path)
-    tmp = path.with_name(f".{path.name}.part")
-    with zipfile.ZipFile(tmp, "w", compression=zipfile.ZIP_DEFLATED) as archive:
-        for cast in casts:
-            name = f"{cast.get('expocode', 'SKDEMO2026')}_{int(str(cast['station'])):05d}_" \
-                   f"{int(str(cast.get('cast', '1'))):05d}_ct1.csv"
-            info = zipfile.ZipInfo(name, date_time=(2026, 1, 1, 0, 0, 0))
-            info.compress_type = zipfile.ZIP_DEFLATED
-            archive.writestr(info, ctd_text(**cast))
-    os.replace(tmp, path)
+    with replaced_atomically(path) as tmp:
+        with zipfile.ZipFile(tmp, "w", compression=zipfile.ZIP_DEFLATED) as archive:
+            for cast in casts:
+                name = f"{cast.get('expocode', 'SKDEMO2026')}_{int(str(cast['station'])):05d}_" \
+                       f"{int(str(cast.get('cast', '1'))):05d}_ct1.csv"
+                info = zipfile.ZipInfo(name, date_time=(2026, 1, 1, 0, 0, 0))
+                info.compress_type = zipfile.ZIP_DEFLATED
+                archive.writestr(info, ctd_text(**cast))
     return path
 
 

@@ -568,22 +568,26 @@ def check_gridded_levels(ds, file: str | None = None) -> None:
 
 @kernel
 def _finite_level_counts(sa, ct, levels, common):
-    """Levels where both SA and CT are finite: per station, and common to each pair."""
+    """Levels where both SA and CT are finite: per station, and common to each pair.
+
+    Each value is read once: the mask of the previous station is kept for its pair.
+    """
     n_lead, n_st, n_lev = sa.shape
+    previous = np.zeros(n_lev, dtype=np.bool_)
+    current = np.zeros(n_lev, dtype=np.bool_)
     for r in range(n_lead):
         for j in range(n_st):
             n = 0
+            both = 0
             for k in range(n_lev):
-                if np.isfinite(sa[r, j, k]) and np.isfinite(ct[r, j, k]):
-                    n += 1
+                ok = np.isfinite(sa[r, j, k]) and np.isfinite(ct[r, j, k])
+                current[k] = ok
+                n += ok
+                both += ok and previous[k]
             levels[r, j] = n
-        for j in range(n_st - 1):
-            n = 0
-            for k in range(n_lev):
-                if (np.isfinite(sa[r, j, k]) and np.isfinite(ct[r, j, k])
-                        and np.isfinite(sa[r, j + 1, k]) and np.isfinite(ct[r, j + 1, k])):
-                    n += 1
-            common[r, j] = n
+            if j > 0:
+                common[r, j - 1] = both
+            previous, current = current, previous
 
 
 def inversion_cautions(

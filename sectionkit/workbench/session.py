@@ -16,6 +16,7 @@ import time
 import weakref
 from pathlib import Path
 
+from sectionkit.atomic import write_bytes_atomic
 from sectionkit.config import Config
 
 AUTOSAVE_SUFFIX = ".autosave.toml"
@@ -39,7 +40,7 @@ def keep_backup(path: Path) -> Path:
     n = 1
     while (backup := path.with_name(f"{stem}.{n}.toml")).exists():
         n += 1
-    backup.write_bytes(path.read_bytes())
+    write_bytes_atomic(backup, path.read_bytes())
     return backup
 
 
