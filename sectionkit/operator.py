@@ -26,6 +26,7 @@ import xarray as xr
 
 from sectionkit.arrays import core_last
 from sectionkit.compiled import kernel
+from sectionkit.eos import density_anomaly
 from sectionkit.errors import Cautions, ComputationError, EquatorError, SectionDataError
 from sectionkit.geometry import EQUATOR_HARD_BAND, pair_geometry
 from sectionkit.geostrophy import (
@@ -499,7 +500,7 @@ def build_operator(
         del eos
     else:
         v_rel = relative_velocity_of_pairs
-        rho_station = gsw.rho(sa, ct, p)
+        rho_station = density_anomaly(sa, ct, p, offset=0.0)  # in-situ density (gsw.rho)
     v_eff, response = extend_into_bottom_triangle(v_rel, p, common, deepest, bottom_triangle)
 
     sa_pair = pair_mean(sa)
@@ -523,8 +524,9 @@ def build_operator(
         deeper = slice(k0 + 1, k1 + 1)
         for pair_field in (sa_pair, ct_pair, salt_pair, *deciding.values()):
             pair_field[..., j, deeper] = pair_field[..., j, k0 : k0 + 1]
-        rho_pair[..., j, deeper] = gsw.rho(sa_pair[..., j, k0 : k0 + 1],
-                                           ct_pair[..., j, k0 : k0 + 1], p[deeper])
+        rho_pair[..., j, deeper] = density_anomaly(sa_pair[..., j, k0 : k0 + 1],
+                                                   ct_pair[..., j, k0 : k0 + 1], p[deeper],
+                                                   offset=0.0)
     # one array per interface (no stacked copy of the large fields)
     sigma_if = [deciding[face.p_ref] for face in interfaces] or [deciding[0.0]]
     sigma_pair = PairDensities(sa, ct, continued)
