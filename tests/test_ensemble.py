@@ -142,10 +142,10 @@ def test_sensor_draws_have_the_stated_spread_per_station():
 
 
 def test_cluster_tasks_of_several_members_equal_serial(client):
-    # 35 members on 2 workers run as tasks of 2 members (the last one alone)
+    # 35 members on 2 workers run as tasks of 4 members (the last of 3)
     from sectionkit.ensemble import member_batch_size
 
-    assert member_batch_size(35, 2) == 2
+    assert member_batch_size(35, 2) == 4
     cfg, sections = _config(), _sections()
     perturb = Perturbation(reference_range=(2000.0, 3500.0), prior_factor=(0.5, 2.0))
     seen = []
