@@ -497,11 +497,19 @@ def resolve_references(
     p_used = np.array(p_common, dtype=float, copy=True)
     u_ref = np.zeros_like(p_used)
     too_deep: list[int] = []  # pairs whose reference pressure lies below them
-    groups: dict[ReferenceChoice, list[int]] = {}
+    # pairs sharing a choice are resolved together: grouped by object first (most pairs
+    # share the one global choice), then equal choices merged (hashing one per object)
+    by_object: dict[int, tuple[ReferenceChoice, list[int]]] = {}
     for j, choice in enumerate(choices):
-        groups.setdefault(choice, []).append(j)
-    for choice, members in groups.items():  # pairs sharing a choice are resolved together
-        idx = np.asarray(members)
+        entry = by_object.get(id(choice))
+        if entry is None:
+            entry = by_object[id(choice)] = (choice, [])
+        entry[1].append(j)
+    groups: dict[ReferenceChoice, list[int]] = {}
+    for choice, members in by_object.values():
+        groups.setdefault(choice, []).extend(members)
+    for choice, members in groups.items():
+        idx = np.asarray(sorted(members))
         pc = p_common[..., idx]
         if choice.kind == "bottom":
             pj = pc
