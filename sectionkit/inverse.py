@@ -27,6 +27,7 @@ not model.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -435,9 +436,12 @@ class InverseResult:
         """Adjusted inflow divided by its noise (DESIGN.md §7)."""
         return self.adjusted / self.system.noise
 
-    @property
+    @cached_property
     def posterior_residual_std(self) -> np.ndarray:
         """Standard deviation of each constraint's residual the estimate can achieve, row units.
+
+        Computed once per result (the workbench's reference slider reads it at
+        every step; it does not depend on the data).
 
         ``sqrt(diag(N - E P E^T))`` (Wunsch 1996, *The Ocean Circulation
         Inverse Problem*, ch. 3): the noise less the part of it the adjusted
