@@ -124,6 +124,32 @@ def _median_time(func: Callable[[], Any], repeats: int) -> tuple[float, list[flo
     return statistics.median(times), times
 
 
+def interleaved_ms(steps: dict[str, Callable[[], Any]], rounds: int) -> dict[str, float]:
+    """Fastest processor time of each step over ``rounds`` rounds that run every step in turn.
+
+    Parameters
+    ----------
+    steps : dict of str -> callable
+        The steps to time, by label.
+    rounds : int
+        Number of rounds.
+
+    Returns
+    -------
+    dict of str -> float
+        Milliseconds by label, and ``load``: the 1-minute load average at the end.
+    """
+    best = dict.fromkeys(steps, float("inf"))
+    for _ in range(rounds):
+        for label, step in steps.items():
+            start = time.process_time()
+            step()
+            best[label] = min(best[label], time.process_time() - start)
+    out = {label: 1e3 * t for label, t in best.items()}
+    out["load"] = os.getloadavg()[0]
+    return out
+
+
 # ---------------------------------------------------------------- the long line
 def long_line_study(n_station: int = 200, dp: float = 1.0, p_max: float = 6000.0):
     """Configuration and canonical section of an invented long line.
@@ -853,15 +879,7 @@ def class_chain_parts(rounds: int = 9) -> dict[str, float]:
         for n, (args, kwargs) in enumerate(recorded[name]):
             label = name if n == 0 else f"{name} ({n + 1})"
             steps[label] = (lambda f=originals[name], a=args, k=kwargs: f(*a, **k))
-    best = dict.fromkeys(steps, float("inf"))
-    for _ in range(rounds):
-        for label, step in steps.items():
-            start = time.process_time()
-            step()
-            best[label] = min(best[label], time.process_time() - start)
-    out = {label: 1e3 * t for label, t in best.items()}
-    out["load"] = os.getloadavg()[0]
-    return out
+    return interleaved_ms(steps, rounds)
 
 
 def equation_of_state_parts(rounds: int = 9) -> dict[str, float]:
@@ -904,15 +922,7 @@ def equation_of_state_parts(rounds: int = 9) -> dict[str, float]:
     }
     for step in steps.values():
         step()  # compile and warm
-    best = dict.fromkeys(steps, float("inf"))
-    for _ in range(rounds):
-        for label, step in steps.items():
-            start = time.process_time()
-            step()
-            best[label] = min(best[label], time.process_time() - start)
-    out = {label: 1e3 * t for label, t in best.items()}
-    out["load"] = os.getloadavg()[0]
-    return out
+    return interleaved_ms(steps, rounds)
 
 
 # ---------------------------------------------------------------- profile
