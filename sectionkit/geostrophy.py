@@ -307,15 +307,31 @@ def value_at_pressure(profile: np.ndarray, p: np.ndarray, p_at: np.ndarray) -> n
     ndarray (..., pair)
         Interpolated values, same unit.
     """
-    p = np.asarray(p, dtype=float)
-    p_at = np.asarray(p_at, dtype=float)
-    check_trailing_shape("value_at_pressure", "p", p, np.shape(profile)[-1:], "level")
-    hi = np.clip(np.searchsorted(p, p_at, side="right"), 1, p.size - 1)
-    lo = hi - 1
-    w = np.clip((p_at - p[lo]) / (p[hi] - p[lo]), 0.0, 1.0)
-    v_lo = np.take_along_axis(profile, lo[..., None], axis=-1)[..., 0]
-    v_hi = np.take_along_axis(profile, hi[..., None], axis=-1)[..., 0]
-    return np.where(w == 0.0, v_lo, v_lo + w * (v_hi - v_lo))
+    p = np.ascontiguousarray(p, dtype=float)
+    profile = np.asarray(profile, dtype=float)
+    check_trailing_shape("value_at_pressure", "p", p, profile.shape[-1:], "level")
+    shape = np.broadcast_shapes(profile.shape[:-1], np.shape(p_at))
+    profile = np.ascontiguousarray(np.broadcast_to(profile, shape + profile.shape[-1:]))
+    p_at = np.ascontiguousarray(np.broadcast_to(np.asarray(p_at, dtype=float), shape))
+    out = np.empty(shape)
+    _value_at_pressure(profile.reshape(-1, p.size), p, p_at.reshape(-1), out.reshape(-1))
+    return out
+
+
+@kernel
+def _value_at_pressure(profile, p, p_at, out):
+    """Each row linearly interpolated at its own pressure (the end segments hold their
+    end values beyond the grid; the value at a grid level exactly that level's)."""
+    n = p.size
+    for r in range(profile.shape[0]):
+        if np.isnan(p_at[r]):
+            out[r] = np.nan
+            continue
+        hi = min(max(np.searchsorted(p, p_at[r], side="right"), 1), n - 1)
+        lo = hi - 1
+        w = min(max((p_at[r] - p[lo]) / (p[hi] - p[lo]), 0.0), 1.0)
+        v_lo = profile[r, lo]
+        out[r] = v_lo if w == 0.0 else v_lo + w * (profile[r, hi] - v_lo)
 
 
 def isopycnal_pressure(

@@ -147,3 +147,25 @@ def test_class_levels_refuses_thickness_of_other_grid():
 def test_bottom_width_fraction_refuses_unequal_bottoms():
     with pytest.raises(ComputationError, match=r"bottom_b has shape \(2,\)"):
         bottom_width_fraction(P, np.array([500.0, 600.0, 700.0]), np.array([500.0, 600.0]))
+
+
+def test_value_at_pressure_is_numpy_interp_of_each_profile():
+    # numpy.interp per profile (the definition inside the grid; ends held), NaN pressure -> NaN
+    rng = np.random.default_rng(7)
+    p = np.arange(0.0, 500.0, 10.0)
+    profile = rng.normal(size=(3, 4, p.size))
+    p_at = rng.uniform(-20.0, 520.0, size=(3, 4))
+    p_at[0, 0] = 250.0  # exactly a grid level
+    p_at[1, 2] = np.nan
+    got = value_at_pressure(profile, p, p_at)
+    for i in range(3):
+        for j in range(4):
+            if np.isnan(p_at[i, j]):
+                assert np.isnan(got[i, j])
+            else:
+                assert got[i, j] == pytest.approx(np.interp(p_at[i, j], p, profile[i, j]),
+                                                  abs=1e-12)
+    # one pressure per pair broadcast over a leading dimension
+    np.testing.assert_allclose(value_at_pressure(profile, p, p_at[0]),
+                               [[np.interp(p_at[0, j], p, profile[i, j]) for j in range(4)]
+                                for i in range(3)], atol=1e-12)
