@@ -62,6 +62,7 @@ from sectionkit.config import Config, load_config
 from sectionkit.errors import ConfigError
 from sectionkit.outputs import REGISTRY, udunits
 from sectionkit.study import Results, Study
+from sectionkit.thermo import valid_from_surface
 
 __all__ = [
     "CLASS_OUTPUTS",
@@ -223,26 +224,8 @@ def _even_profiles(values: np.ndarray, pressure: np.ndarray) -> tuple[float, np.
     if not (values.ndim == 2 and values.shape[-1] == pressure.size and step.size
             and np.all(step > 0) and np.all(np.abs(step - step[0]) <= 1e-12 * step[0])):
         return None
-    values = np.ascontiguousarray(values)
-    count = np.empty(values.shape[0], dtype=np.int64)
-    if not _finite_prefix(values, count):
-        return None
-    return float(step[0]), count
-
-
-@kernel
-def _finite_prefix(values, count):
-    """Number of leading finite values of each row; False if a row has data after a NaN."""
-    n_row, n_lev = values.shape
-    for r in range(n_row):
-        n = 0
-        while n < n_lev and np.isfinite(values[r, n]):
-            n += 1
-        for k in range(n, n_lev):
-            if np.isfinite(values[r, k]):
-                return False
-        count[r] = n
-    return True
+    count, whole = valid_from_surface(values)
+    return (float(step[0]), count) if whole else None
 
 
 @kernel

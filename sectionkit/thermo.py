@@ -416,6 +416,32 @@ def _uniform_refinement(p: np.ndarray, max_dp: float) -> int | None:
     return n
 
 
+def valid_from_surface(sa: np.ndarray, ct: np.ndarray | None = None
+                       ) -> tuple[np.ndarray, bool]:
+    """Valid levels of each profile from the surface down, and whether that is all its data.
+
+    Parameters
+    ----------
+    sa : ndarray (profile, level)
+        Absolute Salinity, g/kg (or any profile variable, any unit); NaN below the bottom.
+    ct : ndarray (profile, level), optional
+        Conservative Temperature, degC; a level is valid where both are. Without
+        it, ``sa`` alone.
+
+    Returns
+    -------
+    count : ndarray (profile,) of int
+        Number of valid levels above each profile's first invalid one.
+    whole : bool
+        True when no profile has a valid level below its first invalid one
+        (NaN only below the bottom).
+    """
+    sa = np.ascontiguousarray(sa, dtype=float)
+    ct = sa if ct is None else np.ascontiguousarray(ct, dtype=float)
+    count = np.empty(sa.shape[0], dtype=np.int64)
+    return count, bool(_valid_from_surface(sa, ct, count))
+
+
 @kernel
 def _valid_from_surface(sa: np.ndarray, ct: np.ndarray, count: np.ndarray) -> bool:
     """Number of valid levels above each profile's first NaN (into ``count``), and whether
